@@ -1,0 +1,63 @@
+"""slicer: ground-penetrating-radar grid surveys to georeferenced plan-view depth slices.
+
+The flow, each arrow a function from xarray objects to xarray objects::
+
+    read_line -> place_line -> correct_time_zero -> dewow -> remove_background -> apply_gain
+    -> envelope -> reduce_to_windows -> grid_slices -> write_slice_geotiffs / write_cube_netcdf
+
+:func:`build` runs all of it from a :class:`BuildSettings` (see :func:`load_settings`).
+"""
+
+__version__ = "0.1.0"
+
+from ._atomic import atomic_path, prepare_output_dir
+from ._build import BuildResult, build, build_cube, grid_slices, process_line, reduce_survey
+from ._conventions import C_M_PER_NS
+from ._cube import new_cube, read_cube_netcdf, write_cube_netcdf
+from ._demo import run_demo
+from ._errors import (
+    InputFileError,
+    LineTableError,
+    OutputError,
+    SettingsError,
+    SlicerError,
+    SlicerWarning,
+)
+from ._figures import plot_overview, plot_slice
+from ._geotiff import write_slice_geotiffs
+from ._grid import Grid, grid_for, neighbour_weights
+from ._linetable import LineEntry, read_line_table
+from ._processing import (
+    apply_gain,
+    correct_time_zero,
+    dewow,
+    dominant_frequency,
+    envelope,
+    pick_time_zero,
+    remove_background,
+)
+from ._reading import line_info, read_line
+from ._settings import BuildSettings, load_settings
+from ._survey import iter_lines, place_line, survey_info
+from ._velocity import (
+    check_velocity,
+    depth_from_time,
+    permittivity_from_velocity,
+    time_from_depth,
+    to_depth,
+    velocity_from_permittivity,
+)
+from ._windows import Windows, make_windows, parse_range, reduce_to_windows
+
+__all__ = [
+    "C_M_PER_NS", "BuildResult", "BuildSettings", "Grid", "InputFileError", "LineEntry",
+    "LineTableError", "OutputError", "SettingsError", "SlicerError", "SlicerWarning", "Windows",
+    "apply_gain", "atomic_path", "build", "build_cube", "check_velocity", "correct_time_zero",
+    "depth_from_time", "dewow", "dominant_frequency", "envelope", "grid_for", "grid_slices",
+    "iter_lines", "line_info", "load_settings", "make_windows", "neighbour_weights", "new_cube",
+    "parse_range", "permittivity_from_velocity", "pick_time_zero", "place_line", "plot_overview",
+    "plot_slice", "prepare_output_dir", "process_line", "read_cube_netcdf", "read_line",
+    "read_line_table", "reduce_survey", "reduce_to_windows", "remove_background", "run_demo",
+    "survey_info", "time_from_depth", "to_depth", "velocity_from_permittivity",
+    "write_cube_netcdf", "write_slice_geotiffs",
+]

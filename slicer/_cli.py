@@ -1,0 +1,188 @@
+"""The ``slicer`` command line: a thin layer over the library.
+
+Options are parsed into one :class:`~slicer.BuildSettings`; the library's one exception family
+(:class:`~slicer.SlicerError`) becomes one line on stderr and exit code 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+import time
+import warnings
+from pathlib import Path
+
+from ._errors import SlicerError, SlicerWarning
+
+EXIT_BAD_INPUT = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports a usage error in one line (and exit code 2)."""
+
+    def error(self, message):  # noqa: D102 - argparse API
+        self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see --help)\n")
+
+
+def _number_or_auto(text: str):
+    return text if text in ("auto", "off") else float(text)
+
+
+def _float(text: str) -> float:
+    return float(text)
+
+
+def _add_build_options(p: argparse.ArgumentParser) -> None:
+    g = p.add_argument_group("survey")
+    g.add_argument("--crs", help="CRS of the line coordinates, e.g. EPSG:32633 (projected, m)")
+    g.add_argument("--sample-interval", type=_float, metavar="NS",
+                   help="sample interval in ns (needed when the files cannot hold it)")
+    g = p.add_argument_group("processing")
+    g.add_argument("--time-zero", type=_number_or_auto, metavar="NS|auto",
+                   help="time zero in ns on the raw record, or 'auto' to pick the direct "
+                        "wave's first peak on each line (default auto)")
+    g.add_argument("--time-zero-threshold", type=_float, metavar="FRACTION",
+                   help="fraction of the largest amplitude the direct wave reaches (default 0.5)")
+    g.add_argument("--dewow", type=_number_or_auto, metavar="NS|auto|off",
+                   help="running-mean window removing wow (default auto: 1.5 dominant periods)")
+    g.add_argument("--background", choices=("mean", "median", "off"),
+                   help="subtract each line's mean or median trace (default mean)")
+    g.add_argument("--gain", metavar="power:P|exp:DB_PER_NS|none",
+                   help="gain against time below time zero (default power:1, t^1)")
+    g = p.add_argument_group("velocity")
+    v = g.add_mutually_exclusive_group()
+    v.add_argument("--velocity", type=_float, metavar="M_PER_NS",
+                   help="radar velocity in the ground, m/ns (0 < v < 0.2998)")
+    v.add_argument("--permittivity", type=_float, metavar="ER",
+                   help="relative permittivity of the ground (v = c / sqrt(er))")
+    g = p.add_argument_group("slices and grid")
+    s = g.add_mutually_exclusive_group()
+    s.add_argument("--depths", metavar="TOP:BOTTOM:STEP",
+                   help="depth slices in m below the surface (needs a velocity)")
+    s.add_argument("--times", metavar="TOP:BOTTOM:STEP",
+                   help="time slices in ns below time zero")
+    g.add_argument("--thickness", type=_float, metavar="M|NS",
+                   help="slice thickness (default: the step)")
+    g.add_argument("--cell", type=_float, metavar="M",
+                   help="grid cell in m (default: a round number near a quarter of the line "
+                        "spacing)")
+    g.add_argument("--radius", type=_float, metavar="M",
+                   help="search radius in m: cells farther from any trace stay nodata "
+                        "(default 0.75 x line spacing)")
+    g = p.add_argument_group("output")
+    g.add_argument("--title", help="title of the overview sheet")
+    g.add_argument("--overwrite", action="store_const", const=True, default=None,
+                   help="replace the outputs of an earlier build in a non-empty --out folder")
+
+
+def make_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``slicer`` command."""
+    from . import __version__
+
+    parser = _Parser(prog="slicer", description="Ground-penetrating-radar grid surveys to "
+                     "georeferenced plan-view depth slices (GeoTIFF, CF NetCDF, overview).")
+    parser.add_argument("--version", action="version", version=f"slicer {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    b = sub.add_parser("build", help="build slices from a line table or TOML survey file",
+                       description="Read the lines of a survey, process them, grid them and "
+                       "write depth (or time) slices as GeoTIFFs, a CF NetCDF cube, an overview "
+                       "sheet and a record of the build. Options override a TOML survey file.")
+    b.add_argument("survey", metavar="LINES.csv|SURVEY.toml",
+                   help="line table (file,start_x,start_y,end_x,end_y) or TOML survey file")
+    _add_build_options(b)
+    b.add_argument("--out", metavar="DIR", help="output folder (must be empty or new, unless "
+                   "--overwrite); required unless the survey file sets it")
+    b.add_argument("-q", "--quiet", action="store_true", help="no progress bars or summary")
+
+    d = sub.add_parser("demo", help="write the invented demo survey and build it",
+                       description="Write the project's invented demo survey (synthetic lines "
+                       "over buried footings, a drain and scattered stones) to DIR/survey, then "
+                       "build its depth slices into DIR/build.")
+    d.add_argument("--out", metavar="DIR", required=True, help="folder for survey and build")
+    d.add_argument("--format", choices=("segy", "netcdf"), default="segy",
+                   help="file format of the demo lines (default segy)")
+    d.add_argument("--overwrite", action="store_true", help="replace an earlier demo in DIR")
+    d.add_argument("-q", "--quiet", action="store_true", help="no progress bars or summary")
+    return parser
+
+
+def _settings_from_args(args) -> dict:
+    keys = ("crs", "sample_interval", "time_zero", "time_zero_threshold", "dewow", "background",
+            "gain", "velocity", "permittivity", "depths", "times", "thickness", "cell", "radius",
+            "title", "out", "overwrite")
+    return {k: getattr(args, k) for k in keys}
+
+
+def _summary(result, elapsed: float) -> str:
+    rec = result.record
+    grid = rec["grid"]
+    sl = rec["slices"]
+    return (f"{rec['survey']['lines']} lines, {rec['survey']['traces']} traces -> "
+            f"{len(sl['top'])} {sl['axis']} slices on {grid['nx']} x {grid['ny']} cells of "
+            f"{grid['cell']:g} m in {elapsed:.1f} s")
+
+
+def _run_build(args, argv) -> int:
+    from ._build import build
+    from ._settings import load_settings
+
+    settings = load_settings(args.survey, **_settings_from_args(args))
+    if settings.out is None:
+        raise SlicerError("no output folder: give --out DIR", where="--out")
+    started = time.perf_counter()
+    result = build(settings, progress=not args.quiet, command=["slicer", *argv])
+    if not args.quiet:
+        print(f"{_summary(result, time.perf_counter() - started)}; wrote {settings.out}")
+    return 0
+
+
+def _run_demo(args) -> int:
+    from ._demo import run_demo
+
+    started = time.perf_counter()
+    result = run_demo(args.out, format=args.format, overwrite=args.overwrite,
+                      progress=not args.quiet)
+    if not args.quiet:
+        print(f"demo survey in {Path(args.out) / 'survey'}; "
+              f"{_summary(result, time.perf_counter() - started)}; "
+              f"wrote {Path(args.out) / 'build'}")
+    return 0
+
+
+def _show_warning(message, category, filename, lineno, file=None, line=None):
+    if issubclass(category, SlicerWarning):
+        print(f"slicer: warning: {message}", file=sys.stderr)
+    else:
+        _default_showwarning(message, category, filename, lineno, file, line)
+
+
+_default_showwarning = warnings.showwarning
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Entry point of the ``slicer`` command; returns the exit code."""
+    argv = sys.argv[1:] if argv is None else list(argv)
+    args = make_parser().parse_args(argv)
+    warnings.showwarning = _show_warning
+    try:
+        if args.command == "build":
+            return _run_build(args, argv)
+        return _run_demo(args)
+    except SlicerError as exc:
+        print(f"slicer: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except OSError as exc:  # disk full, permissions: the system's words, one line
+        name = f"{exc.filename}: " if exc.filename else ""
+        print(f"slicer: error: {name}{exc.strerror or exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("slicer: interrupted; finished files are whole, the rest were not written",
+              file=sys.stderr)
+        return 130
+    finally:
+        warnings.showwarning = _default_showwarning
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

@@ -1,0 +1,274 @@
+"""The output grid, and the neighbour weights that put traces onto it.
+
+Trace positions do not change from slice to slice, so the weights are computed once as a sparse
+matrix ``W`` (cells x traces, rows summing to 1) and every slice is ``W @ values``.
+
+Sampling is dense along lines and sparse across them. Each trace's weight for a cell is the
+product of two tents measured in that trace's own line frame: ``1 - |along| / h`` along its line
+(``h`` about one cell) and ``1 - |across| / s`` across it (``s`` the spacing to the neighbouring
+line). Between two parallel lines this is linear interpolation across the lines of values
+averaged over about a cell along them, so neither line is copied into the gap (no stripes); lines
+of another direction (an orthogonal set) weigh in through their own frame. A cell whose nearest
+trace is farther than the search radius, or that no tent reaches, stays NaN.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.sparse
+import scipy.spatial
+
+from ._errors import SettingsError, warn
+
+
+@dataclass(frozen=True)
+class Grid:
+    """A north-up grid of square cells.
+
+    Attributes
+    ----------
+    west, north : float
+        Coordinates of the grid's upper-left corner (m), whole multiples of ``cell``.
+    cell : float
+        Cell edge (m).
+    nx, ny : int
+        Columns (eastward) and rows (southward).
+    """
+
+    west: float
+    north: float
+    cell: float
+    nx: int
+    ny: int
+
+    @property
+    def x(self) -> np.ndarray:
+        """Cell-centre eastings (m), ascending."""
+        return self.west + self.cell * (np.arange(self.nx) + 0.5)
+
+    @property
+    def y(self) -> np.ndarray:
+        """Cell-centre northings (m), descending."""
+        return self.north - self.cell * (np.arange(self.ny) + 0.5)
+
+    @property
+    def size(self) -> int:
+        return self.nx * self.ny
+
+
+def check_cell(cell: float, *, where: str = "--cell") -> float:
+    """Return the cell size (m) if it is a positive finite number."""
+    try:
+        c = float(cell)
+    except (TypeError, ValueError):
+        raise SettingsError(f"cell size must be a number of metres, got {cell!r}",
+                            where=where) from None
+    if not math.isfinite(c) or c <= 0:
+        raise SettingsError(f"cell size must be positive, got {c:g} m", where=where)
+    return c
+
+
+def grid_for(x: np.ndarray, y: np.ndarray, *, cell: float, max_cells: int = 200_000_000) -> Grid:
+    """The smallest grid of whole cells (corner on a multiple of ``cell``) covering the points."""
+    cell = check_cell(cell)
+    # a small tolerance keeps a point lying exactly on a cell edge from adding a row of cells
+    i0 = math.floor(float(np.min(x)) / cell + 1e-9)
+    i1 = math.ceil(float(np.max(x)) / cell - 1e-9)
+    j0 = math.floor(float(np.min(y)) / cell + 1e-9)
+    j1 = math.ceil(float(np.max(y)) / cell - 1e-9)
+    nx, ny = max(i1 - i0, 1), max(j1 - j0, 1)
+    if nx * ny > max_cells:
+        raise SettingsError(
+            f"a {cell:g} m cell gives {nx} x {ny} cells over the survey; choose a larger cell",
+            where="--cell")
+    return Grid(west=round(i0 * cell, 9), north=round(j1 * cell, 9), cell=cell, nx=nx, ny=ny)
+
+
+def line_spacings(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> np.ndarray:
+    """Spacing (m) from each line to its parallel neighbours, one value per line id.
+
+    For each line, the perpendicular offsets of the other lines' midpoints that run within
+    15 degrees of it and overlap it along its length are found on both sides; the line's
+    spacing is the larger of the nearest offsets on each side (the gap it must bridge).
+    Lines with no parallel neighbour get the median of the others.
+    """
+    ids = np.unique(line)
+    mid, direction, half = [], [], []
+    for i in ids:
+        sel = line == i
+        px, py = x[sel], y[sel]
+        d = np.array([px[-1] - px[0], py[-1] - py[0]])
+        length = float(np.hypot(*d))
+        direction.append(d / length if length > 0 else np.array([1.0, 0.0]))
+        mid.append(np.array([px.mean(), py.mean()]))
+        half.append(length / 2)
+    mid, direction, half = np.array(mid), np.array(direction), np.array(half)
+    spacing = np.full(len(ids), np.nan)
+    for k in range(len(ids)):
+        u = direction[k]
+        parallel = np.abs(direction @ u) > math.cos(math.radians(15))
+        rel = mid - mid[k]
+        along = rel @ u
+        across = rel @ np.array([-u[1], u[0]])
+        ok = parallel & (np.abs(along) < half + half[k]) & (np.abs(across) > 1e-9)
+        sides = [np.abs(across[ok & (across > 0)]), np.abs(across[ok & (across < 0)])]
+        nearest = [s.min() for s in sides if s.size]
+        if nearest:
+            spacing[k] = max(nearest)
+    if np.isnan(spacing).all():
+        return spacing
+    spacing[np.isnan(spacing)] = np.nanmedian(spacing)
+    return spacing
+
+
+def trace_spacing(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> float:
+    """Median distance (m) between consecutive traces of the same line."""
+    same = line[1:] == line[:-1]
+    steps = np.hypot(np.diff(x), np.diff(y))[same]
+    steps = steps[steps > 0]
+    return float(np.median(steps)) if steps.size else math.nan
+
+
+@dataclass(frozen=True)
+class Weights:
+    """Neighbour weights of a grid: ``values_on_cells = matrix @ values_on_traces``.
+
+    Attributes
+    ----------
+    matrix : scipy.sparse.csr_array
+        Cells (row-major over ``(y, x)``) x traces, rows summing to 1 (or empty).
+    empty : numpy.ndarray
+        Boolean per cell: no trace within the radius, or no weight; these cells are NaN.
+    radius, across, along : float
+        Search radius, across-line tent half-width (the line spacing, median over lines) and
+        along-line tent half-width (m).
+    """
+
+    matrix: scipy.sparse.csr_array
+    empty: np.ndarray
+    radius: float
+    across: float
+    along: float
+
+    def apply(self, values: np.ndarray) -> np.ndarray:
+        """Grid a ``(traces, slices)`` array into ``(slices, cells)``, NaN where empty.
+
+        NaN trace values (a window a short record does not reach) are left out and the other
+        weights of the cell renormalised.
+        """
+        values = np.asarray(values, dtype=np.float64)
+        finite = np.isfinite(values)
+        total = self.matrix @ np.where(finite, values, 0.0)
+        if finite.all():
+            out = total
+        else:
+            weight = self.matrix @ finite.astype(np.float64)
+            with np.errstate(invalid="ignore", divide="ignore"):
+                out = np.where(weight > 1e-12, total / weight, np.nan)
+        out = out.T
+        out[:, self.empty] = np.nan
+        return out.astype(np.float32)
+
+
+def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray, *,
+                      radius: float | None = None, along: float | None = None,
+                      progress: bool = False) -> Weights:
+    """Sparse weights from traces at ``(x, y)`` on lines ``line`` to the cells of ``grid``.
+
+    Parameters
+    ----------
+    grid : Grid
+        The output grid.
+    x, y : numpy.ndarray
+        Trace positions (m), grouped by line and in recording order within a line.
+    line : numpy.ndarray
+        Integer line id of every trace.
+    radius : float, optional
+        Cells with no trace closer than this (m) stay NaN. Default 0.75 x the median line
+        spacing, but at least one cell diagonal.
+    along : float, optional
+        Half-width (m) of the along-line tent. Default the larger of the cell and the trace
+        spacing.
+    progress : bool
+        Show a progress bar (tqdm).
+    """
+    x = np.asarray(x, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    line = np.asarray(line)
+    if x.size == 0:
+        raise SettingsError("no traces to grid")
+    dx_step = trace_spacing(x, y, line)
+    spacing_per_line = line_spacings(x, y, line)
+    ids, index = np.unique(line, return_inverse=True)
+    if np.isnan(spacing_per_line).all():
+        fallback = 20 * (dx_step if math.isfinite(dx_step) else grid.cell)
+        warn(f"no parallel neighbour lines found; assuming a line spacing of {fallback:.3g} m")
+        spacing_per_line = np.full(len(ids), fallback)
+    s_trace = spacing_per_line[index]
+    s_median = float(np.median(spacing_per_line))
+    if along is None:
+        along = max(grid.cell, dx_step if math.isfinite(dx_step) else grid.cell)
+    if radius is None:
+        radius = max(0.75 * s_median, grid.cell * math.sqrt(2))
+    elif not math.isfinite(radius) or radius <= 0:
+        raise SettingsError(f"search radius must be positive, got {radius:g} m",
+                            where="--radius")
+
+    ux, uy = _line_directions(x, y, line)
+    trees = scipy.spatial.cKDTree(np.column_stack([x, y]))
+    gx, gy = np.meshgrid(grid.x, grid.y)
+    cells = np.column_stack([gx.ravel(), gy.ravel()])
+    nearest, _ = trees.query(cells, k=1, distance_upper_bound=radius)
+
+    reach = math.hypot(along, float(s_trace.max()))
+    rows, cols, vals = [], [], []
+    chunk = 20_000
+    from tqdm.auto import tqdm
+    for start in tqdm(range(0, len(cells), chunk), desc="weights", unit="chunk",
+                      disable=not progress, leave=False):
+        block = cells[start:start + chunk]
+        live = np.isfinite(nearest[start:start + chunk])
+        if not live.any():
+            continue
+        hits = trees.query_ball_point(block[live], r=reach, return_sorted=False)
+        counts = np.fromiter((len(h) for h in hits), dtype=np.int64, count=len(hits))
+        if counts.sum() == 0:
+            continue
+        r = np.repeat(np.flatnonzero(live) + start, counts)
+        c = np.concatenate([np.asarray(h, dtype=np.int64) for h in hits])
+        dxp, dyp = cells[r, 0] - x[c], cells[r, 1] - y[c]
+        a = np.abs(dxp * ux[c] + dyp * uy[c])
+        b = np.abs(-dxp * uy[c] + dyp * ux[c])
+        w = np.clip(1 - a / along, 0, None) * np.clip(1 - b / s_trace[c], 0, None)
+        keep = w > 0
+        rows.append(r[keep])
+        cols.append(c[keep])
+        vals.append(w[keep])
+    if rows:
+        rows, cols, vals = np.concatenate(rows), np.concatenate(cols), np.concatenate(vals)
+    else:
+        rows = cols = np.zeros(0, dtype=np.int64)
+        vals = np.zeros(0)
+    matrix = scipy.sparse.csr_array((vals, (rows, cols)), shape=(grid.size, x.size))
+    total = np.asarray(matrix.sum(axis=1)).ravel()
+    empty = ~np.isfinite(nearest) | (total <= 0)
+    scale = np.where(total > 0, 1.0 / np.where(total > 0, total, 1.0), 0.0)
+    matrix = (scipy.sparse.diags_array(scale) @ matrix).tocsr()
+    return Weights(matrix=matrix, empty=empty, radius=float(radius), across=s_median,
+                   along=float(along))
+
+
+def _line_directions(x: np.ndarray, y: np.ndarray, line: np.ndarray):
+    """Unit vector (ux, uy) of each trace's line, from the line's first to its last trace."""
+    ux = np.ones_like(x)
+    uy = np.zeros_like(y)
+    for i in np.unique(line):
+        sel = np.flatnonzero(line == i)
+        d = np.array([x[sel[-1]] - x[sel[0]], y[sel[-1]] - y[sel[0]]])
+        n = float(np.hypot(*d))
+        if n > 0:
+            ux[sel], uy[sel] = d[0] / n, d[1] / n
+    return ux, uy

@@ -1,0 +1,173 @@
+"""Slice windows, and the reduction of every trace to its slice values.
+
+A slice value is the mean envelope over a window ``[top, bottom)`` of depth (m) or two-way time
+(ns). It is computed exactly for the piecewise-linear trace (linear between samples) from its
+cumulative integral, so windows need not line up with samples and may be thinner or thicker than
+the sample interval.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import xarray as xr
+
+from ._conventions import DEPTH, SLICE, TWT
+from ._errors import SettingsError
+from ._velocity import check_velocity, time_from_depth
+
+
+@dataclass(frozen=True)
+class Windows:
+    """Slice windows along one axis.
+
+    Attributes
+    ----------
+    axis : {"depth", "twt"}
+        Depth below the surface (m, positive down) or two-way time below time zero (ns).
+    top, bottom : numpy.ndarray
+        Window limits, ``top < bottom``, in the axis's unit.
+    """
+
+    axis: str
+    top: np.ndarray
+    bottom: np.ndarray
+
+    @property
+    def units(self) -> str:
+        return "m" if self.axis == DEPTH else "ns"
+
+    def __len__(self) -> int:
+        return len(self.top)
+
+    def select(self, keep: np.ndarray) -> Windows:
+        """The windows where boolean ``keep`` is true."""
+        return Windows(self.axis, self.top[keep], self.bottom[keep])
+
+    def times(self, velocity: float | None) -> tuple[np.ndarray, np.ndarray]:
+        """Window limits as two-way times below time zero (ns)."""
+        if self.axis == TWT:
+            return self.top, self.bottom
+        if velocity is None:
+            raise SettingsError("depth slices need a velocity: give --velocity or "
+                                "--permittivity, or cut time slices with --times",
+                                where="--velocity")
+        return time_from_depth(self.top, velocity=velocity), time_from_depth(
+            self.bottom, velocity=velocity)
+
+    def describe(self) -> str:
+        u = self.units
+        return (f"{len(self)} {self.axis} slices {self.top[0]:g}-{self.bottom[-1]:g} {u}, "
+                f"thickness {float(np.median(self.bottom - self.top)):g} {u}")
+
+
+def parse_range(text: str, *, option: str) -> tuple[float, float, float]:
+    """Parse ``"TOP:BOTTOM:STEP"`` into three finite floats, naming ``option`` on error."""
+    parts = str(text).split(":")
+    if len(parts) != 3:
+        raise SettingsError(f"expected TOP:BOTTOM:STEP, got {text!r}", where=option)
+    try:
+        top, bottom, step = (float(p) for p in parts)
+    except ValueError:
+        raise SettingsError(f"TOP:BOTTOM:STEP must be numbers, got {text!r}",
+                            where=option) from None
+    if not all(math.isfinite(v) for v in (top, bottom, step)):
+        raise SettingsError(f"TOP:BOTTOM:STEP must be finite, got {text!r}", where=option)
+    return top, bottom, step
+
+
+def make_windows(top: float, bottom: float, step: float, *, thickness: float | None = None,
+                 axis: str = DEPTH, option: str | None = None) -> Windows:
+    """Windows starting at ``top`` every ``step``, each ``thickness`` thick (default ``step``).
+
+    The last window ends at or before ``bottom`` (a rounding tolerance of 1e-9 of the range
+    lets ``0:2.4:0.1`` give 24 windows). Depth and time must not be negative: they are counted
+    down from the surface (time zero).
+    """
+    option = option or ("--depths" if axis == DEPTH else "--times")
+    unit = "m" if axis == DEPTH else "ns"
+    if step <= 0:
+        raise SettingsError(f"step must be positive, got {step:g} {unit}", where=option)
+    if bottom <= top:
+        raise SettingsError(f"range is empty or reversed ({top:g} to {bottom:g} {unit})",
+                            where=option)
+    if top < 0:
+        raise SettingsError(f"top must be at or below the surface (>= 0), got {top:g} {unit}",
+                            where=option)
+    thick = step if thickness is None else float(thickness)
+    if not math.isfinite(thick) or thick <= 0:
+        raise SettingsError(f"thickness must be positive, got {thick:g} {unit}",
+                            where="--thickness")
+    span = bottom - top
+    if thick > span * (1 + 1e-9):
+        raise SettingsError(f"thickness {thick:g} {unit} exceeds the range {top:g}-{bottom:g}",
+                            where="--thickness")
+    n = int(math.floor((span - thick) / step + 1e-9)) + 1
+    tops = top + step * np.arange(n)
+    return Windows(axis, tops, tops + thick)
+
+
+def _window_means_core(samples: np.ndarray, *, twt: np.ndarray, t_top: np.ndarray,
+                       t_bottom: np.ndarray) -> np.ndarray:
+    """Exact mean of the piecewise-linear traces over each ``[t_top, t_bottom)`` (last axis)."""
+    y = samples.astype(np.float64, copy=False)
+    dt = twt[1] - twt[0]
+    steps = 0.5 * dt * (y[..., 1:] + y[..., :-1])
+    cumulative = np.concatenate([np.zeros(y.shape[:-1] + (1,)), np.cumsum(steps, axis=-1)],
+                                axis=-1)
+
+    def integral_to(t: np.ndarray) -> np.ndarray:
+        pos = (t - twt[0]) / dt
+        k = np.clip(np.floor(pos).astype(int), 0, y.shape[-1] - 2)
+        u = pos - k
+        y0, y1 = y[..., k], y[..., k + 1]
+        return cumulative[..., k] + dt * (u * y0 + 0.5 * u * u * (y1 - y0))
+
+    means = (integral_to(t_bottom) - integral_to(t_top)) / (t_bottom - t_top)
+    outside = (t_top < twt[0] - 1e-9) | (t_bottom > twt[-1] + 1e-9)
+    means[..., outside] = np.nan  # a window the record does not reach has no value
+    return means.astype(np.float32)
+
+
+def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
+                      velocity: float | None = None) -> xr.DataArray:
+    """Mean of each trace over every window: a ``(trace, slice)`` table.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``, time-zero corrected (``twt = 0`` at the surface), usually the
+        envelope.
+    windows : Windows
+        Depth windows (then ``velocity`` is required) or time windows.
+    velocity : float, optional
+        Constant radar velocity (m/ns) converting depth windows to time windows.
+
+    Returns
+    -------
+    xarray.DataArray
+        Dims ``(trace, slice)``, NaN for windows the record does not reach.
+    """
+    if velocity is not None:
+        velocity = check_velocity(velocity)
+    t_top, t_bottom = windows.times(velocity)
+    twt = line[TWT].values
+    data = line.chunk({TWT: -1}) if line.chunks is not None else line
+    out = xr.apply_ufunc(
+        _window_means_core, data,
+        kwargs={"twt": twt, "t_top": t_top, "t_bottom": t_bottom},
+        input_core_dims=[[TWT]], output_core_dims=[[SLICE]],
+        dask="parallelized", output_dtypes=[np.float32],
+        dask_gufunc_kwargs={"output_sizes": {SLICE: len(windows)}}, keep_attrs=True)
+    u = windows.units
+    return out.assign_coords(
+        top=(SLICE, windows.top, {"units": u, "axis": windows.axis}),
+        bottom=(SLICE, windows.bottom, {"units": u, "axis": windows.axis}))
+
+
+def record_reach(twt_end: float, windows: Windows, *, velocity: float | None) -> np.ndarray:
+    """Boolean mask of the windows whose bottom lies within a record ending at ``twt_end`` ns."""
+    _, t_bottom = windows.times(velocity)
+    return t_bottom <= twt_end + 1e-9
