@@ -13,7 +13,7 @@ __version__ = "0.1.0"
 from ._atomic import atomic_path, prepare_output_dir
 from ._build import BuildResult, build, build_cube, grid_slices, process_line, reduce_survey
 from ._conventions import C_M_PER_NS
-from ._cube import new_cube, read_cube_netcdf, write_cube_netcdf
+from ._cube import cube_crs, cube_transform, new_cube, read_cube_netcdf, write_cube_netcdf
 from ._demo import run_demo
 from ._errors import (
     InputFileError,
@@ -24,7 +24,7 @@ from ._errors import (
     SlicerWarning,
 )
 from ._figures import plot_overview, plot_slice
-from ._geotiff import write_slice_geotiffs
+from ._geotiff import slice_file_name, write_slice_geotiffs
 from ._grid import Grid, grid_for, neighbour_weights
 from ._linetable import LineEntry, read_line_table
 from ._processing import (
@@ -50,14 +50,15 @@ from ._velocity import (
 from ._windows import Windows, make_windows, parse_range, reduce_to_windows
 
 __all__ = [
-    "C_M_PER_NS", "BuildResult", "BuildSettings", "Grid", "InputFileError", "LineEntry",
-    "LineTableError", "OutputError", "SettingsError", "SlicerError", "SlicerWarning", "Windows",
-    "apply_gain", "atomic_path", "build", "build_cube", "check_velocity", "correct_time_zero",
-    "depth_from_time", "dewow", "dominant_frequency", "envelope", "grid_for", "grid_slices",
-    "iter_lines", "line_info", "load_settings", "make_windows", "neighbour_weights", "new_cube",
-    "parse_range", "permittivity_from_velocity", "pick_time_zero", "place_line", "plot_overview",
+    "BuildResult", "BuildSettings", "C_M_PER_NS", "Grid", "InputFileError", "LineEntry",
+    "LineTableError", "OutputError", "SettingsError", "SlicerError", "SlicerWarning",
+    "Windows", "apply_gain", "atomic_path", "build", "build_cube", "check_velocity",
+    "correct_time_zero", "cube_crs", "cube_transform", "depth_from_time", "dewow",
+    "dominant_frequency", "envelope", "grid_for", "grid_slices", "iter_lines", "line_info",
+    "load_settings", "make_windows", "neighbour_weights", "new_cube", "parse_range",
+    "permittivity_from_velocity", "pick_time_zero", "place_line", "plot_overview",
     "plot_slice", "prepare_output_dir", "process_line", "read_cube_netcdf", "read_line",
     "read_line_table", "reduce_survey", "reduce_to_windows", "remove_background", "run_demo",
-    "survey_info", "time_from_depth", "to_depth", "velocity_from_permittivity",
-    "write_cube_netcdf", "write_slice_geotiffs",
+    "slice_file_name", "survey_info", "time_from_depth", "to_depth",
+    "velocity_from_permittivity", "write_cube_netcdf", "write_slice_geotiffs",
 ]

@@ -19,7 +19,7 @@ from pathlib import Path
 
 import numpy as np
 import xarray as xr
-from tqdm.auto import tqdm
+from tqdm import tqdm
 
 from ._atomic import atomic_write_text, prepare_output_dir
 from ._conventions import TRACE, TWT
@@ -143,7 +143,6 @@ def reduce_survey(settings: BuildSettings, *, progress: bool = True) -> Reduced:
         lines.append({"file": str(settings.lines[number].file),
                       "traces": n,
                       "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
-                      "nonfinite_samples": int(line.attrs.get("nonfinite_samples", 0)),
                       "history": env.attrs.get("history", "")})
         bar.update(n)
     bar.close()

@@ -46,7 +46,8 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--dewow", type=_number_or_auto, metavar="NS|auto|off",
                    help="running-mean window removing wow (default auto: 1.5 dominant periods)")
     g.add_argument("--background", choices=("mean", "median", "off"),
-                   help="subtract each line's mean or median trace (default mean)")
+                   help="subtract each line's median or mean trace (default median, which a "
+                        "strong local reflection does not leak into)")
     g.add_argument("--gain", metavar="power:P|exp:DB_PER_NS|none",
                    help="gain against time below time zero (default power:1, t^1)")
     g = p.add_argument_group("velocity")

@@ -57,7 +57,7 @@ def run_demo(out: str | os.PathLike, *, format: str = "segy", overwrite: bool = 
     ground, radar, lines, crs = demo_survey()
     survey_dir = prepare_output_dir(out / "survey", overwrite=overwrite)
     survey = write_survey(survey_dir, ground, radar, lines, format=format, crs=crs,
-                          progress=progress)
+                          overwrite=overwrite, progress=progress)
     toml = write_survey_toml(survey_dir / "survey.toml", lines=Path(survey.line_table).name,
                              **{**DEMO_OPTIONS, "crs": crs})
     settings = load_settings(toml, out=out / "build", overwrite=overwrite or None)

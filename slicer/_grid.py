@@ -226,7 +226,7 @@ def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray
     reach = math.hypot(along, float(s_trace.max()))
     rows, cols, vals = [], [], []
     chunk = 20_000
-    from tqdm.auto import tqdm
+    from tqdm import tqdm
     for start in tqdm(range(0, len(cells), chunk), desc="weights", unit="chunk",
                       disable=not progress, leave=False):
         block = cells[start:start + chunk]

@@ -57,9 +57,9 @@ def _remove_baseline(samples: np.ndarray) -> np.ndarray:
 def dominant_frequency(line: xr.DataArray) -> float:
     """Frequency (GHz) of the peak of the line's mean amplitude spectrum.
 
-    Wow (a slow drift of the trace baseline) is first reduced by subtracting a Gaussian running
-    mean (sigma a twentieth of the record), and frequencies below four cycles per record are ignored, so
-    that the drift cannot be taken for the signal.
+    Wow (a slow drift of the trace baseline) is first reduced by subtracting a Gaussian
+    running mean (sigma a twentieth of the record), and frequencies below four cycles per
+    record are ignored, so that the drift cannot be taken for the signal.
     """
     dt = sample_interval(line)
     samples = np.asarray(line.values, dtype=np.float64)

@@ -21,10 +21,10 @@ import dataclasses
 import math
 import os
 import tomllib
-
-import pyproj
 from dataclasses import dataclass, field
 from pathlib import Path
+
+import pyproj
 
 from ._errors import LineTableError, SettingsError
 from ._grid import check_cell
@@ -69,7 +69,7 @@ class BuildSettings:
     time_zero: float | str = "auto"
     time_zero_threshold: float = 0.5
     dewow: float | str = "auto"
-    background: str = "mean"
+    background: str = "median"
     gain: str = "power:1"
     velocity: float | None = None
     permittivity: float | None = None
@@ -249,14 +249,15 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
     **overrides
         Options of :data:`OPTION_KEYS`; ``None`` means "not given" and keeps the file's value.
     """
+    unknown = sorted(set(overrides) - set(OPTION_KEYS))
+    if unknown:
+        raise SettingsError(f"unknown option(s) {', '.join(unknown)}")
     path = Path(path)
     if path.suffix.lower() == ".toml":
         entries, options = _read_toml(path)
     else:
         entries, options = read_line_table(path), {}
     for key, value in overrides.items():
-        if key not in OPTION_KEYS:
-            raise SettingsError(f"unknown option {key!r}")
         if value is not None:
             options[key] = value
     if options.get("out") is not None:

@@ -1,0 +1,131 @@
+"""End to end: the documented command line on the demo survey against its synthetic truth."""
+
+import json
+import shutil
+
+import numpy as np
+import pytest
+import rasterio
+
+import slicer
+from slicer._build import default_windows, nice_number
+from slicer._cli import main
+
+CONTRACT = ["build", "lines.csv", "--crs", "EPSG:32633", "--sample-interval", "0.1",
+            "--time-zero", "3.0", "--velocity", "0.1", "--cell", "0.1", "--depths",
+            "0:2.4:0.1", "--out", "out"]
+
+
+@pytest.fixture(scope="module")
+def contract_build(demo_files, tmp_path_factory):
+    work = tmp_path_factory.mktemp("contract")
+    shutil.copytree(demo_files.folder, work, dirs_exist_ok=True)
+    cwd = __import__("os").getcwd()
+    __import__("os").chdir(work)
+    try:
+        code = main([*CONTRACT, "-q"])
+    finally:
+        __import__("os").chdir(cwd)
+    assert code == 0
+    return work
+
+
+def isolated_points(truth):
+    return [t for t in truth["targets"] if t["kind"] == "point" and t["depth"] > 0.7]
+
+
+def test_contract_line_places_targets_where_the_truth_put_them(contract_build):
+    truth = json.loads((contract_build / "truth.json").read_text())
+    cube = slicer.read_cube_netcdf(contract_build / "out" / "cube.nc")
+    assert cube.dims == ("depth", "y", "x") and cube.sizes["depth"] == 24
+    cell = cube.attrs["cell_size"]
+    # A quarter wavelength, lambda / 4 = v / (4 f) = 0.1 / 1.6 = 0.0625 m (common practice:
+    # quarter-wavelength vertical resolution; Jol (ed.) 2009, Ground Penetrating Radar Theory
+    # and Applications).
+    quarter_wavelength = 0.1 / (4 * 0.4)
+    points = isolated_points(truth)
+    assert len(points) >= 3
+    for t in points:
+        near = cube.sel(x=slice(t["x"] - 1.0, t["x"] + 1.0), y=slice(t["y"] + 1.0, t["y"] - 1.0))
+        depth_profile = near.max(["x", "y"])
+        k = int(depth_profile.argmax("depth"))
+        assert abs(float(cube["depth"][k]) - t["depth"]) <= quarter_wavelength, t
+        plane = near.isel(depth=k)
+        j, i = np.unravel_index(int(np.nanargmax(plane.values)), plane.shape)
+        assert abs(float(plane["x"][i]) - t["x"]) <= cell + 1e-9, t
+        assert abs(float(plane["y"][j]) - t["y"]) <= cell + 1e-9, t
+
+
+def test_geotiffs_agree_with_cube_and_carry_depths(contract_build):
+    out = contract_build / "out"
+    cube = slicer.read_cube_netcdf(out / "cube.nc")
+    files = sorted((out / "slices").glob("*.tif"))
+    assert len(files) == 24 and [f.name for f in files] == sorted(f.name for f in files)
+    with rasterio.open(files[7]) as src:
+        tags = src.tags()
+        assert float(tags["DEPTH_TOP"]) == pytest.approx(0.7)
+        assert float(tags["DEPTH_BOTTOM"]) == pytest.approx(0.8)
+        assert float(tags["VELOCITY_M_PER_NS"]) == pytest.approx(0.1)
+        assert "time zero 3.0 ns" in tags["PROCESSING"]
+        assert src.crs.to_epsg() == 32633
+        data = src.read(1)
+        np.testing.assert_array_equal(data, cube.isel(depth=7).values)
+        # the centre of pixel (0, 0) is the cube's first x and y
+        x0, y0 = src.xy(0, 0)
+        assert x0 == pytest.approx(float(cube["x"][0])) and y0 == pytest.approx(
+            float(cube["y"][0]))
+
+
+def test_record_lists_every_input_and_setting(contract_build):
+    record = json.loads((contract_build / "out" / "record.json").read_text())
+    files = {p["file"].split("/")[-1] for p in record["inputs"]}
+    assert "lines.csv" in files and len(files) == 30
+    assert all(len(p["sha256"]) == 64 for p in record["inputs"])
+    assert record["settings"]["velocity"] == 0.1 and record["settings"]["cell"] == 0.1
+    assert record["command"][:3] == ["slicer", "build", "lines.csv"]
+    assert set(record["outputs"]) >= {"cube.nc", "overview.png"}
+    assert (contract_build / "out" / "overview.png").stat().st_size > 10_000
+
+
+def test_time_slices_without_velocity(small_survey, tmp_path):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1, time_zero=3.0,
+                                    times="0:40:5", crs="EPSG:32633", out=tmp_path / "t")
+    result = slicer.build(settings, progress=False)
+    assert result.cube.dims == ("twt", "y", "x") and result.cube.sizes["twt"] == 8
+    # the 1.25 m target at 0.1 m/ns lies at t = 2 d / v = 25 ns (ASTM D6432-19, section 5)
+    profile = result.cube.sel(x=512002.95, y=4650001.55, method="nearest")
+    assert float(result.cube["twt"][int(profile.argmax("twt"))]) == pytest.approx(27.5)
+    with rasterio.open(result.files[0]) as src:
+        assert float(src.tags()["TWT_TOP"]) == 0.0
+
+
+def test_auto_time_zero_finds_the_synthetic_time_zero(small_survey):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    velocity=0.1, depths="0:2:0.1")
+    result = slicer.build_cube(settings, progress=False)
+    picked = [line["time_zero_ns"] for line in result.record["lines"]]
+    assert np.allclose(picked, 3.0, atol=0.05)  # the synthetic direct wave peaks at 3.0 ns
+
+
+def test_defaults_choose_cell_and_windows(small_survey):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, velocity=0.1)
+    result = slicer.build_cube(settings, progress=False)
+    assert result.cube.attrs["cell_size"] == 0.1  # a quarter of 0.5 m spacing, made round
+    assert result.record["slices"]["top"][0] == 0.0
+    assert len(result.record["slices"]["top"]) == 24  # 2.41 m of record in 0.1 m steps
+
+
+def test_nice_number_and_default_windows():
+    assert [nice_number(v) for v in (0.125, 0.3, 7, 1)] == [0.1, 0.2, 5, 1]
+    w = default_windows(48.1, 0.1)
+    assert w.axis == "depth" and w.bottom[-1] <= 2.405 + 1e-9
+    assert default_windows(48.1, None).axis == "twt"
+
+
+def test_windows_partly_below_the_record_are_dropped_with_a_warning(small_survey):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, velocity=0.1, depths="2.0:3.0:0.1")
+    with pytest.warns(slicer.SlicerWarning, match="below the end of the record"):
+        result = slicer.build_cube(settings, progress=False)
+    assert result.cube.sizes["depth"] == 4  # 2.0-2.4 m of the 2.41 m record
