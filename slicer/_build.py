@@ -19,7 +19,6 @@ from pathlib import Path
 
 import numpy as np
 import xarray as xr
-from tqdm import tqdm
 
 from ._atomic import atomic_write_text, prepare_output_dir
 from ._conventions import TRACE, TWT
@@ -29,6 +28,7 @@ from ._figures import plot_overview
 from ._geotiff import write_slice_geotiffs
 from ._grid import grid_for, line_spacings, neighbour_weights, trace_spacing
 from ._processing import apply_gain, correct_time_zero, dewow, envelope, remove_background
+from ._progress import bar_for
 from ._settings import BuildSettings
 from ._survey import SurveyInfo, iter_lines, survey_info
 from ._windows import Windows, make_windows, record_reach, reduce_to_windows
@@ -124,28 +124,30 @@ def reduce_survey(settings: BuildSettings, *, progress: bool = True) -> Reduced:
         if not 0 <= float(settings.time_zero) < info.record_ns:
             raise SettingsError(f"time zero {settings.time_zero} ns lies outside the record "
                                 f"(0 to {info.record_ns:g} ns)", where="--time-zero")
+        if windows is not None:  # known before reading a sample: refuse early
+            windows = fit_windows(windows, info.record_ns - float(settings.time_zero),
+                                  velocity, where)
     parts, lines = [], []
-    bar = tqdm(total=info.n_traces, desc="reading and processing", unit="trace",
-               disable=not progress)
-    for number, line in enumerate(iter_lines(settings.lines,
-                                             sample_interval_ns=info.sample_interval_ns)):
-        env = process_line(line, settings)
-        if number == 0:  # the first line's record decides which windows fit
-            record_ns = float(env[TWT].values[-1])
-            windows = (default_windows(record_ns, velocity) if windows is None
-                       else fit_windows(windows, record_ns, velocity, where))
-        values = reduce_to_windows(env, windows, velocity=velocity)
-        n = line.sizes[TRACE]
-        parts.append(xr.Dataset({
-            "value": ((TRACE, "slice"), values.values),
-            "x": (TRACE, line["x"].values), "y": (TRACE, line["y"].values),
-            "line": (TRACE, np.full(n, number, dtype=np.int32))}))
-        lines.append({"file": str(settings.lines[number].file),
-                      "traces": n,
-                      "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
-                      "history": env.attrs.get("history", "")})
-        bar.update(n)
-    bar.close()
+    with bar_for(enabled=progress, total=info.n_traces, desc="reading and processing",
+                 unit="trace") as bar:
+        for number, line in enumerate(iter_lines(settings.lines,
+                                                 sample_interval_ns=info.sample_interval_ns)):
+            env = process_line(line, settings)
+            if number == 0:  # the first line's record decides which windows fit
+                record_ns = float(env[TWT].values[-1])
+                windows = (default_windows(record_ns, velocity) if windows is None
+                           else fit_windows(windows, record_ns, velocity, where))
+            values = reduce_to_windows(env, windows, velocity=velocity)
+            n = line.sizes[TRACE]
+            parts.append(xr.Dataset({
+                "value": ((TRACE, "slice"), values.values),
+                "x": (TRACE, line["x"].values), "y": (TRACE, line["y"].values),
+                "line": (TRACE, np.full(n, number, dtype=np.int32))}))
+            lines.append({"file": str(settings.lines[number].file),
+                          "traces": n,
+                          "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
+                          "history": env.attrs.get("history", "")})
+            bar.update(n)
     table = xr.concat(parts, dim=TRACE)
     u = windows.units
     table = table["value"].assign_coords(

@@ -17,12 +17,12 @@ import numpy as np
 import rasterio
 import xarray as xr
 from rasterio.crs import CRS as RasterioCRS
-from tqdm import tqdm
 
 from ._atomic import atomic_path
 from ._conventions import DEPTH, TWT, UNITS
 from ._cube import cube_crs, cube_transform, slice_axis
 from ._errors import OutputError, SettingsError
+from ._progress import progress_bar
 
 #: Largest tile edge, pixels; TIFF tiles must be multiples of 16.
 _TILE = 256
@@ -154,8 +154,8 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
         "geotiff_version": "1.1",
     }
     written: list[Path] = []
-    for i in tqdm(range(n_slices), desc=f"GeoTIFF {axis} slices", unit="slice",
-                  disable=not progress):
+    for i in progress_bar(range(n_slices), desc=f"GeoTIFF {axis} slices", unit="slice",
+                  enabled=progress):
         top, bottom = float(tops[i]), float(bottoms[i])
         path = folder / slice_file_name(i, top, bottom, axis, digits=digits)
         band = np.ascontiguousarray(cube.values[i], dtype=np.float32)

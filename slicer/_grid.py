@@ -22,6 +22,7 @@ import scipy.sparse
 import scipy.spatial
 
 from ._errors import SettingsError, warn
+from ._progress import progress_bar
 
 
 @dataclass(frozen=True)
@@ -226,9 +227,8 @@ def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray
     reach = math.hypot(along, float(s_trace.max()))
     rows, cols, vals = [], [], []
     chunk = 20_000
-    from tqdm import tqdm
-    for start in tqdm(range(0, len(cells), chunk), desc="weights", unit="chunk",
-                      disable=not progress, leave=False):
+    for start in progress_bar(range(0, len(cells), chunk), desc="weights", unit="chunk",
+                      enabled=progress, leave=False):
         block = cells[start:start + chunk]
         live = np.isfinite(nearest[start:start + chunk])
         if not live.any():

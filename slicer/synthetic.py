@@ -34,13 +34,13 @@ from pathlib import Path
 import numpy as np
 import pyproj
 import xarray as xr
-from tqdm import tqdm
 
 from . import _forward
 from ._atomic import atomic_write_text, prepare_output_dir
 from ._conventions import C_M_PER_NS, DISTANCE, TRACE, TWT, UNITS, X, Y
 from ._errors import SettingsError, warn
 from ._forward import Layer, LineTarget, PlateTarget, PointTarget, check_fields, check_number
+from ._progress import progress_bar
 
 __all__ = ["Ground", "Layer", "LineTarget", "PlannedLine", "PlateTarget", "PointTarget", "Radar",
            "SyntheticSurvey", "demo_survey", "grid_lines", "simulate_line", "write_survey"]
@@ -416,8 +416,8 @@ def write_survey(folder: str | os.PathLike, ground: Ground, radar: Radar, lines,
 
     folder = prepare_output_dir(folder, overwrite=overwrite)
     files = tuple(folder / f"{line.name}{FORMATS[format]}" for line in lines)
-    for line, path in tqdm(list(zip(lines, files, strict=True)), desc="synthetic lines",
-                           unit="line", disable=not progress):
+    for line, path in progress_bar(list(zip(lines, files, strict=True)), desc="synthetic lines",
+                           unit="line", enabled=progress):
         data = simulate_line(ground, radar, line)
         data.attrs["source"] = str(path)
         writer(path, data)

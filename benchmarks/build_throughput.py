@@ -1,0 +1,332 @@
+"""Build throughput of slicer on synthetic surveys of a few sizes.
+
+For each size this script writes a synthetic SEG-Y survey with :mod:`slicer.synthetic` (timed
+apart, not part of the build), then measures on the same files in the same run:
+
+* ``slicer.build_cube`` (in memory) and ``slicer.build`` (all outputs written), each in a fresh
+  process so that its peak resident memory (``resource.getrusage(...).ru_maxrss``) belongs to
+  that build alone;
+* the floor: every trace read once with segyio (``f.trace.raw[:]``) and its envelope computed
+  with :func:`scipy.signal.hilbert` (scipy.fft), zero-padded as the pipeline pads;
+* gridding alone: ``slicer.grid_slices`` on the survey's trace x slice table against
+  :func:`scipy.interpolate.griddata` (``method="linear"``) looped over the slices, onto the same
+  cell centres.
+
+Run ``python benchmarks/build_throughput.py --help``; see ``benchmarks/README.md``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import concurrent.futures
+import cProfile
+import datetime as _dt
+import importlib.metadata as md
+import io
+import math
+import multiprocessing
+import os
+import platform
+import pstats
+import resource
+import sys
+import tempfile
+import time
+import warnings
+from pathlib import Path
+
+import numpy as np
+import scipy.fft
+import scipy.interpolate
+import scipy.signal
+import segyio
+
+try:
+    import slicer
+except ImportError:  # run from a checkout without installing: the package sits one level up
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+    import slicer
+import slicer.synthetic as syn
+
+#: The contract settings every size is built with (ns, ns, m/ns, m, m).
+SETTINGS = dict(crs="EPSG:32633", sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.1,
+                depths="0:2.4:0.1")
+
+#: Survey layout: lines 0.5 m apart, traces 0.05 m apart (a typical 400 MHz grid).
+LINE_SPACING, TRACE_SPACING = 0.5, 0.05
+WEST, SOUTH = 512000.0, 4650000.0
+SAMPLES = 512
+
+#: A build/floor ratio above this triggers the cProfile run.
+PROFILE_ABOVE = 3.0
+
+
+# --- synthetic surveys -------------------------------------------------------------------------
+
+def plan(n_traces: int) -> list[syn.PlannedLine]:
+    """Zigzag west-east lines over a roughly square patch holding about ``n_traces`` traces."""
+    # A square patch with traces 10x denser along lines than across them: lines = sqrt(N / 10).
+    n_lines = max(2, round(math.sqrt(n_traces * TRACE_SPACING / LINE_SPACING)))
+    per_line = max(2, round(n_traces / n_lines))
+    return syn.grid_lines(west=WEST, south=SOUTH, length=TRACE_SPACING * (per_line - 1),
+                          width=LINE_SPACING * (n_lines - 1), line_spacing=LINE_SPACING,
+                          trace_spacing=TRACE_SPACING, direction="x", zigzag=True)
+
+
+def ground_for(lines: list[syn.PlannedLine]) -> syn.Ground:
+    """A few point and line targets and one layer spread over the patch (invented, seeded)."""
+    east = max(max(p.start_x, p.end_x) for p in lines) - WEST
+    north = max(max(p.start_y, p.end_y) for p in lines) - SOUTH
+    rng = np.random.default_rng(7)
+    points = tuple(
+        syn.PointTarget(WEST + float(u) * east, SOUTH + float(v) * north, float(d))
+        for u, v, d in zip(rng.uniform(0.1, 0.9, 8), rng.uniform(0.1, 0.9, 8),
+                           rng.uniform(0.3, 2.0, 8), strict=True))
+    drain = syn.LineTarget(WEST + 0.3 * east, SOUTH, WEST + 0.7 * east, SOUTH + north, 0.95,
+                           amplitude=0.8)
+    return syn.Ground(velocity=0.1, attenuation_db_per_m=3.0, targets=(*points, drain),
+                      layers=(syn.Layer(1.65, 0.3),))
+
+
+def make_survey(folder: Path, n_traces: int) -> tuple[Path, list[Path], float, bool]:
+    """Write (or reuse) the survey of one size; its line table, files and seconds taken."""
+    table = folder / "lines.csv"
+    if table.exists():  # a kept survey from an earlier run
+        files = sorted(folder.glob("*.sgy"))
+        return table, files, math.nan, True
+    lines = plan(n_traces)
+    radar = syn.Radar(frequency_mhz=400.0, sample_interval_ns=0.1, samples=SAMPLES,
+                      time_zero_ns=3.0, seed=20240611)
+    started = time.perf_counter()
+    survey = syn.write_survey(folder, ground_for(lines), radar, lines, format="segy",
+                              crs=SETTINGS["crs"], progress=False)
+    return survey.line_table, list(survey.files), time.perf_counter() - started, False
+
+
+# --- measurements ------------------------------------------------------------------------------
+
+def _rss_mib() -> float:
+    # Linux reports ru_maxrss in KiB.
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+
+
+def _settings(table: Path, out: Path | None = None):
+    return slicer.load_settings(table, **SETTINGS, out=out, overwrite=out is not None)
+
+
+def measure_build(table: str, out: str | None) -> dict:
+    """Time one build in this (fresh) process: ``build_cube``, or ``build`` when ``out`` is set."""
+    settings = _settings(Path(table), Path(out) if out else None)
+    before = _rss_mib()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        started = time.perf_counter()
+        if out is None:
+            result = slicer.build_cube(settings, progress=False)
+        else:
+            result = slicer.build(settings, progress=False)
+        seconds = time.perf_counter() - started
+    return {"seconds": seconds, "phases": dict(result.record.get("seconds", {})),
+            "rss_before_mib": before, "rss_peak_mib": _rss_mib(),
+            "shape": tuple(int(n) for n in result.cube.shape),
+            "warnings": sorted({f"{w.category.__name__}: {w.message}" for w in caught})}
+
+
+def in_fresh_process(function, *args) -> dict:
+    """Run ``function(*args)`` in a new spawned interpreter, so ru_maxrss is its own."""
+    context = multiprocessing.get_context("spawn")
+    with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool:
+        return pool.submit(function, *args).result()
+
+
+def measure_floor(files: list[Path]) -> tuple[float, int]:
+    """Seconds to read every trace once (segyio) and take its envelope (scipy.signal.hilbert)."""
+    started = time.perf_counter()
+    count = 0
+    for path in files:
+        with segyio.open(str(path), "r", ignore_geometry=True) as f:
+            data = f.trace.raw[:]
+        n = data.shape[-1]
+        # The same zero padding and precision as the pipeline's envelope, so the floor does
+        # the work any correct envelope must do and no more.
+        nfft = scipy.fft.next_fast_len(2 * n)
+        env = np.abs(scipy.signal.hilbert(data.astype(np.float64), N=nfft, axis=-1)[..., :n])
+        count += env.shape[0]
+    return time.perf_counter() - started, count
+
+
+def measure_gridding(table: Path, *, slices_for_griddata: int | None) -> dict:
+    """Time ``slicer.grid_slices`` against per-slice ``griddata(method="linear")``."""
+    settings = _settings(table)
+    started = time.perf_counter()
+    reduced = slicer.reduce_survey(settings, progress=False)
+    reduce_s = time.perf_counter() - started
+    values = reduced.table
+
+    started = time.perf_counter()
+    cube, _ = slicer.grid_slices(values, cell=settings.cell, radius=settings.radius,
+                                 crs=settings.crs, velocity=settings.resolved_velocity,
+                                 progress=False)
+    ours_s = time.perf_counter() - started
+
+    # Same cell centres as our cube. Coordinates relative to the corner: Qhull triangulates
+    # in double precision and UTM magnitudes would cost it digits (any careful user does this).
+    x0, y0 = float(cube["x"].values[0]), float(cube["y"].values[0])
+    points = np.column_stack([values["x"].values - x0, values["y"].values - y0])
+    gx, gy = np.meshgrid(cube["x"].values - x0, cube["y"].values - y0)
+    table_values = np.asarray(values.values, dtype=np.float64)
+    n_slices = table_values.shape[1]
+    k = n_slices if slices_for_griddata is None else min(slices_for_griddata, n_slices)
+    started = time.perf_counter()
+    filled = []
+    for s in range(k):  # the naive way: one call, hence one triangulation, per slice
+        out = scipy.interpolate.griddata(points, table_values[:, s], (gx, gy), method="linear")
+        filled.append(np.isfinite(out).mean())
+    loop_s = (time.perf_counter() - started) * n_slices / k  # scaled up if only k were run
+
+    started = time.perf_counter()  # the careful way: all slices through one triangulation
+    together = scipy.interpolate.griddata(points, table_values, (gx, gy), method="linear")
+    one_call_s = time.perf_counter() - started
+    return {"reduce_s": reduce_s, "ours_s": ours_s, "griddata_loop_s": loop_s,
+            "griddata_loop_slices_run": k, "griddata_one_call_s": one_call_s,
+            "n_slices": n_slices, "cells": int(gx.size),
+            "filled_ours": float(np.isfinite(cube.values).mean()),
+            "filled_griddata": float(np.mean(filled)),
+            "filled_griddata_one_call": float(np.isfinite(together).mean())}
+
+
+def profile_build(table: Path, top: int = 15) -> str:
+    """cProfile of one ``build_cube``: the top functions by own time and by cumulative time."""
+    settings = _settings(table)
+    profiler = cProfile.Profile()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        profiler.runcall(slicer.build_cube, settings, progress=False)
+    text = io.StringIO()
+    stats = pstats.Stats(profiler, stream=text)
+    stats.strip_dirs().sort_stats("tottime").print_stats(top)
+    stats.sort_stats("cumulative").print_stats(top)
+    return text.getvalue()
+
+
+# --- report ------------------------------------------------------------------------------------
+
+def _table(header: list[str], rows: list[list[str]]) -> str:
+    widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(header)]
+    line = "| " + " | ".join(h.rjust(w) for h, w in zip(header, widths, strict=True)) + " |"
+    rule = "|" + "|".join("-" * (w + 1) + ":" for w in widths) + "|"
+    body = ["| " + " | ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) + " |"
+            for r in rows]
+    return "\n".join([line, rule, *body])
+
+
+def _f(value: float, digits: int = 2) -> str:
+    return "-" if value is None or not math.isfinite(value) else f"{value:.{digits}f}"
+
+
+def parse_args(argv=None):
+    p = argparse.ArgumentParser(
+        description="Build throughput of slicer on synthetic surveys (see benchmarks/README.md).")
+    p.add_argument("--sizes", type=lambda s: [int(float(v)) for v in s.split(",")],
+                   default=[10_000, 50_000, 100_000],
+                   help="approximate trace counts, comma-separated (default 10000,50000,100000)")
+    p.add_argument("--keep", type=Path, metavar="DIR",
+                   help="write surveys and outputs under DIR and keep them; a survey already "
+                        "there is reused (its generation time is then not reported)")
+    p.add_argument("--griddata-slices", type=int, metavar="K",
+                   help="run the per-slice griddata loop on only K slices and scale the time "
+                        "to all slices (default: all slices)")
+    p.add_argument("--no-full-build", action="store_true",
+                   help="skip slicer.build (writing GeoTIFFs, cube, overview, record)")
+    p.add_argument("--profile", choices=("auto", "always", "never"), default="auto",
+                   help=f"cProfile build_cube on the smallest size: 'auto' when the build/floor "
+                        f"ratio exceeds {PROFILE_ABOVE:g} (default)")
+    return p.parse_args(argv)
+
+
+def main(argv=None) -> int:
+    args = parse_args(argv)
+    begun = time.perf_counter()
+    if args.keep is not None:
+        root = args.keep.resolve()
+        root.mkdir(parents=True, exist_ok=True)
+        cleanup = None
+    else:
+        cleanup = tempfile.TemporaryDirectory(prefix="slicer-bench-")
+        root = Path(cleanup.name)
+    print(f"slicer {slicer.__version__}, Python {platform.python_version()}, numpy "
+          f"{np.__version__}, scipy {scipy.__version__}, segyio {md.version('segyio')}; "
+          f"{os.cpu_count()} CPUs; {_dt.datetime.now().isoformat(timespec='minutes')}")
+    print(f"data in {root}{'' if cleanup is None else ' (deleted at the end)'}")
+    results = []
+    try:
+        for size in sorted(args.sizes):
+            folder = root / f"traces_{size}"
+            table, files, gen_s, reused = make_survey(folder / "survey", size)
+            data_mib = sum(f.stat().st_size for f in files) / 2**20
+            floor_s, n_traces = measure_floor(files)
+            cube = in_fresh_process(measure_build, str(table), None)
+            full = None
+            if not args.no_full_build:
+                out = folder / "build"
+                full = in_fresh_process(measure_build, str(table), str(out))
+            grid = measure_gridding(table, slices_for_griddata=args.griddata_slices)
+            row = dict(size=size, traces=n_traces, lines=len(files), data_mib=data_mib,
+                       gen_s=gen_s, reused=reused, floor_s=floor_s, cube=cube, full=full,
+                       grid=grid)
+            results.append(row)
+            print(f"  {n_traces} traces ({len(files)} lines, {data_mib:.0f} MiB): "
+                  f"generated in {_f(gen_s, 1)} s, build_cube {cube['seconds']:.1f} s, "
+                  f"floor {floor_s:.1f} s", flush=True)
+            for w in cube["warnings"]:
+                print(f"    warning during build_cube: {w}")
+    finally:
+        profile_text = None
+        if results:
+            ratios = [r["cube"]["seconds"] / r["floor_s"] for r in results]
+            if args.profile == "always" or (args.profile == "auto"
+                                            and max(ratios) > PROFILE_ABOVE):
+                profile_text = profile_build(root / f"traces_{results[0]['size']}" / "survey"
+                                             / "lines.csv")
+        if cleanup is not None:
+            cleanup.cleanup()
+
+    main_rows, detail_rows = [], []
+    for r in results:
+        c, g, full = r["cube"], r["grid"], r["full"]
+        main_rows.append([
+            f"{r['traces']}", _f(c["seconds"]), f"{r['traces'] / c['seconds']:.0f}",
+            _f(c["seconds"] / r["floor_s"], 1), _f(g["griddata_loop_s"] / g["ours_s"], 1),
+            _f(c["rss_peak_mib"], 0), _f(c["rss_peak_mib"] - c["rss_before_mib"], 0)])
+        phases = c["phases"]
+        detail_rows.append([
+            f"{r['traces']}", f"{r['lines']}", _f(r["data_mib"], 0), _f(r["gen_s"], 1),
+            _f(r["floor_s"]), f"{r['traces'] / r['floor_s']:.0f}",
+            _f(phases.get("read_and_process", math.nan)), _f(phases.get("grid", math.nan)),
+            _f(full["seconds"] if full else math.nan),
+            _f(full["phases"].get("write", math.nan) if full else math.nan),
+            _f(full["rss_peak_mib"] if full else math.nan, 0),
+            f"{g['cells']}x{g['n_slices']}", _f(g["ours_s"]), _f(g["griddata_loop_s"]),
+            _f(g["griddata_one_call_s"]), _f(g["griddata_one_call_s"] / g["ours_s"], 1)])
+    print()
+    print(_table(["traces", "time (s)", "traces/s", "build/floor", "grid speed-up",
+                  "peak RSS (MiB)", "RSS rise (MiB)"], main_rows))
+    print()
+    print(_table(["traces", "lines", "SEG-Y MiB", "generate s", "floor s", "floor traces/s",
+                  "read+process s", "grid s", "full build s", "write s", "full peak MiB",
+                  "cells x slices", "grid_slices s", "griddata loop s", "griddata 1-call s",
+                  "1-call / ours"], detail_rows))
+    for r in results:
+        g = r["grid"]
+        note = ("" if g["griddata_loop_slices_run"] == g["n_slices"] else
+                f" (loop timed on {g['griddata_loop_slices_run']} slices, scaled)")
+        print(f"{r['traces']} traces: cells filled, grid_slices {g['filled_ours']:.1%}, "
+              f"griddata {g['filled_griddata']:.1%}{note}; cube {r['cube']['shape']}")
+    if profile_text:
+        print(f"\ncProfile of build_cube, {results[0]['traces']} traces:\n{profile_text}")
+    print(f"total wall time {time.perf_counter() - begun:.0f} s")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,277 @@
+"""The command line: the contract, bad input (one line, exit 2, nothing written), safety."""
+
+import os
+import shutil
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+import rasterio
+
+from slicer._cli import main
+from slicer._linefile import write_line_netcdf
+from slicer._reading import read_line
+
+GOOD = ["--crs", "EPSG:32633", "--sample-interval", "0.1", "--time-zero", "3.0",
+        "--velocity", "0.1", "--cell", "0.1", "--depths", "0:2.4:0.1"]
+
+
+@pytest.fixture
+def survey(small_survey, tmp_path):
+    """A private copy of the small survey (tests may damage it)."""
+    folder = tmp_path / "survey"
+    shutil.copytree(small_survey.folder, folder)
+    return folder
+
+
+def run(capsys, *argv):
+    code = main([str(a) for a in argv])
+    captured = capsys.readouterr()
+    return code, captured.out, captured.err
+
+
+def assert_refused(capsys, out, *argv, match):
+    code, _, err = run(capsys, *argv)
+    assert code == 2, err
+    lines = [x for x in err.splitlines() if x.strip()]
+    assert len(lines) == 1, err
+    assert lines[0].startswith("slicer: error:") and "Traceback" not in err
+    assert match in lines[0], lines[0]
+    assert not out.exists(), "nothing may be written on bad input"
+    return lines[0]
+
+
+def test_contract_line(survey, capsys, monkeypatch):
+    monkeypatch.chdir(survey)
+    code, stdout, err = run(capsys, "build", "lines.csv", *GOOD, "--out", "out")
+    assert code == 0, err
+    assert len(list((survey / "out" / "slices").glob("*.tif"))) == 24
+    assert "24 depth slices" in stdout
+    assert "Traceback" not in err
+
+
+def test_quiet_prints_nothing(survey, capsys):
+    code, stdout, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--out",
+                            survey / "o", "-q")
+    assert code == 0 and stdout == "" and err == ""
+
+
+def test_help_everywhere():
+    for argv in (["--help"], ["build", "--help"], ["demo", "--help"]):
+        proc = subprocess.run([sys.executable, "-m", "slicer._cli", *argv],
+                              capture_output=True, text=True)
+        assert proc.returncode == 0 and "usage: slicer" in proc.stdout
+
+
+def test_usage_error_is_one_line(capsys):
+    with pytest.raises(SystemExit) as info:
+        main(["build"])
+    err = capsys.readouterr().err.strip().splitlines()
+    assert info.value.code == 2 and len(err) == 1 and "required" in err[0]
+
+
+def without_interval():
+    argv = list(GOOD)
+    i = argv.index("--sample-interval")
+    del argv[i:i + 2]
+    return argv
+
+
+def _table(survey, text):
+    p = survey / "bad.csv"
+    p.write_text(text)
+    return p
+
+
+HEADER = "file,start_x,start_y,end_x,end_y\n"
+
+
+@pytest.mark.parametrize("case, match", [
+    ("missing_file", "L000.sgy"),
+    ("empty_file", "L000.sgy"),
+    ("truncated_file", "L000.sgy"),
+    ("garbage_file", "L000.sgy"),
+    ("non_numeric", "bad.csv:2: column start_x"),
+    ("missing_column", "missing column(s) end_y"),
+    ("empty_field", "bad.csv:3: column end_x is empty"),
+    ("empty_table", "no lines"),
+    ("zero_length", "bad.csv:2: line has zero length"),
+])
+def test_bad_files_and_tables(survey, capsys, case, match):
+    first = survey / "L000.sgy"
+    table = survey / "lines.csv"
+    if case == "missing_file":
+        first.unlink()
+    elif case == "empty_file":
+        first.write_bytes(b"")
+    elif case == "truncated_file":
+        os.truncate(first, first.stat().st_size - 100)
+    elif case == "garbage_file":
+        first.write_bytes(np.random.default_rng(0).bytes(5000))
+    elif case == "non_numeric":
+        table = _table(survey, HEADER + "L000.sgy,east,0,4,0\n")
+    elif case == "missing_column":
+        table = _table(survey, "file,start_x,start_y,end_x\nL000.sgy,0,0,4\n")
+    elif case == "empty_field":
+        table = _table(survey, HEADER + "L000.sgy,0,0,4,0\nL001.sgy,0,0.5,,0.5\n")
+    elif case == "empty_table":
+        table = _table(survey, HEADER)
+    elif case == "zero_length":
+        table = _table(survey, HEADER + "L000.sgy,1,1,1,1\n")
+    assert_refused(capsys, survey / "out", "build", table, *GOOD, "--out", survey / "out",
+                   match=match)
+
+
+@pytest.mark.parametrize("change, match", [
+    (("--velocity", "0.5"), "--velocity"),
+    (("--velocity", "0"), "--velocity"),
+    (("--velocity", "-0.1"), "--velocity"),
+    (("--cell", "0"), "--cell"),
+    (("--cell", "-0.1"), "--cell"),
+    (("--depths", "1:1:0.1"), "--depths"),
+    (("--depths", "2:1:0.1"), "--depths"),
+    (("--depths", "0:1:0"), "--depths"),
+    (("--depths", "5:8:0.1"), "--depths: every slice lies below the record"),
+    (("--depths", "zero:1:0.1"), "--depths"),
+    (("--crs", "EPSG:999999"), "--crs: unknown CRS"),
+    (("--crs", "EPSG:4326"), "--crs"),
+    (("--sample-interval", "-1"), "--sample-interval"),
+    (("--time-zero", "80"), "--time-zero"),
+])
+def test_bad_options(survey, capsys, change, match):
+    argv = list(GOOD)
+    i = argv.index(change[0])
+    argv[i + 1] = change[1]
+    assert_refused(capsys, survey / "out", "build", survey / "lines.csv", *argv, "--out",
+                   survey / "out", match=match)
+
+
+@pytest.mark.parametrize("value", ["0.5", "1", "-3"])
+def test_impossible_permittivity(survey, capsys, value):
+    argv = [a for a in GOOD]
+    i = argv.index("--velocity")
+    argv[i:i + 2] = ["--permittivity", value]
+    assert_refused(capsys, survey / "out", "build", survey / "lines.csv", *argv, "--out",
+                   survey / "out", match="--permittivity")
+
+
+def test_output_path_that_is_a_file(survey, capsys):
+    target = survey / "taken"
+    target.write_text("precious")
+    code, _, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--out", target)
+    assert code == 2 and "is a file" in err and len(err.strip().splitlines()) == 1
+    assert target.read_text() == "precious"
+
+
+def test_non_empty_output_refused_then_overwritten(survey, capsys):
+    out = survey / "out"
+    out.mkdir()
+    (out / "mine.txt").write_text("keep")
+    code, _, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--out", out, "-q")
+    assert code == 2 and "--overwrite" in err
+    assert sorted(p.name for p in out.iterdir()) == ["mine.txt"]
+    code, _, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--out", out, "-q",
+                       "--overwrite")
+    assert code == 0, err
+    assert (out / "mine.txt").read_text() == "keep"  # only slicer's own outputs are replaced
+    # a second build with fewer slices leaves no stale slices of the first
+    argv = list(GOOD)
+    argv[argv.index("--depths") + 1] = "0:1:0.5"
+    code, _, err = run(capsys, "build", survey / "lines.csv", *argv, "--out", out, "-q",
+                       "--overwrite")
+    assert code == 0 and len(list((out / "slices").glob("*.tif"))) == 2
+
+
+def _netcdf_survey(survey, tmp_path, *, interval=None, samples=None):
+    """Copy two SEG-Y lines to NetCDF, changing the second's interval or sample count."""
+    rows = [HEADER.strip()]
+    for k, name in enumerate(("L000", "L001")):
+        line = read_line(survey / f"{name}.sgy", sample_interval_ns=0.1)
+        if k == 1 and samples is not None:
+            line = line.isel(twt=slice(0, samples))
+        if k == 1 and interval is not None:
+            line = line.assign_coords(twt=line["twt"] * interval / 0.1)
+            line.attrs["sample_interval_ns"] = interval
+        write_line_netcdf(tmp_path / f"{name}.nc", line)
+        rows.append(f"{name}.nc,512000,{4650000 + 0.5 * k},512004,{4650000 + 0.5 * k}")
+    (tmp_path / "nc.csv").write_text("\n".join(rows) + "\n")
+    return tmp_path / "nc.csv"
+
+
+def test_lines_that_disagree(survey, tmp_path, capsys):
+    argv = without_interval()
+    table = _netcdf_survey(survey, tmp_path, samples=400)
+    assert_refused(capsys, tmp_path / "out", "build", table, *argv, "--out", tmp_path / "out",
+                   match="L001.nc: 400 samples per trace")
+    table = _netcdf_survey(survey, tmp_path, interval=0.2)
+    assert_refused(capsys, tmp_path / "out", "build", table, *argv, "--out", tmp_path / "out",
+                   match="L001.nc: sample interval 0.2 ns")
+
+
+def test_no_sample_interval_anywhere(survey, tmp_path, capsys):
+    # SEG-Y written by plain segyio holds no radar interval: the user must give one
+    import segyio
+    spec = segyio.spec()
+    spec.format, spec.samples, spec.tracecount = 5, np.arange(512), 30
+    with segyio.create(survey / "L000.sgy", spec) as f:
+        f.trace = [np.zeros(512, np.float32)] * 30
+    argv = without_interval()
+    assert_refused(capsys, survey / "out", "build", survey / "lines.csv", *argv, "--out",
+                   survey / "out", match="--sample-interval")
+
+
+def test_nan_samples_are_tolerated_and_reported(survey, tmp_path, capsys):
+    line = read_line(survey / "L000.sgy", sample_interval_ns=0.1)
+    line.values[3, 100:110] = np.nan
+    line.values[5, 7] = np.inf
+    write_line_netcdf(tmp_path / "L000.nc", line)
+    (tmp_path / "one.csv").write_text(HEADER + "L000.nc,512000,4650000,512004,4650000\n"
+                                      + "L001.nc,512004,4650000.5,512000,4650000.5\n")
+    write_line_netcdf(tmp_path / "L001.nc", read_line(survey / "L001.sgy",
+                                                      sample_interval_ns=0.1))
+    code, _, err = run(capsys, "build", tmp_path / "one.csv", *GOOD, "--out", tmp_path / "o",
+                       "-q")
+    assert code == 0
+    assert "warning" in err and "11 NaN or infinite sample(s) set to 0" in err
+    with rasterio.open(sorted((tmp_path / "o" / "slices").glob("*.tif"))[5]) as src:
+        assert np.isfinite(src.read(1)).any()
+
+
+def test_killed_mid_way_leaves_finished_files_whole(survey, capsys, monkeypatch):
+    import slicer._build
+
+    def killed(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(slicer._build, "write_cube_netcdf", killed)
+    out = survey / "out"
+    code, _, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--out", out, "-q")
+    assert code == 130 and "interrupted" in err
+    slices = sorted((out / "slices").glob("*"))
+    assert len(slices) == 24 and all(p.suffix == ".tif" for p in slices)  # no temp files
+    for p in slices:
+        with rasterio.open(p) as src:
+            src.read(1)  # each finished file is whole
+    assert not (out / "cube.nc").exists()
+    assert not [p for p in out.iterdir() if ".tmp" in p.name]
+
+
+def test_survey_toml_with_flag_override(survey, capsys):
+    (survey / "survey.toml").write_text(
+        'lines = "lines.csv"\ncrs = "EPSG:32633"\nsample_interval = 0.1\ntime_zero = 3.0\n'
+        'velocity = 0.1\ncell = 0.1\ndepths = "0:2.4:0.1"\nout = "from-toml"\n')
+    code, _, err = run(capsys, "build", survey / "survey.toml", "-q", "--depths", "0:1:0.25")
+    assert code == 0, err
+    assert len(list((survey / "from-toml" / "slices").glob("*.tif"))) == 4
+
+
+def test_demo_command(tmp_path, capsys):
+    code, stdout, err = run(capsys, "demo", "--out", tmp_path / "d", "-q")
+    assert code == 0, err
+    assert (tmp_path / "d" / "survey" / "survey.toml").exists()
+    assert len(list((tmp_path / "d" / "build" / "slices").glob("*.tif"))) == 24
+    code, _, err = run(capsys, "demo", "--out", tmp_path / "d", "-q")
+    assert code == 2 and "--overwrite" in err
+    code, _, err = run(capsys, "demo", "--out", tmp_path / "d", "-q", "--overwrite")
+    assert code == 0, err
