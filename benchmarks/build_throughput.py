@@ -4,8 +4,8 @@ For each size this script writes a synthetic SEG-Y survey with :mod:`slicer.synt
 apart, not part of the build), then measures on the same files in the same run:
 
 * ``slicer.build_cube`` (in memory) and ``slicer.build`` (all outputs written), each in a fresh
-  process so that its peak resident memory (``resource.getrusage(...).ru_maxrss``) belongs to
-  that build alone;
+  process so that its peak resident memory (``VmHWM`` from /proc, not ``ru_maxrss``, which a
+  spawned child inherits from its parent) belongs to that build alone;
 * the floor: every trace read once with segyio (``f.trace.raw[:]``) and its envelope computed
   with :func:`scipy.signal.hilbert` (scipy.fft), zero-padded as the pipeline pads;
 * gridding alone: ``slicer.grid_slices`` on the survey's trace x slice table against
@@ -112,9 +112,23 @@ def make_survey(folder: Path, n_traces: int) -> tuple[Path, list[Path], float, b
 
 # --- measurements ------------------------------------------------------------------------------
 
-def _rss_mib() -> float:
-    # Linux reports ru_maxrss in KiB.
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024
+def _memory_mib() -> tuple[float, float, str]:
+    """Current and peak resident memory of this process (MiB), and where the peak came from.
+
+    The peak is the kernel's high-water mark of this address space (``VmHWM``), which starts
+    afresh at exec. ``getrusage(...).ru_maxrss`` is the fallback where /proc is missing: on
+    Linux a spawned child inherits its parent's ru_maxrss through fork and exec (a 29 MiB child
+    of a parent that had peaked at 790 MiB reports 790 MiB), so it would overstate the peak.
+    """
+    try:
+        status = Path("/proc/self/status").read_text()
+        kib = {k: float(v.split()[0]) for k, v in
+               (line.split(":", 1) for line in status.splitlines() if ":" in line)
+               if k in ("VmRSS", "VmHWM")}
+        return kib["VmRSS"] / 1024, kib["VmHWM"] / 1024, "VmHWM"
+    except (OSError, KeyError, ValueError):
+        peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # KiB on Linux
+        return math.nan, peak, "ru_maxrss"
 
 
 def _settings(table: Path, out: Path | None = None):
@@ -124,7 +138,7 @@ def _settings(table: Path, out: Path | None = None):
 def measure_build(table: str, out: str | None) -> dict:
     """Time one build in this (fresh) process: ``build_cube``, or ``build`` when ``out`` is set."""
     settings = _settings(Path(table), Path(out) if out else None)
-    before = _rss_mib()
+    before, _, _ = _memory_mib()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
         started = time.perf_counter()
@@ -133,14 +147,15 @@ def measure_build(table: str, out: str | None) -> dict:
         else:
             result = slicer.build(settings, progress=False)
         seconds = time.perf_counter() - started
+    _, peak, source = _memory_mib()
     return {"seconds": seconds, "phases": dict(result.record.get("seconds", {})),
-            "rss_before_mib": before, "rss_peak_mib": _rss_mib(),
+            "rss_before_mib": before, "rss_peak_mib": peak, "peak_source": source,
             "shape": tuple(int(n) for n in result.cube.shape),
             "warnings": sorted({f"{w.category.__name__}: {w.message}" for w in caught})}
 
 
 def in_fresh_process(function, *args) -> dict:
-    """Run ``function(*args)`` in a new spawned interpreter, so ru_maxrss is its own."""
+    """Run ``function(*args)`` in a new spawned interpreter, so its peak memory is its own."""
     context = multiprocessing.get_context("spawn")
     with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool:
         return pool.submit(function, *args).result()
@@ -252,7 +267,7 @@ def parse_args(argv=None):
     p.add_argument("--griddata-slices", type=int, metavar="K", default=4,
                    help="run the per-slice griddata loop on K slices spread over the depth "
                         "range and scale its time to all slices (default 4; 0 means all: "
-                        "about 5 minutes more at the default sizes)")
+                        "about 1.5 minutes more at the default sizes)")
     p.add_argument("--no-full-build", action="store_true",
                    help="skip slicer.build (writing GeoTIFFs, cube, overview, record)")
     p.add_argument("--profile", choices=("auto", "always", "never"), default="auto",
@@ -332,6 +347,9 @@ def main(argv=None) -> int:
     print()
     print(_table(["traces", "time (s)", "traces/s", "build/floor", "grid speed-up",
                   "peak RSS (MiB)", "RSS rise (MiB)"], main_rows))
+    if results:
+        print(f"peak RSS: {results[0]['cube']['peak_source']} of a fresh process running only "
+              "that build; rise = peak minus the RSS just before the build")
     print()
     print(_table(["traces", "lines", "SEG-Y MiB", "generate s", "floor s", "floor traces/s",
                   "read+process s", "grid s", "full build s", "write s", "full peak MiB",
