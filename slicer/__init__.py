@@ -11,10 +11,11 @@ The flow, each arrow a function from xarray objects to xarray objects::
 __version__ = "0.1.0"
 
 from ._atomic import atomic_path, prepare_output_dir
-from ._build import BuildResult, build, build_cube, grid_slices, process_line, reduce_survey
+from ._build import BuildResult, build, build_cube, grid_slices
 from ._conventions import C_M_PER_NS
 from ._cube import cube_crs, cube_transform, new_cube, read_cube_netcdf, write_cube_netcdf
 from ._demo import run_demo
+from ._engine import Engine, engine, parse_scheduler
 from ._errors import (
     InputFileError,
     LineTableError,
@@ -37,6 +38,7 @@ from ._processing import (
     remove_background,
 )
 from ._reading import line_info, read_line
+from ._reduce import process_line, reduce_survey
 from ._settings import BuildSettings, load_settings
 from ._survey import iter_lines, place_line, survey_info
 from ._velocity import (
@@ -50,6 +52,7 @@ from ._velocity import (
 from ._windows import Windows, make_windows, parse_range, reduce_to_windows
 
 __all__ = [
+    "Engine", "engine", "parse_scheduler",
     "BuildResult", "BuildSettings", "C_M_PER_NS", "Grid", "InputFileError", "LineEntry",
     "LineTableError", "OutputError", "SettingsError", "SlicerError", "SlicerWarning",
     "Windows", "apply_gain", "atomic_path", "build", "build_cube", "check_velocity",

@@ -21,144 +21,27 @@ import numpy as np
 import xarray as xr
 
 from ._atomic import atomic_write_text, prepare_output_dir
-from ._conventions import TRACE, TWT
 from ._cube import new_cube, write_cube_netcdf
-from ._errors import SettingsError, SlicerError, SlicerWarning
+from ._engine import Engine, parse_scheduler
+from ._errors import SettingsError, SlicerWarning
 from ._figures import plot_overview
 from ._geotiff import write_slice_geotiffs
-from ._grid import grid_for, line_spacings, neighbour_weights, trace_spacing
-from ._processing import apply_gain, correct_time_zero, dewow, envelope, remove_background
-from ._progress import bar_for
+from ._grid import (
+    grid_for,
+    grid_tile,
+    line_spacings,
+    tile_count,
+    tile_jobs,
+    trace_frame,
+    trace_spacing,
+)
+from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
-from ._survey import SurveyInfo, iter_lines, survey_info
-from ._windows import Windows, make_windows, record_reach, reduce_to_windows
-
-
-def nice_number(value: float) -> float:
-    """The largest of 1, 2 or 5 times a power of ten that does not exceed ``value``."""
-    if not math.isfinite(value) or value <= 0:
-        raise ValueError(f"nice_number needs a positive value, got {value}")
-    exponent = math.floor(math.log10(value))
-    for m in (5, 2, 1):
-        candidate = m * 10.0 ** exponent
-        if candidate <= value * (1 + 1e-9):
-            return float(f"{candidate:.12g}")
-    return float(f"{10.0 ** exponent:.12g}")
-
-
-def process_line(line: xr.DataArray, settings: BuildSettings) -> xr.DataArray:
-    """Run the processing chain of ``settings`` on one placed line; returns its envelope."""
-    line = correct_time_zero(line, time_zero=settings.time_zero,
-                             threshold=settings.time_zero_threshold)
-    if settings.dewow != "off":
-        line = dewow(line, window_ns=None if settings.dewow == "auto" else float(settings.dewow))
-    if settings.background != "off":
-        line = remove_background(line, method=settings.background)
-    if settings.gain_curve is not None:
-        kind, value = settings.gain_curve
-        line = apply_gain(line, kind=kind, value=value)
-    return envelope(line)
-
-
-def processing_summary(settings: BuildSettings) -> str:
-    """One line describing the processing chain, for file tags and the overview."""
-    steps = [f"time zero {settings.time_zero} ns" if settings.time_zero != "auto"
-             else "time zero auto (direct-wave pick per line)"]
-    if settings.dewow != "off":
-        steps.append(f"dewow {settings.dewow}" + (" ns" if settings.dewow != "auto" else ""))
-    if settings.background != "off":
-        steps.append(f"background removal ({settings.background} trace)")
-    steps.append(f"gain {settings.gain}" if settings.gain_curve else "no gain")
-    steps.append("envelope (Hilbert)")
-    return "; ".join(steps)
-
-
-def default_windows(record_ns: float, velocity: float | None) -> Windows:
-    """About twenty slices from the surface to the end of a record ``record_ns`` long."""
-    if velocity is not None:
-        reach, axis = velocity * record_ns / 2, "depth"
-    else:
-        reach, axis = record_ns, "twt"
-    step = nice_number(reach / 20)
-    bottom = math.floor(reach / step + 1e-9) * step
-    return make_windows(0.0, bottom, step, axis=axis)
-
-
-def fit_windows(windows: Windows, record_ns: float, velocity: float | None,
-                where: str) -> Windows:
-    """Drop windows below the end of the record (warning); refuse if none is left."""
-    keep = record_reach(record_ns, windows, velocity=velocity)
-    unit = windows.units
-    if not keep.any():
-        reach = record_ns if windows.axis == TWT else velocity * record_ns / 2
-        raise SettingsError(
-            f"every slice lies below the record, which reaches {reach:.3g} {unit} below "
-            "time zero", where=where)
-    if not keep.all():
-        dropped = windows.select(~keep)
-        warnings.warn(f"{len(dropped)} slice(s) from {dropped.top[0]:g} {unit} down lie below "
-                      f"the end of the record and are left out", SlicerWarning, stacklevel=2)
-    return windows.select(keep)
-
-
-@dataclass
-class Reduced:
-    """The survey reduced to slice values: a trace x slice table plus what was learned."""
-
-    table: xr.DataArray
-    info: SurveyInfo
-    windows: Windows
-    lines: list[dict] = field(default_factory=list)
-
-
-def reduce_survey(settings: BuildSettings, *, progress: bool = True) -> Reduced:
-    """Read, place, process and reduce every line of the survey to its slice values.
-
-    Lines are handled one at a time; only their slice values are kept.
-    """
-    info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
-    velocity = settings.resolved_velocity
-    where = "--times" if settings.times is not None else "--depths"
-    windows = settings.requested_windows
-    if not isinstance(settings.time_zero, str):
-        if not 0 <= float(settings.time_zero) < info.record_ns:
-            raise SettingsError(f"time zero {settings.time_zero} ns lies outside the record "
-                                f"(0 to {info.record_ns:g} ns)", where="--time-zero")
-        if windows is not None:  # known before reading a sample: refuse early
-            windows = fit_windows(windows, info.record_ns - float(settings.time_zero),
-                                  velocity, where)
-    parts, lines = [], []
-    with bar_for(enabled=progress, total=info.n_traces, desc="reading and processing",
-                 unit="trace") as bar:
-        for number, line in enumerate(iter_lines(settings.lines,
-                                                 sample_interval_ns=info.sample_interval_ns)):
-            env = process_line(line, settings)
-            if number == 0:  # the first line's record decides which windows fit
-                record_ns = float(env[TWT].values[-1])
-                windows = (default_windows(record_ns, velocity) if windows is None
-                           else fit_windows(windows, record_ns, velocity, where))
-            values = reduce_to_windows(env, windows, velocity=velocity)
-            n = line.sizes[TRACE]
-            parts.append(xr.Dataset({
-                "value": ((TRACE, "slice"), values.values),
-                "x": (TRACE, line["x"].values), "y": (TRACE, line["y"].values),
-                "line": (TRACE, np.full(n, number, dtype=np.int32))}))
-            lines.append({"file": str(settings.lines[number].file),
-                          "traces": n,
-                          "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
-                          "history": env.attrs.get("history", "")})
-            bar.update(n)
-    table = xr.concat(parts, dim=TRACE)
-    u = windows.units
-    table = table["value"].assign_coords(
-        x=table["x"], y=table["y"], line=table["line"],
-        top=("slice", windows.top, {"units": u, "axis": windows.axis}),
-        bottom=("slice", windows.bottom, {"units": u, "axis": windows.axis}))
-    return Reduced(table=table, info=info, windows=windows, lines=lines)
 
 
 def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float | None = None,
                 crs=None, velocity: float | None = None, processing: str = "",
+                engine: Engine | None = None, tile: int = 256,
                 progress: bool = True) -> tuple[xr.DataArray, dict]:
     """Grid a trace x slice table onto a regular grid: the cube, and how it was gridded.
 
@@ -177,26 +60,49 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
         Radar velocity (m/ns), stored in the cube's attrs.
     processing : str
         Summary of the processing, stored in the cube's attrs.
+    engine : Engine, optional
+        Where the tile tasks run; default dask's threads.
+    tile : int
+        Tile edge in cells: each tile is gridded from the traces near it only.
     """
     x, y = table["x"].values, table["y"].values
     line = table["line"].values
-    if cell is None:
-        spacing = np.nanmedian(line_spacings(x, y, line))
-        along = trace_spacing(x, y, line)
-        base = spacing / 4 if math.isfinite(spacing) else 4 * along
-        cell = nice_number(base)
+    cell = default_cell(x, y, line) if cell is None else cell
     grid = grid_for(x, y, cell=cell)
-    weights = neighbour_weights(grid, x, y, line, radius=radius, progress=progress)
-    values = weights.apply(table.values).reshape(len(table["slice"]), grid.ny, grid.nx)
+    frame = trace_frame(x, y, line, cell=grid.cell, radius=radius)
+    values = np.full((table.sizes["slice"], grid.ny, grid.nx), np.nan, dtype=np.float32)
+    for row0, col0, block in grid_blocks(grid, frame, table.values, engine=engine, tile=tile,
+                                         progress=progress):
+        values[:, row0:row0 + block.shape[1], col0:col0 + block.shape[2]] = block
     axis = table["top"].attrs.get("axis", "depth")
     cube = new_cube(values, west=grid.west, north=grid.north, cell=grid.cell, crs=crs,
                     top=table["top"].values, bottom=table["bottom"].values, axis=axis,
                     velocity=velocity, processing=processing)
     details = {"west": grid.west, "north": grid.north, "cell": grid.cell, "nx": grid.nx,
-               "ny": grid.ny, "search_radius_m": weights.radius,
-               "line_spacing_m": weights.across, "along_line_half_width_m": weights.along,
-               "empty_cells": int(weights.empty.sum())}
+               "ny": grid.ny, "tile": tile, "search_radius_m": frame.radius,
+               "line_spacing_m": frame.line_spacing, "along_line_half_width_m": frame.along,
+               "empty_cells": int(np.isnan(values[0]).sum())}
     return cube, details
+
+
+def default_cell(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> float:
+    """A round cell size near a quarter of the median line spacing (m)."""
+    spacing = np.nanmedian(line_spacings(x, y, line))
+    base = spacing / 4 if math.isfinite(spacing) else 4 * trace_spacing(x, y, line)
+    return nice_number(base)
+
+
+def grid_blocks(grid, frame, values: np.ndarray, *, engine: Engine | None = None,
+                tile: int = 256, progress: bool = True):
+    """Grid ``values`` (traces x slices) tile by tile: yields ``(row0, col0, block)``."""
+    if engine is None:
+        with Engine(parse_scheduler("threads")) as own:
+            yield from grid_blocks(grid, frame, values, engine=own, tile=tile,
+                                   progress=progress)
+        return
+    jobs = tile_jobs(grid, frame, values, tile=tile)
+    yield from engine.map(grid_tile, jobs, desc="gridding", unit="tile", progress=progress,
+                          weights=[1] * tile_count(grid, tile))
 
 
 @dataclass
@@ -209,21 +115,29 @@ class BuildResult:
     warnings: list[str] = field(default_factory=list)
 
 
-def build_cube(settings: BuildSettings, *, progress: bool = True) -> BuildResult:
-    """Run the whole pipeline in memory, writing nothing: the cube and its record."""
+def build_cube(settings: BuildSettings, *, progress: bool = True,
+               engine: Engine | None = None) -> BuildResult:
+    """Run the whole pipeline in memory, writing nothing: the cube and its record.
+
+    ``engine`` (default: the one ``settings.scheduler`` names) runs the line and tile tasks.
+    """
+    if engine is None:
+        with open_engine(settings) as own:
+            return build_cube(settings, progress=progress, engine=own)
     started = time.perf_counter()
-    reduced = reduce_survey(settings, progress=progress)
+    reduced = reduce_survey(settings, engine=engine, progress=progress)
     read_s = time.perf_counter() - started
     velocity = settings.resolved_velocity if reduced.windows.axis == "depth" else None
-    summary = processing_summary(settings)
+    summary = processing_summary(settings, reduced.dewow_ns)
     cube, details = grid_slices(reduced.table, cell=settings.cell, radius=settings.radius,
                                 crs=settings.crs, velocity=velocity, processing=summary,
-                                progress=progress)
+                                engine=engine, progress=progress)
     record = {
         "slicer": _version(),
         "created_utc": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
         "settings": settings.to_record(),
         "processing": summary,
+        "engine": engine.spec.label,
         "survey": {"lines": len(settings.lines), "traces": reduced.info.n_traces,
                    "samples_per_trace": reduced.info.n_samples,
                    "sample_interval_ns": reduced.info.sample_interval_ns},
@@ -237,6 +151,11 @@ def build_cube(settings: BuildSettings, *, progress: bool = True) -> BuildResult
         "environment": _environment(),
     }
     return BuildResult(cube=cube, record=record)
+
+
+def open_engine(settings: BuildSettings) -> Engine:
+    """The engine ``settings.scheduler`` names (a context manager)."""
+    return Engine(parse_scheduler(settings.scheduler))
 
 
 def build(settings: BuildSettings, *, progress: bool = True,
@@ -337,5 +256,4 @@ def _jsonable(value):
     raise TypeError(f"cannot record {type(value).__name__}")
 
 
-__all__ = ["BuildResult", "SlicerError", "build", "build_cube", "grid_slices",
-           "process_line", "reduce_survey"]
+__all__ = ["BuildResult", "build", "build_cube", "grid_slices"]

@@ -174,27 +174,64 @@ class Weights:
         return out.astype(np.float32)
 
 
-def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray, *,
-                      radius: float | None = None, along: float | None = None,
-                      progress: bool = False) -> Weights:
-    """Sparse weights from traces at ``(x, y)`` on lines ``line`` to the cells of ``grid``.
+@dataclass(frozen=True)
+class TraceFrame:
+    """Every trace's position and line frame, and the lengths that shape the weights.
+
+    Attributes
+    ----------
+    x, y : numpy.ndarray
+        Trace positions (m).
+    ux, uy : numpy.ndarray
+        Unit vector along each trace's line.
+    spacing : numpy.ndarray
+        Across-line tent half-width of each trace: its line's spacing to its neighbours (m).
+    along : float
+        Along-line tent half-width (m).
+    radius : float
+        Search radius (m): cells with no trace this close stay NaN.
+    line_spacing : float
+        Median line spacing (m).
+    """
+
+    x: np.ndarray
+    y: np.ndarray
+    ux: np.ndarray
+    uy: np.ndarray
+    spacing: np.ndarray
+    along: float
+    radius: float
+    line_spacing: float
+
+    @property
+    def reach(self) -> float:
+        """Farthest a trace can be from a cell it weighs in (m)."""
+        return max(self.radius, math.hypot(self.along, float(self.spacing.max())))
+
+    def subset(self, index: np.ndarray) -> TraceFrame:
+        """The frame of some traces only (same lengths)."""
+        return TraceFrame(self.x[index], self.y[index], self.ux[index], self.uy[index],
+                          self.spacing[index], self.along, self.radius, self.line_spacing)
+
+
+def trace_frame(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, cell: float,
+                radius: float | None = None, along: float | None = None) -> TraceFrame:
+    """Line frames and gridding lengths of traces at ``(x, y)`` on lines ``line``.
 
     Parameters
     ----------
-    grid : Grid
-        The output grid.
     x, y : numpy.ndarray
         Trace positions (m), grouped by line and in recording order within a line.
     line : numpy.ndarray
         Integer line id of every trace.
+    cell : float
+        Grid cell (m).
     radius : float, optional
         Cells with no trace closer than this (m) stay NaN. Default 0.75 x the median line
         spacing, but at least one cell diagonal.
     along : float, optional
         Half-width (m) of the along-line tent. Default the larger of the cell and the trace
         spacing.
-    progress : bool
-        Show a progress bar (tqdm).
     """
     x = np.asarray(x, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
@@ -205,35 +242,45 @@ def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray
     spacing_per_line = line_spacings(x, y, line)
     ids, index = np.unique(line, return_inverse=True)
     if np.isnan(spacing_per_line).all():
-        fallback = 20 * (dx_step if math.isfinite(dx_step) else grid.cell)
+        fallback = 20 * (dx_step if math.isfinite(dx_step) else cell)
         warn(f"no parallel neighbour lines found; assuming a line spacing of {fallback:.3g} m")
         spacing_per_line = np.full(len(ids), fallback)
-    s_trace = spacing_per_line[index]
     s_median = float(np.median(spacing_per_line))
     if along is None:
-        along = max(grid.cell, dx_step if math.isfinite(dx_step) else grid.cell)
+        along = max(cell, dx_step if math.isfinite(dx_step) else cell)
     if radius is None:
-        radius = max(0.75 * s_median, grid.cell * math.sqrt(2))
+        radius = max(0.75 * s_median, cell * math.sqrt(2))
     elif not math.isfinite(radius) or radius <= 0:
         raise SettingsError(f"search radius must be positive, got {radius:g} m",
                             where="--radius")
-
     ux, uy = _line_directions(x, y, line)
-    trees = scipy.spatial.cKDTree(np.column_stack([x, y]))
-    gx, gy = np.meshgrid(grid.x, grid.y)
-    cells = np.column_stack([gx.ravel(), gy.ravel()])
-    nearest, _ = trees.query(cells, k=1, distance_upper_bound=radius)
+    return TraceFrame(x, y, ux, uy, spacing_per_line[index], float(along), float(radius),
+                      s_median)
 
-    reach = math.hypot(along, float(s_trace.max()))
+
+def cell_weights(frame: TraceFrame, cells: np.ndarray, *, chunk: int = 20_000,
+                 progress: bool = False) -> tuple[scipy.sparse.csr_array, np.ndarray]:
+    """Row-normalised weights (cells x traces of ``frame``) and the empty-cell mask.
+
+    Parameters
+    ----------
+    frame : TraceFrame
+        The traces that may weigh in (all of them, or those near a tile).
+    cells : numpy.ndarray
+        ``(n, 2)`` cell-centre coordinates (m).
+    """
+    tree = scipy.spatial.cKDTree(np.column_stack([frame.x, frame.y]))
+    nearest, _ = tree.query(cells, k=1, distance_upper_bound=frame.radius)
+    reach = math.hypot(frame.along, float(frame.spacing.max()))
+    x, y, ux, uy, s = frame.x, frame.y, frame.ux, frame.uy, frame.spacing
     rows, cols, vals = [], [], []
-    chunk = 20_000
     for start in progress_bar(range(0, len(cells), chunk), desc="weights", unit="chunk",
-                      enabled=progress, leave=False):
+                              enabled=progress, leave=False):
         block = cells[start:start + chunk]
         live = np.isfinite(nearest[start:start + chunk])
         if not live.any():
             continue
-        hits = trees.query_ball_point(block[live], r=reach, return_sorted=False)
+        hits = tree.query_ball_point(block[live], r=reach, return_sorted=False)
         counts = np.fromiter((len(h) for h in hits), dtype=np.int64, count=len(hits))
         if counts.sum() == 0:
             continue
@@ -242,7 +289,7 @@ def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray
         dxp, dyp = cells[r, 0] - x[c], cells[r, 1] - y[c]
         a = np.abs(dxp * ux[c] + dyp * uy[c])
         b = np.abs(-dxp * uy[c] + dyp * ux[c])
-        w = np.clip(1 - a / along, 0, None) * np.clip(1 - b / s_trace[c], 0, None)
+        w = np.clip(1 - a / frame.along, 0, None) * np.clip(1 - b / s[c], 0, None)
         keep = w > 0
         rows.append(r[keep])
         cols.append(c[keep])
@@ -252,13 +299,78 @@ def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray
     else:
         rows = cols = np.zeros(0, dtype=np.int64)
         vals = np.zeros(0)
-    matrix = scipy.sparse.csr_array((vals, (rows, cols)), shape=(grid.size, x.size))
+    matrix = scipy.sparse.csr_array((vals, (rows, cols)), shape=(len(cells), x.size))
     total = np.asarray(matrix.sum(axis=1)).ravel()
     empty = ~np.isfinite(nearest) | (total <= 0)
     scale = np.where(total > 0, 1.0 / np.where(total > 0, total, 1.0), 0.0)
-    matrix = (scipy.sparse.diags_array(scale) @ matrix).tocsr()
-    return Weights(matrix=matrix, empty=empty, radius=float(radius), across=s_median,
-                   along=float(along))
+    return (scipy.sparse.diags_array(scale) @ matrix).tocsr(), empty
+
+
+def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray, *,
+                      radius: float | None = None, along: float | None = None,
+                      progress: bool = False) -> Weights:
+    """Sparse weights from traces at ``(x, y)`` on lines ``line`` to every cell of ``grid``.
+
+    See :func:`trace_frame` for the parameters; :func:`grid_tile` does the same for one tile.
+    """
+    frame = trace_frame(x, y, line, cell=grid.cell, radius=radius, along=along)
+    gx, gy = np.meshgrid(grid.x, grid.y)
+    matrix, empty = cell_weights(frame, np.column_stack([gx.ravel(), gy.ravel()]),
+                                 progress=progress)
+    return Weights(matrix=matrix, empty=empty, radius=frame.radius, across=frame.line_spacing,
+                   along=frame.along)
+
+
+@dataclass(frozen=True)
+class TileJob:
+    """One output tile to grid: its place, its cells and the traces near it (picklable)."""
+
+    row0: int
+    col0: int
+    x: np.ndarray
+    y: np.ndarray
+    frame: TraceFrame
+    values: np.ndarray
+
+
+def grid_tile(job: TileJob) -> tuple[int, int, np.ndarray]:
+    """Grid one tile: ``(row0, col0, block)`` with block ``(slices, len(y), len(x))``."""
+    n_slices = job.values.shape[1]
+    shape = (n_slices, job.y.size, job.x.size)
+    if job.frame.x.size == 0:
+        return job.row0, job.col0, np.full(shape, np.nan, dtype=np.float32)
+    gx, gy = np.meshgrid(job.x, job.y)
+    matrix, empty = cell_weights(job.frame, np.column_stack([gx.ravel(), gy.ravel()]))
+    weights = Weights(matrix, empty, job.frame.radius, job.frame.line_spacing, job.frame.along)
+    return job.row0, job.col0, weights.apply(job.values).reshape(shape)
+
+
+def tile_jobs(grid: Grid, frame: TraceFrame, values: np.ndarray, *, tile: int = 256):
+    """The tiles of ``grid`` (``tile`` x ``tile`` cells), each with only the traces near it.
+
+    Yields
+    ------
+    TileJob
+        Row-major over the tiles.
+    """
+    order = np.argsort(frame.x, kind="stable")
+    xs = frame.x[order]
+    margin = frame.reach + grid.cell
+    gx_all, gy_all = grid.x, grid.y
+    for row0 in range(0, grid.ny, tile):
+        ys = gy_all[row0:row0 + tile]
+        for col0 in range(0, grid.nx, tile):
+            xc = gx_all[col0:col0 + tile]
+            lo, hi = np.searchsorted(xs, [xc[0] - margin, xc[-1] + margin])
+            near = order[lo:hi]
+            near = near[(frame.y[near] >= ys[-1] - margin) & (frame.y[near] <= ys[0] + margin)]
+            near.sort()
+            yield TileJob(row0, col0, xc, ys, frame.subset(near), values[near])
+
+
+def tile_count(grid: Grid, tile: int) -> int:
+    """Number of tiles :func:`tile_jobs` yields."""
+    return math.ceil(grid.ny / tile) * math.ceil(grid.nx / tile)
 
 
 def _line_directions(x: np.ndarray, y: np.ndarray, line: np.ndarray):

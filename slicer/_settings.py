@@ -48,6 +48,8 @@ OPTION_KEYS = {
     "depths": "depth slices TOP:BOTTOM:STEP in m",
     "thickness": "slice thickness (m or ns), default the step",
     "times": "time slices TOP:BOTTOM:STEP in ns below time zero",
+    "scheduler": "where to run: threads, processes, local:N or tcp://HOST:PORT",
+    "memory_limit": "memory budget of the build's working data, e.g. 1GB",
     "title": "title of the overview sheet",
     "out": "output folder",
     "overwrite": "replace the outputs of an earlier build in the output folder",
@@ -78,6 +80,8 @@ class BuildSettings:
     depths: str | None = None
     thickness: float | None = None
     times: str | None = None
+    scheduler: str = "threads"
+    memory_limit: str | float | None = None
     title: str | None = None
     out: Path | None = None
     overwrite: bool = False
@@ -120,6 +124,11 @@ class BuildSettings:
                                 "--permittivity (or cut time slices with --times)",
                                 where="--depths")
         self.requested_windows  # noqa: B018 - validates
+        from ._budget import parse_bytes
+        from ._engine import parse_scheduler
+        parse_scheduler(self.scheduler)
+        if self.memory_limit is not None:
+            parse_bytes(self.memory_limit, where="--memory-limit")
 
     @property
     def resolved_velocity(self) -> float | None:

@@ -8,8 +8,8 @@ import pytest
 import rasterio
 
 import slicer
-from slicer._build import default_windows, nice_number
 from slicer._cli import main
+from slicer._reduce import default_windows, nice_number
 
 CONTRACT = ["build", "lines.csv", "--crs", "EPSG:32633", "--sample-interval", "0.1",
             "--time-zero", "3.0", "--velocity", "0.1", "--cell", "0.1", "--depths",

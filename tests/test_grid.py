@@ -123,3 +123,20 @@ def test_bad_radius():
     x, y, ids = parallel_lines(n_lines=3)
     with pytest.raises(SettingsError, match="--radius"):
         neighbour_weights(grid_for(x, y, cell=0.1), x, y, ids, radius=-1.0)
+
+
+def test_tiles_give_the_same_grid_as_one_pass():
+    from slicer._grid import grid_tile, tile_count, tile_jobs, trace_frame
+    x, y, ids = parallel_lines(n_lines=9)
+    values = np.column_stack([np.sin(x - 512000), np.cos(y - 4650000)])
+    g = grid_for(x, y, cell=0.1)
+    whole = neighbour_weights(g, x, y, ids).apply(values).reshape(2, g.ny, g.nx)
+    frame = trace_frame(x, y, ids, cell=g.cell)
+    tiled = np.full_like(whole, -999.0)
+    jobs = list(tile_jobs(g, frame, values, tile=16))
+    assert len(jobs) == tile_count(g, 16) > 4
+    assert max(j.frame.x.size for j in jobs) < x.size  # each tile sees only nearby traces
+    for job in jobs:
+        r, c, block = grid_tile(job)
+        tiled[:, r:r + block.shape[1], c:c + block.shape[2]] = block
+    np.testing.assert_allclose(tiled, whole, rtol=1e-6, atol=1e-7)

@@ -1,0 +1,185 @@
+"""Where a build runs: dask's local threads or processes, or a dask.distributed cluster.
+
+Work is cut into independent tasks (one per line to reduce, one per output tile to grid), each a
+plain module-level function of picklable arguments, so the same graph runs on every engine.
+Results come back in order; a progress bar counts finished tasks.
+
+Engines, as ``--scheduler`` spells them:
+
+``threads`` (default)
+    dask's threaded scheduler on this machine.
+``processes``
+    dask's multiprocessing scheduler (no GIL contention; arguments and results are pickled).
+``local:N``
+    a ``dask.distributed.LocalCluster`` of N single-threaded worker processes, started for the
+    build and closed after it.
+``tcp://HOST:PORT``
+    an existing dask.distributed scheduler; every worker must see the input files at the same
+    paths (shared or object storage).
+"""
+
+from __future__ import annotations
+
+import concurrent.futures
+import contextlib
+import multiprocessing
+import os
+from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass
+
+import dask
+
+from ._errors import SettingsError
+from ._progress import bar_for
+
+
+@dataclass(frozen=True)
+class EngineSpec:
+    """A parsed ``--scheduler`` value.
+
+    Attributes
+    ----------
+    kind : {"threads", "processes", "local", "remote"}
+    workers : int
+        Concurrent tasks (local engines); for ``remote`` the cluster decides.
+    address : str or None
+        Scheduler address of a remote cluster.
+    """
+
+    kind: str
+    workers: int
+    address: str | None = None
+
+    @property
+    def label(self) -> str:
+        if self.kind == "remote":
+            return self.address
+        if self.kind == "local":
+            return f"local:{self.workers}"
+        return f"{self.kind} ({self.workers} workers)"
+
+
+def parse_scheduler(text: str | None, *, workers: int | None = None) -> EngineSpec:
+    """Parse a ``--scheduler`` value (see the module docstring)."""
+    n = workers or os.cpu_count() or 1
+    text = (text or "threads").strip()
+    if text in ("threads", "processes"):
+        return EngineSpec(text, n)
+    if text.startswith("local:"):
+        try:
+            count = int(text.split(":", 1)[1])
+        except ValueError:
+            count = 0
+        if count < 1:
+            raise SettingsError(f"expected local:N with N >= 1 workers, got {text!r}",
+                                where="--scheduler")
+        return EngineSpec("local", count)
+    if text.startswith("tcp://") and len(text) > len("tcp://"):
+        return EngineSpec("remote", n, address=text)
+    raise SettingsError(f"expected threads, processes, local:N or tcp://HOST:PORT, got "
+                        f"{text!r}", where="--scheduler")
+
+
+class Engine:
+    """Runs lists of tasks on one engine; use as a context manager.
+
+    Parameters
+    ----------
+    spec : EngineSpec
+        Which engine.
+    memory_limit : int, optional
+        Bytes per worker for a LocalCluster.
+    """
+
+    #: Seconds to wait for a remote scheduler.
+    connect_timeout = 10
+
+    def __init__(self, spec: EngineSpec, *, memory_limit: int | None = None):
+        self.spec = spec
+        self.memory_limit = memory_limit
+        self._client = None
+        self._cluster = None
+        self._pool = None
+
+    def __enter__(self) -> Engine:
+        if self.spec.kind == "processes":
+            # one pool for the whole build (dask would start one per compute call); spawn,
+            # because forking a process that runs threads can deadlock
+            self._pool = concurrent.futures.ProcessPoolExecutor(
+                max_workers=self.spec.workers, mp_context=multiprocessing.get_context("spawn"))
+        if self.spec.kind in ("local", "remote"):
+            try:
+                from distributed import Client, LocalCluster
+            except ImportError:  # pragma: no cover - distributed is a dependency
+                raise SettingsError("dask.distributed is not installed",
+                                    where="--scheduler") from None
+            if self.spec.kind == "local":
+                self._cluster = LocalCluster(
+                    n_workers=self.spec.workers, threads_per_worker=1, processes=True,
+                    dashboard_address=None,
+                    memory_limit=self.memory_limit if self.memory_limit else "auto")
+                self._client = Client(self._cluster)
+            else:
+                try:
+                    self._client = Client(self.spec.address, timeout=self.connect_timeout)
+                except OSError as exc:
+                    raise SettingsError(f"cannot reach the dask scheduler at "
+                                        f"{self.spec.address} ({exc})",
+                                        where="--scheduler") from None
+        return self
+
+    def __exit__(self, *exc_info) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(cancel_futures=True)
+            self._pool = None
+        if self._client is not None:
+            self._client.close()
+        if self._cluster is not None:
+            self._cluster.close()
+        self._client = self._cluster = None
+
+    @property
+    def workers(self) -> int:
+        """How many tasks run at once."""
+        if self._client is not None:
+            return max(1, sum(self._client.nthreads().values()))
+        return self.spec.workers
+
+    def map(self, func: Callable, items: Sequence, *, desc: str, unit: str = "task",
+            progress: bool = True, weights: Sequence[int] | None = None) -> Iterator:
+        """Yield ``func(item)`` for every item, in order, running them concurrently.
+
+        At most a few tasks per worker are in flight at once, so memory stays bounded by the
+        size of a task, not by the number of items. ``weights`` (e.g. traces per line) make the
+        progress bar count work rather than tasks.
+        """
+        items = list(items)
+        weights = list(weights) if weights is not None else [1] * len(items)
+        window = max(2, 2 * self.workers)
+        with bar_for(enabled=progress, total=sum(weights), desc=desc, unit=unit) as bar:
+            for start in range(0, len(items), window):
+                block = items[start:start + window]
+                for k, result in enumerate(self._run_block(func, block)):
+                    bar.update(weights[start + k])
+                    yield result
+
+    def _run_block(self, func: Callable, block: list) -> list:
+        if self._client is not None:
+            futures = self._client.map(func, block, pure=False)
+            try:
+                return self._client.gather(futures)
+            finally:
+                for f in futures:
+                    f.release()
+        tasks = [dask.delayed(func, pure=False)(item) for item in block]
+        if self._pool is not None:
+            return list(dask.compute(*tasks, scheduler="processes", pool=self._pool))
+        return list(dask.compute(*tasks, scheduler="threads", num_workers=self.spec.workers))
+
+
+@contextlib.contextmanager
+def engine(scheduler: str | None = None, *, workers: int | None = None,
+           memory_limit: int | None = None) -> Iterator[Engine]:
+    """Open the engine a ``--scheduler`` value names (see :class:`Engine`)."""
+    with Engine(parse_scheduler(scheduler, workers=workers), memory_limit=memory_limit) as e:
+        yield e

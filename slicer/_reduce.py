@@ -1,0 +1,228 @@
+"""Reducing a survey to slice values: every line read, placed, processed and cut into windows.
+
+Each line is one task (:func:`reduce_line`): a picklable :class:`LineJob` in, a few dozen
+numbers per trace out, so lines run concurrently on any engine (:mod:`slicer._engine`) and only
+one line per worker is ever in memory. The first line runs first, alone: its record decides
+which slice windows fit, and with ``dewow = "auto"`` its dominant frequency sets the dewow
+window of every line (one filter for the whole survey).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import xarray as xr
+
+from ._conventions import TRACE, TWT
+from ._engine import Engine, parse_scheduler
+from ._errors import SettingsError, SlicerWarning
+from ._linetable import LineEntry
+from ._processing import (
+    apply_gain,
+    correct_time_zero,
+    dewow,
+    dominant_frequency,
+    envelope,
+    remove_background,
+)
+from ._reading import read_line
+from ._settings import BuildSettings
+from ._survey import SurveyInfo, place_line, survey_info
+from ._windows import Windows, make_windows, record_reach, reduce_to_windows
+
+
+def nice_number(value: float) -> float:
+    """The largest of 1, 2 or 5 times a power of ten that does not exceed ``value``."""
+    if not math.isfinite(value) or value <= 0:
+        raise ValueError(f"nice_number needs a positive value, got {value}")
+    exponent = math.floor(math.log10(value))
+    for m in (5, 2, 1):
+        candidate = m * 10.0 ** exponent
+        if candidate <= value * (1 + 1e-9):
+            return float(f"{candidate:.12g}")
+    return float(f"{10.0 ** exponent:.12g}")
+
+
+def process_line(line: xr.DataArray, settings: BuildSettings, *,
+                 dewow_ns: float | None = None) -> xr.DataArray:
+    """Run the processing chain of ``settings`` on one placed line; returns its envelope.
+
+    ``dewow_ns`` fixes the dewow window when ``settings.dewow`` is ``"auto"`` (the build
+    resolves it once, from the first line).
+    """
+    line = correct_time_zero(line, time_zero=settings.time_zero,
+                             threshold=settings.time_zero_threshold)
+    if settings.dewow != "off":
+        window = float(settings.dewow) if settings.dewow != "auto" else dewow_ns
+        line = dewow(line, window_ns=window)
+    if settings.background != "off":
+        line = remove_background(line, method=settings.background)
+    if settings.gain_curve is not None:
+        kind, value = settings.gain_curve
+        line = apply_gain(line, kind=kind, value=value)
+    return envelope(line)
+
+
+def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -> str:
+    """One line describing the processing chain, for file tags and the overview."""
+    steps = [f"time zero {settings.time_zero} ns" if settings.time_zero != "auto"
+             else "time zero auto (direct-wave pick per line)"]
+    if settings.dewow != "off":
+        window = dewow_ns if settings.dewow == "auto" else float(settings.dewow)
+        steps.append(f"dewow {window:.2f} ns" if window else "dewow auto")
+    if settings.background != "off":
+        steps.append(f"background removal ({settings.background} trace)")
+    steps.append(f"gain {settings.gain}" if settings.gain_curve else "no gain")
+    steps.append("envelope (Hilbert)")
+    return "; ".join(steps)
+
+
+def default_windows(record_ns: float, velocity: float | None) -> Windows:
+    """About twenty slices from the surface to the end of a record ``record_ns`` long."""
+    if velocity is not None:
+        reach, axis = velocity * record_ns / 2, "depth"
+    else:
+        reach, axis = record_ns, "twt"
+    step = nice_number(reach / 20)
+    bottom = math.floor(reach / step + 1e-9) * step
+    return make_windows(0.0, bottom, step, axis=axis)
+
+
+def fit_windows(windows: Windows, record_ns: float, velocity: float | None,
+                where: str) -> Windows:
+    """Drop windows below the end of the record (warning); refuse if none is left."""
+    keep = record_reach(record_ns, windows, velocity=velocity)
+    unit = windows.units
+    if not keep.any():
+        reach = record_ns if windows.axis == TWT else velocity * record_ns / 2
+        raise SettingsError(
+            f"every slice lies below the record, which reaches {reach:.3g} {unit} below "
+            "time zero", where=where)
+    if not keep.all():
+        dropped = windows.select(~keep)
+        warnings.warn(f"{len(dropped)} slice(s) from {dropped.top[0]:g} {unit} down lie below "
+                      f"the end of the record and are left out", SlicerWarning, stacklevel=2)
+    return windows.select(keep)
+
+
+@dataclass(frozen=True)
+class LineJob:
+    """Everything one line's task needs (picklable, for process and cluster engines)."""
+
+    number: int
+    entry: LineEntry
+    settings: BuildSettings
+    windows: Windows
+    velocity: float | None
+    interval_ns: float
+    dewow_ns: float | None
+
+
+def reduce_line(job: LineJob) -> dict:
+    """Read, place, process and reduce one line: its trace x slice values and what was found.
+
+    Returns
+    -------
+    dict
+        ``values`` (traces, slices) float32, ``x``, ``y`` (m), ``line`` (the job number),
+        ``time_zero_ns`` and ``history``.
+    """
+    line = place_line(read_line(job.entry.file, sample_interval_ns=job.interval_ns), job.entry)
+    env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
+    values = reduce_to_windows(env, job.windows, velocity=job.velocity)
+    return {"values": np.asarray(values.values, dtype=np.float32),
+            "x": line["x"].values, "y": line["y"].values, "line": job.number,
+            "file": str(job.entry.file), "traces": line.sizes[TRACE],
+            "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
+            "history": env.attrs.get("history", "")}
+
+
+@dataclass
+class Reduced:
+    """The survey reduced to slice values: a trace x slice table plus what was learned."""
+
+    table: xr.DataArray
+    info: SurveyInfo
+    windows: Windows
+    dewow_ns: float | None
+    lines: list[dict] = field(default_factory=list)
+
+
+def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
+    """The requested windows, checked against the record when time zero is fixed."""
+    windows = settings.requested_windows
+    if isinstance(settings.time_zero, str):
+        return windows
+    t0 = float(settings.time_zero)
+    if not 0 <= t0 < info.record_ns:
+        raise SettingsError(f"time zero {settings.time_zero} ns lies outside the record "
+                            f"(0 to {info.record_ns:g} ns)", where="--time-zero")
+    if windows is None:
+        return None
+    where = "--times" if settings.times is not None else "--depths"
+    return fit_windows(windows, info.record_ns - t0, settings.resolved_velocity, where)
+
+
+def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
+                  info: SurveyInfo | None = None, progress: bool = True) -> Reduced:
+    """Read, place, process and reduce every line of the survey to its slice values.
+
+    Parameters
+    ----------
+    settings : BuildSettings
+        The build.
+    engine : Engine, optional
+        Where the line tasks run; default dask's threads on this machine.
+    info : SurveyInfo, optional
+        The survey's headers, if already read.
+    progress : bool
+        Show a progress bar (on a terminal).
+    """
+    if engine is None:
+        with Engine(parse_scheduler("threads")) as own:
+            return reduce_survey(settings, engine=own, info=info, progress=progress)
+    info = info or survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
+    velocity = settings.resolved_velocity
+    where = "--times" if settings.times is not None else "--depths"
+    windows = plan_windows(settings, info)
+
+    first = place_line(read_line(settings.lines[0].file,
+                                 sample_interval_ns=info.sample_interval_ns), settings.lines[0])
+    dewow_ns = None
+    if settings.dewow == "auto":
+        t0_line = correct_time_zero(first, time_zero=settings.time_zero,
+                                    threshold=settings.time_zero_threshold)
+        dewow_ns = 1.5 / dominant_frequency(t0_line)
+    record_ns = (info.record_ns - float(settings.time_zero)
+                 if not isinstance(settings.time_zero, str) else None)
+    if windows is None or record_ns is None:
+        env = process_line(first, settings, dewow_ns=dewow_ns)
+        record_ns = float(env[TWT].values[-1])
+        windows = (default_windows(record_ns, velocity) if windows is None
+                   else fit_windows(windows, record_ns, velocity, where))
+    jobs = [LineJob(k, entry, settings, windows, velocity, info.sample_interval_ns, dewow_ns)
+            for k, entry in enumerate(settings.lines)]
+    sizes = [line.n_traces for line in info.lines]
+    results = list(engine.map(reduce_line, jobs, desc="reading and processing", unit="trace",
+                              progress=progress, weights=sizes))
+    return Reduced(table=assemble_table(results, windows), info=info, windows=windows,
+                   dewow_ns=dewow_ns,
+                   lines=[{k: r[k] for k in ("file", "traces", "time_zero_ns", "history")}
+                          for r in results])
+
+
+def assemble_table(results: list[dict], windows: Windows) -> xr.DataArray:
+    """Concatenate per-line results into one ``(trace, slice)`` table with positions."""
+    values = np.concatenate([r["values"] for r in results], axis=0)
+    u = windows.units
+    return xr.DataArray(
+        values, dims=(TRACE, "slice"), name="value",
+        coords={"x": (TRACE, np.concatenate([r["x"] for r in results]), {"units": "m"}),
+                "y": (TRACE, np.concatenate([r["y"] for r in results]), {"units": "m"}),
+                "line": (TRACE, np.concatenate([np.full(r["traces"], r["line"], np.int32)
+                                                for r in results])),
+                "top": ("slice", windows.top, {"units": u, "axis": windows.axis}),
+                "bottom": ("slice", windows.bottom, {"units": u, "axis": windows.axis})})
