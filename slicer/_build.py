@@ -21,6 +21,7 @@ import numpy as np
 import xarray as xr
 
 from ._atomic import atomic_write_text, prepare_output_dir
+from ._budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
 from ._cube import new_cube, write_cube_netcdf
 from ._engine import Engine, parse_scheduler
 from ._errors import SettingsError, SlicerWarning
@@ -37,6 +38,7 @@ from ._grid import (
 )
 from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
+from ._survey import SurveyInfo, survey_info
 
 
 def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float | None = None,
@@ -85,6 +87,10 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
     return cube, details
 
 
+#: Tile edge of the output grid, cells: each tile is gridded from the traces near it only.
+TILE = 256
+
+
 def default_cell(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> float:
     """A round cell size near a quarter of the median line spacing (m)."""
     spacing = np.nanmedian(line_spacings(x, y, line))
@@ -125,7 +131,9 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
         with open_engine(settings) as own:
             return build_cube(settings, progress=progress, engine=own)
     started = time.perf_counter()
-    reduced = reduce_survey(settings, engine=engine, progress=progress)
+    info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
+    budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=True)
+    reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)
     read_s = time.perf_counter() - started
     velocity = settings.resolved_velocity if reduced.windows.axis == "depth" else None
     summary = processing_summary(settings, reduced.dewow_ns)
@@ -138,6 +146,7 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
         "settings": settings.to_record(),
         "processing": summary,
         "engine": engine.spec.label,
+        "memory_estimate_bytes": budget.total,
         "survey": {"lines": len(settings.lines), "traces": reduced.info.n_traces,
                    "samples_per_trace": reduced.info.n_samples,
                    "sample_interval_ns": reduced.info.sample_interval_ns},
@@ -151,6 +160,38 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
         "environment": _environment(),
     }
     return BuildResult(cube=cube, record=record)
+
+
+def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
+                 cube_in_memory: bool) -> Estimate:
+    """Estimate the build's working memory from the headers and line table; refuse if over.
+
+    Raises
+    ------
+    SettingsError
+        The estimate exceeds ``settings.memory_limit`` (default 1 GiB), naming the parts.
+    """
+    limit = (parse_bytes(settings.memory_limit) if settings.memory_limit is not None
+             else DEFAULT_LIMIT)
+    ends = np.array([[*e.start, *e.end] for e in settings.lines])
+    x, y = ends[:, [0, 2]].ravel(), ends[:, [1, 3]].ravel()
+    line = np.repeat(np.arange(len(settings.lines)), 2)
+    cell = settings.cell or default_cell(x, y, line)
+    grid = grid_for(x, y, cell=cell)
+    windows = settings.requested_windows
+    n_slices = len(windows) if windows is not None else 24
+    step = float(np.median([e.length / max(i.n_traces - 1, 1)
+                            for e, i in zip(settings.lines, info.lines, strict=True)]))
+    along = max(cell, step)
+    est = estimate(n_traces=info.n_traces, max_line_traces=max(i.n_traces for i in info.lines),
+                   n_samples=info.n_samples, n_slices=n_slices, grid_cells=grid.size,
+                   tile=TILE, neighbours=4 * along / step, workers=workers,
+                   cube_in_memory=cube_in_memory)
+    if est.total > limit:
+        raise SettingsError(f"this build needs {est.describe()}, more than the memory limit of "
+                            f"{human(limit)}; raise --memory-limit, use fewer workers or a "
+                            "larger --cell", where="--memory-limit")
+    return est
 
 
 def open_engine(settings: BuildSettings) -> Engine:

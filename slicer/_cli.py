@@ -70,6 +70,13 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--radius", type=_float, metavar="M",
                    help="search radius in m: cells farther from any trace stay nodata "
                         "(default 0.75 x line spacing)")
+    g = p.add_argument_group("engine")
+    g.add_argument("--scheduler", metavar="threads|processes|local:N|tcp://HOST:PORT",
+                   help="where the work runs: dask threads (default), dask processes, a "
+                        "LocalCluster of N workers, or an existing dask.distributed cluster")
+    g.add_argument("--memory-limit", metavar="SIZE",
+                   help="memory budget of the build's working data, e.g. 2GB (default 1GiB); "
+                        "a build that cannot fit is refused before it starts")
     g = p.add_argument_group("output")
     g.add_argument("--title", help="title of the overview sheet")
     g.add_argument("--overwrite", action="store_const", const=True, default=None,
@@ -111,7 +118,7 @@ def make_parser() -> argparse.ArgumentParser:
 def _settings_from_args(args) -> dict:
     keys = ("crs", "sample_interval", "time_zero", "time_zero_threshold", "dewow", "background",
             "gain", "velocity", "permittivity", "depths", "times", "thickness", "cell", "radius",
-            "title", "out", "overwrite")
+            "scheduler", "memory_limit", "title", "out", "overwrite")
     return {k: getattr(args, k) for k in keys}
 
 

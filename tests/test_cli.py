@@ -275,3 +275,20 @@ def test_demo_command(tmp_path, capsys):
     assert code == 2 and "--overwrite" in err
     code, _, err = run(capsys, "demo", "--out", tmp_path / "d", "-q", "--overwrite")
     assert code == 0, err
+
+
+@pytest.mark.parametrize("extra, match", [
+    (["--memory-limit", "1MB"], "--memory-limit: this build needs about"),
+    (["--memory-limit", "plenty"], "--memory-limit"),
+    (["--scheduler", "gpu"], "--scheduler"),
+])
+def test_engine_options_refused(survey, capsys, extra, match):
+    assert_refused(capsys, survey / "out", "build", survey / "lines.csv", *GOOD, *extra,
+                   "--out", survey / "out", match=match)
+
+
+def test_build_on_a_local_cluster(survey, capsys):
+    code, _, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--scheduler", "local:2",
+                       "--out", survey / "o", "-q")
+    assert code == 0, err
+    assert len(list((survey / "o" / "slices").glob("*.tif"))) == 24
