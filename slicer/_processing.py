@@ -275,17 +275,24 @@ def _envelope_core(samples: np.ndarray) -> np.ndarray:
     n = samples.shape[-1]
     # Zero-pad to at least twice the length: the FFT makes the trace periodic, and without
     # padding the end of the record leaks into its start.
-    nfft = scipy.fft.next_fast_len(2 * n)
-    analytic = scipy.signal.hilbert(samples.astype(np.float64), N=nfft, axis=-1)[..., :n]
-    return np.abs(analytic).astype(np.float32)
+    nfft = scipy.fft.next_fast_len(2 * n, real=False)
+    # The analytic signal as scipy.signal.hilbert forms it (double the positive frequencies,
+    # zero the negative ones), kept in single precision: float32 samples need no more, and
+    # it halves the cost of the largest step of a build.
+    spectrum = scipy.fft.fft(samples.astype(np.float32, copy=False), n=nfft, axis=-1)
+    positive = (nfft + 1) // 2  # 1 .. positive-1 are the positive frequencies
+    spectrum[..., 1:positive] *= 2
+    spectrum[..., positive + (nfft % 2 == 0):] = 0  # an even length keeps its Nyquist term
+    analytic = scipy.fft.ifft(spectrum, axis=-1, overwrite_x=True)[..., :n]
+    return np.abs(analytic).astype(np.float32, copy=False)
 
 
 def envelope(line: xr.DataArray) -> xr.DataArray:
     """Amplitude envelope: magnitude of the analytic signal along ``twt``.
 
     The analytic signal is ``x + i H[x]`` with ``H`` the Hilbert transform (Taner, Koehler and
-    Sheriff 1979, Geophysics 44:1041-1063), computed with :func:`scipy.signal.hilbert` on the
-    zero-padded trace.
+    Sheriff 1979, Geophysics 44:1041-1063), formed from :func:`scipy.fft.fft` of the
+    zero-padded trace in single precision, as :func:`scipy.signal.hilbert` forms it.
     """
     out = _per_trace(_envelope_core, line, "envelope")
     out.name = "envelope"

@@ -175,3 +175,13 @@ def test_envelope_is_never_below_the_trace(n, dt):
     env = envelope(make_line(x, dt=dt)).values
     assert env.shape == x.shape
     assert np.all(env >= np.abs(x) - 1e-4)  # |x + iH[x]| >= |x|
+
+
+@pytest.mark.parametrize("n", [51, 64, 257, 512])
+def test_envelope_equals_scipy_hilbert_on_the_padded_trace(n):
+    # Reference: scipy.signal.hilbert with the same zero padding, in double precision.
+    import scipy.fft
+    x = np.random.default_rng(n).normal(size=(3, n))
+    nfft = scipy.fft.next_fast_len(2 * n, real=False)
+    ref = np.abs(scipy.signal.hilbert(x, N=nfft, axis=-1)[:, :n])
+    np.testing.assert_allclose(envelope(make_line(x)).values, ref, atol=2e-5 * np.abs(x).max())
