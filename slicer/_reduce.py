@@ -189,15 +189,17 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
     where = "--times" if settings.times is not None else "--depths"
     windows = plan_windows(settings, info)
 
-    first = place_line(read_line(settings.lines[0].file,
-                                 sample_interval_ns=info.sample_interval_ns), settings.lines[0])
-    dewow_ns = None
+    record_ns = (info.record_ns - float(settings.time_zero)
+                 if not isinstance(settings.time_zero, str) else None)
+    dewow_ns, first = None, None
+    if settings.dewow == "auto" or windows is None or record_ns is None:
+        first = place_line(read_line(settings.lines[0].file,
+                                     sample_interval_ns=info.sample_interval_ns),
+                           settings.lines[0])
     if settings.dewow == "auto":
         t0_line = correct_time_zero(first, time_zero=settings.time_zero,
                                     threshold=settings.time_zero_threshold)
         dewow_ns = 1.5 / dominant_frequency(t0_line)
-    record_ns = (info.record_ns - float(settings.time_zero)
-                 if not isinstance(settings.time_zero, str) else None)
     if windows is None or record_ns is None:
         env = process_line(first, settings, dewow_ns=dewow_ns)
         record_ns = float(env[TWT].values[-1])
