@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import argparse
 import concurrent.futures
+import contextlib
 import cProfile
 import datetime as _dt
 import importlib.metadata as md
@@ -29,9 +30,11 @@ import os
 import platform
 import pstats
 import resource
+import subprocess
 import sys
 import tempfile
 import time
+import tracemalloc
 import warnings
 from pathlib import Path
 
@@ -50,7 +53,9 @@ import segyio  # noqa: E402 - after the thread settings
 
 try:
     import slicer
-except ImportError:  # run from a checkout without installing: the package sits one level up
+except ModuleNotFoundError as missing:  # a checkout, not installed: the package is one level up
+    if missing.name != "slicer":
+        raise
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
     import slicer
 import slicer.synthetic as syn  # noqa: E402 - after the thread settings
@@ -161,35 +166,75 @@ def in_fresh_process(function, *args) -> dict:
         return pool.submit(function, *args).result()
 
 
-def measure_floor(files: list[Path]) -> tuple[float, int]:
-    """Seconds to read every trace once (segyio) and take its envelope (scipy.signal.hilbert)."""
+def _floor_one(path: Path) -> int:
+    with segyio.open(str(path), "r", ignore_geometry=True) as f:
+        data = f.trace.raw[:]
+    n = data.shape[-1]
+    # The same zero padding and precision as the pipeline's envelope, so the floor does the
+    # work any correct envelope must do and no more.
+    nfft = scipy.fft.next_fast_len(2 * n)
+    env = np.abs(scipy.signal.hilbert(data.astype(np.float64), N=nfft, axis=-1)[..., :n])
+    return env.shape[0]
+
+
+def measure_floor(files: list[Path], *, workers: int = 1) -> tuple[float, int]:
+    """Seconds to read every trace once (segyio) and take its envelope (scipy.signal.hilbert).
+
+    With ``workers > 1`` the files are shared out over that many threads, for comparison with
+    a build that uses several cores.
+    """
     started = time.perf_counter()
-    count = 0
-    for path in files:
-        with segyio.open(str(path), "r", ignore_geometry=True) as f:
-            data = f.trace.raw[:]
-        n = data.shape[-1]
-        # The same zero padding and precision as the pipeline's envelope, so the floor does
-        # the work any correct envelope must do and no more.
-        nfft = scipy.fft.next_fast_len(2 * n)
-        env = np.abs(scipy.signal.hilbert(data.astype(np.float64), N=nfft, axis=-1)[..., :n])
-        count += env.shape[0]
+    if workers == 1:
+        count = sum(_floor_one(path) for path in files)
+    else:
+        with concurrent.futures.ThreadPoolExecutor(max_workers=workers) as pool:
+            count = sum(pool.map(_floor_one, files))
     return time.perf_counter() - started, count
 
 
-def measure_gridding(table: Path, *, slices_for_griddata: int | None) -> dict:
-    """Time ``slicer.grid_slices`` against per-slice ``griddata(method="linear")``."""
-    settings = _settings(table)
+def _grid_one_worker(values, grid_args: dict) -> float:
+    """Seconds of ``grid_slices`` on one thread, to compare core for core with griddata.
+
+    Uses the private engine module; NaN if this version of slicer has none.
+    """
+    try:
+        from slicer._engine import Engine, parse_scheduler
+        engine = Engine(parse_scheduler("threads", workers=1))
+    except (ImportError, TypeError):
+        return math.nan
+    with engine as one:
+        started = time.perf_counter()
+        slicer.grid_slices(values, engine=one, **grid_args)
+        return time.perf_counter() - started
+
+
+def measure_gridding(table: str, slices_for_griddata: int | None) -> dict:
+    """Time ``slicer.grid_slices`` against per-slice ``griddata(method="linear")``.
+
+    Run in a fresh process, so that the memory rise of ``reduce_survey`` is its own.
+    """
+    settings = _settings(Path(table))
+    before, _, _ = _memory_mib()
     started = time.perf_counter()
     reduced = slicer.reduce_survey(settings, progress=False)
     reduce_s = time.perf_counter() - started
+    _, peak, source = _memory_mib()
+    reduce_rise = peak - before if source == "VmHWM" else math.nan  # a fresh process: clean
     values = reduced.table
+    grid_args = dict(cell=settings.cell, radius=settings.radius, crs=settings.crs,
+                     velocity=settings.resolved_velocity, progress=False)
 
     started = time.perf_counter()
-    cube, _ = slicer.grid_slices(values, cell=settings.cell, radius=settings.radius,
-                                 crs=settings.crs, velocity=settings.resolved_velocity,
-                                 progress=False)
+    cube, _ = slicer.grid_slices(values, **grid_args)
     ours_s = time.perf_counter() - started
+    ours_one_s = _grid_one_worker(values, grid_args)
+    # The high-water mark cannot be reset for one phase (freed memory stays resident for
+    # reuse), so the gridding's peak comes from tracemalloc, which numpy reports its buffers to;
+    # untimed, since tracing slows the run.
+    tracemalloc.start()
+    slicer.grid_slices(values, **grid_args)
+    grid_traced = tracemalloc.get_traced_memory()[1] / 2**20
+    tracemalloc.stop()
 
     # Same cell centres as our cube. Coordinates relative to the corner: Qhull triangulates
     # in double precision and UTM magnitudes would cost it digits (any careful user does this).
@@ -211,7 +256,9 @@ def measure_gridding(table: Path, *, slices_for_griddata: int | None) -> dict:
     started = time.perf_counter()  # the careful way: all slices through one triangulation
     together = scipy.interpolate.griddata(points, table_values, (gx, gy), method="linear")
     one_call_s = time.perf_counter() - started
-    return {"reduce_s": reduce_s, "ours_s": ours_s, "griddata_loop_s": loop_s,
+    return {"reduce_s": reduce_s, "ours_s": ours_s, "ours_one_s": ours_one_s,
+            "reduce_rise_mib": reduce_rise, "grid_traced_mib": grid_traced,
+            "griddata_loop_s": loop_s,
             "griddata_loop_slices_run": len(chosen),
             "griddata_median_s": float(np.median(per_slice)),
             "griddata_min_s": min(per_slice), "griddata_max_s": max(per_slice),
@@ -222,13 +269,39 @@ def measure_gridding(table: Path, *, slices_for_griddata: int | None) -> dict:
             "filled_griddata_one_call": float(np.isfinite(together).mean())}
 
 
+@contextlib.contextmanager
+def _in_thread_engine():
+    """An engine running every task in the calling thread, or None if slicer has no engines.
+
+    cProfile sees only the thread it runs in; with slicer's default threaded engine it would
+    show the main thread waiting on locks. Running the same tasks serially shows where they
+    spend their time (private API: a benchmark helper, not a way to build).
+    """
+    try:
+        from slicer._engine import Engine, parse_scheduler
+    except ImportError:
+        yield None
+        return
+    if not hasattr(Engine, "_run_block"):
+        yield None
+        return
+
+    class InThread(Engine):
+        def _run_block(self, func, block):
+            return [func(item) for item in block]
+
+    with InThread(parse_scheduler("threads", workers=1)) as engine:
+        yield engine
+
+
 def profile_build(table: Path, top: int = 15) -> str:
     """cProfile of one ``build_cube``: the top functions by own time and by cumulative time."""
     settings = _settings(table)
     profiler = cProfile.Profile()
-    with warnings.catch_warnings():
+    with warnings.catch_warnings(), _in_thread_engine() as engine:
         warnings.simplefilter("ignore")
-        profiler.runcall(slicer.build_cube, settings, progress=False)
+        extra = {} if engine is None else {"engine": engine}
+        profiler.runcall(slicer.build_cube, settings, progress=False, **extra)
     text = io.StringIO()
     stats = pstats.Stats(profiler, stream=text)
     stats.strip_dirs().sort_stats("tottime").print_stats(top)
@@ -245,6 +318,20 @@ def _table(header: list[str], rows: list[list[str]]) -> str:
     body = ["| " + " | ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) + " |"
             for r in rows]
     return "\n".join([line, rule, *body])
+
+
+def _source() -> str:
+    """Where slicer was imported from, with its git commit when it is a checkout."""
+    folder = Path(slicer.__file__).resolve().parent
+    try:
+        commit = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=folder,
+                                capture_output=True, text=True, timeout=10, check=True)
+        dirty = subprocess.run(["git", "status", "--porcelain", "--", "."], cwd=folder,
+                               capture_output=True, text=True, timeout=10, check=True)
+    except (OSError, subprocess.SubprocessError):
+        return str(folder)
+    state = " with uncommitted changes" if dirty.stdout.strip() else ""
+    return f"{folder} (commit {commit.stdout.strip()}{state})"
 
 
 def _load() -> str:
@@ -290,6 +377,7 @@ def main(argv=None) -> int:
           f"{np.__version__}, scipy {scipy.__version__}, segyio {md.version('segyio')}; "
           f"{os.cpu_count()} CPUs; OPENBLAS_NUM_THREADS={os.environ['OPENBLAS_NUM_THREADS']}; "
           f"{_dt.datetime.now().isoformat(timespec='minutes')}")
+    print(f"slicer from {_source()}")
     print(f"load average at the start {_load()} (well above 0: other processes share the "
           "cores and timings are noisier)")
     print(f"data in {root}{'' if cleanup is None else ' (deleted at the end)'}")
@@ -300,14 +388,16 @@ def main(argv=None) -> int:
             table, files, gen_s, reused = make_survey(folder / "survey", size)
             data_mib = sum(f.stat().st_size for f in files) / 2**20
             floor_s, n_traces = measure_floor(files)
+            floor_all_s, _ = measure_floor(files, workers=os.cpu_count() or 1)
             cube = in_fresh_process(measure_build, str(table), None)
             full = None
             if not args.no_full_build:
                 out = folder / "build"
                 full = in_fresh_process(measure_build, str(table), str(out))
-            grid = measure_gridding(table, slices_for_griddata=args.griddata_slices or None)
+            grid = in_fresh_process(measure_gridding, str(table), args.griddata_slices or None)
             row = dict(size=size, traces=n_traces, lines=len(files), data_mib=data_mib,
-                       gen_s=gen_s, reused=reused, floor_s=floor_s, cube=cube, full=full,
+                       gen_s=gen_s, reused=reused, floor_s=floor_s,
+                       floor_all_s=floor_all_s, cube=cube, full=full,
                        grid=grid)
             results.append(row)
             print(f"  {n_traces} traces ({len(files)} lines, {data_mib:.0f} MiB): "
@@ -326,7 +416,8 @@ def main(argv=None) -> int:
         if cleanup is not None:
             cleanup.cleanup()
 
-    main_rows, detail_rows = [], []
+    main_rows, build_rows, grid_rows = [], [], []
+    threads = os.cpu_count() or 1
     for r in results:
         c, g, full = r["cube"], r["grid"], r["full"]
         main_rows.append([
@@ -335,15 +426,20 @@ def main(argv=None) -> int:
             _f(g["griddata_median_s"] * g["n_slices"] / g["ours_s"], 1),
             _f(c["rss_peak_mib"], 0), _f(c["rss_peak_mib"] - c["rss_before_mib"], 0)])
         phases = c["phases"]
-        detail_rows.append([
+        build_rows.append([
             f"{r['traces']}", f"{r['lines']}", _f(r["data_mib"], 0), _f(r["gen_s"], 1),
-            _f(r["floor_s"]), f"{r['traces'] / r['floor_s']:.0f}",
+            _f(r["floor_s"]), f"{r['traces'] / r['floor_s']:.0f}", _f(r["floor_all_s"]),
+            _f(c["seconds"] / r["floor_all_s"], 1),
             _f(phases.get("read_and_process", math.nan)), _f(phases.get("grid", math.nan)),
             _f(full["seconds"] if full else math.nan),
             _f(full["phases"].get("write", math.nan) if full else math.nan),
             _f(full["rss_peak_mib"] if full else math.nan, 0),
-            f"{g['cells']}x{g['n_slices']}", _f(g["ours_s"]), _f(g["griddata_loop_s"]),
-            _f(g["griddata_one_call_s"]), _f(g["griddata_one_call_s"] / g["ours_s"], 1)])
+            _f(g["reduce_rise_mib"], 0), _f(g["grid_traced_mib"], 0)])
+        grid_rows.append([
+            f"{r['traces']}", f"{g['cells']}x{g['n_slices']}", _f(g["ours_s"]),
+            _f(g["ours_one_s"]), _f(g["griddata_loop_s"]),
+            _f(g["griddata_loop_s"] / g["ours_one_s"], 1), _f(g["griddata_one_call_s"]),
+            _f(g["griddata_one_call_s"] / g["ours_s"], 1)])
     print()
     print(_table(["traces", "time (s)", "traces/s", "build/floor", "grid speed-up",
                   "peak RSS (MiB)", "RSS rise (MiB)"], main_rows))
@@ -352,9 +448,13 @@ def main(argv=None) -> int:
               "that build; rise = peak minus the RSS just before the build")
     print()
     print(_table(["traces", "lines", "SEG-Y MiB", "generate s", "floor s", "floor traces/s",
-                  "read+process s", "grid s", "full build s", "write s", "full peak MiB",
-                  "cells x slices", "grid_slices s", "griddata loop s", "griddata 1-call s",
-                  "1-call / ours"], detail_rows))
+                  f"floor s, {threads} thr", f"build/floor {threads} thr", "read+process s",
+                  "grid s", "full build s", "write s", "full peak MiB", "reduce rise MiB",
+                  "grid traced MiB"], build_rows))
+    print()
+    print(_table(["traces", "cells x slices", "grid_slices s", "grid_slices 1 thr s",
+                  "griddata loop s", "loop / ours 1 thr", "griddata 1-call s",
+                  "1-call / ours"], grid_rows))
     print()
     for r in results:
         g = r["grid"]

@@ -217,10 +217,12 @@ def remove_background(line: xr.DataArray, *, method: str = "mean") -> xr.DataArr
     method : {"mean", "median"}
         The median resists strong local reflections better; the mean is faster.
     """
+    # skipna=False: readers have set non-finite samples to 0, and NaN-aware medians loop in
+    # Python over every sample (a third of a build's time when it was used)
     if method == "mean":
-        background = line.mean(TRACE)
+        background = line.mean(TRACE, skipna=False)
     elif method == "median":
-        background = line.median(TRACE)
+        background = line.median(TRACE, skipna=False)
     else:
         raise SettingsError(f"background method must be 'mean' or 'median', got {method!r}",
                             where="--background")
