@@ -15,6 +15,8 @@ from collections.abc import Mapping, Sequence
 from datetime import UTC, datetime
 from pathlib import Path
 
+import dask
+import dask.array as darray
 import numpy as np
 import pyproj
 import xarray as xr
@@ -34,6 +36,9 @@ _NC_ENCODING_KEYS = frozenset({
 })
 
 _AXIS_LONG_NAME = {DEPTH: "depth below the ground surface", TWT: "two-way travel time"}
+
+#: Default tile edge, cells: the unit in which large cubes are produced and written.
+TILE = 256
 
 
 def _check_axis(axis: str) -> str:
@@ -64,9 +69,9 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
 
     Parameters
     ----------
-    data : array-like, shape (n_slices, ny, nx)
+    data : array-like or dask array, shape (n_slices, ny, nx)
         Slice values (converted to float32), NaN where no trace lies within reach. Row 0 is the
-        northern edge (north-up grid).
+        northern edge (north-up grid). A dask array stays lazy (nothing is computed).
     west, north : float
         Upper-left grid corner in the survey CRS, m.
     cell : float
@@ -99,7 +104,10 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
         If the cell, windows, velocity, CRS or shapes are invalid.
     """
     axis = _check_axis(axis)
-    values = np.asarray(data, dtype=np.float32)
+    if dask.is_dask_collection(data):
+        values = data.astype(np.float32)
+    else:
+        values = np.asarray(data, dtype=np.float32)
     if values.ndim != 3:
         raise SettingsError(f"cube data must be 3-D (n_slices, ny, nx), got shape {values.shape}",
                             where="data")
@@ -170,6 +178,72 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
         coords[GRID_MAPPING] = ((), 0, _grid_mapping_attrs(pcrs, transform))
         attrs["grid_mapping"] = GRID_MAPPING
     return xr.DataArray(values, dims=(axis, Y, X), coords=coords, attrs=attrs, name=name)
+
+
+def empty_cube(shape: tuple[int, int, int], *, tile: int = TILE, **kwargs) -> xr.DataArray:
+    """Return a cube of the given shape whose values are all NaN, held lazily (dask).
+
+    It describes a cube before its values exist: the grid, CRS, windows and attrs of
+    :func:`new_cube`, with nothing allocated, so it can stand for a cube larger than memory
+    (e.g. as the template of :class:`slicer._sink.CubeSink`).
+
+    Parameters
+    ----------
+    shape : (int, int, int)
+        ``(n_slices, ny, nx)``.
+    tile : int
+        Chunk edge along y and x, cells (one slice per chunk).
+    **kwargs
+        Everything else :func:`new_cube` takes (``west``, ``north``, ``cell``, ``crs``,
+        ``top``, ``bottom``, ...).
+    """
+    shape = tuple(int(n) for n in shape)
+    if len(shape) != 3:
+        raise SettingsError(f"a cube shape is (n_slices, ny, nx), got {shape}", where="shape")
+    tile = _check_tile_size(tile)
+    values = darray.full(shape, np.nan, dtype=np.float32, chunks=(1, tile, tile))
+    return new_cube(values, **kwargs)
+
+
+def _check_tile_size(tile: int) -> int:
+    try:
+        size = int(tile)
+    except (TypeError, ValueError):
+        size = 0
+    if size < 1 or size != tile:
+        raise SettingsError(f"tile must be a positive whole number of cells, got {tile!r}",
+                            where="tile")
+    return size
+
+
+def check_tile(block, shape: tuple[int, ...], row0: int, col0: int) -> np.ndarray:
+    """Return ``block`` as a float32 array after checking it fits a cube of ``shape``.
+
+    Parameters
+    ----------
+    block : array-like, shape (n_slices, h, w)
+        Values of every slice over rows ``row0 .. row0 + h`` and columns ``col0 .. col0 + w``.
+    shape : (int, int, int)
+        Shape of the whole cube, ``(n_slices, ny, nx)``.
+    row0, col0 : int
+        Grid row and column of the tile's upper-left cell (0 is the north-west corner).
+
+    Raises
+    ------
+    SettingsError
+        If the block is not 3-D, has the wrong number of slices or reaches outside the grid.
+    """
+    values = np.asarray(block, dtype=np.float32)
+    n_slices, ny, nx = shape
+    if values.ndim != 3 or values.shape[0] != n_slices:
+        raise SettingsError(f"a tile has shape ({n_slices}, rows, columns), got {values.shape}",
+                            where="tile")
+    row0, col0 = int(row0), int(col0)
+    h, w = values.shape[1:]
+    if row0 < 0 or col0 < 0 or row0 + h > ny or col0 + w > nx or h == 0 or w == 0:
+        raise SettingsError(f"tile rows {row0}..{row0 + h}, columns {col0}..{col0 + w} "
+                            f"do not lie inside the {ny} x {nx} grid", where="tile")
+    return values
 
 
 def _plan_attrs(dim: str, projected: bool) -> dict[str, str]:
@@ -244,6 +318,84 @@ def cube_crs(cube: xr.DataArray) -> pyproj.CRS | None:
                             where="cube") from None
 
 
+def prepared_for_writing(cube: xr.DataArray) -> xr.DataArray:
+    """Return ``cube`` as float32 with ``grid_mapping`` in attrs and no stale encoding.
+
+    ``grid_mapping`` may sit in encoding (rioxarray, ``decode_coords="all"``) or in attrs; an
+    explicit encoding would drop it (stack-notes trap 6), so it is always put in attrs. Data
+    that is lazy (dask) stays lazy.
+    """
+    slice_axis(cube)
+    name = str(cube.name or "envelope")
+    data = cube.astype(np.float32)
+    data.name = name
+    grid_mapping = cube.attrs.get("grid_mapping") or cube.encoding.get("grid_mapping")
+    data.attrs.pop("grid_mapping", None)
+    data.encoding = {}
+    if grid_mapping and grid_mapping in data.coords:
+        data.attrs["grid_mapping"] = grid_mapping
+    return data
+
+
+def global_attrs(cube: xr.DataArray, *, title: str | None = None, source: str | None = None,
+                 history: str | None = None) -> dict[str, str]:
+    """Return the CF-1.8 global attributes of a file holding ``cube``."""
+    axis = slice_axis(cube)
+    name = str(cube.name or "envelope")
+    now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
+    steps = cube.attrs.get("processing", "")
+    return {
+        "Conventions": "CF-1.8",
+        "title": title or f"Ground-penetrating radar {axis} slices ({name})",
+        "history": history or f"{now}: cube written by slicer"
+                              + (f" after: {steps}" if steps else ""),
+        "source": source or "ground-penetrating radar grid survey, gridded by slicer",
+    }
+
+
+def _netcdf_chunks(cube: xr.DataArray) -> tuple[int, ...] | None:
+    if cube.chunks is not None:
+        # One HDF5 chunk per dask chunk: each dask task then fills whole chunks, never half
+        # of one, which HDF5 would have to read back and recompress.
+        return tuple(int(c[0]) for c in cube.chunks)
+    chunks = cube.encoding.get("chunksizes")
+    if chunks is None or len(chunks) != cube.ndim or any(
+            c > n for c, n in zip(chunks, cube.shape, strict=False)):
+        return None  # none, or remembered from a larger cube (before isel): no longer fits
+    return tuple(chunks)
+
+
+def _write_netcdf(cube: xr.DataArray, target: Path, *, title: str | None,
+                  source: str | None, history: str | None, complevel: int) -> None:
+    # The one NetCDF writer, for in-memory and dask-backed cubes alike: xarray hands dask
+    # data to the file chunk by chunk, so a lazy cube is never loaded whole.
+    axis = slice_axis(cube)
+    data = prepared_for_writing(cube)
+    name = str(data.name)
+    encoding: dict[str, object] = {k: v for k, v in cube.encoding.items()
+                                   if k in _NC_ENCODING_KEYS}
+    encoding.pop("chunksizes", None)
+    chunks = _netcdf_chunks(cube)
+    if chunks is not None:
+        encoding["chunksizes"] = chunks
+    encoding.update(zlib=True, complevel=int(complevel), shuffle=True, dtype="float32",
+                    _FillValue=np.float32(np.nan))
+    ds = data.to_dataset()
+    bnds = f"{axis}_bnds"
+    ds[bnds] = xr.Variable(
+        (axis, "bnds"), np.stack([np.asarray(cube[f"{axis}_top"].values),
+                                  np.asarray(cube[f"{axis}_bottom"].values)],
+                                 axis=1).astype(np.float64),
+        attrs={"units": UNITS[axis]})
+    ds[axis].attrs["bounds"] = bnds
+    ds.attrs = global_attrs(cube, title=title, source=source, history=history)
+    encodings: dict[str, Mapping[str, object]] = {name: encoding}
+    for var in (X, Y, axis, f"{axis}_top", f"{axis}_bottom", bnds):
+        # Coordinates and bounds never hold missing values (CF 1.8 section 5).
+        encodings[var] = {"_FillValue": None, "dtype": "float64"}
+    ds.to_netcdf(target, engine="h5netcdf", format="NETCDF4", encoding=encodings)
+
+
 def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
                       title: str | None = None, source: str | None = None,
                       history: str | None = None, complevel: int = 4) -> Path:
@@ -252,11 +404,13 @@ def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
     Slice window bounds go into a ``<axis>_bnds`` variable (CF 1.8 section 7.1) besides the
     ``<axis>_top``/``<axis>_bottom`` coordinates; the data are float32, zlib-compressed, with a
     NaN ``_FillValue``; the grid-mapping variable keeps the CF attributes and ``crs_wkt``.
+    A dask-backed cube (e.g. from :func:`slicer._zarr.open_cube_zarr`) is written chunk by
+    chunk, one NetCDF chunk per dask chunk, without loading it whole.
 
     Parameters
     ----------
     cube : xarray.DataArray
-        A cube as built by :func:`new_cube`.
+        A cube as built by :func:`new_cube`, in memory or dask-backed.
     path : path-like
         Output file (``.nc``).
     title, source, history : str, optional
@@ -274,49 +428,12 @@ def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
     OutputError
         If the file cannot be written; an existing file of that name is then left as it was.
     """
-    axis = slice_axis(cube)
+    slice_axis(cube)
     path = Path(path)
-    name = str(cube.name or "envelope")
-    data = cube.astype(np.float32)
-    data.name = name
-    # grid_mapping may sit in encoding (rioxarray, decode_coords="all") or attrs; xarray
-    # refuses it in both, and an explicit encoding would drop it (stack-notes trap 6).
-    data.attrs.pop("grid_mapping", None)
-    grid_mapping = cube.attrs.get("grid_mapping") or cube.encoding.get("grid_mapping")
-    encoding = {k: v for k, v in cube.encoding.items() if k in _NC_ENCODING_KEYS}
-    chunks = encoding.get("chunksizes")
-    if chunks is not None and (len(chunks) != cube.ndim
-                               or any(c > n for c, n in zip(chunks, cube.shape, strict=False))):
-        # Chunks remembered from a larger cube (before isel) no longer fit.
-        del encoding["chunksizes"]
-    encoding.update(zlib=True, complevel=int(complevel), shuffle=True, dtype="float32",
-                    _FillValue=np.float32(np.nan))
-    data.encoding = {}
-    if grid_mapping and grid_mapping in data.coords:
-        data.attrs["grid_mapping"] = grid_mapping
-    ds = data.to_dataset()
-    bnds = f"{axis}_bnds"
-    ds[bnds] = xr.Variable(
-        (axis, "bnds"), np.stack([cube[f"{axis}_top"].values, cube[f"{axis}_bottom"].values],
-                                 axis=1).astype(np.float64),
-        attrs={"units": UNITS[axis]})
-    ds[axis].attrs["bounds"] = bnds
-    now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
-    steps = data.attrs.get("processing", "")
-    ds.attrs = {
-        "Conventions": "CF-1.8",
-        "title": title or f"Ground-penetrating radar {axis} slices ({name})",
-        "history": history or f"{now}: cube written by slicer"
-                              + (f" after: {steps}" if steps else ""),
-        "source": source or "ground-penetrating radar grid survey, gridded by slicer",
-    }
-    encodings: dict[str, Mapping[str, object]] = {name: encoding}
-    for var in (X, Y, axis, f"{axis}_top", f"{axis}_bottom", bnds):
-        # Coordinates and bounds never hold missing values (CF 1.8 section 5).
-        encodings[var] = {"_FillValue": None, "dtype": "float64"}
     try:
         with atomic_path(path) as tmp:
-            ds.to_netcdf(tmp, engine="h5netcdf", format="NETCDF4", encoding=encodings)
+            _write_netcdf(cube, tmp, title=title, source=source, history=history,
+                          complevel=complevel)
     except OSError as exc:
         raise OutputError(f"cannot write NetCDF ({exc})", where=str(path)) from None
     return path
@@ -343,22 +460,40 @@ def read_cube_netcdf(path: str | os.PathLike, *, name: str | None = None) -> xr.
     except (OSError, ValueError) as exc:
         raise InputFileError(f"cannot open as NetCDF ({exc})", where=str(path)) from None
     with ds:
-        if name is None:
-            found = [v for v, da in ds.data_vars.items()
-                     if da.ndim == 3 and da.dims[0] in (DEPTH, TWT) and da.dims[1:] == (Y, X)]
-            if len(found) != 1:
-                raise InputFileError(f"expected one (depth|twt, y, x) variable, found {found}",
-                                     where=str(path))
-            name = str(found[0])
-        if name not in ds.data_vars:
-            raise InputFileError(f"no variable {name!r}", where=str(path))
-        cube = ds[name].load()
+        cube = cube_from_dataset(ds, name=name, where=str(path)).load()
+    return cube
+
+
+def cube_from_dataset(ds: xr.Dataset, *, name: str | None = None,
+                      where: str = "dataset") -> xr.DataArray:
+    """Return the cube held in ``ds`` (as written by slicer), following the data model.
+
+    The CF ``bounds`` link (the bounds themselves are the ``<axis>_top``/``<axis>_bottom``
+    coordinates) and GDAL's ``_CRS`` attribute are dropped, and ``grid_mapping`` goes back
+    to attrs. Lazy data stays lazy.
+
+    Raises
+    ------
+    InputFileError
+        If ``ds`` holds no cube, naming ``where``.
+    """
+    if name is None:
+        found = [v for v, da in ds.data_vars.items()
+                 if da.ndim == 3 and da.dims[0] in (DEPTH, TWT) and da.dims[1:] == (Y, X)]
+        if len(found) != 1:
+            raise InputFileError(f"expected one (depth|twt, y, x) variable, found {found}",
+                                 where=where)
+        name = str(found[0])
+    if name not in ds.data_vars:
+        raise InputFileError(f"no variable {name!r}", where=where)
+    cube = ds[name]
+    cube.attrs.pop("_CRS", None)
     axis = cube.dims[0]
     if axis in cube.coords:
         cube[axis].attrs.pop("bounds", None)
     for key in (f"{axis}_top", f"{axis}_bottom"):
         if key not in cube.coords:
-            raise InputFileError(f"cube has no {key!r} coordinate", where=str(path))
+            raise InputFileError(f"cube has no {key!r} coordinate", where=where)
     if "grid_mapping" in cube.encoding and "grid_mapping" not in cube.attrs:
         cube.attrs["grid_mapping"] = cube.encoding.pop("grid_mapping")
     return cube

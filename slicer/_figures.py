@@ -34,6 +34,20 @@ _PANEL_INCHES = 3.0
 #: Coordinates at least this large (m) are plotted relative to the grid corner.
 _RELATIVE_FROM = 10_000.0
 
+#: Longest side of a panel as drawn, cells; larger slices are decimated (every k-th cell).
+MAX_PANEL_CELLS = 1000
+
+#: Most cells drawn over all panels of a sheet (about 64 MB of float32); many slices are
+#: drawn coarser than MAX_PANEL_CELLS, still finer than their few hundred pixels on paper.
+MAX_SHEET_CELLS = 16_000_000
+
+#: Cells drawn per pixel of a saved panel at most: more would be averaged away by the
+#: renderer, at the cost of memory and time.
+_CELLS_PER_PIXEL = 2
+
+#: Most values the shared colour limits are computed from (a strided subsample beyond).
+MAX_SAMPLE_VALUES = 1_000_000
+
 
 def _colormap(cmap: str | Colormap) -> Colormap:
     try:
@@ -43,19 +57,41 @@ def _colormap(cmap: str | Colormap) -> Colormap:
     return base.with_extremes(bad=NODATA_COLOUR)
 
 
-def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
-                  ) -> tuple[float, float]:
-    """Return (vmin, vmax): percentiles over all finite values of all slices of ``cube``.
-
-    Falls back to (0, 1) for a cube with no finite value and widens a zero-width range, so the
-    colour scale is always usable.
-    """
+def _check_percentile(percentile) -> tuple[float, float]:
     lo, hi = (float(p) for p in percentile)
     if not (0 <= lo < hi <= 100):
         raise SettingsError(f"percentiles must satisfy 0 <= low < high <= 100, got {percentile}",
                             where="percentile")
-    values = np.asarray(cube.values, dtype=np.float64)
-    finite = values[np.isfinite(values)]
+    return lo, hi
+
+
+def panel_stride(cube: xr.DataArray, *, dpi: float | None = None) -> int:
+    """Return the decimation k of the overview panels of ``cube`` (every k-th row and column).
+
+    The long side of a panel keeps at most :data:`MAX_PANEL_CELLS` cells, all panels of the
+    sheet together at most :data:`MAX_SHEET_CELLS`, and, when ``dpi`` is given, at most two
+    cells per pixel of the saved panel (3 inches on its long side).
+    """
+    n, ny, nx = cube.shape
+    longest = min(MAX_PANEL_CELLS, math.isqrt(MAX_SHEET_CELLS // max(n, 1)))
+    if dpi is not None:
+        longest = min(longest, math.ceil(_CELLS_PER_PIXEL * _PANEL_INCHES * float(dpi)))
+    return max(1, math.ceil(max(ny, nx) / max(longest, 1)))
+
+
+def _sample_stride(n_values: int) -> int:
+    # Stride along both plan axes that brings n_values down to MAX_SAMPLE_VALUES or fewer.
+    return max(1, math.ceil(math.sqrt(n_values / MAX_SAMPLE_VALUES)))
+
+
+def _panel(cube: xr.DataArray, index: int, stride: int) -> np.ndarray:
+    # Strided selection of one slice: a dask-backed cube computes this slice's chunks only.
+    return np.asarray(cube.data[index, ::stride, ::stride], dtype=np.float32)
+
+
+def _limits(samples: list[np.ndarray], percentile) -> tuple[float, float]:
+    lo, hi = _check_percentile(percentile)
+    finite = np.concatenate([s[np.isfinite(s)].astype(np.float64).ravel() for s in samples])
     if finite.size == 0:
         return 0.0, 1.0
     vmin, vmax = (float(v) for v in np.percentile(finite, [lo, hi]))
@@ -63,6 +99,35 @@ def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
         pad = abs(vmin) * 0.01 or 1.0
         vmin, vmax = vmin - pad, vmax + pad
     return vmin, vmax
+
+
+def sample_stride(cube: xr.DataArray, *, dpi: float | None = None) -> int:
+    """Return the plan stride s of the colour-limit subsample ``cube[:, ::s, ::s]``.
+
+    s is the panel stride (:func:`panel_stride`, with the same ``dpi``) times the smallest
+    whole number that leaves at most :data:`MAX_SAMPLE_VALUES` of the drawn cells, so the
+    sample is a subset of the cells drawn; s is 1 (every value) for small cubes.
+    """
+    d = panel_stride(cube, dpi=dpi)
+    n, ny, nx = cube.shape
+    k = _sample_stride(n * math.ceil(ny / d) * math.ceil(nx / d))
+    return d * k
+
+
+def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
+                  ) -> tuple[float, float]:
+    """Return (vmin, vmax): percentiles over the finite values of all slices of ``cube``.
+
+    Large cubes are sampled on a regular grid, every s-th row and column of every slice
+    (:func:`sample_stride` without ``dpi``), so at most about :data:`MAX_SAMPLE_VALUES`
+    values are read,
+    even from a dask-backed cube larger than memory. Falls back to (0, 1) for a cube with no
+    finite value and widens a zero-width range, so the colour scale is always usable.
+    """
+    _check_percentile(percentile)
+    stride = sample_stride(cube)
+    return _limits([np.asarray(cube.data[:, ::stride, ::stride], dtype=np.float32)],
+                   percentile)
 
 
 def _decimals(values: np.ndarray, low: int, high: int) -> int:
@@ -142,11 +207,19 @@ def _decorate(ax: Axes, frame: _Frame) -> None:
                 bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7})
 
 
-def _draw(ax: Axes, cube: xr.DataArray, index: int, frame: _Frame, cmap: Colormap,
+def _draw(ax: Axes, panel: np.ndarray, stride: int, frame: _Frame, cmap: Colormap,
           norm: Normalize, label: str):
     ax.set_facecolor(NODATA_COLOUR)
-    image = ax.imshow(np.asarray(cube.values[index], dtype=np.float32), extent=frame.extent,
-                      origin="upper", cmap=cmap, norm=norm, interpolation="nearest")
+    # A decimated panel holds every stride-th cell; each drawn pixel covers stride x stride
+    # cells from its sample, so the last row and column may reach past the grid's edge and
+    # are clipped to the grid's extent below.
+    west, _, _, north = frame.extent
+    rows, cols = panel.shape
+    extent = (west, west + cols * stride * frame.cell, north - rows * stride * frame.cell, north)
+    image = ax.imshow(panel, extent=extent, origin="upper", cmap=cmap, norm=norm,
+                      interpolation="nearest")
+    ax.set_xlim(frame.extent[:2])
+    ax.set_ylim(frame.extent[2:])
     ax.set_aspect("equal")
     ax.set_title(label, fontsize=9)
     ax.tick_params(labelsize=7)
@@ -189,10 +262,16 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
     the arrow points to grid north (+y), which for a projected CRS differs from true north by
     the meridian convergence (up to a few degrees away from the central meridian).
 
+    A dask-backed cube (e.g. from :func:`slicer._zarr.open_cube_zarr`) is never loaded
+    whole: large slices are drawn decimated (every k-th row and column, :func:`panel_stride`:
+    at most :data:`MAX_PANEL_CELLS` cells and two cells per saved pixel along a side), one
+    slice computed at a time, and the colour limits come from a regular subsample of the drawn
+    cells (:func:`sample_stride`).
+
     Parameters
     ----------
     cube : xarray.DataArray
-        A cube as built by :func:`slicer._cube.new_cube`.
+        A cube as built by :func:`slicer._cube.new_cube`, in memory or dask-backed.
     path : path-like, optional
         Save the figure here, atomically (format from the suffix; PNG by default).
     title : str, optional
@@ -200,11 +279,12 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
     cmap : str or Colormap
         Colour map of the values.
     percentile : (float, float)
-        Percentiles (0-100) of all finite values setting the colour limits.
+        Percentiles (0-100) of the finite values (all of them, or the subsample of
+        :func:`sample_stride` for large cubes) setting the colour limits.
     max_columns : int, optional
         Upper bound on the number of panel columns.
     dpi : float
-        Resolution of the saved image, dots per inch.
+        Resolution of the saved image, dots per inch; it also bounds the cells drawn.
 
     Returns
     -------
@@ -229,7 +309,15 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
     nrows = math.ceil(n_slices / ncols)
     frame = _Frame(cube)
     colours = _colormap(cmap)
-    vmin, vmax = shared_limits(cube, percentile)
+    _check_percentile(percentile)
+    if not (math.isfinite(float(dpi)) and float(dpi) > 0):
+        raise SettingsError(f"dpi must be a positive number, got {dpi}", where="dpi")
+    # One pass over the data: the decimated panels, and the colour limits from a regular
+    # subsample of them (sample_stride).
+    stride = panel_stride(cube, dpi=dpi)
+    drawn = [_panel(cube, i, stride) for i in range(n_slices)]
+    k = sample_stride(cube, dpi=dpi) // stride
+    vmin, vmax = _limits([p[::k, ::k] for p in drawn], percentile)
     norm = Normalize(vmin=vmin, vmax=vmax)
     aspect = frame.height / frame.width
     panel_w = _PANEL_INCHES if aspect <= 1 else _PANEL_INCHES / aspect
@@ -245,7 +333,7 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
     for i, label in enumerate(range_labels(cube)):
         row, col = divmod(i, ncols)
         ax = figure.add_subplot(grid[row, col])
-        image = _draw(ax, cube, i, frame, colours, norm, label)
+        image = _draw(ax, drawn[i], stride, frame, colours, norm, label)
         if col == 0:
             ax.set_ylabel(frame.ylabel(), fontsize=8)
         if row == nrows - 1 or i + ncols >= n_slices:
@@ -283,7 +371,8 @@ def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,
     cmap : str or Colormap
         Colour map of the values; cells without data show as light grey.
     vmin, vmax : float, optional
-        Colour limits; by default the ``percentile`` range of this slice's finite values.
+        Colour limits; by default the ``percentile`` range of this slice's finite values
+        (of the drawn cells, subsampled beyond :data:`MAX_SAMPLE_VALUES`).
     percentile : (float, float)
         Percentiles (0-100) used for limits not given.
     colorbar : bool
@@ -304,10 +393,13 @@ def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,
         figure = Figure(figsize=(5.5, 4.5), layout="constrained")
         FigureCanvasAgg(figure)
         ax = figure.add_subplot()
-    lo, hi = shared_limits(cube.isel({cube.dims[0]: [index]}), percentile)
+    stride = panel_stride(cube)
+    panel = _panel(cube, index, stride)
+    k = _sample_stride(panel.size)
+    lo, hi = _limits([panel[::k, ::k]], percentile)
     norm = Normalize(vmin=lo if vmin is None else vmin, vmax=hi if vmax is None else vmax)
     frame = _Frame(cube)
-    image = _draw(ax, cube, index, frame, _colormap(cmap), norm, range_labels(cube)[index])
+    image = _draw(ax, panel, stride, frame, _colormap(cmap), norm, range_labels(cube)[index])
     ax.set_xlabel(frame.xlabel(), fontsize=8)
     ax.set_ylabel(frame.ylabel(), fontsize=8)
     _decorate(ax, frame)

@@ -8,8 +8,10 @@ description, because a GeoTIFF has no place for a depth coordinate.
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
+import tempfile
 from collections.abc import Mapping, Sequence
 from pathlib import Path
 
@@ -17,15 +19,17 @@ import numpy as np
 import rasterio
 import xarray as xr
 from rasterio.crs import CRS as RasterioCRS
+from rasterio.windows import Window
 
-from ._atomic import atomic_path
 from ._conventions import DEPTH, TWT, UNITS
-from ._cube import cube_crs, cube_transform, slice_axis
+from ._cube import check_tile, cube_crs, cube_transform, slice_axis
 from ._errors import OutputError, SettingsError
 from ._progress import progress_bar
 
-#: Largest tile edge, pixels; TIFF tiles must be multiples of 16.
+#: Default TIFF block edge, pixels; TIFF tiles must be multiples of 16.
 _TILE = 256
+#: Largest TIFF block edge chosen for a large output tile, pixels.
+_MAX_BLOCK = 512
 
 #: Decimals of the window bounds in file names and band descriptions (mm, hundredths of ns).
 _DECIMALS = {DEPTH: 3, TWT: 2}
@@ -59,10 +63,20 @@ def slice_file_name(index: int, top: float, bottom: float, axis: str = DEPTH, *,
             f"{UNITS[axis]}.tif")
 
 
-def _block(n: int) -> int:
-    # Whole 256-pixel tiles for large rasters; one tile (rounded up to 16) for small ones, so a
-    # small slice is not padded out to a mostly empty 256 x 256 tile.
-    return min(_TILE, 16 * math.ceil(n / 16))
+def _tile_block(tile: int) -> int:
+    # The largest multiple of 16 (TIFF 6.0: tile edges are multiples of 16), at most 512,
+    # that divides the tile: every tile written then fills whole TIFF blocks, so GDAL never
+    # compresses a half-filled block and has to rewrite it later.
+    for size in range(min(_MAX_BLOCK, tile) // 16 * 16, 15, -16):
+        if tile % size == 0:
+            return size
+    return _TILE
+
+
+def _block(n: int, tile: int = _TILE) -> int:
+    # Whole blocks for large rasters; one block (rounded up to 16) for small ones, so a
+    # small slice is not padded out to a mostly empty 256 x 256 block.
+    return min(_tile_block(tile), 16 * math.ceil(n / 16))
 
 
 def _number(value: float) -> str:
@@ -86,13 +100,210 @@ def _rasterio_crs(cube: xr.DataArray) -> RasterioCRS | None:
     return RasterioCRS.from_epsg(code) if code else RasterioCRS.from_wkt(pcrs.to_wkt())
 
 
+class SliceTiffWriter:
+    """One temporary GeoTIFF per slice, filled window by window, renamed into place at the end.
+
+    Each file is a tiled float32 GeoTIFF with NaN nodata, the cube's CRS and exact transform,
+    DEFLATE with the floating-point predictor, and the tags and band description described in
+    :func:`write_slice_geotiffs`. Files are written under hidden temporary names beside their
+    final names (:func:`slice_file_name`); :meth:`commit` renames them all. Leaving the
+    ``with`` block on an exception removes every temporary file and leaves the final names
+    as they were.
+
+    Parameters
+    ----------
+    cube : xarray.DataArray
+        The cube, or any template of it (grid, windows, CRS, attrs; values are not read).
+    folder : path-like
+        Output folder; created if missing.
+    tags : mapping, optional
+        Extra dataset-level metadata tags.
+    tile : int
+        Edge of the windows that will be written, cells; the TIFF blocks are chosen to divide
+        it (multiples of 16, at most 512).
+    """
+
+    def __init__(self, cube: xr.DataArray, folder: str | os.PathLike, *,
+                 tags: Mapping[str, object] | None = None, tile: int = _TILE):
+        axis = slice_axis(cube)
+        tile = int(tile)
+        if tile < 1:
+            raise SettingsError(f"tile must be a positive number of cells, got {tile}",
+                                where="tile")
+        self.folder = Path(folder)
+        if self.folder.exists() and not self.folder.is_dir():
+            raise OutputError("output path is a file, not a folder", where=str(self.folder))
+        self._created = [p for p in (self.folder, *self.folder.parents) if not p.exists()]
+        try:
+            self.folder.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise OutputError(f"cannot create output folder ({exc.strerror})",
+                              where=str(self.folder)) from None
+        self.shape = tuple(cube.shape)
+        n_slices, ny, nx = self.shape
+        unit, dec = UNITS[axis], _DECIMALS[axis]
+        digits = max(3, len(str(n_slices - 1)))
+        tops = np.asarray(cube[f"{axis}_top"].values, dtype=np.float64)
+        bottoms = np.asarray(cube[f"{axis}_bottom"].values, dtype=np.float64)
+        common = {
+            "UNITS": str(cube.attrs.get("units", "")),
+            "PROCESSING": _tag_text(cube.attrs.get("processing", "")),
+        }
+        if axis == DEPTH and cube.attrs.get("velocity") is not None:
+            common["VELOCITY_M_PER_NS"] = _number(cube.attrs["velocity"])
+        extra = {str(k): _tag_text(v) for k, v in (tags or {}).items()}
+        self._profile = {
+            "driver": "GTiff", "width": nx, "height": ny, "count": 1, "dtype": "float32",
+            "crs": _rasterio_crs(cube), "transform": cube_transform(cube), "nodata": np.nan,
+            "tiled": True, "blockxsize": _block(nx, tile), "blockysize": _block(ny, tile),
+            "compress": "deflate", "predictor": 3,
+            # Key directory version 1.1 as in OGC 19-008r4 (GeoTIFF 1.1).
+            "geotiff_version": "1.1",
+        }
+        self.paths: list[Path] = []
+        self._tags: list[dict[str, str]] = []
+        self._descriptions: list[str] = []
+        for i in range(n_slices):
+            top, bottom = float(tops[i]), float(bottoms[i])
+            self.paths.append(self.folder / slice_file_name(i, top, bottom, axis, digits=digits))
+            self._tags.append({f"{axis.upper()}_TOP": _number(top),
+                               f"{axis.upper()}_BOTTOM": _number(bottom), **common, **extra})
+            self._descriptions.append(f"{axis} {top:.{dec}f}-{bottom:.{dec}f} {unit}")
+        self._units = common["UNITS"]
+        self._temps: list[Path] = []
+        self._datasets: list = []
+        self._stack = contextlib.ExitStack()
+        self._state = "open"
+        try:
+            for path in self.paths:
+                fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=f".tmp{path.suffix}",
+                                           dir=self.folder)
+                os.close(fd)
+                self._temps.append(Path(tmp))
+                with self._naming(path):
+                    dst = rasterio.open(tmp, "w", **self._profile)
+                self._datasets.append(self._stack.enter_context(dst))
+        except BaseException:
+            self.abort()
+            raise
+
+    @property
+    def block_shape(self) -> tuple[int, int]:
+        """(rows, columns) of the TIFF blocks."""
+        return self._profile["blockysize"], self._profile["blockxsize"]
+
+    def __enter__(self) -> SliceTiffWriter:
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            if self._state != "committed":
+                self.commit()
+        else:
+            self.abort()
+
+    @staticmethod
+    @contextlib.contextmanager
+    def _naming(path: Path):
+        # A failing write names the final file, which is what the user knows of.
+        try:
+            yield
+        except (OSError, rasterio.errors.RasterioIOError) as exc:
+            raise OutputError(f"cannot write GeoTIFF ({exc})", where=str(path)) from None
+
+    def _check_open(self) -> None:
+        if self._state != "open":
+            raise OutputError(f"the GeoTIFFs are already {self._state}", where=str(self.folder))
+
+    def write_band(self, index: int, row0: int, col0: int, band) -> None:
+        """Write a window of slice ``index``: ``band`` (h, w) at grid row/column ``row0, col0``."""
+        self._check_open()
+        values = np.asarray(band, dtype=np.float32)
+        if values.ndim != 2:
+            raise SettingsError(f"a band window is 2-D, got shape {values.shape}", where="tile")
+        check_tile(values[None], (1, *self.shape[1:]), row0, col0)
+        h, w = values.shape
+        with self._naming(self.paths[index]):
+            self._datasets[index].write(np.ascontiguousarray(values), 1,
+                                        window=Window(int(col0), int(row0), w, h))
+
+    def write(self, row0: int, col0: int, block) -> None:
+        """Write one tile of every slice: ``block`` (n_slices, h, w) at ``row0, col0``."""
+        self._check_open()
+        values = check_tile(block, self.shape, row0, col0)
+        for i in range(self.shape[0]):
+            self.write_band(i, row0, col0, values[i])
+
+    def close(self) -> None:
+        """Finish the temporary files (tags, band descriptions, flush) without renaming them."""
+        if self._state == "closed":
+            return
+        self._check_open()
+        try:
+            for path, dst, tags, description in zip(self.paths, self._datasets, self._tags,
+                                                    self._descriptions, strict=True):
+                with self._naming(path):
+                    dst.update_tags(**tags)
+                    dst.set_band_description(1, description)
+                    dst.set_band_unit(1, self._units)
+            with self._naming(self.folder):
+                self._stack.close()  # flushes the last blocks
+        except BaseException:
+            self.abort()
+            raise
+        self._state = "closed"
+
+    def commit(self) -> list[Path]:
+        """Close the files and rename each to its final name; return the final paths."""
+        self.close()
+        done = 0
+        try:
+            for tmp, path in zip(self._temps, self.paths, strict=True):
+                with self._naming(path):
+                    os.replace(tmp, path)
+                done += 1
+        except BaseException:
+            self._remove(self._temps[done:])
+            self._state = "aborted"
+            raise
+        self._state = "committed"
+        return list(self.paths)
+
+    def abort(self) -> None:
+        """Close and remove every temporary file; final names are left as they were."""
+        if self._state in ("committed", "aborted"):
+            return
+        self._state = "aborted"
+        with contextlib.suppress(Exception):
+            self._stack.close()
+        self._remove(self._temps)
+        for folder in self._created:  # innermost first; only folders this writer made
+            with contextlib.suppress(OSError):
+                folder.rmdir()
+
+    @staticmethod
+    def _remove(paths) -> None:
+        for tmp in paths:
+            with contextlib.suppress(FileNotFoundError):
+                tmp.unlink()
+
+
+def tile_windows(shape: tuple[int, ...], tile: int):
+    """Yield ``(row0, col0, h, w)`` of the tiles covering the plan grid of ``shape``, row-major."""
+    ny, nx = shape[-2:]
+    for row0 in range(0, ny, tile):
+        for col0 in range(0, nx, tile):
+            yield row0, col0, min(tile, ny - row0), min(tile, nx - col0)
+
+
 def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
                          tags: Mapping[str, object] | None = None,
                          progress: bool = True) -> list[Path]:
     """Write every slice of ``cube`` to its own GeoTIFF in ``folder``.
 
-    Files are named by :func:`slice_file_name`; each is written atomically and existing files
-    of the same name are replaced, nothing else in ``folder`` is touched.
+    Files are named by :func:`slice_file_name`; they are written under temporary names and
+    renamed only when all are complete (:class:`SliceTiffWriter`), so existing files of the
+    same name are replaced whole or not at all; nothing else in ``folder`` is touched.
 
     Each file carries GDAL metadata tags ``DEPTH_TOP``/``DEPTH_BOTTOM`` (m) and
     ``VELOCITY_M_PER_NS`` for depth slices, or ``TWT_TOP``/``TWT_BOTTOM`` (ns) for time slices,
@@ -102,7 +313,8 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
     Parameters
     ----------
     cube : xarray.DataArray
-        A cube as built by :func:`slicer._cube.new_cube`.
+        A cube as built by :func:`slicer._cube.new_cube`; a dask-backed cube is read one
+        tile at a time.
     folder : path-like
         Output folder; created if missing.
     tags : mapping, optional
@@ -122,55 +334,10 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
         If ``folder`` is a file or cannot be created or written.
     """
     axis = slice_axis(cube)
-    folder = Path(folder)
-    if folder.exists() and not folder.is_dir():
-        raise OutputError("output path is a file, not a folder", where=str(folder))
-    try:
-        folder.mkdir(parents=True, exist_ok=True)
-    except OSError as exc:
-        raise OutputError(f"cannot create output folder ({exc.strerror})",
-                          where=str(folder)) from None
-    transform = cube_transform(cube)
-    crs = _rasterio_crs(cube)
-    n_slices, ny, nx = cube.shape
-    unit = UNITS[axis]
-    dec = _DECIMALS[axis]
-    digits = max(3, len(str(n_slices - 1)))
-    tops = cube[f"{axis}_top"].values
-    bottoms = cube[f"{axis}_bottom"].values
-    common = {
-        "UNITS": str(cube.attrs.get("units", "")),
-        "PROCESSING": _tag_text(cube.attrs.get("processing", "")),
-    }
-    if axis == DEPTH and cube.attrs.get("velocity") is not None:
-        common["VELOCITY_M_PER_NS"] = _number(cube.attrs["velocity"])
-    extra = {str(k): _tag_text(v) for k, v in (tags or {}).items()}
-    profile = {
-        "driver": "GTiff", "width": nx, "height": ny, "count": 1, "dtype": "float32",
-        "crs": crs, "transform": transform, "nodata": np.nan,
-        "tiled": True, "blockxsize": _block(nx), "blockysize": _block(ny),
-        "compress": "deflate", "predictor": 3,
-        # Key directory version 1.1 as in OGC 19-008r4 (GeoTIFF 1.1).
-        "geotiff_version": "1.1",
-    }
-    written: list[Path] = []
-    for i in progress_bar(range(n_slices), desc=f"GeoTIFF {axis} slices", unit="slice",
-                  enabled=progress):
-        top, bottom = float(tops[i]), float(bottoms[i])
-        path = folder / slice_file_name(i, top, bottom, axis, digits=digits)
-        band = np.ascontiguousarray(cube.values[i], dtype=np.float32)
-        slice_tags = {
-            f"{axis.upper()}_TOP": _number(top),
-            f"{axis.upper()}_BOTTOM": _number(bottom),
-            **common, **extra,
-        }
-        try:
-            with atomic_path(path) as tmp, rasterio.open(tmp, "w", **profile) as dst:
-                dst.write(band, 1)
-                dst.update_tags(**slice_tags)
-                dst.set_band_description(1, f"{axis} {top:.{dec}f}-{bottom:.{dec}f} {unit}")
-                dst.set_band_unit(1, common["UNITS"])
-        except (OSError, rasterio.errors.RasterioIOError) as exc:
-            raise OutputError(f"cannot write GeoTIFF ({exc})", where=str(path)) from None
-        written.append(path)
-    return written
+    data = cube.data
+    with SliceTiffWriter(cube, folder, tags=tags, tile=_TILE) as writer:
+        for i in progress_bar(range(cube.shape[0]), desc=f"GeoTIFF {axis} slices",
+                              unit="slice", enabled=progress):
+            for row0, col0, h, w in tile_windows(cube.shape, _TILE):
+                writer.write_band(i, row0, col0, data[i, row0:row0 + h, col0:col0 + w])
+        return writer.commit()

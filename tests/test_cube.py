@@ -2,6 +2,9 @@
 
 from __future__ import annotations
 
+import tracemalloc
+
+import dask.array as darray
 import numpy as np
 import pyproj
 import pytest
@@ -12,8 +15,10 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from slicer._cube import (
+    check_tile,
     cube_crs,
     cube_transform,
+    empty_cube,
     new_cube,
     read_cube_netcdf,
     write_cube_netcdf,
@@ -274,3 +279,65 @@ def test_missing_grid_attrs_are_reported():
     del cube.attrs["cell_size"]
     with pytest.raises(SettingsError, match="cell_size"):
         cube_transform(cube)
+
+
+def test_empty_cube_is_lazy_nan_with_the_full_description():
+    kwargs = {"west": WEST, "north": NORTH, "cell": CELL, "crs": f"EPSG:{EPSG}",
+              "top": [0.0, 0.1], "bottom": [0.1, 0.2], "velocity": 0.1, "processing": "x"}
+    # 2 x 20000 x 20000 float32 would be 3.2 GB: only a description is built.
+    template = empty_cube((2, 20_000, 20_000), tile=512, **kwargs)
+    assert isinstance(template.data, darray.Array)
+    assert template.data.chunksize == (1, 512, 512)
+    assert template.dtype == np.float32
+    small = empty_cube((2, 3, 4), **kwargs)
+    xr.testing.assert_identical(
+        small.compute(), new_cube(np.full((2, 3, 4), np.nan), **kwargs))
+    with pytest.raises(SettingsError, match="shape"):
+        empty_cube((3, 4), **kwargs)
+    with pytest.raises(SettingsError) as info:
+        empty_cube((2, 3, 4), tile=0, **kwargs)
+    assert info.value.where == "tile"
+
+
+def test_new_cube_keeps_dask_data_lazy():
+    def never(block):
+        raise AssertionError("computed")
+
+    lazy = darray.zeros((3, 4, 5), chunks=(1, 4, 5)).map_blocks(never, dtype=np.float64)
+    cube = new_cube(lazy, west=WEST, north=NORTH, cell=CELL, crs=None, top=[0, 1, 2],
+                    bottom=[1, 2, 3])
+    assert isinstance(cube.data, darray.Array) and cube.dtype == np.float32
+    assert cube.data.chunks == lazy.chunks
+
+
+def test_check_tile():
+    block = np.ones((3, 2, 2), dtype=np.float64)
+    out = check_tile(block, (3, 4, 5), 2, 3)
+    assert out.dtype == np.float32 and out.shape == (3, 2, 2)
+    for args in [(block[:2], 0, 0), (block, 3, 0), (block, 0, 4), (block, -1, 0),
+                 (block[0], 0, 0), (block[:, :0], 0, 0)]:
+        with pytest.raises(SettingsError) as info:
+            check_tile(args[0], (3, 4, 5), *args[1:])
+        assert info.value.where == "tile"
+
+
+def test_dask_cube_netcdf_equals_the_in_memory_one_and_is_written_by_chunks(tmp_path):
+    values = np.random.default_rng(4).random((2, 1000, 1000)).astype(np.float32)
+    values[:, :10, :10] = np.nan
+    kwargs = {"west": WEST, "north": NORTH, "cell": CELL, "crs": f"EPSG:{EPSG}",
+              "top": [0.0, 0.1], "bottom": [0.1, 0.2], "velocity": 0.1}
+    cube = new_cube(values, **kwargs)
+    lazy = new_cube(darray.from_array(values, chunks=(1, 250, 250)), **kwargs)
+    write_cube_netcdf(cube.isel(depth=[0], y=slice(0, 5)), tmp_path / "warm.nc")
+    tracemalloc.start()
+    try:
+        write_cube_netcdf(lazy, tmp_path / "lazy.nc")
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert peak < values.nbytes / 4  # never the whole cube at once (8 MB here)
+    write_cube_netcdf(cube, tmp_path / "memory.nc")
+    xr.testing.assert_identical(read_cube_netcdf(tmp_path / "lazy.nc"),
+                                read_cube_netcdf(tmp_path / "memory.nc"))
+    with xr.open_dataset(tmp_path / "lazy.nc", engine="h5netcdf") as ds:
+        assert ds["envelope"].encoding["chunksizes"] == (1, 250, 250)  # one per dask chunk

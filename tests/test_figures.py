@@ -4,11 +4,14 @@ from __future__ import annotations
 
 import subprocess
 import sys
+import tracemalloc
 from pathlib import Path
 
+import dask.array as darray
 import matplotlib.image
 import numpy as np
 import pytest
+from dask.callbacks import Callback
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from matplotlib.colors import to_rgba
@@ -24,6 +27,8 @@ from slicer._figures import (
     plot_overview,
     plot_slice,
     range_labels,
+    sample_stride,
+    shared_limits,
 )
 
 WEST, NORTH, CELL = 500000.0, 4649776.0, 0.05
@@ -192,3 +197,76 @@ def test_no_pyplot_state():
     result = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                             check=False, cwd=Path(__file__).parents[1])
     assert result.returncode == 0, result.stderr
+
+
+class LargestResult(Callback):
+    """Dask callback: the largest result (bytes) any single task produced."""
+
+    def __init__(self):
+        super().__init__()
+        self.largest = 0
+
+    def _posttask(self, key, result, dsk, state, worker_id):
+        self.largest = max(self.largest, getattr(result, "nbytes", 0))
+
+
+def lazy_random_cube(shape=(3, 3000, 3000), chunks=(1, 1000, 1000)):
+    data = darray.random.default_rng(5).random(shape, chunks=chunks, dtype=np.float32)
+    step = 0.1
+    tops = 0.3 + step * np.arange(shape[0])
+    return new_cube(data, west=WEST, north=NORTH, cell=CELL, crs="EPSG:32633", top=tops,
+                    bottom=tops + step)
+
+
+def percentiles_of(sample):
+    # Reference: numpy.percentile over the finite values of the subsample.
+    return tuple(np.percentile(sample[np.isfinite(sample)].astype(np.float64), [2, 98]))
+
+
+def test_overview_of_a_dask_cube_never_computes_it_whole(tmp_path):
+    # 3 slices of 3000 x 3000 cells, float32: 108 MB, computed lazily in 4 MB chunks.
+    cube = lazy_random_cube()
+    plot_overview(make_cube(n=1), tmp_path / "warm.png", dpi=40)  # fonts, caches
+    watch = LargestResult()
+    tracemalloc.start()
+    try:
+        with watch:
+            figure = plot_overview(cube, tmp_path / "overview.png", dpi=40)
+        peak = tracemalloc.get_traced_memory()[1]
+    finally:
+        tracemalloc.stop()
+    assert watch.largest <= 4 * 1000 * 1000  # never more than one chunk at once
+    assert peak < cube.nbytes / 4
+    images = [im for ax in panels(figure) for im in ax.get_images()]
+    # 3-inch panels at 40 dpi: at most 2 x 120 = 240 cells along a side, so every 13th row
+    # and column (ceil(3000 / 240)), 231 x 231 cells drawn.
+    assert [im.get_array().shape for im in images] == [(231, 231)] * 3
+    assert sample_stride(cube, dpi=40) == 13
+    expected = percentiles_of(cube.data[:, ::13, ::13].compute())
+    assert {(im.norm.vmin, im.norm.vmax) for im in images} == {expected}
+    assert matplotlib.image.imread(tmp_path / "overview.png").std() > 0.05
+
+
+def test_shared_limits_of_a_large_cube_use_a_regular_subsample():
+    cube = lazy_random_cube()
+    # Panels of at most 1000 cells: every 3rd; 3 x 1000 x 1000 drawn cells exceed
+    # MAX_SAMPLE_VALUES (1e6), so every 2nd of those: every 6th cell, 750 000 values.
+    assert sample_stride(cube) == 6
+    watch = LargestResult()
+    with watch:
+        limits = shared_limits(cube)
+    assert limits == percentiles_of(cube.data[:, ::6, ::6].compute())
+    assert watch.largest <= 4 * 1000 * 1000
+
+
+def test_decimated_panels_keep_the_grid_extent():
+    # 2100 x 1500 cells: every 3rd cell, 700 x 500 drawn; the last drawn row and column cover
+    # cells 2097-2099 and 1497-1499, so the image ends exactly on the grid's edge.
+    data = darray.zeros((1, 2100, 1500), chunks=(1, 700, 500), dtype=np.float32)
+    cube = new_cube(data, west=0.0, north=210.0, cell=0.1, crs=None, top=[0.0],
+                    bottom=[0.1])
+    ax = plot_slice(cube, 0)
+    image = ax.get_images()[0]
+    assert image.get_array().shape == (700, 500)
+    assert image.get_extent() == pytest.approx((0, 150, 0, 210))
+    assert ax.get_xlim() == pytest.approx((0, 150)) and ax.get_ylim() == pytest.approx((0, 210))

@@ -14,7 +14,7 @@ from hypothesis import strategies as st
 from slicer import _geotiff
 from slicer._cube import cube_transform, new_cube
 from slicer._errors import OutputError, SettingsError
-from slicer._geotiff import slice_file_name, write_slice_geotiffs
+from slicer._geotiff import SliceTiffWriter, slice_file_name, write_slice_geotiffs
 
 # Worked example of /work/shared/reference/check-values.md (OGC 19-008r4, GeoTIFF 1.1):
 # EPSG:32633, upper-left corner (500000, 4649776), 0.05 m cells.
@@ -241,3 +241,71 @@ def test_file_names_sort_beyond_a_thousand_slices():
     names = [slice_file_name(i, i * 0.01, i * 0.01 + 0.01, "depth", digits=4)
              for i in range(1200)]
     assert sorted(names) == names
+
+
+def test_streaming_writer_matches_the_whole_cube_writer(tmp_path):
+    cube = make_cube(ny=100, nx=100)
+    whole = write_slice_geotiffs(cube, tmp_path / "whole", tags={"SURVEY": "x"},
+                                 progress=False)
+    values = cube.values
+    with SliceTiffWriter(cube, tmp_path / "tiled", tags={"SURVEY": "x"}, tile=48) as writer:
+        # 48 is a multiple of 16 that divides itself: blocks of 48 x 48 (TIFF 6.0 tiles are
+        # multiples of 16), so each window written fills whole blocks.
+        assert writer.block_shape == (48, 48)
+        for row0 in (96, 48, 0):
+            for col0 in (0, 48, 96):
+                writer.write(row0, col0, values[:, row0:row0 + 48, col0:col0 + 48])
+        # Nothing appears under a final name before the commit.
+        assert not any(p.exists() for p in writer.paths)
+        paths = writer.commit()
+    assert [p.name for p in paths] == [p.name for p in whole]
+    assert sorted(p.name for p in (tmp_path / "tiled").iterdir()) == [p.name for p in paths]
+    for ours, theirs in zip(paths, whole, strict=True):
+        with rasterio.open(ours) as a, rasterio.open(theirs) as b:
+            np.testing.assert_array_equal(a.read(), b.read())
+            assert a.tags() == b.tags() and a.descriptions == b.descriptions
+            assert a.crs == b.crs and a.transform == b.transform == cube_transform(cube)
+            assert a.block_shapes == [(48, 48)]
+            assert a.profile["compress"] == b.profile["compress"] == "deflate"
+
+
+@settings(max_examples=60, deadline=None)
+@given(sixteens=st.integers(1, 256))
+def test_blocks_divide_the_tile(sixteens):
+    tile = 16 * sixteens
+    block = _geotiff._tile_block(tile)
+    # TIFF 6.0 section 15: TileWidth and TileLength must be multiples of 16; ours also divide
+    # the tile, and are the largest such edge up to 512.
+    assert block % 16 == 0 and tile % block == 0 and block <= 512
+    assert not any(tile % b == 0 for b in range(block + 16, 513, 16))
+
+
+def test_an_error_inside_the_writer_leaves_earlier_files(tmp_path):
+    cube = make_cube()
+    first = write_slice_geotiffs(cube, tmp_path, progress=False)
+    before = [p.read_bytes() for p in first]
+    with pytest.raises(RuntimeError), SliceTiffWriter(cube * 2, tmp_path) as writer:
+        writer.write(0, 0, (cube * 2).values)
+        raise RuntimeError("killed mid-way")
+    assert [p.read_bytes() for p in first] == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == [p.name for p in first]
+    with pytest.raises(OutputError):
+        writer.write(0, 0, cube.values)
+
+
+def test_streaming_writer_refuses_tiles_outside_the_grid(tmp_path):
+    cube = make_cube()
+    with pytest.raises(SettingsError) as info, SliceTiffWriter(cube, tmp_path / "out") as w:
+        w.write(10, 0, cube.values)
+    assert info.value.where == "tile"
+    assert not (tmp_path / "out").exists()  # the folder it made is removed too
+
+
+def test_dask_backed_cube_is_written_tile_by_tile(tmp_path):
+    import dask.array as darray
+
+    cube = make_cube(ny=300, nx=270)
+    lazy = cube.copy(data=darray.from_array(cube.values, chunks=(1, 128, 128)))
+    paths = write_slice_geotiffs(lazy, tmp_path, progress=False)
+    with rasterio.open(paths[2]) as src:
+        np.testing.assert_array_equal(src.read(1), cube.values[2])
