@@ -22,12 +22,12 @@ import xarray as xr
 
 from ._atomic import atomic_write_text, prepare_output_dir
 from ._budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
-from ._cube import new_cube, write_cube_netcdf
+from ._cube import empty_cube, new_cube
 from ._engine import Engine, parse_scheduler
 from ._errors import SettingsError, SlicerWarning
-from ._figures import plot_overview
-from ._geotiff import write_slice_geotiffs
 from ._grid import (
+    Grid,
+    TraceFrame,
     grid_for,
     grid_tile,
     line_spacings,
@@ -38,7 +38,12 @@ from ._grid import (
 )
 from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
+from ._sink import CubeSink
 from ._survey import SurveyInfo, survey_info
+from ._zarr import open_cube_zarr
+
+#: Tile edge of the output grid, cells: each tile is gridded from the traces near it only.
+TILE = 256
 
 
 def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float | None = None,
@@ -67,28 +72,60 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
     tile : int
         Tile edge in cells: each tile is gridded from the traces near it only.
     """
-    x, y = table["x"].values, table["y"].values
-    line = table["line"].values
-    cell = default_cell(x, y, line) if cell is None else cell
-    grid = grid_for(x, y, cell=cell)
-    frame = trace_frame(x, y, line, cell=grid.cell, radius=radius)
-    values = np.full((table.sizes["slice"], grid.ny, grid.nx), np.nan, dtype=np.float32)
-    for row0, col0, block in grid_blocks(grid, frame, table.values, engine=engine, tile=tile,
-                                         progress=progress):
+    layout = GridLayout.of(table, cell=cell, radius=radius, tile=tile)
+    values = np.full(layout.shape(table.sizes["slice"]), np.nan, dtype=np.float32)
+    for row0, col0, block in layout.blocks(table.values, engine=engine, progress=progress):
         values[:, row0:row0 + block.shape[1], col0:col0 + block.shape[2]] = block
-    axis = table["top"].attrs.get("axis", "depth")
-    cube = new_cube(values, west=grid.west, north=grid.north, cell=grid.cell, crs=crs,
-                    top=table["top"].values, bottom=table["bottom"].values, axis=axis,
-                    velocity=velocity, processing=processing)
-    details = {"west": grid.west, "north": grid.north, "cell": grid.cell, "nx": grid.nx,
-               "ny": grid.ny, "tile": tile, "search_radius_m": frame.radius,
-               "line_spacing_m": frame.line_spacing, "along_line_half_width_m": frame.along,
-               "empty_cells": int(np.isnan(values[0]).sum())}
-    return cube, details
+    cube = new_cube(values, **layout.cube_kwargs(table, crs=crs, velocity=velocity,
+                                                 processing=processing))
+    return cube, layout.details(empty=int(np.isnan(values[0]).sum()))
 
 
-#: Tile edge of the output grid, cells: each tile is gridded from the traces near it only.
-TILE = 256
+@dataclass(frozen=True)
+class GridLayout:
+    """The output grid of a trace table, its trace frames and its tiles."""
+
+    grid: Grid
+    frame: TraceFrame
+    tile: int
+
+    @classmethod
+    def of(cls, table: xr.DataArray, *, cell: float | None, radius: float | None,
+           tile: int = TILE) -> GridLayout:
+        x, y, line = table["x"].values, table["y"].values, table["line"].values
+        cell = default_cell(x, y, line) if cell is None else cell
+        grid = grid_for(x, y, cell=cell)
+        return cls(grid, trace_frame(x, y, line, cell=grid.cell, radius=radius), tile)
+
+    def shape(self, n_slices: int) -> tuple[int, int, int]:
+        return (n_slices, self.grid.ny, self.grid.nx)
+
+    def blocks(self, values: np.ndarray, *, engine: Engine | None = None,
+               progress: bool = True):
+        """Grid ``values`` (traces x slices) tile by tile: yields ``(row0, col0, block)``."""
+        if engine is None:
+            with Engine(parse_scheduler("threads")) as own:
+                yield from self.blocks(values, engine=own, progress=progress)
+            return
+        jobs = tile_jobs(self.grid, self.frame, values, tile=self.tile)
+        yield from engine.map(grid_tile, jobs, desc="gridding", unit="tile",
+                              progress=progress,
+                              weights=[1] * tile_count(self.grid, self.tile))
+
+    def cube_kwargs(self, table: xr.DataArray, *, crs, velocity, processing) -> dict:
+        return {"west": self.grid.west, "north": self.grid.north, "cell": self.grid.cell,
+                "crs": crs, "top": table["top"].values, "bottom": table["bottom"].values,
+                "axis": table["top"].attrs.get("axis", "depth"), "velocity": velocity,
+                "processing": processing}
+
+    def details(self, *, empty: int | None = None) -> dict:
+        g, f = self.grid, self.frame
+        out = {"west": g.west, "north": g.north, "cell": g.cell, "nx": g.nx, "ny": g.ny,
+               "tile": self.tile, "search_radius_m": f.radius, "line_spacing_m": f.line_spacing,
+               "along_line_half_width_m": f.along}
+        if empty is not None:
+            out["empty_cells"] = empty
+        return out
 
 
 def default_cell(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> float:
@@ -96,19 +133,6 @@ def default_cell(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> float:
     spacing = np.nanmedian(line_spacings(x, y, line))
     base = spacing / 4 if math.isfinite(spacing) else 4 * trace_spacing(x, y, line)
     return nice_number(base)
-
-
-def grid_blocks(grid, frame, values: np.ndarray, *, engine: Engine | None = None,
-                tile: int = 256, progress: bool = True):
-    """Grid ``values`` (traces x slices) tile by tile: yields ``(row0, col0, block)``."""
-    if engine is None:
-        with Engine(parse_scheduler("threads")) as own:
-            yield from grid_blocks(grid, frame, values, engine=own, tile=tile,
-                                   progress=progress)
-        return
-    jobs = tile_jobs(grid, frame, values, tile=tile)
-    yield from engine.map(grid_tile, jobs, desc="gridding", unit="tile", progress=progress,
-                          weights=[1] * tile_count(grid, tile))
 
 
 @dataclass
@@ -121,6 +145,50 @@ class BuildResult:
     warnings: list[str] = field(default_factory=list)
 
 
+@dataclass
+class _Reduction:
+    """A survey reduced to slice values, with its grid and the record so far."""
+
+    reduced: object
+    layout: GridLayout
+    kwargs: dict
+    record: dict
+    started: float
+
+
+def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
+            cube_in_memory: bool) -> _Reduction:
+    started = time.perf_counter()
+    info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
+    budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=cube_in_memory)
+    reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)
+    read_s = time.perf_counter() - started
+    velocity = settings.resolved_velocity if reduced.windows.axis == "depth" else None
+    summary = processing_summary(settings, reduced.dewow_ns)
+    layout = GridLayout.of(reduced.table, cell=settings.cell, radius=settings.radius)
+    kwargs = layout.cube_kwargs(reduced.table, crs=settings.crs, velocity=velocity,
+                                processing=summary)
+    record = {
+        "slicer": _version(),
+        "created_utc": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
+        "settings": settings.to_record(),
+        "processing": summary,
+        "engine": engine.spec.label,
+        "memory_estimate_bytes": budget.total,
+        "survey": {"lines": len(settings.lines), "traces": info.n_traces,
+                   "samples_per_trace": info.n_samples,
+                   "sample_interval_ns": info.sample_interval_ns},
+        "slices": {"axis": reduced.windows.axis, "units": reduced.windows.units,
+                   "top": reduced.windows.top.tolist(),
+                   "bottom": reduced.windows.bottom.tolist()},
+        "grid": layout.details(),
+        "lines": reduced.lines,
+        "seconds": {"read_and_process": round(read_s, 3)},
+        "environment": _environment(),
+    }
+    return _Reduction(reduced, layout, kwargs, record, started)
+
+
 def build_cube(settings: BuildSettings, *, progress: bool = True,
                engine: Engine | None = None) -> BuildResult:
     """Run the whole pipeline in memory, writing nothing: the cube and its record.
@@ -130,36 +198,16 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
     if engine is None:
         with open_engine(settings) as own:
             return build_cube(settings, progress=progress, engine=own)
-    started = time.perf_counter()
-    info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
-    budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=True)
-    reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)
-    read_s = time.perf_counter() - started
-    velocity = settings.resolved_velocity if reduced.windows.axis == "depth" else None
-    summary = processing_summary(settings, reduced.dewow_ns)
-    cube, details = grid_slices(reduced.table, cell=settings.cell, radius=settings.radius,
-                                crs=settings.crs, velocity=velocity, processing=summary,
-                                engine=engine, progress=progress)
-    record = {
-        "slicer": _version(),
-        "created_utc": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
-        "settings": settings.to_record(),
-        "processing": summary,
-        "engine": engine.spec.label,
-        "memory_estimate_bytes": budget.total,
-        "survey": {"lines": len(settings.lines), "traces": reduced.info.n_traces,
-                   "samples_per_trace": reduced.info.n_samples,
-                   "sample_interval_ns": reduced.info.sample_interval_ns},
-        "slices": {"axis": reduced.windows.axis, "units": reduced.windows.units,
-                   "top": reduced.windows.top.tolist(),
-                   "bottom": reduced.windows.bottom.tolist()},
-        "grid": details,
-        "lines": reduced.lines,
-        "seconds": {"read_and_process": round(read_s, 3),
-                    "grid": round(time.perf_counter() - started - read_s, 3)},
-        "environment": _environment(),
-    }
-    return BuildResult(cube=cube, record=record)
+    r = _reduce(settings, engine, progress=progress, cube_in_memory=True)
+    gridding = time.perf_counter()
+    table = r.reduced.table
+    values = np.full(r.layout.shape(table.sizes["slice"]), np.nan, dtype=np.float32)
+    for row0, col0, block in r.layout.blocks(table.values, engine=engine, progress=progress):
+        values[:, row0:row0 + block.shape[1], col0:col0 + block.shape[2]] = block
+    cube = new_cube(values, **r.kwargs)
+    r.record["grid"]["empty_cells"] = int(np.isnan(values[0]).sum())
+    r.record["seconds"]["grid"] = round(time.perf_counter() - gridding, 3)
+    return BuildResult(cube=cube, record=r.record)
 
 
 def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
@@ -203,16 +251,18 @@ def build(settings: BuildSettings, *, progress: bool = True,
           command: list[str] | None = None) -> BuildResult:
     """Build the slices of a survey and write them to ``settings.out``.
 
-    Writes ``slices/`` (one GeoTIFF per slice), ``cube.nc`` (CF NetCDF), ``overview.png`` and
-    ``record.json`` (every setting and input, with checksums). Nothing is written until the
-    whole survey has been read and gridded, and each file is written atomically.
+    Writes ``slices/`` (one GeoTIFF per slice), ``cube.zarr`` and ``cube.nc`` (the cube as
+    Zarr and CF NetCDF), ``overview.png`` and ``record.json`` (every setting and input, with
+    checksums). The cube is gridded tile by tile straight into the outputs, which stay under
+    temporary names until all are complete, so memory does not grow with the grid and a build
+    that fails or is stopped leaves no half-written file.
 
     Parameters
     ----------
     settings : BuildSettings
         What to build; ``settings.out`` must be set.
     progress : bool
-        Show progress bars.
+        Show progress bars (on a terminal).
     command : list of str, optional
         The command line, kept in the record.
 
@@ -224,42 +274,43 @@ def build(settings: BuildSettings, *, progress: bool = True,
     if settings.out is None:
         raise SettingsError("no output folder given", where="--out")
     out = prepare_output_dir(settings.out, overwrite=settings.overwrite, create=False)
-    with warnings.catch_warnings(record=True) as caught:
+    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine:
         warnings.simplefilter("always", SlicerWarning)
-        result = build_cube(settings, progress=progress)
-        result.record["inputs"] = [_describe_input(e.file) for e in settings.lines]
-        result.record["inputs"].insert(0, _describe_input(settings.source))
+        r = _reduce(settings, engine, progress=progress, cube_in_memory=False)
+        r.record["inputs"] = [_describe_input(p) for p in
+                              (settings.source, *(e.file for e in settings.lines))]
         if command is not None:
-            result.record["command"] = command
-        started = time.perf_counter()
+            r.record["command"] = command
+        gridding = time.perf_counter()
+        table = r.reduced.table
+        template = empty_cube(r.layout.shape(table.sizes["slice"]), tile=TILE, **r.kwargs)
         prepare_output_dir(out, overwrite=settings.overwrite)
-        slices_dir = out / "slices"
-        slices_dir.mkdir(exist_ok=True)
-        tags = {"PROCESSING": result.record["processing"],
-                "SOURCE": str(settings.source)}
-        files = write_slice_geotiffs(result.cube, slices_dir, tags=tags, progress=progress)
+        tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
+        with CubeSink(out, template, tags=tags, tile=TILE, progress=progress,
+                      title=settings.title) as sink:
+            for row0, col0, block in r.layout.blocks(table.values, engine=engine,
+                                                     progress=progress):
+                sink.write(row0, col0, block)
+        files = list(sink.files)
         if settings.overwrite:  # slices of an earlier build that this one does not replace
+            slices_dir = out / "slices"
             for stale in sorted(set(slices_dir.glob("slice_*.tif")) - set(files)):
                 stale.unlink()
-        cube_path = out / "cube.nc"
-        write_cube_netcdf(result.cube, cube_path)
-        overview = out / "overview.png"
-        figure = plot_overview(result.cube, overview, title=settings.title)
-        del figure
-        files = [*files, cube_path, overview]
-    result.warnings = [str(w.message) for w in caught if issubclass(w.category, SlicerWarning)]
+    warned = [str(w.message) for w in caught if issubclass(w.category, SlicerWarning)]
     for w in caught:
         if not issubclass(w.category, SlicerWarning):
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    result.record["warnings"] = result.warnings
-    result.record["seconds"]["write"] = round(time.perf_counter() - started, 3)
-    result.record["outputs"] = [str(p.relative_to(out)) for p in files]
+    cube = open_cube_zarr(out / "cube.zarr")
+    r.record["grid"]["empty_cells"] = int(np.isnan(cube.isel({cube.dims[0]: 0}).values).sum())
+    r.record["warnings"] = warned
+    r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
+    r.record["outputs"] = [str(p.relative_to(out)) for p in files]
     record_path = out / "record.json"
-    atomic_write_text(record_path, json.dumps(result.record, indent=2, default=_jsonable) + "\n")
-    result.files = [*files, record_path]
-    for message in result.warnings:  # the caller sees them too
+    atomic_write_text(record_path, json.dumps(r.record, indent=2, default=_jsonable) + "\n")
+    for message in warned:  # the caller sees them too
         warnings.warn(message, SlicerWarning, stacklevel=2)
-    return result
+    return BuildResult(cube=cube, record=r.record, files=[*files, record_path],
+                       warnings=warned)
 
 
 def _describe_input(path: Path) -> dict:

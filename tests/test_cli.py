@@ -238,23 +238,27 @@ def test_nan_samples_are_tolerated_and_reported(survey, tmp_path, capsys):
         assert np.isfinite(src.read(1)).any()
 
 
-def test_killed_mid_way_leaves_finished_files_whole(survey, capsys, monkeypatch):
-    import slicer._build
+def test_killed_mid_way_leaves_no_half_written_file(survey, capsys, monkeypatch):
+    import slicer._sink
 
     def killed(*args, **kwargs):
         raise KeyboardInterrupt
 
-    monkeypatch.setattr(slicer._build, "write_cube_netcdf", killed)
     out = survey / "out"
     code, _, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--out", out, "-q")
+    assert code == 0
+    before = {p: p.read_bytes() for p in (out / "slices").glob("*.tif")}
+    # a second build, stopped while it writes the NetCDF cube (after every slice is gridded)
+    monkeypatch.setattr(slicer._sink, "_write_netcdf", killed)
+    argv = list(GOOD)
+    argv[argv.index("--velocity") + 1] = "0.12"
+    code, _, err = run(capsys, "build", survey / "lines.csv", *argv, "--out", out, "-q",
+                       "--overwrite")
     assert code == 130 and "interrupted" in err
-    slices = sorted((out / "slices").glob("*"))
-    assert len(slices) == 24 and all(p.suffix == ".tif" for p in slices)  # no temp files
-    for p in slices:
-        with rasterio.open(p) as src:
-            src.read(1)  # each finished file is whole
-    assert not (out / "cube.nc").exists()
-    assert not [p for p in out.iterdir() if ".tmp" in p.name]
+    after = {p: p.read_bytes() for p in (out / "slices").glob("*.tif")}
+    assert after == before  # the earlier build's files are whole and unchanged
+    leftovers = [p for p in out.rglob("*") if ".tmp" in p.name]
+    assert leftovers == []
 
 
 def test_survey_toml_with_flag_override(survey, capsys):
