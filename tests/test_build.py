@@ -129,3 +129,17 @@ def test_windows_partly_below_the_record_are_dropped_with_a_warning(small_survey
     with pytest.warns(slicer.SlicerWarning, match="below the end of the record"):
         result = slicer.build_cube(settings, progress=False)
     assert result.cube.sizes["depth"] == 4  # 2.0-2.4 m of the 2.41 m record
+
+
+def test_streamed_build_equals_in_memory_cube(small_survey, tmp_path):
+    import xarray as xr
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, velocity=0.1, depths="0:2.4:0.1", cell=0.05,
+                                    out=tmp_path / "o")
+    memory = slicer.build_cube(settings, progress=False).cube
+    streamed = slicer.build(settings, progress=False)
+    np.testing.assert_allclose(streamed.cube.values, memory.values, rtol=1e-6, equal_nan=True)
+    zarr = xr.open_zarr(tmp_path / "o" / "cube.zarr", consolidated=False)["envelope"].values
+    netcdf = slicer.read_cube_netcdf(tmp_path / "o" / "cube.nc").values
+    np.testing.assert_array_equal(zarr, netcdf)  # the two cube stores agree exactly
+    np.testing.assert_allclose(netcdf, memory.values, rtol=1e-6, equal_nan=True)
