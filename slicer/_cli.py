@@ -103,6 +103,33 @@ def make_parser() -> argparse.ArgumentParser:
                    "--overwrite); required unless the survey file sets it")
     b.add_argument("-q", "--quiet", action="store_true", help="no progress bars or summary")
 
+    pl = sub.add_parser("plan", help="survey design numbers for an antenna and ground",
+                        description="Wavelength, vertical resolution, antenna footprint and "
+                        "Fresnel zone at the target depth, the largest trace spacing, a line "
+                        "spacing, the time window and sample interval to record, and the "
+                        "expected attenuation. Sources: wavelength lambda = v / f; resolution "
+                        "lambda / 4 (common practice, Jol (ed.) 2009); footprint A = lambda / 4 "
+                        "+ d / sqrt(er - 1) (Annan 1996, in Martinez & Byrnes 2001, KGS "
+                        "Bulletin 247); Fresnel radius sqrt(lambda z / 2 + lambda^2 / 16) "
+                        "(Sheriff & Geldart 1995); trace spacing lambda / 4, sample interval "
+                        "1 / (6 f), time window 1.3 x 2 d / v and low-loss attenuation 1636 "
+                        "sigma / sqrt(er) dB/m (Annan 2009, in Jol (ed.) 2009), with the exact "
+                        "lossy-medium value beside it.")
+    pl.add_argument("--frequency", type=_float, required=True, metavar="MHZ",
+                    help="antenna centre frequency, MHz")
+    pv = pl.add_mutually_exclusive_group(required=True)
+    pv.add_argument("--permittivity", type=_float, metavar="ER",
+                    help="relative permittivity of the ground")
+    pv.add_argument("--velocity", type=_float, metavar="M_PER_NS",
+                    help="radar velocity in the ground, m/ns")
+    pl.add_argument("--conductivity", type=_float, default=0.0, metavar="MS_PER_M",
+                    help="electrical conductivity of the ground, mS/m (default 0)")
+    pl.add_argument("--target-depth", type=_float, required=True, metavar="M",
+                    help="depth of the deepest target, m")
+    pl.add_argument("--target-size", type=_float, metavar="M",
+                    help="plan size of the smallest target, m")
+    pl.add_argument("--json", action="store_true", help="print one JSON object")
+
     d = sub.add_parser("demo", help="write the invented demo survey and build it",
                        description="Write the project's invented demo survey (synthetic lines "
                        "over buried footings, a drain and scattered stones) to DIR/survey, then "
@@ -158,6 +185,28 @@ def _run_demo(args) -> int:
     return 0
 
 
+def _run_plan(args) -> int:
+    import json
+
+    from ._planning import plan_survey
+
+    plan = plan_survey(frequency_mhz=args.frequency, permittivity=args.permittivity,
+                       velocity=args.velocity, conductivity_ms_per_m=args.conductivity,
+                       target_depth_m=args.target_depth, target_size_m=args.target_size)
+    rows = plan.as_table()
+    if args.json:
+        print(json.dumps({"quantities": [
+            {"quantity": q, "value": v, "unit": u, "source": src} for q, v, u, src in rows],
+            "warnings": list(plan.warnings)}, indent=2))
+        return 0
+    width = max(len(q) for q, *_ in rows)
+    for quantity, value, unit, source in rows:
+        print(f"{quantity:<{width}}  {value:>10.4g} {unit:<6}  {source}")
+    for message in plan.warnings:
+        print(f"slicer: warning: {message}", file=sys.stderr)
+    return 0
+
+
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     if issubclass(category, SlicerWarning):
         print(f"slicer: warning: {message}", file=sys.stderr)
@@ -176,6 +225,8 @@ def main(argv: list[str] | None = None) -> int:
     try:
         if args.command == "build":
             return _run_build(args, argv)
+        if args.command == "plan":
+            return _run_plan(args)
         return _run_demo(args)
     except SlicerError as exc:
         print(f"slicer: error: {exc}", file=sys.stderr)

@@ -296,3 +296,33 @@ def test_build_on_a_local_cluster(survey, capsys):
                        "--out", survey / "o", "-q")
     assert code == 0, err
     assert len(list((survey / "o" / "slices").glob("*.tif"))) == 24
+
+
+def test_plan_command_gives_the_worked_numbers(capsys):
+    import json
+    # Worked example for 400 MHz in dry sand (er = 4) at z = 2 m, from
+    # ../shared/reference/check-values.md: lambda 0.3747 m (v / f), resolution 0.0937 m
+    # (lambda / 4, common practice; Jol (ed.) 2009), Fresnel radius 0.619 m (Sheriff & Geldart
+    # 1995), footprint 1.248 m (Annan 1996 in Martinez & Byrnes 2001), dt 0.417 ns (Annan 2009)
+    code, out, _ = run(capsys, "plan", "--frequency", "400", "--permittivity", "4",
+                       "--target-depth", "2", "--json")
+    assert code == 0
+    values = {q["quantity"]: q["value"] for q in json.loads(out)["quantities"]}
+    assert values["wavelength in the ground"] == pytest.approx(0.3747, abs=1e-4)
+    assert values["vertical resolution"] == pytest.approx(0.0937, abs=1e-4)
+    assert values["first Fresnel zone radius at target depth"] == pytest.approx(0.619, abs=1e-3)
+    assert values["antenna footprint long axis at target depth"] == pytest.approx(1.248,
+                                                                                   abs=1e-3)
+    assert values["largest sample interval"] == pytest.approx(0.417, abs=1e-3)
+
+
+@pytest.mark.parametrize("argv, where", [
+    (["--frequency", "-1", "--permittivity", "4", "--target-depth", "2"], "--frequency"),
+    (["--frequency", "400", "--permittivity", "0.5", "--target-depth", "2"], "--permittivity"),
+    (["--frequency", "400", "--velocity", "0.4", "--target-depth", "2"], "--velocity"),
+    (["--frequency", "400", "--permittivity", "4", "--target-depth", "-2"], "--target-depth"),
+])
+def test_plan_bad_input(capsys, argv, where):
+    code, _, err = run(capsys, "plan", *argv)
+    assert code == 2 and err.startswith(f"slicer: error: {where}") and len(
+        err.strip().splitlines()) == 1
