@@ -40,6 +40,7 @@ from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
 from ._sink import CubeSink
 from ._survey import SurveyInfo, survey_info
+from ._velocity_model import depth_error
 from ._zarr import open_cube_zarr
 
 #: Tile edge of the output grid, cells: each tile is gridded from the traces near it only.
@@ -204,10 +205,29 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
     values = np.full(r.layout.shape(table.sizes["slice"]), np.nan, dtype=np.float32)
     for row0, col0, block in r.layout.blocks(table.values, engine=engine, progress=progress):
         values[:, row0:row0 + block.shape[1], col0:col0 + block.shape[2]] = block
-    cube = new_cube(values, **r.kwargs)
+    cube = with_depth_error(new_cube(values, **r.kwargs), settings, r.reduced.table)
     r.record["grid"]["empty_cells"] = int(np.isnan(values[0]).sum())
     r.record["seconds"]["grid"] = round(time.perf_counter() - gridding, 3)
     return BuildResult(cube=cube, record=r.record)
+
+
+def with_depth_error(cube: xr.DataArray, settings: BuildSettings,
+                     table: xr.DataArray) -> xr.DataArray:
+    """Add ``depth_error`` (m, one sigma, per slice centre) from the velocity's uncertainty.
+
+    For a lateral model the error at the survey's median trace position is given.
+    """
+    model = settings.resolved_model
+    if model is None or cube.dims[0] != "depth":
+        return cube
+    x = y = None
+    if getattr(model, "lateral", False):
+        x, y = float(np.median(table["x"].values)), float(np.median(table["y"].values))
+    error = np.asarray(depth_error(model, cube["depth"].values, x=x, y=y), dtype=float)
+    out = cube.assign_coords(depth_error=("depth", error, {
+        "units": "m", "long_name": "one-sigma depth error from the velocity uncertainty"}))
+    out.attrs["velocity_model"] = model.describe()
+    return out
 
 
 def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
@@ -283,7 +303,9 @@ def build(settings: BuildSettings, *, progress: bool = True,
             r.record["command"] = command
         gridding = time.perf_counter()
         table = r.reduced.table
-        template = empty_cube(r.layout.shape(table.sizes["slice"]), tile=TILE, **r.kwargs)
+        template = with_depth_error(
+            empty_cube(r.layout.shape(table.sizes["slice"]), tile=TILE, **r.kwargs), settings,
+            table)
         prepare_output_dir(out, overwrite=settings.overwrite)
         tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
         with CubeSink(out, template, tags=tags, tile=TILE, progress=progress,

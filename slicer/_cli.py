@@ -56,6 +56,11 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
                    help="radar velocity in the ground, m/ns (0 < v < 0.2998)")
     v.add_argument("--permittivity", type=_float, metavar="ER",
                    help="relative permittivity of the ground (v = c / sqrt(er))")
+    v.add_argument("--velocity-model", metavar="FILE",
+                   help="velocity-model TOML file: constant, layered (interval or RMS "
+                        "velocities) or lateral (see README)")
+    g.add_argument("--velocity-std", type=_float, metavar="M_PER_NS",
+                   help="one-sigma uncertainty of --velocity, for each slice's depth error")
     g = p.add_argument_group("slices and grid")
     s = g.add_mutually_exclusive_group()
     s.add_argument("--depths", metavar="TOP:BOTTOM:STEP",
@@ -144,7 +149,8 @@ def make_parser() -> argparse.ArgumentParser:
 
 def _settings_from_args(args) -> dict:
     keys = ("crs", "sample_interval", "time_zero", "time_zero_threshold", "dewow", "background",
-            "gain", "velocity", "permittivity", "depths", "times", "thickness", "cell", "radius",
+            "gain", "velocity", "permittivity", "velocity_model", "velocity_std", "depths",
+            "times", "thickness", "cell", "radius",
             "scheduler", "memory_limit", "title", "out", "overwrite")
     return {k: getattr(args, k) for k in keys}
 

@@ -166,8 +166,11 @@ class SliceTiffWriter:
         for i in range(n_slices):
             top, bottom = float(tops[i]), float(bottoms[i])
             self.paths.append(self.folder / slice_file_name(i, top, bottom, axis, digits=digits))
-            self._tags.append({f"{axis.upper()}_TOP": _number(top),
-                               f"{axis.upper()}_BOTTOM": _number(bottom), **common, **extra})
+            per_slice = {f"{axis.upper()}_TOP": _number(top),
+                         f"{axis.upper()}_BOTTOM": _number(bottom)}
+            if "depth_error" in cube.coords:  # one-sigma depth error from the velocity's std
+                per_slice["DEPTH_ERROR_M"] = _number(float(cube["depth_error"].values[i]))
+            self._tags.append({**per_slice, **common, **extra})
             self._descriptions.append(f"{axis} {top:.{dec}f}-{bottom:.{dec}f} {unit}")
         self._units = common["UNITS"]
         self._temps: list[Path] = []

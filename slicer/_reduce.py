@@ -31,6 +31,7 @@ from ._processing import (
 from ._reading import read_line
 from ._settings import BuildSettings
 from ._survey import SurveyInfo, place_line, survey_info
+from ._velocity_model import ConstantVelocity
 from ._windows import Windows, make_windows, record_reach, reduce_to_windows
 
 
@@ -80,10 +81,20 @@ def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -
     return "; ".join(steps)
 
 
+def reach_depth(velocity, record_ns: float) -> float:
+    """Depth (m) a record ``record_ns`` long reaches, everywhere, with a velocity or model."""
+    if not hasattr(velocity, "profile"):
+        return velocity * record_ns / 2
+    if getattr(velocity, "lateral", False):
+        return float(np.min(velocity.velocity)) * record_ns / 2
+    from ._velocity_model import depth_of_time
+    return float(depth_of_time(velocity, record_ns))
+
+
 def default_windows(record_ns: float, velocity: float | None) -> Windows:
     """About twenty slices from the surface to the end of a record ``record_ns`` long."""
     if velocity is not None:
-        reach, axis = velocity * record_ns / 2, "depth"
+        reach, axis = reach_depth(velocity, record_ns), "depth"
     else:
         reach, axis = record_ns, "twt"
     step = nice_number(reach / 20)
@@ -97,7 +108,7 @@ def fit_windows(windows: Windows, record_ns: float, velocity: float | None,
     keep = record_reach(record_ns, windows, velocity=velocity)
     unit = windows.units
     if not keep.any():
-        reach = record_ns if windows.axis == TWT else velocity * record_ns / 2
+        reach = record_ns if windows.axis == TWT else reach_depth(velocity, record_ns)
         raise SettingsError(
             f"every slice lies below the record, which reaches {reach:.3g} {unit} below "
             "time zero", where=where)
@@ -132,12 +143,33 @@ def reduce_line(job: LineJob) -> dict:
     """
     line = place_line(read_line(job.entry.file, sample_interval_ns=job.interval_ns), job.entry)
     env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
-    values = reduce_to_windows(env, job.windows, velocity=job.velocity)
+    values = reduce_to_windows(depth_axis_for(env, job.windows, job.velocity), job.windows,
+                               velocity=job.velocity)
     return {"values": np.asarray(values.values, dtype=np.float32),
             "x": line["x"].values, "y": line["y"].values, "line": job.number,
             "file": str(job.entry.file), "traces": line.sizes[TRACE],
             "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
             "history": env.attrs.get("history", "")}
+
+
+def depth_axis_for(env: xr.DataArray, windows: Windows, model) -> xr.DataArray:
+    """``env`` resampled to depth when depth windows meet a velocity that is not one number.
+
+    With one velocity a depth window is a time window and nothing is resampled. With a
+    layered or lateral model each trace is resampled to a depth axis whose step is the depth
+    the slowest layer covers in one sample (so no sample is lost), then windows are cut in
+    depth.
+    """
+    if windows.axis != "depth" or model is None or not hasattr(model, "profile"):
+        return env
+    if isinstance(model, ConstantVelocity):
+        return env
+    from ._velocity_model import to_depth_axis
+    dt = float(env[TWT].values[1] - env[TWT].values[0])
+    v_min = float(np.min(model.velocity))
+    step = v_min * dt / 2
+    depths = np.arange(0.0, float(windows.bottom.max()) + 2 * step, step)
+    return to_depth_axis(env, model, depths=depths)
 
 
 @dataclass
@@ -163,7 +195,8 @@ def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
     if windows is None:
         return None
     where = "--times" if settings.times is not None else "--depths"
-    return fit_windows(windows, info.record_ns - t0, settings.resolved_velocity, where)
+    return fit_windows(windows, info.record_ns - t0,
+                       settings.resolved_velocity or settings.resolved_model, where)
 
 
 def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
@@ -185,7 +218,7 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
         with Engine(parse_scheduler("threads")) as own:
             return reduce_survey(settings, engine=own, info=info, progress=progress)
     info = info or survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
-    velocity = settings.resolved_velocity
+    velocity = settings.resolved_velocity or settings.resolved_model
     where = "--times" if settings.times is not None else "--depths"
     windows = plan_windows(settings, info)
 

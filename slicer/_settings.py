@@ -30,6 +30,8 @@ from ._errors import LineTableError, SettingsError
 from ._grid import check_cell
 from ._linetable import LineEntry, check_unique, make_entry, read_line_table
 from ._velocity import check_velocity, velocity_from_permittivity
+from ._velocity_file import read_velocity_model
+from ._velocity_model import ConstantVelocity
 from ._windows import Windows, make_windows, parse_range
 
 #: Build options that a TOML survey file may set, with their meaning (for the docs).
@@ -43,6 +45,8 @@ OPTION_KEYS = {
     "gain": "gain: 'power:P' (t^P), 'exp:DB_PER_NS' or 'none'",
     "velocity": "radar velocity in m/ns",
     "permittivity": "relative permittivity (instead of velocity)",
+    "velocity_std": "one-sigma uncertainty of the velocity (m/ns), for the depth error",
+    "velocity_model": "velocity-model TOML file (constant, layered or lateral; see README)",
     "cell": "grid cell in m (default: a round number near a quarter of the line spacing)",
     "radius": "search radius in m; cells farther from any trace stay nodata",
     "depths": "depth slices TOP:BOTTOM:STEP in m",
@@ -75,6 +79,8 @@ class BuildSettings:
     gain: str = "power:1"
     velocity: float | None = None
     permittivity: float | None = None
+    velocity_std: float | None = None
+    velocity_model: Path | None = None
     cell: float | None = None
     radius: float | None = None
     depths: str | None = None
@@ -90,9 +96,20 @@ class BuildSettings:
     def __post_init__(self):
         if not self.lines:
             raise LineTableError("the survey has no lines", where=str(self.source))
-        if self.velocity is not None and self.permittivity is not None:
-            raise SettingsError("give either a velocity or a permittivity, not both",
-                                where="--velocity")
+        given = [n for n in ("velocity", "permittivity", "velocity_model")
+                 if getattr(self, n) is not None]
+        if len(given) > 1:
+            raise SettingsError(f"give one of --velocity, --permittivity or --velocity-model, "
+                                f"not {' and '.join(given)}",
+                                where="--" + given[0].replace("_", "-"))
+        if self.velocity_std is not None:
+            try:
+                ok = float(self.velocity_std) >= 0 and math.isfinite(float(self.velocity_std))
+            except (TypeError, ValueError):
+                ok = False
+            if not ok:
+                raise SettingsError(f"must be a number >= 0, got {self.velocity_std!r}",
+                                    where="--velocity-std")
         if self.velocity is not None:
             check_velocity(self.velocity)
         if self.permittivity is not None:
@@ -119,7 +136,11 @@ class BuildSettings:
         self.gain_curve  # noqa: B018 - validates
         if self.depths is not None and self.times is not None:
             raise SettingsError("give depth slices or time slices, not both", where="--times")
-        if self.depths is not None and self.resolved_velocity is None:
+        if self.velocity_model is not None:
+            object.__setattr__(self, "extras", {**self.extras,
+                                                "model": read_velocity_model(
+                                                    self.velocity_model)})
+        if self.depths is not None and self.resolved_model is None:
             raise SettingsError("depth slices need a velocity: give --velocity or "
                                 "--permittivity (or cut time slices with --times)",
                                 where="--depths")
@@ -132,12 +153,22 @@ class BuildSettings:
 
     @property
     def resolved_velocity(self) -> float | None:
-        """Radar velocity (m/ns) from ``velocity`` or ``permittivity``, or None."""
-        if self.velocity is not None:
-            return check_velocity(self.velocity)
-        if self.permittivity is not None:
-            return velocity_from_permittivity(self.permittivity)
+        """One radar velocity (m/ns) when the model is constant, else None."""
+        model = self.resolved_model
+        if isinstance(model, ConstantVelocity):
+            return model.velocity
         return None
+
+    @property
+    def resolved_model(self):
+        """The velocity model (:mod:`slicer._velocity_model`) of the build, or None."""
+        std = float(self.velocity_std) if self.velocity_std is not None else 0.0
+        if self.velocity is not None:
+            return ConstantVelocity(check_velocity(self.velocity), std)
+        if self.permittivity is not None:
+            v = velocity_from_permittivity(self.permittivity)
+            return ConstantVelocity(v, std)
+        return self.extras.get("model")
 
     @property
     def gain_curve(self) -> tuple[str, float] | None:
@@ -185,6 +216,8 @@ class BuildSettings:
             value = getattr(self, f.name)
             out[f.name] = str(value) if isinstance(value, Path) else value
         out["velocity_used"] = self.resolved_velocity
+        model = self.resolved_model
+        out["velocity_model_used"] = model.describe() if model is not None else None
         return out
 
 
@@ -243,8 +276,9 @@ def _read_toml(path: Path) -> tuple[list[LineEntry], dict]:
         entries = [make_entry(row, base=path.parent, where=f"{path}:line[{i}]")
                    for i, row in enumerate(inline)]
         check_unique(entries)
-    if "out" in data:
-        data["out"] = path.parent / data["out"]
+    for key in ("out", "velocity_model"):
+        if key in data:
+            data[key] = path.parent / data[key]
     return entries, data
 
 
@@ -269,6 +303,7 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
     for key, value in overrides.items():
         if value is not None:
             options[key] = value
-    if options.get("out") is not None:
-        options["out"] = Path(options["out"])
+    for key in ("out", "velocity_model"):
+        if options.get(key) is not None:
+            options[key] = Path(options[key])
     return BuildSettings(lines=tuple(entries), source=path, **options)

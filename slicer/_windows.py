@@ -54,6 +54,8 @@ class Windows:
             raise SettingsError("depth slices need a velocity: give --velocity or "
                                 "--permittivity, or cut time slices with --times",
                                 where="--velocity")
+        if hasattr(velocity, "profile"):  # a velocity model: the slowest place is the latest
+            return _model_times(velocity, self.top), _model_times(velocity, self.bottom)
         return time_from_depth(self.top, velocity=velocity), time_from_depth(
             self.bottom, velocity=velocity)
 
@@ -61,6 +63,15 @@ class Windows:
         u = self.units
         return (f"{len(self)} {self.axis} slices {self.top[0]:g}-{self.bottom[-1]:g} {u}, "
                 f"thickness {float(np.median(self.bottom - self.top)):g} {u}")
+
+
+def _model_times(model, depth: np.ndarray) -> np.ndarray:
+    """Two-way times (ns) of ``depth`` in a velocity model; for a lateral model, the latest
+    time anywhere (its slowest velocity), so that a window fits the record everywhere."""
+    from ._velocity_model import time_of_depth
+    if getattr(model, "lateral", False):
+        return time_from_depth(depth, velocity=float(np.min(model.velocity)))
+    return time_of_depth(model, depth)
 
 
 def parse_range(text: str, *, option: str) -> tuple[float, float, float]:
@@ -150,15 +161,23 @@ def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
     xarray.DataArray
         Dims ``(trace, slice)``, NaN for windows the record does not reach.
     """
-    if velocity is not None:
+    if DEPTH in line.dims:  # already resampled to depth (a layered or lateral model)
+        return _reduce_along(line, DEPTH, windows.top, windows.bottom, windows)
+    if velocity is not None and not hasattr(velocity, "profile"):
         velocity = check_velocity(velocity)
     t_top, t_bottom = windows.times(velocity)
-    twt = line[TWT].values
-    data = line.chunk({TWT: -1}) if line.chunks is not None else line
+    return _reduce_along(line, TWT, t_top, t_bottom, windows)
+
+
+def _reduce_along(line: xr.DataArray, dim: str, lo: np.ndarray, hi: np.ndarray,
+                  windows: Windows) -> xr.DataArray:
+    twt = line[dim].values
+    t_top, t_bottom = lo, hi
+    data = line.chunk({dim: -1}) if line.chunks is not None else line
     out = xr.apply_ufunc(
         _window_means_core, data,
         kwargs={"twt": twt, "t_top": t_top, "t_bottom": t_bottom},
-        input_core_dims=[[TWT]], output_core_dims=[[SLICE]],
+        input_core_dims=[[dim]], output_core_dims=[[SLICE]],
         dask="parallelized", output_dtypes=[np.float32],
         dask_gufunc_kwargs={"output_sizes": {SLICE: len(windows)}}, keep_attrs=True)
     u = windows.units

@@ -143,3 +143,41 @@ def test_streamed_build_equals_in_memory_cube(small_survey, tmp_path):
     netcdf = slicer.read_cube_netcdf(tmp_path / "o" / "cube.nc").values
     np.testing.assert_array_equal(zarr, netcdf)  # the two cube stores agree exactly
     np.testing.assert_allclose(netcdf, memory.values, rtol=1e-6, equal_nan=True)
+
+
+def test_layered_model_file_equal_layers_match_constant_velocity(small_survey, tmp_path):
+    # Two layers of the same interval velocity are one medium: depth conversion through the
+    # resampled depth axis must agree with the constant-velocity time windows.
+    model = tmp_path / "model.toml"
+    model.write_text('kind = "layered"\n[[layer]]\ntop_depth = 0.0\nvelocity = 0.1\n'
+                     'velocity_std = 0.004\n[[layer]]\ntop_depth = 1.0\nvelocity = 0.1\n'
+                     'velocity_std = 0.004\n')
+    common = dict(sample_interval=0.1, time_zero=3.0, depths="0:2.4:0.1", cell=0.1)
+    constant = slicer.build_cube(slicer.load_settings(small_survey.line_table, velocity=0.1,
+                                                      **common), progress=False).cube
+    layered = slicer.build_cube(slicer.load_settings(small_survey.line_table,
+                                                     velocity_model=model, **common),
+                                progress=False).cube
+    both = np.isfinite(constant.values) & np.isfinite(layered.values)
+    assert both.mean() > 0.9
+    scale = np.nanmax(constant.values)
+    assert np.nanmax(np.abs(layered.values - constant.values)) < 0.02 * scale
+    # layer errors add in quadrature below 1 m: sigma_d = sqrt(sum (sigma_i dt_i / 2)^2)
+    err = layered["depth_error"].values
+    d = layered["depth"].values
+    expected = np.where(d <= 1.0, d * 0.004 / 0.1,
+                        np.hypot(1.0 * 0.004 / 0.1, (d - 1.0) * 0.004 / 0.1))
+    np.testing.assert_allclose(err, expected, rtol=1e-6)
+
+
+def test_depth_error_in_tags_and_cube(small_survey, tmp_path):
+    # sigma_d = d sigma_v / v for one velocity (first-order error propagation of d = v t / 2)
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, velocity=0.1, velocity_std=0.005,
+                                    depths="0:1:0.5", out=tmp_path / "o")
+    result = slicer.build(settings, progress=False)
+    np.testing.assert_allclose(result.cube["depth_error"].values, [0.25 * 0.05, 0.75 * 0.05])
+    with rasterio.open(sorted((tmp_path / "o" / "slices").glob("*.tif"))[1]) as src:
+        assert float(src.tags()["DEPTH_ERROR_M"]) == pytest.approx(0.0375)
+    nc = slicer.read_cube_netcdf(tmp_path / "o" / "cube.nc")
+    np.testing.assert_allclose(nc["depth_error"].values, [0.0125, 0.0375])
