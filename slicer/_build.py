@@ -39,7 +39,7 @@ from ._grid import (
 from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
 from ._sink import CubeSink
-from ._survey import SurveyInfo, survey_info
+from ._survey import SurveyInfo, ends_from_headers, survey_info
 from ._velocity_model import depth_error
 from ._zarr import open_cube_zarr
 
@@ -160,6 +160,8 @@ class _Reduction:
 def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
             cube_in_memory: bool) -> _Reduction:
     started = time.perf_counter()
+    if settings.positions == "headers":
+        settings = settings.replace(lines=tuple(ends_from_headers(settings.lines)))
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=cube_in_memory)
     reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)

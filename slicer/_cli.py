@@ -35,6 +35,11 @@ def _float(text: str) -> float:
 def _add_build_options(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("survey")
     g.add_argument("--crs", help="CRS of the line coordinates, e.g. EPSG:32633 (projected, m)")
+    g.add_argument("--positions", choices=("table", "headers"),
+                   help="trace positions: 'table' spaces them evenly from each line's start to "
+                        "its end (default); 'headers' takes the files' trace-header "
+                        "coordinates (SEG-Y CDP or source X/Y with the coordinate scalar), in "
+                        "the survey CRS; the line table then needs only its file column")
     g.add_argument("--sample-interval", type=_float, metavar="NS",
                    help="sample interval in ns (needed when the files cannot hold it)")
     g = p.add_argument_group("processing")
@@ -148,11 +153,9 @@ def make_parser() -> argparse.ArgumentParser:
 
 
 def _settings_from_args(args) -> dict:
-    keys = ("crs", "sample_interval", "time_zero", "time_zero_threshold", "dewow", "background",
-            "gain", "velocity", "permittivity", "velocity_model", "velocity_std", "depths",
-            "times", "thickness", "cell", "radius",
-            "scheduler", "memory_limit", "title", "out", "overwrite")
-    return {k: getattr(args, k) for k in keys}
+    from ._settings import OPTION_KEYS
+
+    return {k: getattr(args, k, None) for k in OPTION_KEYS}
 
 
 def _summary(result, elapsed: float) -> str:

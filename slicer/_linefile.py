@@ -218,6 +218,15 @@ def netcdf_line_info(path: str | os.PathLike) -> LineInfo:
                     format="netcdf")
 
 
+def netcdf_header_positions(path: str | os.PathLike) -> tuple[np.ndarray, np.ndarray] | None:
+    """The stored per-trace ``x``, ``y`` (m) of a line file, reading no samples (or None)."""
+    path = Path(path)
+    with _open(path) as ds:
+        found = _contents(ds, path)
+        return None if found.xy is None else tuple(np.asarray(v, dtype=float)
+                                                   for v in found.xy)
+
+
 def read_line_netcdf(path: str | os.PathLike, *, sample_interval_ns: float | None = None,
                      name: str | None = None) -> xr.DataArray:
     """Read a slicer NetCDF line file into the Line data model (see DEVELOPERS.md).

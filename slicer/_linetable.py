@@ -60,11 +60,18 @@ def _number(text: str | None, column: str, where: str) -> float:
     return value
 
 
-def make_entry(fields: dict, *, base: Path, where: str) -> LineEntry:
-    """Validate one row (a mapping of the five columns) into a :class:`LineEntry`."""
+def make_entry(fields: dict, *, base: Path, where: str, ends: bool = True) -> LineEntry:
+    """Validate one row (a mapping of the five columns) into a :class:`LineEntry`.
+
+    With ``ends=False`` (positions from the files' headers) the start and end columns may be
+    absent or empty; the entry then has NaN ends until :func:`with_ends` fills them.
+    """
     name = fields.get("file")
     if name is None or not str(name).strip():
         raise LineTableError("column file is empty", where=where)
+    if not ends and all(str(fields.get(c) or "").strip() == "" for c in COLUMNS[1:]):
+        nan = (math.nan, math.nan)
+        return LineEntry(file=(base / str(name).strip()), start=nan, end=nan, where=where)
     sx, sy, ex, ey = (_number(None if fields.get(c) is None else str(fields.get(c)), c, where)
                       for c in COLUMNS[1:])
     entry = LineEntry(file=(base / str(name).strip()), start=(sx, sy), end=(ex, ey), where=where)
@@ -74,8 +81,10 @@ def make_entry(fields: dict, *, base: Path, where: str) -> LineEntry:
     return entry
 
 
-def read_line_table(path: str | os.PathLike) -> list[LineEntry]:
+def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineEntry]:
     """Read and validate a line table CSV.
+
+    With ``ends=False`` only the ``file`` column is required (positions come from the files).
 
     Raises
     ------
@@ -94,7 +103,7 @@ def read_line_table(path: str | os.PathLike) -> list[LineEntry]:
     header = [h.strip() for h in (reader.fieldnames or [])]
     if not header:
         raise LineTableError("line table is empty (no header row)", where=str(path))
-    missing = [c for c in COLUMNS if c not in header]
+    missing = [c for c in (COLUMNS if ends else COLUMNS[:1]) if c not in header]
     if missing:
         raise LineTableError(
             f"missing column(s) {', '.join(missing)}; expected header {','.join(COLUMNS)}",
@@ -104,7 +113,8 @@ def read_line_table(path: str | os.PathLike) -> list[LineEntry]:
     for row_number, row in enumerate(reader, start=2):
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue  # blank line
-        entries.append(make_entry(row, base=path.parent, where=f"{path}:{row_number}"))
+        entries.append(make_entry(row, base=path.parent, where=f"{path}:{row_number}",
+                                  ends=ends))
     if not entries:
         raise LineTableError("line table has no lines", where=str(path))
     check_unique(entries)
@@ -120,3 +130,10 @@ def check_unique(entries: list[LineEntry]) -> None:
             raise LineTableError(f"file {e.file.name} is already used at {seen[key]}",
                                  where=e.where)
         seen[key] = e.where
+
+
+def with_ends(entry: LineEntry, x, y) -> LineEntry:
+    """The entry with its start and end taken from its first and last trace positions."""
+    import dataclasses
+    return dataclasses.replace(entry, start=(float(x[0]), float(y[0])),
+                               end=(float(x[-1]), float(y[-1])))

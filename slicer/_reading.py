@@ -97,6 +97,22 @@ def line_info(path: str | os.PathLike) -> LineInfo:
     return netcdf_line_info(path)
 
 
+def header_positions(path: str | os.PathLike) -> tuple[np.ndarray, np.ndarray] | None:
+    """Per-trace coordinates stored in a line file (m, survey CRS), without its samples.
+
+    SEG-Y: CDP X/Y (else source X/Y) with the coordinate scalar applied; NetCDF lines: the
+    stored ``x``/``y``. None when the file holds no coordinates.
+    """
+    path = Path(path)
+    if _kind(path) == "segy":
+        from ._segy import segy_header_positions
+
+        return segy_header_positions(path)
+    from ._linefile import netcdf_header_positions
+
+    return netcdf_header_positions(path)
+
+
 def read_line(path: str | os.PathLike, *, sample_interval_ns: float | None = None,
               name: str | None = None) -> xr.DataArray:
     """Read one radar line into the Line data model (see DEVELOPERS.md).

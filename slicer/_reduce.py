@@ -30,7 +30,7 @@ from ._processing import (
 )
 from ._reading import read_line
 from ._settings import BuildSettings
-from ._survey import SurveyInfo, place_line, survey_info
+from ._survey import SurveyInfo, position_line, survey_info
 from ._velocity_model import ConstantVelocity
 from ._windows import Windows, make_windows, record_reach, reduce_to_windows
 
@@ -141,7 +141,8 @@ def reduce_line(job: LineJob) -> dict:
         ``values`` (traces, slices) float32, ``x``, ``y`` (m), ``line`` (the job number),
         ``time_zero_ns`` and ``history``.
     """
-    line = place_line(read_line(job.entry.file, sample_interval_ns=job.interval_ns), job.entry)
+    line = position_line(read_line(job.entry.file, sample_interval_ns=job.interval_ns),
+                         job.entry, positions=job.settings.positions)
     env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
     values = reduce_to_windows(depth_axis_for(env, job.windows, job.velocity), job.windows,
                                velocity=job.velocity)
@@ -226,9 +227,9 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
                  if not isinstance(settings.time_zero, str) else None)
     dewow_ns, first = None, None
     if settings.dewow == "auto" or windows is None or record_ns is None:
-        first = place_line(read_line(settings.lines[0].file,
-                                     sample_interval_ns=info.sample_interval_ns),
-                           settings.lines[0])
+        first = position_line(read_line(settings.lines[0].file,
+                                        sample_interval_ns=info.sample_interval_ns),
+                              settings.lines[0], positions=settings.positions)
     if settings.dewow == "auto":
         t0_line = correct_time_zero(first, time_zero=settings.time_zero,
                                     threshold=settings.time_zero_threshold)

@@ -219,6 +219,14 @@ def read_segy_line(path: str | os.PathLike, *, sample_interval_ns: float | None 
                       header_xy=header_xy)
 
 
+def segy_header_positions(path: str | os.PathLike) -> tuple[np.ndarray, np.ndarray] | None:
+    """Scaled trace-header coordinates (m) of every trace, reading no samples (or None)."""
+    path = Path(path)
+    layout = _inspect(path)
+    with _segyio_file(path, layout) as f:
+        return _header_coordinates(f, path)
+
+
 def _header_coordinates(f: segyio.SegyFile,
                         path: Path) -> tuple[np.ndarray, np.ndarray] | None:
     """Scaled per-trace coordinates from the trace headers (m), or None if all are zero."""

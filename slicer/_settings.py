@@ -37,6 +37,8 @@ from ._windows import Windows, make_windows, parse_range
 #: Build options that a TOML survey file may set, with their meaning (for the docs).
 OPTION_KEYS = {
     "crs": "survey CRS of the line coordinates (EPSG code, WKT or PROJ string)",
+    "positions": "where trace positions come from: 'table' (even from start to end) or "
+                 "'headers' (the files' trace-header coordinates, in the survey CRS)",
     "sample_interval": "sample interval in ns, when the files cannot hold it",
     "time_zero": "time zero in ns on the raw record, or 'auto' (direct-wave pick)",
     "time_zero_threshold": "fraction of the peak the direct wave must reach for 'auto'",
@@ -71,6 +73,7 @@ class BuildSettings:
     lines: tuple[LineEntry, ...]
     source: Path
     crs: str | None = None
+    positions: str = "table"
     sample_interval: float | None = None
     time_zero: float | str = "auto"
     time_zero_threshold: float = 0.5
@@ -114,6 +117,9 @@ class BuildSettings:
             check_velocity(self.velocity)
         if self.permittivity is not None:
             velocity_from_permittivity(self.permittivity)
+        if self.positions not in ("table", "headers"):
+            raise SettingsError(f"expected 'table' or 'headers', got {self.positions!r}",
+                                where="--positions")
         if self.crs is not None:
             check_crs(self.crs)
         if self.cell is not None:
@@ -248,7 +254,7 @@ def _positive(value, where: str, unit: str) -> float:
     return v
 
 
-def _read_toml(path: Path) -> tuple[list[LineEntry], dict]:
+def _read_toml(path: Path, overrides: dict) -> tuple[list[LineEntry], dict]:
     try:
         data = tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
@@ -263,17 +269,19 @@ def _read_toml(path: Path) -> tuple[list[LineEntry], dict]:
     if unknown:
         raise SettingsError(f"unknown key(s) {', '.join(unknown)}; known keys: lines, line, "
                             f"{', '.join(OPTION_KEYS)}", where=str(path))
+    positions = overrides.get("positions") or data.get("positions", "table")
+    ends = positions != "headers"
     if (lines is None) == (inline is None):
         raise LineTableError("give either lines = \"TABLE.csv\" or [[line]] tables",
                              where=str(path))
     if lines is not None:
         if not isinstance(lines, str):
             raise LineTableError("lines must be the path of a line table", where=str(path))
-        entries = read_line_table(path.parent / lines)
+        entries = read_line_table(path.parent / lines, ends=ends)
     else:
         if not isinstance(inline, list) or not inline:
             raise LineTableError("[[line]] tables are empty", where=str(path))
-        entries = [make_entry(row, base=path.parent, where=f"{path}:line[{i}]")
+        entries = [make_entry(row, base=path.parent, where=f"{path}:line[{i}]", ends=ends)
                    for i, row in enumerate(inline)]
         check_unique(entries)
     for key in ("out", "velocity_model"):
@@ -297,9 +305,10 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
         raise SettingsError(f"unknown option(s) {', '.join(unknown)}")
     path = Path(path)
     if path.suffix.lower() == ".toml":
-        entries, options = _read_toml(path)
+        entries, options = _read_toml(path, overrides)
     else:
-        entries, options = read_line_table(path), {}
+        ends = (overrides.get("positions") or "table") != "headers"
+        entries, options = read_line_table(path, ends=ends), {}
     for key, value in overrides.items():
         if value is not None:
             options[key] = value

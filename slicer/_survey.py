@@ -11,8 +11,8 @@ import xarray as xr
 
 from ._conventions import DISTANCE, TRACE, X, Y
 from ._errors import InputFileError, SettingsError
-from ._linetable import LineEntry
-from ._reading import LineInfo, line_info, read_line
+from ._linetable import LineEntry, with_ends
+from ._reading import LineInfo, header_positions, line_info, read_line
 
 
 def place_line(line: xr.DataArray, entry: LineEntry) -> xr.DataArray:
@@ -105,3 +105,31 @@ def iter_lines(entries: Sequence[LineEntry], *, sample_interval_ns: float | None
     for entry in entries:
         line = read_line(entry.file, sample_interval_ns=sample_interval_ns)
         yield place_line(line, entry)
+
+
+def ends_from_headers(entries: Sequence[LineEntry]) -> list[LineEntry]:
+    """Entries whose start and end are their files' first and last trace-header positions.
+
+    Raises
+    ------
+    InputFileError
+        A file holds no trace coordinates.
+    """
+    out = []
+    for e in entries:
+        xy = header_positions(e.file)
+        if xy is None:
+            raise InputFileError("the file holds no trace coordinates for --positions "
+                                 "headers (SEG-Y: CDP or source X/Y are all zero)",
+                                 where=str(e.file))
+        out.append(with_ends(e, *xy))
+    return out
+
+
+def position_line(line: xr.DataArray, entry: LineEntry, *, positions: str = "table"
+                  ) -> xr.DataArray:
+    """Place a line from its table entry (``"table"``) or its own trace headers."""
+    if positions == "headers":
+        from ._positions import positions_from_headers
+        return positions_from_headers(line)
+    return place_line(line, entry)

@@ -181,3 +181,53 @@ def test_depth_error_in_tags_and_cube(small_survey, tmp_path):
         assert float(src.tags()["DEPTH_ERROR_M"]) == pytest.approx(0.0375)
     nc = slicer.read_cube_netcdf(tmp_path / "o" / "cube.nc")
     np.testing.assert_allclose(nc["depth_error"].values, [0.0125, 0.0375])
+
+
+@pytest.fixture(scope="module")
+def crossed_survey(tmp_path_factory):
+    """Two orthogonal line sets over three point targets, SEG-Y with header coordinates."""
+    from slicer.synthetic import Ground, PointTarget, Radar, grid_lines, write_survey
+    targets = (PointTarget(512001.05, 4650001.05, 0.55), PointTarget(512003.05, 4650002.55, 0.95),
+               PointTarget(512001.55, 4650003.55, 1.25, amplitude=1.5))
+    lines = (grid_lines(west=512000.0, south=4650000.0, length=4.0, width=4.0, line_spacing=1.0,
+                        trace_spacing=0.05, direction="x", prefix="E")
+             + grid_lines(west=512000.0, south=4650000.0, length=4.0, width=4.0,
+                          line_spacing=1.0, trace_spacing=0.05, direction="y", prefix="N"))
+    folder = tmp_path_factory.mktemp("crossed") / "survey"
+    return write_survey(folder, Ground(velocity=0.1, targets=targets), Radar(seed=3), lines,
+                        format="segy", crs="EPSG:32633", progress=False)
+
+
+def test_orthogonal_sets_positioned_from_headers(crossed_survey, tmp_path, monkeypatch):
+    # a line table with only file names: every position comes from the SEG-Y trace headers
+    names = [p.name for p in sorted(crossed_survey.folder.glob("*.sgy"))]
+    table = crossed_survey.folder / "files.csv"
+    table.write_text("file\n" + "\n".join(names) + "\n")
+    monkeypatch.chdir(crossed_survey.folder)
+    code = main(["build", "files.csv", "--positions", "headers", "--crs", "EPSG:32633",
+                 "--sample-interval", "0.1", "--time-zero", "3.0", "--velocity", "0.1",
+                 "--cell", "0.1", "--depths", "0:2.4:0.1", "--out", str(tmp_path / "o"), "-q"])
+    assert code == 0
+    cube = slicer.read_cube_netcdf(tmp_path / "o" / "cube.nc")
+    for t in json.loads(crossed_survey.truth_file.read_text())["targets"]:
+        k = int(np.argmin(np.abs(cube["depth"].values - t["depth"])))
+        plane = cube.isel(depth=k).sel(x=slice(t["x"] - 0.6, t["x"] + 0.6),
+                                       y=slice(t["y"] + 0.6, t["y"] - 0.6))
+        j, i = np.unravel_index(int(np.nanargmax(plane.values)), plane.shape)
+        assert abs(float(plane["x"][i]) - t["x"]) <= 0.1 + 1e-9, t
+        assert abs(float(plane["y"][j]) - t["y"]) <= 0.1 + 1e-9, t
+
+
+def test_headers_without_coordinates_refused(small_survey, tmp_path, capsys):
+    import segyio
+    spec = segyio.spec()
+    spec.format, spec.samples, spec.tracecount = 5, np.arange(512), 10
+    path = tmp_path / "bare.sgy"
+    with segyio.create(path, spec) as f:
+        f.trace = [np.zeros(512, np.float32)] * 10
+    (tmp_path / "t.csv").write_text("file\nbare.sgy\n")
+    code = main(["build", str(tmp_path / "t.csv"), "--positions", "headers",
+                 "--sample-interval", "0.1", "--out", str(tmp_path / "o")])
+    err = capsys.readouterr().err
+    assert code == 2 and "bare.sgy: the file holds no trace coordinates" in err
+    assert not (tmp_path / "o").exists()
