@@ -171,7 +171,10 @@ class Engine:
             finally:
                 for f in futures:
                     f.release()
-        tasks = [dask.delayed(func, pure=False)(item) for item in block]
+        # traverse=False: dask would otherwise walk every job's settings (the whole line
+        # table) for nested collections, a cost that grows with the survey for every task
+        tasks = [dask.delayed(func, pure=False)(dask.delayed(item, traverse=False))
+                 for item in block]
         if self._pool is not None:
             return list(dask.compute(*tasks, scheduler="processes", pool=self._pool))
         return list(dask.compute(*tasks, scheduler="threads", num_workers=self.spec.workers))
