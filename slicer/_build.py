@@ -36,6 +36,7 @@ from ._grid import (
     trace_frame,
     trace_spacing,
 )
+from ._reading import line_info
 from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
 from ._sink import CubeSink
@@ -266,7 +267,10 @@ def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
 
 def open_engine(settings: BuildSettings) -> Engine:
     """The engine ``settings.scheduler`` names (a context manager)."""
-    return Engine(parse_scheduler(settings.scheduler))
+    traces = None
+    if settings.scheduler == "auto":
+        traces = sum(line_info(e.file).n_traces for e in settings.lines)
+    return Engine(parse_scheduler(settings.scheduler, traces=traces))
 
 
 def build(settings: BuildSettings, *, progress: bool = True,

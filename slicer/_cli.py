@@ -81,9 +81,10 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
                    help="search radius in m: cells farther from any trace stay nodata "
                         "(default 0.75 x line spacing)")
     g = p.add_argument_group("engine")
-    g.add_argument("--scheduler", metavar="threads|processes|local:N|tcp://HOST:PORT",
-                   help="where the work runs: dask threads (default), dask processes, a "
-                        "LocalCluster of N workers, or an existing dask.distributed cluster")
+    g.add_argument("--scheduler", metavar="auto|threads|processes|local:N|tcp://HOST:PORT",
+                   help="where the work runs: auto (default: threads below 100 000 traces, "
+                        "processes above), dask threads, dask processes, a LocalCluster of N "
+                        "workers, or an existing dask.distributed cluster")
     g.add_argument("--memory-limit", metavar="SIZE",
                    help="memory budget of the build's working data, e.g. 2GB (default 1GiB); "
                         "a build that cannot fit is refused before it starts")

@@ -6,7 +6,9 @@ Results come back in order; a progress bar counts finished tasks.
 
 Engines, as ``--scheduler`` spells them:
 
-``threads`` (default)
+``auto`` (default)
+    ``threads`` below 100 000 traces, ``processes`` from there on.
+``threads``
     dask's threaded scheduler on this machine.
 ``processes``
     dask's multiprocessing scheduler (no GIL contention; arguments and results are pickled).
@@ -59,10 +61,18 @@ class EngineSpec:
         return f"{self.kind} ({self.workers} workers)"
 
 
-def parse_scheduler(text: str | None, *, workers: int | None = None) -> EngineSpec:
-    """Parse a ``--scheduler`` value (see the module docstring)."""
+#: From this many traces ``auto`` uses processes: per-line work holds the GIL often enough that
+#: threads do not use a second core, and starting worker processes costs a few seconds.
+AUTO_PROCESSES_TRACES = 100_000
+
+
+def parse_scheduler(text: str | None, *, workers: int | None = None,
+                    traces: int | None = None) -> EngineSpec:
+    """Parse a ``--scheduler`` value (see the module docstring); ``auto`` needs ``traces``."""
     n = workers or os.cpu_count() or 1
     text = (text or "threads").strip()
+    if text == "auto":
+        text = "processes" if (traces or 0) >= AUTO_PROCESSES_TRACES and n > 1 else "threads"
     if text in ("threads", "processes"):
         return EngineSpec(text, n)
     if text.startswith("local:"):

@@ -54,7 +54,7 @@ OPTION_KEYS = {
     "depths": "depth slices TOP:BOTTOM:STEP in m",
     "thickness": "slice thickness (m or ns), default the step",
     "times": "time slices TOP:BOTTOM:STEP in ns below time zero",
-    "scheduler": "where to run: threads, processes, local:N or tcp://HOST:PORT",
+    "scheduler": "where to run: auto, threads, processes, local:N or tcp://HOST:PORT",
     "memory_limit": "memory budget of the build's working data, e.g. 1GB",
     "title": "title of the overview sheet",
     "out": "output folder",
@@ -89,7 +89,7 @@ class BuildSettings:
     depths: str | None = None
     thickness: float | None = None
     times: str | None = None
-    scheduler: str = "threads"
+    scheduler: str = "auto"
     memory_limit: str | float | None = None
     title: str | None = None
     out: Path | None = None

@@ -55,3 +55,9 @@ def test_distributed_build_equals_threaded(small_survey):
     processes = slicer.build_cube(settings.replace(scheduler="processes"), progress=False)
     np.testing.assert_allclose(processes.cube.values, threaded.values, rtol=1e-6,
                                equal_nan=True)
+
+
+def test_auto_scheduler_by_survey_size():
+    assert parse_scheduler("auto", traces=10, workers=2).kind == "threads"
+    assert parse_scheduler("auto", traces=10**6, workers=2).kind == "processes"
+    assert parse_scheduler("auto", traces=10**6, workers=1).kind == "threads"
