@@ -36,6 +36,7 @@ from ._grid import (
     trace_frame,
     trace_spacing,
 )
+from ._levelling import level_lines
 from ._reading import line_info
 from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
@@ -166,6 +167,8 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=cube_in_memory)
     reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)
+    if settings.level:  # per line and slice, against its neighbouring lines
+        reduced.table = level_lines(reduced.table)
     read_s = time.perf_counter() - started
     velocity = settings.resolved_velocity if reduced.windows.axis == "depth" else None
     summary = processing_summary(settings, reduced.dewow_ns)

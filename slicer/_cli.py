@@ -74,6 +74,10 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
                    help="time slices in ns below time zero")
     g.add_argument("--thickness", type=_float, metavar="M|NS",
                    help="slice thickness (default: the step)")
+    g.add_argument("--level", action="store_const", const=True, default=None,
+                   help="remove line-to-line stripes from the slice values before gridding "
+                        "(robust, against neighbouring lines; a feature along most of one "
+                        "line can be taken for a stripe)")
     g.add_argument("--cell", type=_float, metavar="M",
                    help="grid cell in m (default: a round number near a quarter of the line "
                         "spacing)")

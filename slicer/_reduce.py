@@ -78,6 +78,8 @@ def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -
         steps.append(f"background removal ({settings.background} trace)")
     steps.append(f"gain {settings.gain}" if settings.gain_curve else "no gain")
     steps.append("envelope (Hilbert)")
+    if settings.level:
+        steps.append("line levelling")
     return "; ".join(steps)
 
 

@@ -49,6 +49,7 @@ OPTION_KEYS = {
     "permittivity": "relative permittivity (instead of velocity)",
     "velocity_std": "one-sigma uncertainty of the velocity (m/ns), for the depth error",
     "velocity_model": "velocity-model TOML file (constant, layered or lateral; see README)",
+    "level": "remove line-to-line stripes from the slice values before gridding (true/false)",
     "cell": "grid cell in m (default: a round number near a quarter of the line spacing)",
     "radius": "search radius in m; cells farther from any trace stay nodata",
     "depths": "depth slices TOP:BOTTOM:STEP in m",
@@ -84,6 +85,7 @@ class BuildSettings:
     permittivity: float | None = None
     velocity_std: float | None = None
     velocity_model: Path | None = None
+    level: bool = False
     cell: float | None = None
     radius: float | None = None
     depths: str | None = None

@@ -231,3 +231,11 @@ def test_headers_without_coordinates_refused(small_survey, tmp_path, capsys):
     err = capsys.readouterr().err
     assert code == 2 and "bare.sgy: the file holds no trace coordinates" in err
     assert not (tmp_path / "o").exists()
+
+
+def test_level_option_runs_and_is_recorded(small_survey):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, velocity=0.1, depths="0:2.4:0.1", level=True)
+    result = slicer.build_cube(settings, progress=False)
+    assert "line levelling" in result.record["processing"]
+    assert np.isfinite(result.cube.values).any()
