@@ -53,6 +53,9 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--background", choices=("mean", "median", "off"),
                    help="subtract each line's median or mean trace (default median, which a "
                         "strong local reflection does not leak into)")
+    g.add_argument("--migrate", choices=("off", "stolt", "phase-shift"),
+                   help="2-D migration of each line before the envelope: stolt (f-k, one "
+                        "velocity; Stolt 1978) or phase-shift (layered velocity; Gazdag 1978)")
     g.add_argument("--gain", metavar="power:P|exp:DB_PER_NS|none",
                    help="gain against time below time zero (default power:1, t^1)")
     g = p.add_argument_group("velocity")

@@ -61,10 +61,29 @@ def process_line(line: xr.DataArray, settings: BuildSettings, *,
         line = dewow(line, window_ns=window)
     if settings.background != "off":
         line = remove_background(line, method=settings.background)
+    if settings.migrate != "off":
+        line = migrate_line(line, settings)
     if settings.gain_curve is not None:
         kind, value = settings.gain_curve
         line = apply_gain(line, kind=kind, value=value)
     return envelope(line)
+
+
+def migrate_line(line: xr.DataArray, settings: BuildSettings) -> xr.DataArray:
+    """Migrate one line with the build's velocity: Stolt for one velocity, phase shift for
+    layers (a lateral model is migrated with its median velocity, which is said)."""
+    from ._migration import migrate
+    from ._velocity_model import LayeredVelocity
+    model = settings.resolved_model
+    if isinstance(model, LayeredVelocity):
+        if settings.migrate == "stolt":
+            raise SettingsError("Stolt migration needs one velocity; use phase-shift with a "
+                                "layered model", where="--migrate")
+        return migrate(line, velocity=list(model.velocity), layer_tops=list(model.top_time),
+                       tops="twt", method="phase-shift")
+    velocity = (model.velocity if isinstance(model, ConstantVelocity)
+                else float(np.median(model.velocity)))
+    return migrate(line, velocity=velocity, method=settings.migrate)
 
 
 def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -> str:
@@ -76,6 +95,8 @@ def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -
         steps.append(f"dewow {window:.2f} ns" if window else "dewow auto")
     if settings.background != "off":
         steps.append(f"background removal ({settings.background} trace)")
+    if settings.migrate != "off":
+        steps.append(f"{settings.migrate} migration")
     steps.append(f"gain {settings.gain}" if settings.gain_curve else "no gain")
     steps.append("envelope (Hilbert)")
     if settings.level:

@@ -49,6 +49,7 @@ OPTION_KEYS = {
     "permittivity": "relative permittivity (instead of velocity)",
     "velocity_std": "one-sigma uncertainty of the velocity (m/ns), for the depth error",
     "velocity_model": "velocity-model TOML file (constant, layered or lateral; see README)",
+    "migrate": "2-D migration before the envelope: 'stolt', 'phase-shift' or 'off'",
     "level": "remove line-to-line stripes from the slice values before gridding (true/false)",
     "cell": "grid cell in m (default: a round number near a quarter of the line spacing)",
     "radius": "search radius in m; cells farther from any trace stay nodata",
@@ -85,6 +86,7 @@ class BuildSettings:
     permittivity: float | None = None
     velocity_std: float | None = None
     velocity_model: Path | None = None
+    migrate: str = "off"
     level: bool = False
     cell: float | None = None
     radius: float | None = None
@@ -138,6 +140,9 @@ class BuildSettings:
                                 where="--dewow")
         if not isinstance(self.dewow, str):
             _positive(self.dewow, "--dewow", "ns")
+        if self.migrate not in ("off", "stolt", "phase-shift"):
+            raise SettingsError(f"expected 'stolt', 'phase-shift' or 'off', got "
+                                f"{self.migrate!r}", where="--migrate")
         if self.background not in ("mean", "median", "off"):
             raise SettingsError(f"expected 'mean', 'median' or 'off', got {self.background!r}",
                                 where="--background")
@@ -153,6 +158,9 @@ class BuildSettings:
                                 "--permittivity (or cut time slices with --times)",
                                 where="--depths")
         self.requested_windows  # noqa: B018 - validates
+        if self.migrate != "off" and self.resolved_model is None:
+            raise SettingsError("migration needs a velocity (--velocity, --permittivity or "
+                                "--velocity-model)", where="--migrate")
         from ._budget import parse_bytes
         from ._engine import parse_scheduler
         parse_scheduler(self.scheduler)

@@ -239,3 +239,29 @@ def test_level_option_runs_and_is_recorded(small_survey):
     result = slicer.build_cube(settings, progress=False)
     assert "line levelling" in result.record["processing"]
     assert np.isfinite(result.cube.values).any()
+
+
+def _half_max_width(cube, t):
+    """Width (m) along x, at half the peak, of a target's spot in the slice at its depth."""
+    k = int(np.argmin(np.abs(cube["depth"].values - t.depth)))
+    row = cube.isel(depth=k).sel(y=t.y, method="nearest").sel(x=slice(t.x - 1.5, t.x + 1.5))
+    return float((row.values >= np.nanmax(row.values) / 2).sum() * cube.attrs["cell_size"])
+
+
+def test_migration_sharpens_point_targets(small_survey):
+    # Stolt (1978): a point diffractor's hyperbola collapses to a focus at its true place
+    common = dict(sample_interval=0.1, time_zero=3.0, velocity=0.1, depths="0:2.4:0.1",
+                  cell=0.05)
+    plain = slicer.build_cube(slicer.load_settings(small_survey.line_table, **common),
+                              progress=False).cube
+    sharp = slicer.build_cube(slicer.load_settings(small_survey.line_table, migrate="stolt",
+                                                   **common), progress=False)
+    assert "stolt migration" in sharp.record["processing"]
+    for t in small_survey.ground.targets:
+        before, after = _half_max_width(plain, t), _half_max_width(sharp.cube, t)
+        assert after < before and after <= 0.25, (t, before, after)
+
+
+def test_migration_needs_a_velocity(small_survey):
+    with pytest.raises(slicer.SettingsError, match="--migrate"):
+        slicer.load_settings(small_survey.line_table, times="0:40:5", migrate="stolt")
