@@ -121,6 +121,25 @@ def make_parser() -> argparse.ArgumentParser:
                    "--overwrite); required unless the survey file sets it")
     b.add_argument("-q", "--quiet", action="store_true", help="no progress bars or summary")
 
+    ve = sub.add_parser("velocity", help="ground velocity from diffraction hyperbolas",
+                        description="Find and fit the diffraction hyperbolas of every line "
+                        "(least squares of t(x) = (2/v) sqrt(z0^2 + (x - x0)^2)), print the "
+                        "fits and a survey-wide velocity robust to outliers and to linear "
+                        "targets crossed obliquely. With --out, write velocity.toml (for "
+                        "slicer build --velocity-model) and one figure per line.")
+    ve.add_argument("survey", metavar="LINES.csv|SURVEY.toml")
+    ve.add_argument("--sample-interval", type=_float, metavar="NS",
+                    help="sample interval in ns, when the files cannot hold it")
+    ve.add_argument("--time-zero", type=_number_or_auto, metavar="NS|auto",
+                    help="time zero in ns on the raw record, or auto (default)")
+    ve.add_argument("--positions", choices=("table", "headers"),
+                    help="trace positions from the line table (default) or trace headers")
+    ve.add_argument("--crs", help="CRS of the line coordinates")
+    ve.add_argument("--out", metavar="DIR", help="write velocity.toml and figures/ here")
+    ve.add_argument("--overwrite", action="store_true", help="allow a non-empty --out")
+    ve.add_argument("--json", action="store_true", help="print one JSON object on stdout")
+    ve.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+
     pl = sub.add_parser("plan", help="survey design numbers for an antenna and ground",
                         description="Wavelength, vertical resolution, antenna footprint and "
                         "Fresnel zone at the target depth, the largest trace spacing, a line "
@@ -202,6 +221,34 @@ def _run_demo(args) -> int:
     return 0
 
 
+def _run_velocity(args) -> int:
+    import json
+
+    from ._atomic import prepare_output_dir
+    from ._settings import load_settings
+    from ._velocity_search import analyse_velocity, write_velocity_outputs
+
+    settings = load_settings(args.survey, sample_interval=args.sample_interval,
+                             time_zero=args.time_zero, positions=args.positions, crs=args.crs)
+    figures = None
+    if args.out:
+        prepare_output_dir(args.out, overwrite=args.overwrite, create=False)
+        figures = Path(args.out) / "figures"
+    analysis = analyse_velocity(settings, progress=not args.quiet, figures=figures)
+    if args.out:
+        write_velocity_outputs(analysis, args.out, overwrite=True)
+    if args.json:
+        print(json.dumps(analysis.to_json(), indent=2))
+        return 0
+    print(f"{'line':<10} {'x':>12} {'y':>13} {'time ns':>8} {'v m/ns':>7} {'+-':>6}  kept")
+    for f in analysis.to_json()["fits"]:
+        print(f"{f['line']:<10} {f['x']:12.2f} {f['y']:13.2f} {f['time']:8.2f} "
+              f"{f['velocity']:7.4f} {f['velocity_std']:6.4f}  {'yes' if f['kept'] else 'no'}")
+    print(f"survey velocity {analysis.velocity:.4f} +- {analysis.velocity_std:.4f} m/ns from "
+          f"{len(analysis.kept)} of {len(analysis.fits)} hyperbolas")
+    return 0
+
+
 def _run_plan(args) -> int:
     import json
 
@@ -244,6 +291,8 @@ def main(argv: list[str] | None = None) -> int:
             return _run_build(args, argv)
         if args.command == "plan":
             return _run_plan(args)
+        if args.command == "velocity":
+            return _run_velocity(args)
         return _run_demo(args)
     except SlicerError as exc:
         print(f"slicer: error: {exc}", file=sys.stderr)
