@@ -15,6 +15,7 @@ from ._build import BuildResult, build, build_cube, grid_slices
 from ._conventions import C_M_PER_NS
 from ._cube import cube_crs, cube_transform, new_cube, read_cube_netcdf, write_cube_netcdf
 from ._demo import run_demo
+from ._diffraction import find_diffractions, survey_velocity
 from ._engine import Engine, engine, parse_scheduler
 from ._errors import (
     InputFileError,
@@ -27,7 +28,9 @@ from ._errors import (
 from ._figures import plot_overview, plot_slice
 from ._geotiff import slice_file_name, write_slice_geotiffs
 from ._grid import Grid, grid_for, neighbour_weights
+from ._hyperbola import fit_hyperbola, hyperbola_time
 from ._linetable import LineEntry, read_line_table
+from ._migration import migrate
 from ._processing import (
     apply_gain,
     correct_time_zero,
@@ -49,9 +52,23 @@ from ._velocity import (
     to_depth,
     velocity_from_permittivity,
 )
+from ._velocity_file import read_velocity_model, write_velocity_model
+from ._velocity_model import (
+    ConstantVelocity,
+    LateralVelocity,
+    LayeredVelocity,
+    depth_error,
+    to_depth_axis,
+    velocity_from_known_depth,
+)
+from ._velocity_search import analyse_velocity
 from ._windows import Windows, make_windows, parse_range, reduce_to_windows
 
 __all__ = [
+    "ConstantVelocity", "LateralVelocity", "LayeredVelocity", "analyse_velocity",
+    "depth_error", "find_diffractions", "fit_hyperbola", "hyperbola_time", "migrate",
+    "read_velocity_model", "survey_velocity", "to_depth_axis", "velocity_from_known_depth",
+    "write_velocity_model",
     "Engine", "engine", "parse_scheduler",
     "BuildResult", "BuildSettings", "C_M_PER_NS", "Grid", "InputFileError", "LineEntry",
     "LineTableError", "OutputError", "SettingsError", "SlicerError", "SlicerWarning",
