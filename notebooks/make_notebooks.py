@@ -437,10 +437,18 @@ VELOCITY_AND_MIGRATION = [
         from slicer._diffraction import find_diffractions, survey_velocity
         from slicer._hyperbola import fit_hyperbola, hyperbola_time
         from slicer._migration import migrate
-        from slicer.synthetic import Ground, LineTarget, PointTarget, Radar, PlannedLine, simulate_line
+        from slicer.synthetic import (
+            Ground,
+            LineTarget,
+            PlannedLine,
+            PointTarget,
+            Radar,
+            simulate_line,
+        )
 
         TRUE_V = 0.1  # m/ns
-        stones = [PointTarget(3.0, 0.0, 0.6), PointTarget(6.5, 0.0, 1.1), PointTarget(10.0, 0.0, 1.6)]
+        stones = [PointTarget(3.0, 0.0, 0.6), PointTarget(6.5, 0.0, 1.1),
+                  PointTarget(10.0, 0.0, 1.6)]
         wall = LineTarget(12.0, -3.0, 15.0, 3.0, 0.8)  # crossed at about 63 degrees
         ground = Ground(velocity=TRUE_V, targets=(*stones, wall))
         plan = PlannedLine("demo-line", 0.0, 0.0, 16.0, 0.0, 321)
@@ -462,7 +470,7 @@ VELOCITY_AND_MIGRATION = [
         guess = hyperbola_time(x[near], x0=3.0, t0=12.0, velocity=0.1)
         twt = env["twt"].values
         picks = []
-        for i, t_guess in zip(np.flatnonzero(near), guess):
+        for i, t_guess in zip(np.flatnonzero(near), guess, strict=True):
             window = np.abs(twt - t_guess) < 1.5
             picks.append(twt[window][np.argmax(env.values[i, window])])
         fit = fit_hyperbola(x[near], np.array(picks))
@@ -480,7 +488,8 @@ VELOCITY_AND_MIGRATION = [
         found = find_diffractions(line)
         estimate = survey_velocity(found, min_count=2)
         for f in found:
-            print(f"apex {f.distance:5.2f} m  {f.time:5.1f} ns  v = {f.velocity:.4f} +- {f.velocity_std:.4f}")
+            print(f"apex {f.distance:5.2f} m  {f.time:5.1f} ns  "
+                  f"v = {f.velocity:.4f} +- {f.velocity_std:.4f}")
         print(f"survey velocity {estimate.velocity:.4f} +- {estimate.std:.4f} m/ns (true {TRUE_V})")
         fig, ax = plt.subplots(figsize=(10, 4))
         data = line.values - np.median(line.values, axis=0)
@@ -490,7 +499,8 @@ VELOCITY_AND_MIGRATION = [
         for f in found:
             xs = np.linspace(f.distance - 2, f.distance + 2, 100)
             ax.plot(xs, f.fit.travel_time(xs), "r", lw=1)
-        ax.set_xlabel("distance along line (m)"); ax.set_ylabel("two-way time (ns)")
+        ax.set_xlabel("distance along line (m)")
+        ax.set_ylabel("two-way time (ns)")
         """),
     _md("""
         ## Migration
@@ -509,8 +519,9 @@ VELOCITY_AND_MIGRATION = [
         prepared = slicer.remove_background(line, method="median")
         t_stone = 2 * 0.6 / TRUE_V
         fig, axes = plt.subplots(1, 4, figsize=(14, 3.5), sharey=True)
-        cases = [("not migrated", None), ("v -10 %", 0.9 * TRUE_V), ("true v", TRUE_V), ("v +10 %", 1.1 * TRUE_V)]
-        for ax, (label, v) in zip(axes, cases):
+        cases = [("not migrated", None), ("v -10 %", 0.9 * TRUE_V), ("true v", TRUE_V),
+                 ("v +10 %", 1.1 * TRUE_V)]
+        for ax, (label, v) in zip(axes, cases, strict=True):
             m = prepared if v is None else migrate(prepared, velocity=v, method="stolt")
             e = slicer.envelope(m)
             ax.imshow(e.values.T, aspect="auto", extent=(x[0], x[-1], twt[-1], twt[0]))
