@@ -351,3 +351,23 @@ def test_velocity_writes_a_model_the_build_accepts(small_survey, tmp_path, capsy
                        "--time-zero", "3.0", "--velocity-model", tmp_path / "v" / "velocity.toml",
                        "--depths", "0:2:0.1", "--out", tmp_path / "b", "-q")
     assert code == 0, err
+
+
+@pytest.mark.parametrize("text, match", [
+    ('kind = "layered"\n[[layer]]\ntop_depth = 0.0\nvelocity = 0.1\nvelocity_std = 0.0\n'
+     '[[layer]]\ntop_depth = 2.0\nvelocity = 0.1\nvelocity_std = 0.0\n'
+     '[[layer]]\ntop_depth = 1.0\nvelocity = 0.1\nvelocity_std = 0.0\n', "model.toml:layer"),
+    ('kind = "constant"\nvelocity = 0.5\nvelocity_std = 0.0\n', "model.toml"),
+    ('kind = "layered"\n[[layer]]\nbase_time = 25.0\nrms_velocity = 0.1\nvelocity_std = 0\n'
+     '[[layer]]\nbase_time = 50.0\nrms_velocity = 0.05\nvelocity_std = 0\n', "layer[1]"),
+])
+def test_bad_velocity_model_files(survey, capsys, text, match):
+    # layers out of order, a velocity faster than light, and an RMS table where Dix (1955)
+    # has no real root: one line naming the file and layer, exit 2, nothing written
+    model = survey / "model.toml"
+    model.write_text(text)
+    argv = list(GOOD)
+    i = argv.index("--velocity")
+    argv[i:i + 2] = ["--velocity-model", str(model)]
+    assert_refused(capsys, survey / "out", "build", survey / "lines.csv", *argv, "--out",
+                   survey / "out", match=match)
