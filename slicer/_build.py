@@ -76,9 +76,7 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
         Tile edge in cells: each tile is gridded from the traces near it only.
     """
     layout = GridLayout.of(table, cell=cell, radius=radius, tile=tile)
-    values = np.full(layout.shape(table.sizes["slice"]), np.nan, dtype=np.float32)
-    for row0, col0, block in layout.blocks(table.values, engine=engine, progress=progress):
-        values[:, row0:row0 + block.shape[1], col0:col0 + block.shape[2]] = block
+    values = layout.assemble(table.values, engine=engine, progress=progress)
     cube = new_cube(values, **layout.cube_kwargs(table, crs=crs, velocity=velocity,
                                                  processing=processing))
     return cube, layout.details(empty=int(np.isnan(values[0]).sum()))
@@ -114,6 +112,14 @@ class GridLayout:
         yield from engine.map(grid_tile, jobs, desc="gridding", unit="tile",
                               progress=progress,
                               weights=[1] * tile_count(self.grid, self.tile))
+
+    def assemble(self, values: np.ndarray, *, engine: Engine | None = None,
+                 progress: bool = True) -> np.ndarray:
+        """The whole cube in memory: ``(slices, ny, nx)``, NaN where no tile reaches."""
+        out = np.full(self.shape(values.shape[1]), np.nan, dtype=np.float32)
+        for row0, col0, block in self.blocks(values, engine=engine, progress=progress):
+            out[:, row0:row0 + block.shape[1], col0:col0 + block.shape[2]] = block
+        return out
 
     def cube_kwargs(self, table: xr.DataArray, *, crs, velocity, processing) -> dict:
         return {"west": self.grid.west, "north": self.grid.north, "cell": self.grid.cell,
@@ -207,10 +213,7 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
             return build_cube(settings, progress=progress, engine=own)
     r = _reduce(settings, engine, progress=progress, cube_in_memory=True)
     gridding = time.perf_counter()
-    table = r.reduced.table
-    values = np.full(r.layout.shape(table.sizes["slice"]), np.nan, dtype=np.float32)
-    for row0, col0, block in r.layout.blocks(table.values, engine=engine, progress=progress):
-        values[:, row0:row0 + block.shape[1], col0:col0 + block.shape[2]] = block
+    values = r.layout.assemble(r.reduced.table.values, engine=engine, progress=progress)
     cube = with_depth_error(new_cube(values, **r.kwargs), settings, r.reduced.table)
     r.record["grid"]["empty_cells"] = int(np.isnan(values[0]).sum())
     r.record["seconds"]["grid"] = round(time.perf_counter() - gridding, 3)

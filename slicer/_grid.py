@@ -320,8 +320,7 @@ def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
 
 
 def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray, *,
-                      radius: float | None = None, along: float | None = None,
-                      progress: bool = False) -> Weights:
+                      radius: float | None = None, along: float | None = None) -> Weights:
     """Sparse weights from traces at ``(x, y)`` on lines ``line`` to every cell of ``grid``.
 
     See :func:`trace_frame` for the parameters; :func:`grid_tile` does the same for one tile.

@@ -20,7 +20,6 @@ from __future__ import annotations
 import dataclasses
 import math
 import os
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -29,6 +28,7 @@ import pyproj
 from ._errors import LineTableError, SettingsError
 from ._grid import check_cell
 from ._linetable import LineEntry, check_unique, make_entry, read_line_table
+from ._toml import read_toml
 from ._velocity import check_velocity, velocity_from_permittivity
 from ._velocity_file import read_velocity_model
 from ._velocity_model import ConstantVelocity
@@ -265,14 +265,7 @@ def _positive(value, where: str, unit: str) -> float:
 
 
 def _read_toml(path: Path, overrides: dict) -> tuple[list[LineEntry], dict]:
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise LineTableError("survey file not found", where=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise LineTableError(f"cannot read survey file ({exc})", where=str(path)) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise LineTableError(f"not valid TOML ({exc})", where=str(path)) from None
+    data = read_toml(path, what="survey file")
     lines = data.pop("lines", None)
     inline = data.pop("line", None)
     unknown = sorted(set(data) - set(OPTION_KEYS))

@@ -36,11 +36,11 @@ Errors name the file and the table at fault (``model.toml:layer[2]``, counted fr
 
 from __future__ import annotations
 
-import tomllib
 from pathlib import Path
 
 from ._atomic import atomic_write_text
 from ._errors import InputFileError, LineTableError, SettingsError
+from ._toml import read_toml
 from ._velocity_model import (
     ConstantVelocity,
     LateralVelocity,
@@ -158,14 +158,7 @@ def read_velocity_model(path) -> VelocityModel:
         ``(0, c)``, layers out of order, a Dix layer without a real root).
     """
     path = Path(path)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except FileNotFoundError:
-        raise InputFileError("velocity model file not found", where=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise InputFileError(f"cannot read velocity model ({exc})", where=str(path)) from None
-    except tomllib.TOMLDecodeError as exc:
-        raise LineTableError(f"not valid TOML ({exc})", where=str(path)) from None
+    data = read_toml(path, what="velocity model file", missing=InputFileError)
     return velocity_model_from_mapping(data, where=str(path))
 
 
