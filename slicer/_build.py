@@ -25,6 +25,7 @@ from ._budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
 from ._cube import empty_cube, new_cube
 from ._engine import Engine, parse_scheduler
 from ._errors import SettingsError, SlicerWarning
+from ._geometry import prepare_survey
 from ._grid import (
     Grid,
     TraceFrame,
@@ -41,7 +42,7 @@ from ._reading import line_info
 from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
 from ._sink import CubeSink
-from ._survey import SurveyInfo, ends_from_headers, survey_info
+from ._survey import SurveyInfo, survey_info
 from ._velocity_model import depth_error
 from ._zarr import open_cube_zarr
 
@@ -168,8 +169,7 @@ class _Reduction:
 def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
             cube_in_memory: bool) -> _Reduction:
     started = time.perf_counter()
-    if settings.positions == "headers":
-        settings = settings.replace(lines=tuple(ends_from_headers(settings.lines)))
+    settings = prepare_survey(settings)
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=cube_in_memory)
     reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)
@@ -196,6 +196,7 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
                    "bottom": reduced.windows.bottom.tolist()},
         "grid": layout.details(),
         "lines": reduced.lines,
+        "ties": reduced.ties,
         "seconds": {"read_and_process": round(read_s, 3)},
         "environment": _environment(),
     }

@@ -28,9 +28,8 @@ from ._processing import (
     envelope,
     remove_background,
 )
-from ._reading import read_line
 from ._settings import BuildSettings
-from ._survey import SurveyInfo, position_line, survey_info
+from ._survey import SurveyInfo, load_line, survey_info
 from ._velocity_model import ConstantVelocity
 from ._windows import Windows, make_windows, record_reach, reduce_to_windows
 
@@ -153,6 +152,8 @@ class LineJob:
     velocity: float | None
     interval_ns: float
     dewow_ns: float | None
+    #: Tie correction ``(time_zero_ns, gain)`` of this line, or None (see :mod:`slicer._tienet`).
+    correction: tuple[float, float] | None = None
 
 
 def reduce_line(job: LineJob) -> dict:
@@ -164,9 +165,11 @@ def reduce_line(job: LineJob) -> dict:
         ``values`` (traces, slices) float32, ``x``, ``y`` (m), ``line`` (the job number),
         ``time_zero_ns`` and ``history``.
     """
-    line = position_line(read_line(job.entry.file, sample_interval_ns=job.interval_ns),
-                         job.entry, positions=job.settings.positions)
+    line = load_line(job.entry, job.settings, sample_interval_ns=job.interval_ns)
     env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
+    if job.correction is not None:
+        from ._tienet import correct_line
+        env = correct_line(env, *job.correction)
     values = reduce_to_windows(depth_axis_for(env, job.windows, job.velocity), job.windows,
                                velocity=job.velocity)
     return {"values": np.asarray(values.values, dtype=np.float32),
@@ -205,6 +208,8 @@ class Reduced:
     windows: Windows
     dewow_ns: float | None
     lines: list[dict] = field(default_factory=list)
+    #: The tie report (:func:`slicer._tienet.tie_survey`), when ties were measured.
+    ties: dict | None = None
 
 
 def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
@@ -250,9 +255,7 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
                  if not isinstance(settings.time_zero, str) else None)
     dewow_ns, first = None, None
     if settings.dewow == "auto" or windows is None or record_ns is None:
-        first = position_line(read_line(settings.lines[0].file,
-                                        sample_interval_ns=info.sample_interval_ns),
-                              settings.lines[0], positions=settings.positions)
+        first = load_line(settings.lines[0], settings, sample_interval_ns=info.sample_interval_ns)
     if settings.dewow == "auto":
         t0_line = correct_time_zero(first, time_zero=settings.time_zero,
                                     threshold=settings.time_zero_threshold)
@@ -262,13 +265,19 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
         record_ns = float(env[TWT].values[-1])
         windows = (default_windows(record_ns, velocity) if windows is None
                    else fit_windows(windows, record_ns, velocity, where))
-    jobs = [LineJob(k, entry, settings, windows, velocity, info.sample_interval_ns, dewow_ns)
+    ties, corrections = None, {}
+    if settings.ties != "off":
+        from ._tienet import tie_survey
+        ties, corrections = tie_survey(settings, engine=engine, info=info, dewow_ns=dewow_ns,
+                                       progress=progress)
+    jobs = [LineJob(k, entry, settings, windows, velocity, info.sample_interval_ns, dewow_ns,
+                    corrections.get(k))
             for k, entry in enumerate(settings.lines)]
     sizes = [line.n_traces for line in info.lines]
     results = list(engine.map(reduce_line, jobs, desc="reading and processing", unit="trace",
                               progress=progress, weights=sizes))
     return Reduced(table=assemble_table(results, windows), info=info, windows=windows,
-                   dewow_ns=dewow_ns,
+                   dewow_ns=dewow_ns, ties=ties,
                    lines=[{k: r[k] for k in ("file", "traces", "time_zero_ns", "history")}
                           for r in results])
 

@@ -50,6 +50,8 @@ OPTION_KEYS = {
     "velocity_std": "one-sigma uncertainty of the velocity (m/ns), for the depth error",
     "velocity_model": "velocity-model TOML file (constant, layered or lateral; see README)",
     "migrate": "2-D migration before the envelope: 'stolt', 'phase-shift' or 'off'",
+    "ties": "ties at line crossings: 'off', 'report' (measure and report the misfit) or "
+            "'apply' (also correct each line's time zero and gain)",
     "level": "remove line-to-line stripes from the slice values before gridding (true/false)",
     "cell": "grid cell in m (default: a round number near a quarter of the line spacing)",
     "radius": "search radius in m; cells farther from any trace stay nodata",
@@ -87,6 +89,7 @@ class BuildSettings:
     velocity_std: float | None = None
     velocity_model: Path | None = None
     migrate: str = "off"
+    ties: str = "off"
     level: bool = False
     cell: float | None = None
     radius: float | None = None
@@ -143,6 +146,9 @@ class BuildSettings:
         if self.migrate not in ("off", "stolt", "phase-shift"):
             raise SettingsError(f"expected 'stolt', 'phase-shift' or 'off', got "
                                 f"{self.migrate!r}", where="--migrate")
+        if self.ties not in ("off", "report", "apply"):
+            raise SettingsError(f"expected 'off', 'report' or 'apply', got {self.ties!r}",
+                                where="--ties")
         if self.background not in ("mean", "median", "off"):
             raise SettingsError(f"expected 'mean', 'median' or 'off', got {self.background!r}",
                                 where="--background")

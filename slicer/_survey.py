@@ -133,3 +133,14 @@ def position_line(line: xr.DataArray, entry: LineEntry, *, positions: str = "tab
         from ._positions import positions_from_headers
         return positions_from_headers(line)
     return place_line(line, entry)
+
+
+def load_line(entry: LineEntry, settings, *, sample_interval_ns: float | None = None
+              ) -> xr.DataArray:
+    """Read one line of a survey and give every trace its ground position.
+
+    Positions come from where ``settings`` and the entry say (see :mod:`slicer._geometry`).
+    """
+    from ._geometry import positioned
+    line = read_line(entry.file, sample_interval_ns=sample_interval_ns)
+    return positioned(line, entry, settings)
