@@ -7,6 +7,19 @@ Columns (header required, extra columns ignored)::
 ``file`` is relative to the CSV's folder (or absolute); coordinates are in the survey CRS (m).
 The traces of a line are spaced evenly from its start point (first trace) to its end point (last
 trace), so a zigzag (bidirectional) survey simply swaps start and end on every other row.
+
+Optional columns say how a row's traces are placed instead (see :mod:`slicer._geometry`); an
+empty field means the survey's default:
+
+``positions``
+    ``table`` (start to end), ``headers`` (the file's trace-header coordinates) or ``track``.
+``track``
+    A CSV of GNSS fixes for this line (``trace`` or ``time`` key, ``lon,lat`` or ``x,y``).
+``marks``
+    A CSV ``trace,distance`` of marks dropped at known distances (m) from the start point.
+``channels``
+    A channel table ``channel,across,along``: the file is a multi-channel swath, expanded
+    into one line per channel.
 """
 
 from __future__ import annotations
@@ -20,6 +33,11 @@ from pathlib import Path
 from ._errors import LineTableError
 
 COLUMNS = ("file", "start_x", "start_y", "end_x", "end_y")
+#: Optional columns: how a row is positioned (values), and which of them name files.
+OPTIONAL = ("positions", "track", "marks", "channels")
+PATH_COLUMNS = ("track", "marks", "channels")
+#: Where a line's positions can come from.
+POSITION_SOURCES = ("table", "headers", "track")
 
 
 @dataclass(frozen=True)
@@ -40,6 +58,26 @@ class LineEntry:
     start: tuple[float, float]
     end: tuple[float, float]
     where: str
+    #: Per-line position source (one of :data:`POSITION_SOURCES`), or None for the survey's.
+    positions: str | None = None
+    #: GNSS track, distance marks and channel table files of this line, if any.
+    track: Path | None = None
+    marks: Path | None = None
+    channels: Path | None = None
+    #: After channel expansion: this entry's channel name, its index among the swath's
+    #: channels (trace ``k`` of the file is channel ``k % channel_count`` when the headers
+    #: do not number channels), and its offset ``(across, along)`` (m) from the reference.
+    channel: str | None = None
+    channel_index: int = 0
+    channel_count: int = 1
+    offset: tuple[float, float] = (0.0, 0.0)
+    #: Block of the survey the line belongs to (TOML ``[[block]]`` name), if any.
+    block: str | None = None
+
+    @property
+    def has_ends(self) -> bool:
+        """True when start and end are known (not NaN)."""
+        return all(math.isfinite(v) for v in (*self.start, *self.end))
 
     @property
     def length(self) -> float:
@@ -69,16 +107,47 @@ def make_entry(fields: dict, *, base: Path, where: str, ends: bool = True) -> Li
     name = fields.get("file")
     if name is None or not str(name).strip():
         raise LineTableError("column file is empty", where=where)
-    if not ends and all(str(fields.get(c) or "").strip() == "" for c in COLUMNS[1:]):
+    extra = _optional(fields, base=base, where=where)
+    source = extra.get("positions")
+    if source is None and extra.get("track") is not None:
+        source = extra["positions"] = "track"
+    if source == "track" and extra.get("track") is None:
+        raise LineTableError("positions = track needs a track file in column track",
+                             where=where)
+    if extra.get("marks") is not None and source not in (None, "table"):
+        raise LineTableError(f"distance marks stretch a line between its start and end; they "
+                             f"do not combine with positions = {source}", where=where)
+    need_ends = ends if source is None else source == "table"
+    if not need_ends and all(str(fields.get(c) or "").strip() == "" for c in COLUMNS[1:]):
         nan = (math.nan, math.nan)
-        return LineEntry(file=(base / str(name).strip()), start=nan, end=nan, where=where)
+        return LineEntry(file=(base / str(name).strip()), start=nan, end=nan, where=where,
+                         **extra)
     sx, sy, ex, ey = (_number(None if fields.get(c) is None else str(fields.get(c)), c, where)
                       for c in COLUMNS[1:])
-    entry = LineEntry(file=(base / str(name).strip()), start=(sx, sy), end=(ex, ey), where=where)
+    entry = LineEntry(file=(base / str(name).strip()), start=(sx, sy), end=(ex, ey), where=where,
+                      **extra)
     if entry.length == 0:
         raise LineTableError("line has zero length (start and end points coincide)",
                              where=where)
     return entry
+
+
+def _optional(fields: dict, *, base: Path, where: str) -> dict:
+    """The optional columns of a row that are filled in, checked."""
+    out = {}
+    for column in OPTIONAL:
+        value = fields.get(column)
+        text = "" if value is None else str(value).strip()
+        if not text:
+            continue
+        if column == "positions":
+            if text not in POSITION_SOURCES:
+                raise LineTableError(f"column positions: expected one of "
+                                     f"{', '.join(POSITION_SOURCES)}, got {text!r}", where=where)
+            out[column] = text
+        else:
+            out[column] = base / text
+    return out
 
 
 def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineEntry]:
@@ -103,7 +172,10 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
     header = [h.strip() for h in (reader.fieldnames or [])]
     if not header:
         raise LineTableError("line table is empty (no header row)", where=str(path))
-    missing = [c for c in (COLUMNS if ends else COLUMNS[:1]) if c not in header]
+    sources = set()
+    if "positions" in header or "track" in header:
+        sources = {"given per row"}
+    missing = [c for c in (COLUMNS if ends and not sources else COLUMNS[:1]) if c not in header]
     if missing:
         raise LineTableError(
             f"missing column(s) {', '.join(missing)}; expected header {','.join(COLUMNS)}",

@@ -264,6 +264,8 @@ def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code:
     the integer field 3217-3218 is 0.  Per-trace ``x`` / ``y`` (or, for a line not yet placed,
     ``header_x`` / ``header_y``) go into the source, group and CDP X/Y fields.  Only samples
     are stored: ``twt`` restarts at 0 when read back, and processing attributes are dropped.
+    A per-trace integer ``channel`` coordinate (a multi-channel swath) goes into the trace
+    number within the ensemble (bytes 25-28).
 
     Parameters
     ----------
@@ -330,10 +332,32 @@ def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code:
             f.bin.update({segyio.BinField.Traces: 1, segyio.BinField.AuxTraces: 0,
                           segyio.BinField.MeasurementSystem: 1})
             f.trace = samples
+            channels = _channel_numbers(line, where)
             for i in range(n_traces):
                 f.header[i] = _trace_header(i, n_samples, coordinate_scalar, stored_xy)
+                if channels is not None:  # a swath: ensemble = scan, trace in it = channel
+                    f.header[i].update({segyio.TraceField.CDP_TRACE: int(channels[i])})
         _patch_binary_header(tmp, interval_ns, n_traces)
     return path
+
+
+def _channel_numbers(line: xr.DataArray, where: str) -> np.ndarray | None:
+    """Per-trace channel numbers of a swath (``channel`` coordinate, integers >= 1), or None."""
+    if "channel" not in line.coords or line["channel"].dims != (TRACE,):
+        return None
+    numbers = np.asarray(line["channel"].values)
+    if not np.issubdtype(numbers.dtype, np.integer) or numbers.min() < 1:
+        raise OutputError("per-trace channel numbers must be integers >= 1 (SEG-Y bytes 25-28)",
+                          where=where)
+    return numbers
+
+
+def segy_ensemble_numbers(path: str | os.PathLike) -> np.ndarray:
+    """Trace number within the ensemble of every trace (bytes 25-28), reading no samples."""
+    path = Path(path)
+    layout = _inspect(path)
+    with _segyio_file(path, layout) as f:
+        return np.asarray(f.attributes(segyio.TraceField.CDP_TRACE)[:], dtype=np.int64)
 
 
 def _encode_samples(samples: np.ndarray, format_code: int, where: str) -> np.ndarray:

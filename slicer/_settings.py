@@ -27,7 +27,13 @@ import pyproj
 
 from ._errors import LineTableError, SettingsError
 from ._grid import check_cell
-from ._linetable import LineEntry, check_unique, make_entry, read_line_table
+from ._linetable import (
+    POSITION_SOURCES,
+    LineEntry,
+    check_unique,
+    make_entry,
+    read_line_table,
+)
 from ._toml import read_toml
 from ._velocity import check_velocity, velocity_from_permittivity
 from ._velocity_file import read_velocity_model
@@ -37,8 +43,17 @@ from ._windows import Windows, make_windows, parse_range
 #: Build options that a TOML survey file may set, with their meaning (for the docs).
 OPTION_KEYS = {
     "crs": "survey CRS of the line coordinates (EPSG code, WKT or PROJ string)",
-    "positions": "where trace positions come from: 'table' (even from start to end) or "
-                 "'headers' (the files' trace-header coordinates, in the survey CRS)",
+    "positions": "where trace positions come from: 'table' (even from start to end, or "
+                 "stretched between distance marks), 'headers' (the files' trace-header "
+                 "coordinates, in the survey CRS) or 'track' (each row's GNSS track file)",
+    "track_crs": "CRS of the GNSS fixes (default EPSG:4326, longitude/latitude)",
+    "antenna_along": "antenna centre ahead of the GNSS receiver, along travel (m)",
+    "antenna_across": "antenna centre to the right of the GNSS receiver, across travel (m)",
+    "trace_spacing": "resample every line to this even trace spacing (m) after positioning",
+    "control_points": "CSV name,local_x,local_y,x,y tying a local grid to the survey CRS; "
+                      "line-table coordinates are then local",
+    "control_fit": "local grid to CRS fit: 'similarity' (4 parameters) or 'affine' (6)",
+    "control_tolerance": "largest control-point residual accepted (m)",
     "sample_interval": "sample interval in ns, when the files cannot hold it",
     "time_zero": "time zero in ns on the raw record, or 'auto' (direct-wave pick)",
     "time_zero_threshold": "fraction of the peak the direct wave must reach for 'auto'",
@@ -78,6 +93,13 @@ class BuildSettings:
     source: Path
     crs: str | None = None
     positions: str = "table"
+    track_crs: str | None = None
+    antenna_along: float | None = None
+    antenna_across: float | None = None
+    trace_spacing: float | None = None
+    control_points: Path | None = None
+    control_fit: str = "similarity"
+    control_tolerance: float = 0.05
     sample_interval: float | None = None
     time_zero: float | str = "auto"
     time_zero_threshold: float = 0.5
@@ -124,9 +146,10 @@ class BuildSettings:
             check_velocity(self.velocity)
         if self.permittivity is not None:
             velocity_from_permittivity(self.permittivity)
-        if self.positions not in ("table", "headers"):
-            raise SettingsError(f"expected 'table' or 'headers', got {self.positions!r}",
-                                where="--positions")
+        if self.positions not in POSITION_SOURCES:
+            raise SettingsError(f"expected one of {', '.join(POSITION_SOURCES)}, got "
+                                f"{self.positions!r}", where="--positions")
+        self._check_geometry()
         if self.crs is not None:
             check_crs(self.crs)
         if self.cell is not None:
@@ -172,6 +195,33 @@ class BuildSettings:
         parse_scheduler(self.scheduler)
         if self.memory_limit is not None:
             parse_bytes(self.memory_limit, where="--memory-limit")
+
+    def _check_geometry(self) -> None:
+        for name in ("antenna_along", "antenna_across"):
+            value = getattr(self, name)
+            if value is not None and not _finite(value):
+                raise SettingsError(f"expected a finite length in m, got {value!r}",
+                                    where="--" + name.replace("_", "-"))
+        if self.trace_spacing is not None:
+            _positive(self.trace_spacing, "--trace-spacing", "m")
+        _positive(self.control_tolerance, "--control-tolerance", "m")
+        if self.control_fit not in ("similarity", "affine"):
+            raise SettingsError(f"expected 'similarity' or 'affine', got {self.control_fit!r}",
+                                where="--control-fit")
+        if self.track_crs is not None:
+            try:
+                pyproj.CRS.from_user_input(self.track_crs)
+            except pyproj.exceptions.CRSError:
+                raise SettingsError(f"unknown CRS {self.track_crs!r}",
+                                    where="--track-crs") from None
+        tracked = [e for e in self.lines if (e.positions or self.positions) == "track"]
+        if tracked and self.crs is None:
+            raise SettingsError("positions from a GNSS track need the survey CRS to project "
+                                "into", where="--crs")
+        for e in tracked:
+            if e.track is None:
+                raise SettingsError(f"positions = track, but the line at {e.where} has no "
+                                    "track file (column track)", where="--positions")
 
     @property
     def resolved_velocity(self) -> float | None:
@@ -237,6 +287,7 @@ class BuildSettings:
                 continue
             value = getattr(self, f.name)
             out[f.name] = str(value) if isinstance(value, Path) else value
+        out["control_fits"] = self.extras.get("control_fits", [])
         out["velocity_used"] = self.resolved_velocity
         model = self.resolved_model
         out["velocity_model_used"] = model.describe() if model is not None else None
@@ -260,6 +311,13 @@ def check_crs(crs) -> pyproj.CRS:
     return parsed
 
 
+def _finite(value) -> bool:
+    try:
+        return math.isfinite(float(value))
+    except (TypeError, ValueError):
+        return False
+
+
 def _positive(value, where: str, unit: str) -> float:
     try:
         v = float(value)
@@ -270,33 +328,106 @@ def _positive(value, where: str, unit: str) -> float:
     return v
 
 
-def _read_toml(path: Path, overrides: dict) -> tuple[list[LineEntry], dict]:
+#: Keys of a TOML ``[[block]]`` table.
+BLOCK_KEYS = ("name", "lines", "line", "positions", "control_points", "control_fit",
+              "control_tolerance")
+
+
+@dataclass
+class _Group:
+    """Lines read from one table (or one TOML block), with the block's own geometry keys."""
+
+    entries: list[LineEntry]
+    options: dict = field(default_factory=dict)
+
+
+def _entries_of(spec: dict, folder: Path, where: str, ends: bool) -> list[LineEntry]:
+    """The lines a TOML table names: ``lines`` (one table or a list of them) or ``[[line]]``."""
+    lines, inline = spec.get("lines"), spec.get("line")
+    if (lines is None) == (inline is None):
+        raise LineTableError("give either lines = \"TABLE.csv\" (or a list of tables) or "
+                             "[[line]] tables", where=where)
+    if lines is not None:
+        tables = [lines] if isinstance(lines, str) else lines
+        if not isinstance(tables, list) or not tables or not all(
+                isinstance(t, str) for t in tables):
+            raise LineTableError("lines must be the path of a line table, or a list of them",
+                                 where=where)
+        return [e for t in tables for e in read_line_table(folder / t, ends=ends)]
+    if not isinstance(inline, list) or not inline:
+        raise LineTableError("[[line]] tables are empty", where=where)
+    return [make_entry(row, base=folder, where=f"{where}:line[{i}]", ends=ends)
+            for i, row in enumerate(inline)]
+
+
+def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
     data = read_toml(path, what="survey file")
-    lines = data.pop("lines", None)
-    inline = data.pop("line", None)
+    specs = {k: data.pop(k) for k in ("lines", "line", "block") if k in data}
     unknown = sorted(set(data) - set(OPTION_KEYS))
     if unknown:
         raise SettingsError(f"unknown key(s) {', '.join(unknown)}; known keys: lines, line, "
-                            f"{', '.join(OPTION_KEYS)}", where=str(path))
+                            f"block, {', '.join(OPTION_KEYS)}", where=str(path))
     positions = overrides.get("positions") or data.get("positions", "table")
-    ends = positions != "headers"
-    if (lines is None) == (inline is None):
-        raise LineTableError("give either lines = \"TABLE.csv\" or [[line]] tables",
-                             where=str(path))
-    if lines is not None:
-        if not isinstance(lines, str):
-            raise LineTableError("lines must be the path of a line table", where=str(path))
-        entries = read_line_table(path.parent / lines, ends=ends)
-    else:
-        if not isinstance(inline, list) or not inline:
-            raise LineTableError("[[line]] tables are empty", where=str(path))
-        entries = [make_entry(row, base=path.parent, where=f"{path}:line[{i}]", ends=ends)
-                   for i, row in enumerate(inline)]
-        check_unique(entries)
-    for key in ("out", "velocity_model"):
+    for key in ("out", "velocity_model", "control_points"):
         if key in data:
             data[key] = path.parent / data[key]
-    return entries, data
+    blocks = specs.pop("block", None)
+    if blocks is None:
+        return [_Group(_entries_of(specs, path.parent, str(path), positions == "table"))], data
+    if specs:
+        raise LineTableError("give the lines inside the [[block]] tables, not beside them",
+                             where=str(path))
+    if not isinstance(blocks, list) or not blocks:
+        raise LineTableError("[[block]] tables are empty", where=str(path))
+    groups = []
+    for i, block in enumerate(blocks):
+        where = f"{path}:block[{i}]"
+        unknown = sorted(set(block) - set(BLOCK_KEYS))
+        if unknown:
+            raise SettingsError(f"unknown key(s) {', '.join(unknown)} in a block; known keys: "
+                                f"{', '.join(BLOCK_KEYS)}", where=where)
+        name = str(block.get("name", f"block{i}"))
+        own = block.get("positions")
+        if own is not None and own not in POSITION_SOURCES:
+            raise SettingsError(f"positions: expected one of {', '.join(POSITION_SOURCES)}, "
+                                f"got {own!r}", where=where)
+        entries = _entries_of(block, path.parent, where, (own or positions) == "table")
+        entries = [dataclasses.replace(e, block=name, positions=e.positions or own)
+                   for e in entries]
+        options = {k: block[k] for k in ("control_points", "control_fit", "control_tolerance")
+                   if k in block}
+        if "control_points" in options:
+            options["control_points"] = path.parent / options["control_points"]
+        groups.append(_Group(entries, options))
+    return groups, data
+
+
+def _to_crs(groups: list[_Group], options: dict) -> tuple[list[LineEntry], list[dict]]:
+    """All groups' entries, those in local-grid coordinates mapped into the CRS."""
+    from ._localgrid import fit_control_points, read_control_points, transform_entries
+    default = options.get("positions") or "table"
+    entries, fits = [], []
+    for group in groups:
+        own = {**{k: options[k] for k in ("control_points", "control_fit", "control_tolerance")
+                  if options.get(k) is not None}, **group.options}
+        points = own.get("control_points")
+        if points is None:
+            entries.extend(group.entries)
+            continue
+        transform = fit_control_points(read_control_points(points),
+                                       kind=own.get("control_fit", "similarity"),
+                                       tolerance=own.get("control_tolerance", 0.05))
+        local = [(e.positions or default) == "table" and e.has_ends for e in group.entries]
+        moved = iter(transform_entries([e for e, m in zip(group.entries, local, strict=True)
+                                        if m], transform))
+        entries.extend(next(moved) if m else e
+                       for e, m in zip(group.entries, local, strict=True))
+        fits.append({"control_points": str(points), "block": group.entries[0].block,
+                     "fit": transform.describe(), "rms_m": transform.rms,
+                     "residuals_m": dict(zip(transform.names, transform.residuals,
+                                             strict=True)),
+                     "lines_mapped": sum(local)})
+    return entries, fits
 
 
 def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
@@ -314,14 +445,17 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
         raise SettingsError(f"unknown option(s) {', '.join(unknown)}")
     path = Path(path)
     if path.suffix.lower() == ".toml":
-        entries, options = _read_toml(path, overrides)
+        groups, options = _read_toml(path, overrides)
     else:
-        ends = (overrides.get("positions") or "table") != "headers"
-        entries, options = read_line_table(path, ends=ends), {}
+        ends = (overrides.get("positions") or "table") == "table"
+        groups, options = [_Group(read_line_table(path, ends=ends))], {}
     for key, value in overrides.items():
         if value is not None:
             options[key] = value
-    for key in ("out", "velocity_model"):
+    for key in ("out", "velocity_model", "control_points"):
         if options.get(key) is not None:
             options[key] = Path(options[key])
-    return BuildSettings(lines=tuple(entries), source=path, **options)
+    entries, fits = _to_crs(groups, options)
+    check_unique(entries)
+    return BuildSettings(lines=tuple(entries), source=path, extras={"control_fits": fits},
+                         **options)

@@ -72,7 +72,7 @@ def survey_info(entries: Sequence[LineEntry], *,
     SettingsError
         No sample interval in the headers and none given.
     """
-    infos = tuple(line_info(e.file) for e in entries)
+    infos = tuple(_entry_info(e) for e in entries)
     first = infos[0]
     for info in infos[1:]:
         if info.n_samples != first.n_samples:
@@ -97,6 +97,17 @@ def survey_info(entries: Sequence[LineEntry], *,
     return SurveyInfo(lines=infos, n_samples=first.n_samples,
                       sample_interval_ns=float(sample_interval_ns),
                       n_traces=sum(i.n_traces for i in infos))
+
+
+def _entry_info(entry: LineEntry) -> LineInfo:
+    """The entry's file described; a swath's channel counts only its own traces."""
+    import dataclasses
+
+    from ._geometry import channel_traces
+    info = line_info(entry.file)
+    if entry.channel is None:
+        return info
+    return dataclasses.replace(info, n_traces=channel_traces(entry, info.n_traces))
 
 
 def iter_lines(entries: Sequence[LineEntry], *, sample_interval_ns: float | None = None

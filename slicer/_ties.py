@@ -515,18 +515,27 @@ def apply_ties(lines: Sequence[xr.DataArray], solution: xr.Dataset) -> list[xr.D
             missing.append(name or "(unnamed)")
             out.append(line)
             continue
-        shift = float(solution["time_zero_ns"].values[known[name]])
-        gain = float(solution["gain"].values[known[name]])
-        twt = line[TWT]
-        corrected = (line * np.float32(gain)).astype(np.float32)
-        corrected = corrected.assign_coords({TWT: (TWT, twt.values - shift, twt.attrs)})
-        step = f"tie correction: time zero {shift:+.3f} ns, gain {gain:.4g}"
-        history = line.attrs.get("history", "")
-        corrected.attrs = {**line.attrs,
-                           "time_zero_ns": float(line.attrs.get("time_zero_ns", 0.0)) + shift,
-                           "history": f"{history}; {step}" if history else step}
-        corrected.name = line.name
-        out.append(corrected)
+        out.append(correct_line(line, float(solution["time_zero_ns"].values[known[name]]),
+                                float(solution["gain"].values[known[name]])))
     if missing:
         warn(f"no tie correction for {', '.join(missing)}; left unchanged")
     return out
+
+
+def correct_line(line: xr.DataArray, time_zero_ns: float, gain: float) -> xr.DataArray:
+    """One line's tie correction: ``twt -> twt - time_zero_ns`` and amplitudes times ``gain``.
+
+    As :func:`slicer._processing.correct_time_zero` does, the shift moves the ``twt``
+    coordinate (no resampling) and adds to ``attrs["time_zero_ns"]``; the step goes into
+    ``attrs["history"]``.
+    """
+    twt = line[TWT]
+    corrected = (line * np.float32(gain)).astype(np.float32)
+    corrected = corrected.assign_coords({TWT: (TWT, twt.values - time_zero_ns, twt.attrs)})
+    step = f"tie correction: time zero {time_zero_ns:+.3f} ns, gain {gain:.4g}"
+    history = line.attrs.get("history", "")
+    corrected.attrs = {**line.attrs,
+                       "time_zero_ns": float(line.attrs.get("time_zero_ns", 0.0)) + time_zero_ns,
+                       "history": f"{history}; {step}" if history else step}
+    corrected.name = line.name
+    return corrected

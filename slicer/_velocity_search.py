@@ -20,9 +20,8 @@ from ._atomic import atomic_path, prepare_output_dir
 from ._diffraction import find_diffractions, survey_velocity
 from ._processing import correct_time_zero
 from ._progress import bar_for
-from ._reading import read_line
 from ._settings import BuildSettings
-from ._survey import position_line, survey_info
+from ._survey import load_line, survey_info
 from ._velocity_file import write_velocity_model
 from ._velocity_model import ConstantVelocity
 
@@ -66,13 +65,14 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     figures : path-like, optional
         Folder for one PNG per line: the radargram with each fitted hyperbola drawn on it.
     """
+    from ._geometry import prepare_survey
+    settings = prepare_survey(settings)
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     fits = []
     with bar_for(enabled=progress, total=info.n_traces, desc="diffraction search",
                  unit="trace") as bar:
         for entry in settings.lines:
-            line = position_line(read_line(entry.file, sample_interval_ns=info.sample_interval_ns),
-                                 entry, positions=settings.positions)
+            line = load_line(entry, settings, sample_interval_ns=info.sample_interval_ns)
             line = correct_time_zero(line, time_zero=settings.time_zero,
                                      threshold=settings.time_zero_threshold)
             found = find_diffractions(line)
