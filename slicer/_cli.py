@@ -35,11 +35,31 @@ def _float(text: str) -> float:
 def _add_build_options(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("survey")
     g.add_argument("--crs", help="CRS of the line coordinates, e.g. EPSG:32633 (projected, m)")
-    g.add_argument("--positions", choices=("table", "headers"),
+    g.add_argument("--positions", choices=("table", "headers", "track"),
                    help="trace positions: 'table' spaces them evenly from each line's start to "
-                        "its end (default); 'headers' takes the files' trace-header "
-                        "coordinates (SEG-Y CDP or source X/Y with the coordinate scalar), in "
-                        "the survey CRS; the line table then needs only its file column")
+                        "its end, or between the distance marks of a marks column (default); "
+                        "'headers' takes the files' trace-header coordinates (SEG-Y CDP or "
+                        "source X/Y with the coordinate scalar), in the survey CRS, and the "
+                        "line table then needs only its file column; 'track' interpolates each "
+                        "row's GNSS track file (column track). A positions column sets it per "
+                        "line")
+    g.add_argument("--track-crs", metavar="CRS",
+                   help="CRS of the GNSS fixes (default EPSG:4326, longitude/latitude)")
+    g.add_argument("--antenna-along", type=_float, metavar="M",
+                   help="antenna centre this far ahead of the GNSS receiver (m, default 0)")
+    g.add_argument("--antenna-across", type=_float, metavar="M",
+                   help="antenna centre this far right of the GNSS receiver, facing the "
+                        "direction of travel (m, default 0)")
+    g.add_argument("--trace-spacing", type=_float, metavar="M",
+                   help="resample every line to this even trace spacing after positioning")
+    g.add_argument("--control-points", metavar="FILE",
+                   help="CSV name,local_x,local_y,x,y: the line table is in local grid metres, "
+                        "tied to the survey CRS by these points")
+    g.add_argument("--control-fit", choices=("similarity", "affine"),
+                   help="local grid to CRS fit: similarity (scale, rotation, shift; default) "
+                        "or affine (6 parameters)")
+    g.add_argument("--control-tolerance", type=_float, metavar="M",
+                   help="refuse the fit if a control point misses by more (default 0.05 m)")
     g.add_argument("--sample-interval", type=_float, metavar="NS",
                    help="sample interval in ns (needed when the files cannot hold it)")
     g = p.add_argument_group("processing")
@@ -56,6 +76,11 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--migrate", choices=("off", "stolt", "phase-shift"),
                    help="2-D migration of each line before the envelope: stolt (f-k, one "
                         "velocity; Stolt 1978) or phase-shift (layered velocity; Gazdag 1978)")
+    g.add_argument("--ties", choices=("off", "report", "apply"),
+                   help="ties where lines cross: 'report' measures the time shift and "
+                        "amplitude ratio at every crossing and reports the misfit; 'apply' "
+                        "also corrects each line's time zero and gain (least squares over the "
+                        "network); default off")
     g.add_argument("--gain", metavar="power:P|exp:DB_PER_NS|none",
                    help="gain against time below time zero (default power:1, t^1)")
     g = p.add_argument_group("velocity")
@@ -132,8 +157,9 @@ def make_parser() -> argparse.ArgumentParser:
                     help="sample interval in ns, when the files cannot hold it")
     ve.add_argument("--time-zero", type=_number_or_auto, metavar="NS|auto",
                     help="time zero in ns on the raw record, or auto (default)")
-    ve.add_argument("--positions", choices=("table", "headers"),
-                    help="trace positions from the line table (default) or trace headers")
+    ve.add_argument("--positions", choices=("table", "headers", "track"),
+                    help="trace positions from the line table (default), the trace headers or "
+                         "each row's GNSS track (see slicer build --help)")
     ve.add_argument("--crs", help="CRS of the line coordinates")
     ve.add_argument("--out", metavar="DIR", help="write velocity.toml and figures/ here")
     ve.add_argument("--overwrite", action="store_true", help="allow a non-empty --out")
@@ -189,9 +215,15 @@ def _summary(result, elapsed: float) -> str:
     rec = result.record
     grid = rec["grid"]
     sl = rec["slices"]
-    return (f"{rec['survey']['lines']} lines, {rec['survey']['traces']} traces -> "
+    text = (f"{rec['survey']['lines']} lines, {rec['survey']['traces']} traces -> "
             f"{len(sl['top'])} {sl['axis']} slices on {grid['nx']} x {grid['ny']} cells of "
             f"{grid['cell']:g} m in {elapsed:.1f} s")
+    ties = rec.get("ties")
+    if ties and ties.get("ties_used"):
+        after = "corrected" if ties["applied"] else "if corrected"
+        text += (f"; ties at {ties['ties_used']} crossings: time misfit "
+                 f"{ties['misfit_before_ns']:.3f} ns, {ties['misfit_after_ns']:.3f} ns {after}")
+    return text
 
 
 def _run_build(args, argv) -> int:
