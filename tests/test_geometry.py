@@ -381,3 +381,14 @@ def test_overlapping_blocks_are_combined_not_overwritten():
     assert float(plane.sel(x=4.55, y=1.0, method="nearest")) == pytest.approx(3.0, abs=1e-5)
     both = float(plane.sel(x=2.55, y=1.0, method="nearest"))
     assert 1.2 < both < 2.8
+
+
+def test_trace_spacing_resamples_every_line(small_survey):
+    # 81 traces over 4 m (0.05 m apart) become 41 traces 0.1 m apart, first and last kept
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    trace_spacing=0.1)
+    line = slicer._survey.load_line(settings.lines[0], settings)
+    assert line.sizes["trace"] == 41
+    np.testing.assert_allclose(np.diff(line["distance"].values), 0.1, atol=1e-9)
+    with pytest.raises(slicer.SettingsError, match="--trace-spacing: must be positive"):
+        slicer.load_settings(small_survey.line_table, trace_spacing=-1)
