@@ -5,7 +5,7 @@ array density with :mod:`slicer.synthetic` - lines 0.1 m apart, traces 0.05 m ap
 point targets buried at known cell centres and mid-slice depths - and then measures, on the
 same files in the same run:
 
-* ``slicer.build`` (every output written) with the default scheduler, in a fresh spawned
+* ``slicer.build`` (every output written) on the threaded engine, in a fresh spawned
   process so that its peak resident memory (``VmHWM``) belongs to that build alone;
 * the floor: every trace read once with segyio (``f.trace.raw[:]``) and its envelope taken
   with :func:`scipy.signal.hilbert` (scipy.fft), on one thread and on two threads over files;

@@ -63,15 +63,18 @@ class Estimate:
     tiles: int
     cube: int
     workers: int
+    #: The overview's decimated slices, kept while a streamed cube is written.
+    overview: int = 0
 
     @property
     def total(self) -> int:
-        return self.table + self.lines + self.tiles + self.cube
+        return self.table + self.lines + self.tiles + self.cube + self.overview
 
     def describe(self) -> str:
         return (f"about {human(self.total)}: {human(self.table)} for the trace table, "
                 f"{human(self.lines)} for {self.workers} line(s) in work, {human(self.tiles)} "
-                f"for tiles, {human(self.cube)} for the cube in memory")
+                f"for tiles, {human(self.cube)} for the cube in memory"
+                + (f", {human(self.overview)} for the overview" if self.overview else ""))
 
 
 def estimate(*, n_traces: int, max_line_traces: int, n_samples: int, n_slices: int,
@@ -99,5 +102,8 @@ def estimate(*, n_traces: int, max_line_traces: int, n_samples: int, n_slices: i
     cells = min(grid_cells, tile * tile)
     tiles = workers * int(cells * (neighbours * WEIGHT_BYTES + 12 * n_slices))
     cube = 4 * n_slices * grid_cells if cube_in_memory else 0
+    # A streamed cube's writer keeps the overview's panels (at most MAX_SHEET_CELLS cells).
+    from ._figures import MAX_SHEET_CELLS
+    overview = 0 if cube_in_memory else 4 * min(n_slices * grid_cells, MAX_SHEET_CELLS)
     return Estimate(table=int(table), lines=int(lines), tiles=tiles, cube=int(cube),
-                    workers=workers)
+                    workers=workers, overview=int(overview))

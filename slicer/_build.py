@@ -6,6 +6,7 @@ read -> place -> time zero -> dewow -> background -> gain -> envelope -> reduce 
 
 from __future__ import annotations
 
+import concurrent.futures
 import datetime as _dt
 import hashlib
 import json
@@ -307,11 +308,11 @@ def build(settings: BuildSettings, *, progress: bool = True,
     if settings.out is None:
         raise SettingsError("no output folder given", where="--out")
     out = prepare_output_dir(settings.out, overwrite=settings.overwrite, create=False)
-    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine:
+    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine, \
+            concurrent.futures.ThreadPoolExecutor(max_workers=1) as hasher:
         warnings.simplefilter("always", SlicerWarning)
         r = _reduce(settings, engine, progress=progress, cube_in_memory=False)
-        r.record["inputs"] = [_describe_input(p) for p in
-                              (settings.source, *(e.file for e in settings.lines))]
+        r.record["inputs"] = None  # filled in below, in this place of the record
         if command is not None:
             r.record["command"] = command
         gridding = time.perf_counter()
@@ -322,10 +323,16 @@ def build(settings: BuildSettings, *, progress: bool = True,
         prepare_output_dir(out, overwrite=settings.overwrite)
         tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
         with CubeSink(out, template, tags=tags, tile=TILE, progress=progress,
-                      title=settings.title) as sink:
+                      title=settings.title, offload=engine.offloader()) as sink:
             for row0, col0, block in r.layout.blocks(table.values, engine=engine,
                                                      progress=progress):
                 sink.write(row0, col0, block)
+            # The inputs' checksums on a side thread (hashlib leaves the GIL) while the sink
+            # finishes its files, when a core is free: reading every file once more is then
+            # off the build's path.
+            inputs = hasher.submit(lambda: [_describe_input(p) for p in
+                                            (settings.source, *(e.file for e in settings.lines))])
+        r.record["inputs"] = inputs.result()
         files = list(sink.files)
         if settings.overwrite:  # slices of an earlier build that this one does not replace
             slices_dir = out / "slices"

@@ -2,16 +2,18 @@
 
 Work is cut into independent tasks (one per line to reduce, one per output tile to grid), each a
 plain module-level function of picklable arguments, so the same graph runs on every engine.
-Results come back in order; a progress bar counts finished tasks.
+Results come back in order; a progress bar counts finished tasks. Tasks run in a sliding
+window of a few per worker (:meth:`Engine.map`).
 
 Engines, as ``--scheduler`` spells them:
 
 ``auto`` (default)
     ``threads`` below 100 000 traces, ``processes`` from there on.
 ``threads``
-    dask's threaded scheduler on this machine.
+    a pool of one thread per core on this machine.
 ``processes``
-    dask's multiprocessing scheduler (no GIL contention; arguments and results are pickled).
+    a pool of one spawned worker process per core (no GIL contention; arguments and results
+    are pickled).
 ``local:N``
     a ``dask.distributed.LocalCluster`` of N single-threaded worker processes, started for the
     build and closed after it.
@@ -22,14 +24,15 @@ Engines, as ``--scheduler`` spells them:
 
 from __future__ import annotations
 
+import collections
 import concurrent.futures
 import contextlib
+import functools
+import itertools
 import multiprocessing
 import os
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence, Sized
 from dataclasses import dataclass
-
-import dask
 
 from ._errors import SettingsError
 from ._progress import bar_for
@@ -112,6 +115,8 @@ class Engine:
         self._pool = None
 
     def __enter__(self) -> Engine:
+        if self.spec.kind == "threads":
+            self._pool = concurrent.futures.ThreadPoolExecutor(max_workers=self.spec.workers)
         if self.spec.kind == "processes":
             # one pool for the whole build (dask would start one per compute call); spawn,
             # because forking a process that runs threads can deadlock
@@ -155,39 +160,88 @@ class Engine:
             return max(1, sum(self._client.nthreads().values()))
         return self.spec.workers
 
-    def map(self, func: Callable, items: Sequence, *, desc: str, unit: str = "task",
+    def map(self, func: Callable, items: Iterable, *, desc: str, unit: str = "task",
             progress: bool = True, weights: Sequence[int] | None = None) -> Iterator:
         """Yield ``func(item)`` for every item, in order, running them concurrently.
 
-        At most a few tasks per worker are in flight at once, so memory stays bounded by the
-        size of a task, not by the number of items. ``weights`` (e.g. traces per line) make the
-        progress bar count work rather than tasks.
+        A sliding window: a new task starts as soon as the oldest result has been taken, so
+        workers never wait for a whole block to finish, yet at most ``2 x workers`` tasks are
+        in flight (and ``items``, which may be a generator, is consumed only that far ahead),
+        so memory stays bounded by the size of a task, not by the number of items.
+        ``weights`` (e.g. traces per line) make the progress bar count work rather than
+        tasks; with a generator they give the total.
         """
-        items = list(items)
-        weights = list(weights) if weights is not None else [1] * len(items)
+        weights = list(weights) if weights is not None else None
+        total = sum(weights) if weights is not None else None
+        count = len(weights) if weights is not None else (
+            len(items) if isinstance(items, Sized) else None)
+        if total is None:
+            total = count
+        batch = self._batch_size(count)
         window = max(2, 2 * self.workers)
-        with bar_for(enabled=progress, total=sum(weights), desc=desc, unit=unit) as bar:
-            for start in range(0, len(items), window):
-                block = items[start:start + window]
-                for k, result in enumerate(self._run_block(func, block)):
-                    bar.update(weights[start + k])
-                    yield result
-
-    def _run_block(self, func: Callable, block: list) -> list:
-        if self._client is not None:
-            futures = self._client.map(func, block, pure=False)
+        tasks = iter(items) if batch == 1 else _batches(items, batch)
+        task_func = func if batch == 1 else functools.partial(_run_batch, func)
+        with contextlib.ExitStack() as stack, bar_for(enabled=progress, total=total, desc=desc,
+                                                      unit=unit) as bar:
+            submit = self._submitter(stack)
+            pending: collections.deque = collections.deque()
             try:
-                return self._client.gather(futures)
-            finally:
-                for f in futures:
-                    f.release()
-        # traverse=False: dask would otherwise walk every job's settings (the whole line
-        # table) for nested collections, a cost that grows with the survey for every task
-        tasks = [dask.delayed(func, pure=False)(dask.delayed(item, traverse=False))
-                 for item in block]
-        if self._pool is not None:
-            return list(dask.compute(*tasks, scheduler="processes", pool=self._pool))
-        return list(dask.compute(*tasks, scheduler="threads", num_workers=self.spec.workers))
+                for task in itertools.islice(tasks, window):
+                    pending.append(submit(task_func, task))
+                done = 0
+                while pending:
+                    results = pending.popleft().result()
+                    for task in itertools.islice(tasks, 1):
+                        pending.append(submit(task_func, task))
+                    for result in ([results] if batch == 1 else results):
+                        bar.update(weights[done] if weights is not None else 1)
+                        done += 1
+                        yield result
+            finally:  # an error, or the caller stopped early: nothing is left running
+                for future in pending:
+                    future.cancel()
+
+    def _batch_size(self, count: int | None) -> int:
+        """Items per task: one on threads; on processes and clusters, where every task costs
+        pickling and messages (about 15 ms each on a LocalCluster here), up to eight, while
+        leaving at least eight tasks per worker to share out."""
+        if self.spec.kind == "threads" or not count:
+            return 1
+        return max(1, min(8, count // (8 * self.workers)))
+
+    def offloader(self) -> Callable | None:
+        """``submit(func, *args) -> future`` on a worker process of this machine, or None.
+
+        For side tasks that read and write local files (the NetCDF cube): a process pool or
+        a LocalCluster shares this machine's files; threads share the GIL, and a remote
+        cluster's workers may not see the files.
+        """
+        if self.spec.kind == "local" and self._client is not None:
+            return functools.partial(self._client.submit, pure=False)
+        if self.spec.kind == "processes" and self._pool is not None:
+            return self._pool.submit
+        return None
+
+    def _submitter(self, stack: contextlib.ExitStack) -> Callable:
+        """``submit(func, item) -> future`` on this engine."""
+        if self._client is not None:
+            return functools.partial(self._client.submit, pure=False)
+        pool = self._pool
+        if pool is None:  # an engine used without its with block: a pool for this map only
+            pool = stack.enter_context(concurrent.futures.ThreadPoolExecutor(
+                max_workers=self.spec.workers))
+        return pool.submit
+
+
+def _batches(items: Iterable, size: int) -> Iterator[list]:
+    iterator = iter(items)
+    while batch := list(itertools.islice(iterator, size)):
+        yield batch
+
+
+def _run_batch(func: Callable, batch: list) -> list:
+    """Run ``func`` on every item of one batch, in a worker (module level: picklable)."""
+    return [func(item) for item in batch]
 
 
 @contextlib.contextmanager

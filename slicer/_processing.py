@@ -203,6 +203,54 @@ def dewow(line: xr.DataArray, *, window_ns: float | None = None) -> xr.DataArray
 
 # ---------------------------------------------------------------------------- background removal
 
+def _transposed(samples: np.ndarray) -> np.ndarray:
+    """A C-contiguous float32 copy of ``samples`` with its last two axes swapped.
+
+    Copied in bands of 32 traces, which stay in the CPU cache: a plain strided copy of a
+    line took seven times longer, more than the median itself.
+    """
+    if samples.ndim != 2:
+        return np.ascontiguousarray(np.swapaxes(samples, -1, -2), dtype=np.float32)
+    out = np.empty(samples.shape[::-1], dtype=np.float32)
+    for i in range(0, samples.shape[0], 32):
+        out[:, i:i + 32] = samples[i:i + 32].T
+    return out
+
+
+def _median_trace(samples: np.ndarray) -> np.ndarray:
+    """Median over the trace axis (-2) of ``(..., trace, twt)`` samples: ``(..., twt)``.
+
+    One partition of a contiguous ``(twt, trace)`` copy: NumPy's median along the strided
+    trace axis is about a third slower. A column holding NaN gives NaN, as ``np.median``.
+    """
+    t = _transposed(samples)
+    n = t.shape[-1]
+    k = n // 2
+    t.partition(k, axis=-1)
+    median = t[..., k].copy()
+    if n % 2 == 0:  # the mean of the two middle values; the lower one leads the left part
+        median += t[..., :k].max(axis=-1)
+        median *= np.float32(0.5)
+    median[np.isnan(t).any(axis=-1)] = np.nan
+    return median
+
+
+def _background_core(samples: np.ndarray, *, method: str) -> np.ndarray:
+    """Samples ``(..., trace, twt)`` minus their mean or median trace, float32."""
+    if method == "mean":  # accumulated in double: thousands of traces per line
+        background = samples.mean(axis=-2, dtype=np.float64).astype(np.float32)
+    else:
+        background = _median_trace(samples)
+    return np.subtract(samples, background[..., None, :], dtype=np.float32)
+
+
+def _check_background(method: str) -> str:
+    if method not in ("mean", "median"):
+        raise SettingsError(f"background method must be 'mean' or 'median', got {method!r}",
+                            where="--background")
+    return method
+
+
 def remove_background(line: xr.DataArray, *, method: str = "mean") -> xr.DataArray:
     """Subtract the line's mean (or median) trace, removing horizontal banding.
 
@@ -217,16 +265,15 @@ def remove_background(line: xr.DataArray, *, method: str = "mean") -> xr.DataArr
     method : {"mean", "median"}
         The median resists strong local reflections better; the mean is faster.
     """
-    # skipna=False: readers have set non-finite samples to 0, and NaN-aware medians loop in
+    # Not NaN-aware: readers have set non-finite samples to 0, and NaN-aware medians loop in
     # Python over every sample (a third of a build's time when it was used)
-    if method == "mean":
-        background = line.mean(TRACE, skipna=False)
-    elif method == "median":
-        background = line.median(TRACE, skipna=False)
-    else:
-        raise SettingsError(f"background method must be 'mean' or 'median', got {method!r}",
-                            where="--background")
-    out = (line - background).astype(np.float32)
+    method = _check_background(method)
+    data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
+    out = xr.apply_ufunc(
+        _background_core, data, kwargs={"method": method},
+        input_core_dims=[[TRACE, TWT]], output_core_dims=[[TRACE, TWT]],
+        dask="parallelized", output_dtypes=[np.float32], keep_attrs=True)
+    out = out.transpose(*line.dims)
     out.attrs = dict(line.attrs)
     return _add_history(out, f"background removal ({method} trace)")
 
@@ -275,18 +322,26 @@ def apply_gain(line: xr.DataArray, *, kind: str = "power", value: float = 1.0) -
 
 def _envelope_core(samples: np.ndarray) -> np.ndarray:
     n = samples.shape[-1]
+    x = samples.astype(np.float32, copy=False)
     # Zero-pad to at least twice the length: the FFT makes the trace periodic, and without
     # padding the end of the record leaks into its start.
     nfft = scipy.fft.next_fast_len(2 * n, real=False)
-    # The analytic signal as scipy.signal.hilbert forms it (double the positive frequencies,
-    # zero the negative ones), kept in single precision: float32 samples need no more, and
-    # it halves the cost of the largest step of a build.
-    spectrum = scipy.fft.fft(samples.astype(np.float32, copy=False), n=nfft, axis=-1)
-    positive = (nfft + 1) // 2  # 1 .. positive-1 are the positive frequencies
-    spectrum[..., 1:positive] *= 2
-    spectrum[..., positive + (nfft % 2 == 0):] = 0  # an even length keeps its Nyquist term
-    analytic = scipy.fft.ifft(spectrum, axis=-1, overwrite_x=True)[..., :n]
-    return np.abs(analytic).astype(np.float32, copy=False)
+    # The analytic signal x + i H[x] as scipy.signal.hilbert forms it (positive frequencies
+    # doubled, negative ones zeroed) has real part x, so only H[x] is computed: a real
+    # transform each way, -i for the positive frequencies, 0 for the DC term and (even
+    # length) the Nyquist term. Single precision: float32 samples need no more, and this is
+    # the largest step of a build.
+    spectrum = scipy.fft.rfft(x, n=nfft, axis=-1)
+    spectrum[..., 0] = 0
+    if nfft % 2 == 0:
+        spectrum[..., -1] = 0
+    spectrum *= np.complex64(-1j)
+    hilbert = scipy.fft.irfft(spectrum, n=nfft, axis=-1, overwrite_x=True)[..., :n]
+    # sqrt(x^2 + H^2) rather than np.hypot, which guards against overflow at three times
+    # the cost; float32 squares overflow only beyond 1.8e19, far above any recorded amplitude
+    out = np.square(x, dtype=np.float32)
+    out += np.square(hilbert, dtype=np.float32)
+    return np.sqrt(out, out=out)
 
 
 def envelope(line: xr.DataArray) -> xr.DataArray:
@@ -298,4 +353,83 @@ def envelope(line: xr.DataArray) -> xr.DataArray:
     """
     out = _per_trace(_envelope_core, line, "envelope")
     out.name = "envelope"
+    return out
+
+
+# ------------------------------------------------------------------------------- the fused chain
+
+def _chain_core(samples: np.ndarray, *, size: int | None, background: str | None,
+                factor: np.ndarray | None, take_envelope: bool) -> np.ndarray:
+    """Dewow, background removal, gain and envelope of ``(..., trace, twt)`` samples.
+
+    The same cores as the single steps, in their order, on one float32 array: no
+    intermediate DataArrays, and the input is never modified.
+    """
+    out = samples.astype(np.float32, copy=False)
+    if size is not None:
+        out = _dewow_core(out, size=size)
+    if background is not None:
+        out = _background_core(out, method=background)
+    if factor is not None:
+        out = _gain_core(out, factor=factor)
+    if take_envelope:
+        out = _envelope_core(out)
+    return out if out is not samples else out.copy()
+
+
+def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
+                  background: str | None = "median",
+                  gain: tuple[str, float] | None = ("power", 1.0),
+                  take_envelope: bool = True) -> xr.DataArray:
+    """Dewow, background removal, gain and envelope in one pass: the result of
+    ``envelope(apply_gain(remove_background(dewow(line))))``, with the same history.
+
+    Each step runs the NumPy core of its single-step function (:func:`dewow`,
+    :func:`remove_background`, :func:`apply_gain`, :func:`envelope`) on one array, which
+    saves the per-step xarray work (about a third of a line's time in a build).
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``, time-zero corrected.
+    dewow_ns : float, None or "off"
+        Dewow window (ns); None for the default of :func:`dewow`; ``"off"`` for no dewow.
+    background : {"median", "mean"} or None
+        Background removal method, None for none.
+    gain : (kind, value) or None
+        Gain curve (see :func:`apply_gain`), None for none.
+    take_envelope : bool
+        End with the envelope (named ``envelope``).
+    """
+    dt = sample_interval(line)
+    steps, size, factor = [], None, None
+    if dewow_ns != "off":
+        size = _wow_window(line, dt, dewow_ns)
+        steps.append(f"dewow {size * dt:.2f} ns")
+    if background is not None:
+        steps.append(f"background removal ({_check_background(background)} trace)")
+    if gain is not None:
+        kind, value = gain
+        if not math.isfinite(value) or value < 0:
+            raise SettingsError(f"gain value must be finite and >= 0, got {value:g}",
+                                where="--gain")
+        factor = gain_curve(line[TWT].values, kind=kind, value=value)
+        steps.append(f"gain {kind} {value:g}")
+    if take_envelope:
+        steps.append("envelope")
+    core = {"size": size, "background": background, "factor": factor,
+            "take_envelope": take_envelope}
+    if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array
+        out = line.copy(data=_chain_core(line.values, **core))
+    else:
+        data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
+        out = xr.apply_ufunc(
+            _chain_core, data, kwargs=core, input_core_dims=[[TRACE, TWT]],
+            output_core_dims=[[TRACE, TWT]], dask="parallelized",
+            output_dtypes=[np.float32], keep_attrs=True).transpose(*line.dims)
+    out.attrs = dict(line.attrs)
+    for step in steps:
+        out = _add_history(out, step)
+    if take_envelope:
+        out.name = "envelope"
     return out

@@ -26,12 +26,13 @@ from ._processing import (
     dewow,
     dominant_frequency,
     envelope,
+    process_chain,
     remove_background,
 )
 from ._settings import BuildSettings
 from ._survey import SurveyInfo, load_line, survey_info
 from ._velocity_model import ConstantVelocity
-from ._windows import Windows, make_windows, record_reach, reduce_to_windows
+from ._windows import Windows, make_windows, record_reach, window_values
 
 
 def nice_number(value: float) -> float:
@@ -51,17 +52,24 @@ def process_line(line: xr.DataArray, settings: BuildSettings, *,
     """Run the processing chain of ``settings`` on one placed line; returns its envelope.
 
     ``dewow_ns`` fixes the dewow window when ``settings.dewow`` is ``"auto"`` (the build
-    resolves it once, from the first line).
+    resolves it once, from the first line). Without migration the steps after time zero run
+    fused on one array (:func:`slicer._processing.process_chain`, equal to the single steps);
+    migration sits between background removal and gain, so it runs them one by one.
     """
     line = correct_time_zero(line, time_zero=settings.time_zero,
                              threshold=settings.time_zero_threshold)
+    window = "off"
     if settings.dewow != "off":
         window = float(settings.dewow) if settings.dewow != "auto" else dewow_ns
+    background = settings.background if settings.background != "off" else None
+    if settings.migrate == "off":
+        return process_chain(line, dewow_ns=window, background=background,
+                             gain=settings.gain_curve)
+    if window != "off":
         line = dewow(line, window_ns=window)
-    if settings.background != "off":
-        line = remove_background(line, method=settings.background)
-    if settings.migrate != "off":
-        line = migrate_line(line, settings)
+    if background is not None:
+        line = remove_background(line, method=background)
+    line = migrate_line(line, settings)
     if settings.gain_curve is not None:
         kind, value = settings.gain_curve
         line = apply_gain(line, kind=kind, value=value)
@@ -170,9 +178,9 @@ def reduce_line(job: LineJob) -> dict:
     if job.correction is not None:
         from ._tienet import correct_line
         env = correct_line(env, *job.correction)
-    values = reduce_to_windows(depth_axis_for(env, job.windows, job.velocity), job.windows,
-                               velocity=job.velocity)
-    return {"values": np.asarray(values.values, dtype=np.float32),
+    values = window_values(depth_axis_for(env, job.windows, job.velocity), job.windows,
+                           velocity=job.velocity)
+    return {"values": np.asarray(values, dtype=np.float32),
             "x": line["x"].values, "y": line["y"].values, "line": job.number,
             "file": str(job.entry.file), "traces": line.sizes[TRACE],
             "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),

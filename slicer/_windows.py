@@ -122,24 +122,63 @@ def make_windows(top: float, bottom: float, step: float, *, thickness: float | N
 
 def _window_means_core(samples: np.ndarray, *, twt: np.ndarray, t_top: np.ndarray,
                        t_bottom: np.ndarray) -> np.ndarray:
-    """Exact mean of the piecewise-linear traces over each ``[t_top, t_bottom)`` (last axis)."""
-    y = samples.astype(np.float64, copy=False)
-    dt = twt[1] - twt[0]
-    steps = 0.5 * dt * (y[..., 1:] + y[..., :-1])
-    cumulative = np.concatenate([np.zeros(y.shape[:-1] + (1,)), np.cumsum(steps, axis=-1)],
-                                axis=-1)
+    """Exact mean of the piecewise-linear traces over each ``[t_top, t_bottom)`` (last axis).
 
-    def integral_to(t: np.ndarray) -> np.ndarray:
+    The integral from the first sample to sample ``k`` is ``dt * (S_k - (y_0 + y_k) / 2)``
+    with ``S_k`` the sum of samples 0 to ``k`` (the trapezoid rule, exact for a
+    piecewise-linear trace). Only the ``S_k`` at the windows' ends are needed: sums of the
+    runs of samples between them (one pass, in double precision), summed up.
+    """
+    y = np.asarray(samples)
+    n = y.shape[-1]
+    dt = float(twt[1] - twt[0])
+
+    def position(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         pos = (t - twt[0]) / dt
-        k = np.clip(np.floor(pos).astype(int), 0, y.shape[-1] - 2)
-        u = pos - k
-        y0, y1 = y[..., k], y[..., k + 1]
-        return cumulative[..., k] + dt * (u * y0 + 0.5 * u * u * (y1 - y0))
+        k = np.clip(np.floor(pos).astype(int), 0, n - 2)
+        return k, pos - k
 
-    means = (integral_to(t_bottom) - integral_to(t_top)) / (t_bottom - t_top)
+    (k_top, u_top), (k_bottom, u_bottom) = position(t_top), position(t_bottom)
+    ends = np.unique(np.concatenate([k_top, k_bottom]) + 1)  # S_k is the sum of y[:k + 1]
+    runs = np.add.reduceat(y, np.concatenate([[0], ends]), axis=-1, dtype=np.float64)
+    sums = np.cumsum(runs[..., :-1], axis=-1)  # sums[..., i]: sum of y[:ends[i]]
+    first = y[..., :1].astype(np.float64)
+
+    def integral_to(k: np.ndarray, u: np.ndarray) -> np.ndarray:
+        y0 = y[..., k].astype(np.float64)
+        y1 = y[..., k + 1]
+        s_k = sums[..., np.searchsorted(ends, k + 1)]
+        return dt * (s_k - 0.5 * (first + y0) + u * y0 + 0.5 * u * u * (y1 - y0))
+
+    means = ((integral_to(k_bottom, u_bottom) - integral_to(k_top, u_top))
+             / (t_bottom - t_top))
     outside = (t_top < twt[0] - 1e-9) | (t_bottom > twt[-1] + 1e-9)
     means[..., outside] = np.nan  # a window the record does not reach has no value
     return means.astype(np.float32)
+
+
+def _limits_along(line: xr.DataArray, windows: Windows, velocity) -> tuple[str, np.ndarray,
+                                                                           np.ndarray]:
+    """The dimension windows are cut along, and the window limits on it."""
+    if DEPTH in line.dims:  # already resampled to depth (a layered or lateral model)
+        return DEPTH, windows.top, windows.bottom
+    if velocity is not None and not hasattr(velocity, "profile"):
+        velocity = check_velocity(velocity)
+    t_top, t_bottom = windows.times(velocity)
+    return TWT, t_top, t_bottom
+
+
+def window_values(line: xr.DataArray, windows: Windows, *,
+                  velocity: float | None = None) -> np.ndarray:
+    """The values of :func:`reduce_to_windows` as a plain ``(trace, slice)`` float32 array.
+
+    For one in-memory line (a build's line task): the same core, without building the
+    labelled result.
+    """
+    dim, lo, hi = _limits_along(line, windows, velocity)
+    if line.chunks is not None or line.dims[-1] != dim:
+        return np.asarray(reduce_to_windows(line, windows, velocity=velocity).values)
+    return _window_means_core(line.values, twt=line[dim].values, t_top=lo, t_bottom=hi)
 
 
 def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
@@ -161,12 +200,8 @@ def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
     xarray.DataArray
         Dims ``(trace, slice)``, NaN for windows the record does not reach.
     """
-    if DEPTH in line.dims:  # already resampled to depth (a layered or lateral model)
-        return _reduce_along(line, DEPTH, windows.top, windows.bottom, windows)
-    if velocity is not None and not hasattr(velocity, "profile"):
-        velocity = check_velocity(velocity)
-    t_top, t_bottom = windows.times(velocity)
-    return _reduce_along(line, TWT, t_top, t_bottom, windows)
+    dim, lo, hi = _limits_along(line, windows, velocity)
+    return _reduce_along(line, dim, lo, hi, windows)
 
 
 def _reduce_along(line: xr.DataArray, dim: str, lo: np.ndarray, hi: np.ndarray,

@@ -37,3 +37,15 @@ def test_build_that_cannot_fit_is_refused_before_it_starts(small_survey, tmp_pat
     assert not (tmp_path / "o").exists()
     ok = slicer.build_cube(settings.replace(memory_limit="200MB"), progress=False)
     assert 0 < ok.record["memory_estimate_bytes"] < 200e6
+
+
+def test_streamed_build_counts_the_overview_panels():
+    from slicer._budget import estimate
+    from slicer._figures import MAX_SHEET_CELLS
+    base = dict(n_traces=10_000, max_line_traces=500, n_samples=512, n_slices=24,
+                grid_cells=40_000, tile=256, neighbours=8.0, workers=2)
+    small = estimate(**base, cube_in_memory=False)
+    assert small.overview == 4 * 24 * 40_000  # every cell of every slice is drawn
+    big = estimate(**{**base, "grid_cells": 10**7}, cube_in_memory=False)
+    assert big.overview == 4 * MAX_SHEET_CELLS and "overview" in big.describe()
+    assert estimate(**base, cube_in_memory=True).overview == 0

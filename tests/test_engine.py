@@ -61,3 +61,37 @@ def test_auto_scheduler_by_survey_size():
     assert parse_scheduler("auto", traces=10, workers=2).kind == "threads"
     assert parse_scheduler("auto", traces=10**6, workers=2).kind == "processes"
     assert parse_scheduler("auto", traces=10**6, workers=1).kind == "threads"
+
+
+@pytest.mark.parametrize("scheduler", ["threads", "processes"])
+def test_map_of_a_generator_in_batches_keeps_order(scheduler):
+    # 300 items on 2 process workers go as batches of 8; a generator is consumed lazily.
+    with Engine(parse_scheduler(scheduler, workers=2)) as e:
+        assert e._batch_size(300) == (1 if scheduler == "threads" else 8)
+        got = list(e.map(math.factorial, (i % 40 for i in range(300)), desc="t",
+                         progress=False, weights=[1] * 300))
+    assert got == [math.factorial(i % 40) for i in range(300)]
+
+
+def test_map_keeps_a_bounded_window_in_flight():
+    # The sliding window: while the caller holds result k, at most 2 x workers later items
+    # have been taken from the generator.
+    taken = []
+
+    def source():
+        for i in range(50):
+            taken.append(i)
+            yield i
+
+    with Engine(parse_scheduler("threads", workers=2)) as e:
+        results = e.map(abs, source(), desc="t", progress=False)
+        for k, value in enumerate(results):
+            assert value == k
+            assert len(taken) <= k + 1 + 4
+    assert len(taken) == 50
+
+
+def test_map_error_is_raised_and_stops_the_rest():
+    with Engine(parse_scheduler("threads", workers=2)) as e, \
+            pytest.raises(ZeroDivisionError):
+        list(e.map(lambda x: 1 / x, [3, 2, 1, 0, 1, 2], desc="t", progress=False))

@@ -270,3 +270,13 @@ def test_decimated_panels_keep_the_grid_extent():
     assert image.get_array().shape == (700, 500)
     assert image.get_extent() == pytest.approx((0, 150, 0, 210))
     assert ax.get_xlim() == pytest.approx((0, 150)) and ax.get_ylim() == pytest.approx((0, 210))
+
+
+def test_panels_that_do_not_fit_the_cube_are_refused():
+    cube = make_cube(n=2)
+    with pytest.raises(SettingsError, match="panels"):
+        plot_overview(cube, panels=[cube.values[0]])
+    with pytest.raises(SettingsError, match="panels"):
+        plot_overview(cube, panels=[cube.values[0][:-1], cube.values[1][:-1]])
+    figure = plot_overview(cube, panels=list(cube.values))
+    assert len(panels(figure)) == 2

@@ -185,3 +185,59 @@ def test_envelope_equals_scipy_hilbert_on_the_padded_trace(n):
     nfft = scipy.fft.next_fast_len(2 * n, real=False)
     ref = np.abs(scipy.signal.hilbert(x, N=nfft, axis=-1)[:, :n])
     np.testing.assert_allclose(envelope(make_line(x)).values, ref, atol=2e-5 * np.abs(x).max())
+
+
+@pytest.mark.parametrize("n_traces", [1, 30, 31])
+def test_median_background_equals_numpy_median(n_traces):
+    # Reference: numpy.median over the traces (the middle value, or the mean of the two middle
+    # values for an even count), subtracted from every trace.
+    from slicer._processing import _median_trace
+    x = np.random.default_rng(n_traces).normal(size=(n_traces, 97)).astype(np.float32)
+    np.testing.assert_allclose(_median_trace(x), np.median(x, axis=0), rtol=1e-6, atol=1e-7)
+    out = remove_background(make_line(x), method="median").values
+    np.testing.assert_allclose(out, x - np.median(x, axis=0), rtol=1e-6, atol=1e-6)
+    x[3 % n_traces, 5] = np.nan  # NaN propagates as in numpy.median (skipna=False)
+    assert np.isnan(_median_trace(x)[5]) and np.isfinite(_median_trace(x)[6])
+
+
+def step_by_step(line, dewow_ns, background, gain):
+    # The single xarray steps, one after another: what the fused chain must reproduce.
+    if dewow_ns != "off":
+        line = dewow(line, window_ns=dewow_ns)
+    if background is not None:
+        line = remove_background(line, method=background)
+    if gain is not None:
+        line = apply_gain(line, kind=gain[0], value=gain[1])
+    return envelope(line)
+
+
+@pytest.mark.parametrize("dewow_ns, background, gain", [
+    (None, "median", ("power", 1.0)), (2.5, "mean", ("exp", 0.3)), ("off", None, None),
+    (1.1, "median", None), ("off", "mean", ("power", 2.0))])
+@pytest.mark.parametrize("n_traces", [30, 31])
+def test_fused_chain_equals_the_single_steps(dewow_ns, background, gain, n_traces):
+    from slicer._processing import process_chain
+    line = correct_time_zero(direct_wave_line(3.0, n_traces=n_traces, wow=0.8, seed=n_traces),
+                             time_zero=3.0)
+    expected = step_by_step(line, dewow_ns, background, gain)
+    fused = process_chain(line, dewow_ns=dewow_ns, background=background, gain=gain)
+    scale = float(np.abs(expected.values).max())
+    np.testing.assert_allclose(fused.values, expected.values, rtol=0, atol=1e-5 * scale)
+    assert fused.dtype == np.float32 and fused.name == "envelope"
+    assert fused.attrs["history"] == expected.attrs["history"]
+    np.testing.assert_array_equal(fused["twt"].values, expected["twt"].values)
+    lazy = process_chain(line.chunk({"trace": 7}), dewow_ns=dewow_ns, background=background,
+                         gain=gain)
+    assert lazy.chunks is not None
+    np.testing.assert_allclose(lazy.compute().values, fused.values, rtol=0, atol=1e-6 * scale)
+
+
+def test_fused_chain_refuses_what_the_steps_refuse():
+    from slicer._processing import process_chain
+    line = direct_wave_line(3.0)
+    with pytest.raises(SettingsError, match="background"):
+        process_chain(line, background="mode")
+    with pytest.raises(SettingsError, match="gain"):
+        process_chain(line, gain=("power", -1.0))
+    with pytest.raises(SettingsError, match="dewow"):
+        process_chain(line, dewow_ns=-2.0)

@@ -207,3 +207,51 @@ def test_output_path_that_is_a_file_is_refused(tmp_path):
         write_cube(make_cube(), target, progress=False, tile=TILE)
     assert info.value.where == str(target)
     assert target.read_text() == ""
+
+
+def test_overview_from_the_kept_panels_equals_one_drawn_from_the_cube(tmp_path, monkeypatch):
+    # 1900 rows at 150 dpi: every 3rd cell is drawn, and 256-cell tiles do not start on a
+    # multiple of 3, so the panels kept tile by tile must pick the same cells as the strided
+    # read of the finished cube that plot_overview does without them.
+    import slicer._sink as sink_module
+    from slicer._figures import panel_stride, plot_overview
+    cube = make_cube(shape=(3, 1900, 40), seed=5)
+    assert panel_stride(cube, dpi=sink_module.OVERVIEW_DPI) == 3
+    seen = {}
+    original = sink_module.plot_overview
+
+    def spy(cube, **kwargs):
+        seen["panels"] = kwargs["panels"]
+        return original(cube, **kwargs)
+
+    monkeypatch.setattr(sink_module, "plot_overview", spy)
+    write_cube(cube, tmp_path / "out", progress=False, tile=256)
+    for i, panel in enumerate(seen["panels"]):
+        np.testing.assert_array_equal(panel, cube.values[i, ::3, ::3])
+    ours = matplotlib.image.imread(tmp_path / "out" / "overview.png")
+    plot_overview(open_cube_zarr(tmp_path / "out" / "cube.zarr"), tmp_path / "ref.png",
+                  dpi=sink_module.OVERVIEW_DPI)
+    np.testing.assert_array_equal(ours, matplotlib.image.imread(tmp_path / "ref.png"))
+
+
+def test_netcdf_written_by_another_process_equals_the_cube(tmp_path):
+    # offload: the NetCDF cube is written by a worker process (as on a process pool or a
+    # LocalCluster) from the finished Zarr store; it must hold the same values.
+    import concurrent.futures
+    import multiprocessing
+    cube = make_cube(shape=(3, 70, 90), seed=9)
+    context = multiprocessing.get_context("spawn")
+    with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool, \
+            CubeSink(tmp_path / "out", cube, tile=32, progress=False,
+                     offload=pool.submit) as sink:
+        for row0, col0, block in write_by_tiles_blocks(cube, 32):
+            sink.write(row0, col0, block)
+    back = read_cube_netcdf(tmp_path / "out" / "cube.nc")
+    np.testing.assert_array_equal(back.values, cube.values)
+    assert (tmp_path / "out" / "cube.nc") in sink.files
+
+
+def write_by_tiles_blocks(cube, tile):
+    for row0 in range(0, cube.shape[1], tile):
+        for col0 in range(0, cube.shape[2], tile):
+            yield row0, col0, cube.values[:, row0:row0 + tile, col0:col0 + tile]
