@@ -6,9 +6,7 @@ read -> place -> time zero -> dewow -> background -> gain -> envelope -> reduce 
 
 from __future__ import annotations
 
-import concurrent.futures
 import datetime as _dt
-import hashlib
 import json
 import math
 import platform
@@ -39,12 +37,13 @@ from ._grid import (
     trace_spacing,
 )
 from ._levelling import level_lines
-from ._reading import line_info
+from ._reading import describe_file, line_info
 from ._reduce import nice_number, processing_summary, reduce_survey
 from ._settings import BuildSettings
 from ._sink import CubeSink
 from ._survey import SurveyInfo, survey_info
 from ._velocity_model import depth_error
+from ._worker_outputs import WorkerSink
 from ._zarr import open_cube_zarr
 
 #: Tile edge of the output grid, cells: each tile is gridded from the traces near it only.
@@ -110,10 +109,17 @@ class GridLayout:
             with Engine(parse_scheduler("threads")) as own:
                 yield from self.blocks(values, engine=own, progress=progress)
             return
-        jobs = tile_jobs(self.grid, self.frame, values, tile=self.tile)
-        yield from engine.map(grid_tile, jobs, desc="gridding", unit="tile",
-                              progress=progress,
-                              weights=[1] * tile_count(self.grid, self.tile))
+        yield from engine.map(grid_tile, self.jobs(values), desc="gridding", unit="tile",
+                              progress=progress, weights=[1] * self.count)
+
+    def jobs(self, values: np.ndarray):
+        """The tile tasks of ``values`` (traces x slices), row-major."""
+        return tile_jobs(self.grid, self.frame, values, tile=self.tile)
+
+    @property
+    def count(self) -> int:
+        """Number of tiles."""
+        return tile_count(self.grid, self.tile)
 
     def assemble(self, values: np.ndarray, *, engine: Engine | None = None,
                  progress: bool = True) -> np.ndarray:
@@ -308,8 +314,7 @@ def build(settings: BuildSettings, *, progress: bool = True,
     if settings.out is None:
         raise SettingsError("no output folder given", where="--out")
     out = prepare_output_dir(settings.out, overwrite=settings.overwrite, create=False)
-    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine, \
-            concurrent.futures.ThreadPoolExecutor(max_workers=1) as hasher:
+    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine:
         warnings.simplefilter("always", SlicerWarning)
         r = _reduce(settings, engine, progress=progress, cube_in_memory=False)
         r.record["inputs"] = None  # filled in below, in this place of the record
@@ -322,17 +327,22 @@ def build(settings: BuildSettings, *, progress: bool = True,
             table)
         prepare_output_dir(out, overwrite=settings.overwrite)
         tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
-        with CubeSink(out, template, tags=tags, tile=TILE, progress=progress,
-                      title=settings.title, offload=engine.offloader()) as sink:
-            for row0, col0, block in r.layout.blocks(table.values, engine=engine,
-                                                     progress=progress):
-                sink.write(row0, col0, block)
-            # The inputs' checksums on a side thread (hashlib leaves the GIL) while the sink
-            # finishes its files, when a core is free: reading every file once more is then
-            # off the build's path.
-            inputs = hasher.submit(lambda: [_describe_input(p) for p in
-                                            (settings.source, *(e.file for e in settings.lines))])
-        r.record["inputs"] = inputs.result()
+        common = dict(tags=tags, tile=TILE, progress=progress, title=settings.title)
+        if engine.offloader() is not None:  # workers on this machine write every output
+            sink = WorkerSink(out, template, engine=engine, **common)
+        else:
+            sink = CubeSink(out, template, offload=None, **common)
+        with sink:
+            if isinstance(sink, WorkerSink):
+                sink.grid(r.layout.jobs(table.values), count=r.layout.count)
+            else:
+                for row0, col0, block in r.layout.blocks(table.values, engine=engine,
+                                                         progress=progress):
+                    sink.write(row0, col0, block)
+        # The line files were checksummed by their tasks; the tables and geometry files
+        # (small) are done here.
+        r.record["inputs"] = [describe_file(p) for p in _side_inputs(settings)] + \
+            r.reduced.inputs
         files = list(sink.files)
         if settings.overwrite:  # slices of an earlier build that this one does not replace
             slices_dir = out / "slices"
@@ -355,12 +365,17 @@ def build(settings: BuildSettings, *, progress: bool = True,
                        warnings=warned)
 
 
-def _describe_input(path: Path) -> dict:
-    digest = hashlib.sha256()
-    with open(path, "rb") as f:
-        for block in iter(lambda: f.read(1 << 20), b""):
-            digest.update(block)
-    return {"file": str(path), "bytes": path.stat().st_size, "sha256": digest.hexdigest()}
+def _side_inputs(settings: BuildSettings) -> list[Path]:
+    """The build's input files other than the line files, each once, in a stable order."""
+    files = [settings.source]
+    for f in (settings.velocity_model, settings.control_points):
+        if f is not None:
+            files.append(Path(f))
+    for e in settings.lines:
+        files.extend(p for p in (e.track, e.marks, e.channels) if p is not None)
+    for fit in settings.extras.get("control_fits", []):
+        files.append(Path(fit["control_points"]))
+    return list(dict.fromkeys(files))
 
 
 def _version() -> str:

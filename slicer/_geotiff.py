@@ -13,6 +13,7 @@ import math
 import os
 import tempfile
 from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -121,10 +122,15 @@ class SliceTiffWriter:
     tile : int
         Edge of the windows that will be written, cells; the TIFF blocks are chosen to divide
         it (multiples of 16, at most 512).
+    deferred : bool
+        Only reserve the temporary names: each file is then written whole, by
+        :func:`write_slice_file` with a job from :meth:`slice_job` (in any process), and
+        :meth:`commit` renames them as usual.
     """
 
     def __init__(self, cube: xr.DataArray, folder: str | os.PathLike, *,
-                 tags: Mapping[str, object] | None = None, tile: int = _TILE):
+                 tags: Mapping[str, object] | None = None, tile: int = _TILE,
+                 deferred: bool = False):
         axis = slice_axis(cube)
         tile = int(tile)
         if tile < 1:
@@ -185,6 +191,8 @@ class SliceTiffWriter:
                                            dir=self.folder)
                 os.close(fd)
                 self._temps.append(Path(tmp))
+                if deferred:
+                    continue
                 with self._naming(path):
                     dst = rasterio.open(tmp, "w", **self._profile)
                 self._datasets.append(self._stack.enter_context(dst))
@@ -239,11 +247,20 @@ class SliceTiffWriter:
         for i in range(self.shape[0]):
             self.write_band(i, row0, col0, values[i])
 
+    def slice_job(self, index: int, store: str | os.PathLike) -> SliceFileJob:
+        """What :func:`write_slice_file` needs to write slice ``index`` from a Zarr store."""
+        return SliceFileJob(str(store), index, str(self._temps[index]), str(self.paths[index]),
+                            dict(self._profile), self._tags[index], self._descriptions[index],
+                            self._units)
+
     def close(self) -> None:
         """Finish the temporary files (tags, band descriptions, flush) without renaming them."""
         if self._state == "closed":
             return
         self._check_open()
+        if not self._datasets:  # deferred: the files were written whole, by slice jobs
+            self._state = "closed"
+            return
         try:
             for path, dst, tags, description in zip(self.paths, self._datasets, self._tags,
                                                     self._descriptions, strict=True):
@@ -291,6 +308,38 @@ class SliceTiffWriter:
         for tmp in paths:
             with contextlib.suppress(FileNotFoundError):
                 tmp.unlink()
+
+
+@dataclass(frozen=True)
+class SliceFileJob:
+    """One slice GeoTIFF to write from a Zarr cube store (picklable, for worker processes)."""
+
+    store: str
+    index: int
+    temp: str
+    final: str
+    profile: dict
+    tags: dict
+    description: str
+    units: str
+
+
+def write_slice_file(job: SliceFileJob, values: np.ndarray | None = None) -> str:
+    """Write one whole slice GeoTIFF (under its temporary name) from a Zarr cube store.
+
+    ``values`` (ny, nx), if given, are the slice already read from the store. Returns the
+    temporary path. Errors name the final file, which is what the user knows of.
+    """
+    if values is None:
+        from ._zarr import read_slice
+        values = read_slice(job.store, job.index)
+    with SliceTiffWriter._naming(Path(job.final)), rasterio.open(job.temp, "w",
+                                                                 **job.profile) as dst:
+        dst.write(values, 1)
+        dst.update_tags(**job.tags)
+        dst.set_band_description(1, job.description)
+        dst.set_band_unit(1, job.units)
+    return job.temp
 
 
 def tile_windows(shape: tuple[int, ...], tile: int):

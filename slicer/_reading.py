@@ -113,6 +113,17 @@ def header_positions(path: str | os.PathLike) -> tuple[np.ndarray, np.ndarray] |
     return netcdf_header_positions(path)
 
 
+def describe_file(path: str | os.PathLike) -> dict:
+    """``file``, ``bytes`` and ``sha256`` of a file, for a build's record of its inputs."""
+    import hashlib
+    path = Path(path)
+    digest = hashlib.sha256()
+    with open(path, "rb") as f:
+        for block in iter(lambda: f.read(1 << 20), b""):
+            digest.update(block)
+    return {"file": str(path), "bytes": path.stat().st_size, "sha256": digest.hexdigest()}
+
+
 def read_line(path: str | os.PathLike, *, sample_interval_ns: float | None = None,
               name: str | None = None) -> xr.DataArray:
     """Read one radar line into the Line data model (see DEVELOPERS.md).

@@ -29,6 +29,7 @@ from ._processing import (
     process_chain,
     remove_background,
 )
+from ._reading import describe_file
 from ._settings import BuildSettings
 from ._survey import SurveyInfo, load_line, survey_info
 from ._velocity_model import ConstantVelocity
@@ -171,7 +172,9 @@ def reduce_line(job: LineJob) -> dict:
     -------
     dict
         ``values`` (traces, slices) float32, ``x``, ``y`` (m), ``line`` (the job number),
-        ``time_zero_ns`` and ``history``.
+        ``time_zero_ns``, ``history`` and ``input`` (the file's size and SHA-256, for the
+        record: taken here, where the file is read anyway, so the process that builds never
+        reads the survey a second time; None for the second and later channels of a swath).
     """
     line = load_line(job.entry, job.settings, sample_interval_ns=job.interval_ns)
     env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
@@ -184,7 +187,8 @@ def reduce_line(job: LineJob) -> dict:
             "x": line["x"].values, "y": line["y"].values, "line": job.number,
             "file": str(job.entry.file), "traces": line.sizes[TRACE],
             "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
-            "history": env.attrs.get("history", "")}
+            "history": env.attrs.get("history", ""),
+            "input": describe_file(job.entry.file) if job.entry.channel_index == 0 else None}
 
 
 def depth_axis_for(env: xr.DataArray, windows: Windows, model) -> xr.DataArray:
@@ -218,6 +222,8 @@ class Reduced:
     lines: list[dict] = field(default_factory=list)
     #: The tie report (:func:`slicer._tienet.tie_survey`), when ties were measured.
     ties: dict | None = None
+    #: Size and SHA-256 of every line file (:func:`slicer._reading.describe_file`).
+    inputs: list[dict] = field(default_factory=list)
 
 
 def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
@@ -284,7 +290,9 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
     sizes = [line.n_traces for line in info.lines]
     results = list(engine.map(reduce_line, jobs, desc="reading and processing", unit="trace",
                               progress=progress, weights=sizes))
+    inputs = [r["input"] for r in results if r["input"] is not None]
     return Reduced(table=assemble_table(results, windows), info=info, windows=windows,
+                   inputs=inputs,
                    dewow_ns=dewow_ns, ties=ties,
                    lines=[{k: r[k] for k in ("file", "traces", "time_zero_ns", "history")}
                           for r in results])

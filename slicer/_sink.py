@@ -120,8 +120,7 @@ class CubeSink:
             raise OutputError("output path is a file, not a folder", where=str(out))
         try:
             out.mkdir(parents=True, exist_ok=True)
-            self._tiffs = SliceTiffWriter(self.template, out / SLICES_DIR, tags=self._tags,
-                                          tile=self.tile)
+            self._tiffs = self._slice_writer()
             self._store = create_cube_store(out / ZARR_NAME, self.template, tile=self.tile,
                                             zarr_format=self._zarr_format)
             if self._offload is None:
@@ -134,6 +133,20 @@ class CubeSink:
         self._bar = progress_bar(total=n_tiles, desc="writing tiles", unit="tile",
                                  enabled=self._progress)
         return self
+
+    def _slice_writer(self) -> SliceTiffWriter:
+        return SliceTiffWriter(self.template, self.out_dir / SLICES_DIR, tags=self._tags,
+                               tile=self.tile)
+
+    def _start_netcdf(self, target: Path):
+        """Start writing the NetCDF cube (temporary path ``target``) from the store: a future."""
+        return self._offload(write_netcdf_from_store, str(self._store.path), str(target))
+
+    def _draw_overview(self, png: Path):
+        """Draw and save the overview to ``png`` (temporary path); a future if done elsewhere."""
+        save_overview(self.template, self._panels, png, title=self._title,
+                      where=str(self.out_dir / OVERVIEW_NAME))
+        return None
 
     def write(self, row0: int, col0: int, block) -> None:
         """Write one tile: ``block`` (n_slices, h, w) of every slice at grid ``row0, col0``.
@@ -171,10 +184,12 @@ class CubeSink:
             self._tiffs.write_band(i, row0, col0, values[i])
 
     def _keep_panels(self, row0: int, col0: int, values) -> None:
-        # Every stride-th row and column of the grid, as plot_overview draws them.
+        self._put_panels(row0, col0, decimate(values, row0, col0, self._stride))
+
+    def _put_panels(self, row0: int, col0: int, part) -> None:
+        """Place a tile's decimated part (from :func:`decimate`) into the overview panels."""
         s = self._stride
         r, c = -(-row0 // s), -(-col0 // s)  # first panel row and column in this tile
-        part = values[:, r * s - row0::s, c * s - col0::s]
         self._panels[:, r:r + part.shape[1], c:c + part.shape[2]] = part
 
     def __exit__(self, exc_type, exc, tb) -> None:
@@ -200,22 +215,14 @@ class CubeSink:
             if self._stream is not None:
                 netcdf = self._stream.complete()
             else:
-                nc = stack.enter_context(atomic_path(out / NETCDF_NAME))
-                netcdf = self._offload(write_netcdf_from_store, str(self._store.path), str(nc))
+                netcdf = self._start_netcdf(stack.enter_context(atomic_path(out / NETCDF_NAME)))
+            overview = None
             try:
-                figure = plot_overview(self.template, title=self._title, dpi=OVERVIEW_DPI,
-                                       panels=list(self._panels))
-                try:
-                    # zlib level 1: a sheet of noisy slices hardly compresses further, and
-                    # level 6 took longer than drawing it
-                    figure.savefig(png, format="png", dpi=OVERVIEW_DPI,
-                                   pil_kwargs={"compress_level": 1})
-                except OSError as exc:
-                    raise OutputError(f"cannot save figure ({exc})",
-                                      where=str(out / OVERVIEW_NAME)) from None
-                del figure
+                overview = self._draw_overview(png)
             finally:
                 error = netcdf.exception()  # waits: the file is complete or failed
+                if overview is not None:
+                    error = error or overview.exception()
             if isinstance(error, OSError):
                 raise OutputError(f"cannot write NetCDF ({error})",
                                   where=str(out / NETCDF_NAME)) from None
@@ -253,6 +260,28 @@ class CubeSink:
         for folder in self._created:  # only folders the sink made, innermost first
             with contextlib.suppress(OSError):
                 folder.rmdir()
+
+
+def save_overview(template: xr.DataArray, panels: np.ndarray, png: str | os.PathLike, *,
+                  title: str | None = None, where: str | None = None) -> None:
+    """Draw the overview sheet from decimated ``panels`` (see :func:`decimate`), save as PNG.
+
+    A module-level function of picklable arguments, so a worker process can run it.
+    ``where`` names the file in errors (the final name; ``png`` may be a temporary one).
+    """
+    figure = plot_overview(template, title=title, dpi=OVERVIEW_DPI, panels=list(panels))
+    try:
+        # zlib level 1: a sheet of noisy slices hardly compresses further, and level 6 took
+        # longer than drawing it
+        figure.savefig(png, format="png", dpi=OVERVIEW_DPI, pil_kwargs={"compress_level": 1})
+    except OSError as exc:
+        raise OutputError(f"cannot save figure ({exc})", where=where or str(png)) from None
+
+
+def decimate(values, row0: int, col0: int, stride: int) -> np.ndarray:
+    """Every ``stride``-th row and column of the grid within a tile, as the overview draws."""
+    r, c = -(-row0 // stride), -(-col0 // stride)  # first panel row and column in this tile
+    return np.asarray(values[:, r * stride - row0::stride, c * stride - col0::stride])
 
 
 class _NetCDFStream:

@@ -266,6 +266,12 @@ def write_tile(path: str | os.PathLike, row0: int, col0: int, block, *,
     array[:, row0:row0 + h, col0:col0 + w] = values
 
 
+def read_slice(path: str | os.PathLike, index: int, *, name: str = "envelope") -> np.ndarray:
+    """One slice ``(ny, nx)`` float32 of a cube store (finished or being built)."""
+    array = zarr.open_array(store=str(path), path=name, mode="r")
+    return np.ascontiguousarray(array[int(index)], dtype=np.float32)
+
+
 def open_cube_zarr(path: str | os.PathLike, *, name: str | None = None) -> xr.DataArray:
     """Open a cube store lazily: a dask-backed cube following the data model.
 

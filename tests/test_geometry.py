@@ -298,6 +298,10 @@ def test_channel_table_expands_swaths(swaths, tmp_path, positions):
     _check_targets(tmp_path / "o", targets)
     record = json.loads((tmp_path / "o" / "record.json").read_text())
     assert record["survey"]["lines"] == 9 and record["survey"]["traces"] == 9 * 81
+    # every input once, with its checksum: the table, the channel table, the three swaths
+    names = [p["file"].rsplit("/", 1)[-1] for p in record["inputs"]]
+    assert sorted(names) == ["E000.sgy", "E001.sgy", "E002.sgy", "array.csv", "lines.csv"]
+    assert all(len(p["sha256"]) == 64 for p in record["inputs"])
 
 
 @pytest.mark.parametrize("table, file, message", [
