@@ -161,10 +161,19 @@ def measure_build(table: str, out: str, scheduler: str) -> dict:
         seconds = time.perf_counter() - started
     _, peak, source = _memory_mib()
     grid = result.record["grid"]
-    return {"scheduler": scheduler, "seconds": seconds,
+    # Worker processes (a pool or a LocalCluster, all ended by now): the largest one's peak,
+    # from ru_maxrss of the waited-for children. A spawned child starts from its parent's
+    # ru_maxrss at that moment (the imports, about 220 MiB), so this can only overstate.
+    engine = str(result.record.get("engine", ""))
+    workers = 0 if engine.startswith("threads") else int(
+        engine.split(":")[1] if engine.startswith("local:") else engine.split("(")[1].split()[0])
+    child_peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+    return {"scheduler": scheduler, "engine": result.record.get("engine"), "seconds": seconds,
             "phases": dict(result.record.get("seconds", {})),
             "memory_estimate_mib": result.record.get("memory_estimate_bytes", math.nan) / 2**20,
             "rss_before_mib": before, "rss_peak_mib": peak, "peak_source": source,
+            "workers": workers, "worker_peak_mib": child_peak if workers else 0.0,
+            "total_peak_bound_mib": peak + workers * (child_peak if workers else 0.0),
             "cells": int(grid["nx"]) * int(grid["ny"]),
             "shape": [int(n) for n in result.cube.shape],
             "warnings": sorted({f"{w.category.__name__}: {w.message}" for w in caught})}
@@ -350,8 +359,15 @@ def run_size(root: Path, size: int, args, *, largest: bool) -> dict:
     floor_s, n_traces = measure_floor(files)
     floor2_s, _ = measure_floor(files, workers=2)
     print(f"  floor {floor_s:.1f} s (1 thread), {floor2_s:.1f} s (2 threads)", flush=True)
-    build = in_fresh_process(measure_build, str(table), str(folder / "build"), "threads")
-    print(f"  build {build['seconds']:.1f} s, peak {build['rss_peak_mib']:.0f} MiB", flush=True)
+    # the default scheduler (auto: threads below 100 000 traces, processes from there), then
+    # the threaded engine on its own for comparison
+    build = in_fresh_process(measure_build, str(table), str(folder / "build"), "auto")
+    threaded = (build if build["engine"].startswith("threads") else
+                in_fresh_process(measure_build, str(table), str(folder / "build"), "threads"))
+    print(f"  build {build['seconds']:.1f} s on {build['engine']}, peak "
+          f"{build['rss_peak_mib']:.0f} MiB (with workers at most "
+          f"{build['total_peak_bound_mib']:.0f} MiB); threads {threaded['seconds']:.1f} s",
+          flush=True)
     for w in build["warnings"]:
         print(f"    warning during build: {w}")
     k = args.griddata_slices_large if n_traces > 500_000 else args.griddata_slices
@@ -361,7 +377,7 @@ def run_size(root: Path, size: int, args, *, largest: bool) -> dict:
           f" s (scaled from {grid['griddata_slices_timed']} slices)", flush=True)
     row = {"size": size, "traces": n_traces, "lines": len(files), "segy_mib": data_mib,
            "generate_s": gen_s, "floor_1thread_s": floor_s, "floor_2threads_s": floor2_s,
-           "build": build, "gridding": grid, "cluster": None}
+           "build": build, "build_threads": threaded, "gridding": grid, "cluster": None}
     if largest and not args.no_cluster:
         runs = {n: in_fresh_process(measure_build, str(table), str(folder / f"build_local{n}"),
                                     f"local:{n}") for n in (1, 2)}
@@ -380,10 +396,13 @@ def summarise(rows: list[dict]) -> dict:
             "traces_per_s": r["traces"] / b["seconds"],
             "build_over_floor_1thread": b["seconds"] / r["floor_1thread_s"],
             "build_over_floor_2threads": b["seconds"] / r["floor_2threads_s"],
+            "engine": b["engine"], "threads_build_s": r["build_threads"]["seconds"],
+            "threads_over_floor_1thread": r["build_threads"]["seconds"] / r["floor_1thread_s"],
             "griddata_over_ours": _ratio(g["griddata_loop_s"], g["ours_s"]),
             "target_error_ours_m": _max_error(g["targets"], "ours"),
             "target_error_griddata_m": _max_error(g["targets"], "griddata"),
-            "peak_rss_mib": b["rss_peak_mib"], "cells": b["cells"]})
+            "peak_rss_mib": b["rss_peak_mib"], "cells": b["cells"],
+            "total_peak_bound_mib": b["total_peak_bound_mib"]})
     out = {"table": table, "cluster_speedup": math.nan,
            "exponent_traces": _slope([t["traces"] for t in table], [t["build_s"] for t in table]),
            "exponent_cells": _slope([t["cells"] for t in table], [t["build_s"] for t in table])}
@@ -398,16 +417,20 @@ def report(rows: list[dict], summary: dict) -> None:
               _f(t["build_over_floor_1thread"]), _f(t["build_over_floor_2threads"]),
               _f(t["griddata_over_ours"], 1),
               f"{_f(t['target_error_ours_m'], 3)} / {_f(t['target_error_griddata_m'], 3)}",
-              _f(t["peak_rss_mib"], 0)] for t in summary["table"]]
+              _f(t["peak_rss_mib"], 0), _f(t["total_peak_bound_mib"], 0)]
+             for t in summary["table"]]
     print()
     print(_table(["traces", "build s", "traces/s", "build/floor 1 thr", "build/floor 2 thr",
-                  "griddata/ours", "target error ours / griddata (m)", "peak RSS MiB"], lines))
+                  "griddata/ours", "target error ours / griddata (m)", "peak RSS MiB",
+                  "with workers MiB"], lines))
     for r in rows:
         g, b = r["gridding"], r["build"]
         note = (f"griddata timed on {g['griddata_slices_timed']} of {g['n_slices']} slices and "
                 "scaled" if g["griddata_slices_timed"] else "griddata skipped")
-        print(f"{r['traces']} traces: {r['lines']} lines, {b['cells']} cells, build phases "
-              f"{b['phases']}, memory estimate {b['memory_estimate_mib']:.0f} MiB; floor "
+        print(f"{r['traces']} traces: {r['lines']} lines, {b['cells']} cells, build on "
+              f"{b['engine']}, phases {b['phases']} (threads: {r['build_threads']['seconds']:.1f}"
+              f" s, {r['build_threads']['seconds'] / r['floor_1thread_s']:.2f} x the floor), "
+              f"memory estimate {b['memory_estimate_mib']:.0f} MiB; floor "
               f"{r['floor_1thread_s']:.2f} s / {r['floor_2threads_s']:.2f} s; table "
               f"(reduce_survey) {g['reduce_s']:.1f} s, grid_slices {g['ours_s']:.2f} s, {note}")
         for t in g["targets"]:
@@ -418,7 +441,9 @@ def report(rows: list[dict], summary: dict) -> None:
           f"{_f(summary['cluster_speedup'])}")
     if rows and rows[-1]["cluster"]:
         for name, c in rows[-1]["cluster"].items():
-            print(f"  {name}: {c['seconds']:.1f} s, phases {c['phases']}")
+            print(f"  {name}: {c['seconds']:.1f} s, phases {c['phases']}, peak "
+                  f"{c['rss_peak_mib']:.0f} MiB calling process, largest worker "
+                  f"{c['worker_peak_mib']:.0f} MiB")
     print(f"scaling exponent of build time: {_f(summary['exponent_traces'])} against traces, "
           f"{_f(summary['exponent_cells'])} against grid cells (numpy.polyfit of log-log)")
 

@@ -8,7 +8,7 @@ window of a few per worker (:meth:`Engine.map`).
 Engines, as ``--scheduler`` spells them:
 
 ``auto`` (default)
-    ``threads`` below 100 000 traces, ``processes`` from there on.
+    ``threads`` below 300 000 traces, ``processes`` from there on.
 ``threads``
     a pool of one thread per core on this machine.
 ``processes``
@@ -64,9 +64,11 @@ class EngineSpec:
         return f"{self.kind} ({self.workers} workers)"
 
 
-#: From this many traces ``auto`` uses processes: per-line work holds the GIL often enough that
-#: threads do not use a second core, and starting worker processes costs a few seconds.
-AUTO_PROCESSES_TRACES = 100_000
+#: From this many traces ``auto`` uses processes, whose workers (and not the calling process)
+#: then write every output (:mod:`slicer._worker_outputs`). Measured by benchmarks/scale.py on
+#: 2 cores (2026-12-02): threads 9.1 s and processes 10.1 s at 200 k traces (starting and
+#: importing in the workers costs 2-3 s), threads 28.8 s and processes 24.4 s at 1 M.
+AUTO_PROCESSES_TRACES = 300_000
 
 
 def parse_scheduler(text: str | None, *, workers: int | None = None,
