@@ -149,8 +149,40 @@ def in_fresh_process(function, *args):
         return pool.submit(function, *args).result()
 
 
+def worker_peak_mib(_=None) -> tuple[int, float]:
+    """``(pid, VmHWM in MiB)`` of the process running this (a build's worker)."""
+    time.sleep(0.3)  # long enough that a pool hands the next call to another worker
+    return os.getpid(), _memory_mib()[1]
+
+
+def _watch_workers(peaks: dict) -> None:
+    """Read every worker's VmHWM just before a build's engine closes (pool or cluster)."""
+    from slicer import _engine
+
+    close = _engine.Engine.__exit__
+
+    def exit_reading_peaks(self, *exc_info):
+        try:
+            if self._client is not None:
+                for pid, peak in self._client.run(worker_peak_mib).values():
+                    peaks[pid] = peak
+            elif self._pool is not None:
+                for _ in range(4):  # until every worker has answered
+                    futures = [self._pool.submit(worker_peak_mib)
+                               for _ in range(self.spec.workers)]
+                    peaks.update(f.result() for f in futures)
+                    if len(peaks) >= self.spec.workers:
+                        break
+        finally:
+            close(self, *exc_info)
+
+    _engine.Engine.__exit__ = exit_reading_peaks
+
+
 def measure_build(table: str, out: str, scheduler: str) -> dict:
     """Time one ``slicer.build`` (all outputs written) in this fresh process."""
+    peaks: dict[int, float] = {}
+    _watch_workers(peaks)
     settings = slicer.load_settings(table, **SETTINGS, scheduler=scheduler, out=out,
                                     overwrite=True)
     before, _, _ = _memory_mib()
@@ -161,19 +193,17 @@ def measure_build(table: str, out: str, scheduler: str) -> dict:
         seconds = time.perf_counter() - started
     _, peak, source = _memory_mib()
     grid = result.record["grid"]
-    # Worker processes (a pool or a LocalCluster, all ended by now): the largest one's peak,
-    # from ru_maxrss of the waited-for children. A spawned child starts from its parent's
-    # ru_maxrss at that moment (the imports, about 220 MiB), so this can only overstate.
-    engine = str(result.record.get("engine", ""))
-    workers = 0 if engine.startswith("threads") else int(
-        engine.split(":")[1] if engine.startswith("local:") else engine.split("(")[1].split()[0])
-    child_peak = resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024
+    # Worker processes (a pool or a LocalCluster): each one's VmHWM, read in the worker just
+    # before the engine closed (the few ms of the reading itself are not a build's work).
+    workers = len(peaks)
+    child_peak = max(peaks.values(), default=0.0)
     return {"scheduler": scheduler, "engine": result.record.get("engine"), "seconds": seconds,
             "phases": dict(result.record.get("seconds", {})),
             "memory_estimate_mib": result.record.get("memory_estimate_bytes", math.nan) / 2**20,
             "rss_before_mib": before, "rss_peak_mib": peak, "peak_source": source,
-            "workers": workers, "worker_peak_mib": child_peak if workers else 0.0,
-            "total_peak_bound_mib": peak + workers * (child_peak if workers else 0.0),
+            "workers": workers, "worker_peak_mib": child_peak,
+            "worker_peaks_mib": sorted(peaks.values()),
+            "total_peak_bound_mib": peak + sum(peaks.values()),
             "cells": int(grid["nx"]) * int(grid["ny"]),
             "shape": [int(n) for n in result.cube.shape],
             "warnings": sorted({f"{w.category.__name__}: {w.message}" for w in caught})}

@@ -48,6 +48,16 @@ def nice_number(value: float) -> float:
     return float(f"{10.0 ** exponent:.12g}")
 
 
+def dewow_window(settings: BuildSettings, dewow_ns: float | None) -> float | str | None:
+    """The dewow window (ns) of a build, ``"off"``, or None for the default of :func:`dewow`.
+
+    ``dewow_ns`` is the survey's window when ``settings.dewow`` is ``"auto"``.
+    """
+    if settings.dewow == "off":
+        return "off"
+    return float(settings.dewow) if settings.dewow != "auto" else dewow_ns
+
+
 def process_line(line: xr.DataArray, settings: BuildSettings, *,
                  dewow_ns: float | None = None) -> xr.DataArray:
     """Run the processing chain of ``settings`` on one placed line; returns its envelope.
@@ -59,9 +69,7 @@ def process_line(line: xr.DataArray, settings: BuildSettings, *,
     """
     line = correct_time_zero(line, time_zero=settings.time_zero,
                              threshold=settings.time_zero_threshold)
-    window = "off"
-    if settings.dewow != "off":
-        window = float(settings.dewow) if settings.dewow != "auto" else dewow_ns
+    window = dewow_window(settings, dewow_ns)
     background = settings.background if settings.background != "off" else None
     if settings.migrate == "off":
         return process_chain(line, dewow_ns=window, background=background,

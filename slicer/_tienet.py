@@ -61,16 +61,12 @@ def prepared_line(line: xr.DataArray, settings, dewow_ns: float | None) -> xr.Da
     ties above the quality cut; without it all 25 tie, the worst line within 0.014 ns). The
     direct wave it would also remove is shifted by the same time-zero error, so it may stay.
     """
-    from ._processing import apply_gain, correct_time_zero, dewow
+    from ._processing import correct_time_zero, process_chain
+    from ._reduce import dewow_window
     line = correct_time_zero(line, time_zero=settings.time_zero,
                              threshold=settings.time_zero_threshold)
-    if settings.dewow != "off":
-        window = float(settings.dewow) if settings.dewow != "auto" else dewow_ns
-        line = dewow(line, window_ns=window)
-    if settings.gain_curve is not None:
-        kind, value = settings.gain_curve
-        line = apply_gain(line, kind=kind, value=value)
-    return line
+    return process_chain(line, dewow_ns=dewow_window(settings, dewow_ns), background=None,
+                         gain=settings.gain_curve, take_envelope=False)
 
 
 def crossing_traces(job: TieJob) -> dict:
