@@ -166,7 +166,7 @@ def _watch_workers(peaks: dict) -> None:
             if self._client is not None:
                 for pid, peak in self._client.run(worker_peak_mib).values():
                     peaks[pid] = peak
-            elif self._pool is not None:
+            elif self._pool is not None and self.spec.kind == "processes":
                 for _ in range(4):  # until every worker has answered
                     futures = [self._pool.submit(worker_peak_mib)
                                for _ in range(self.spec.workers)]
