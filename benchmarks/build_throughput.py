@@ -25,11 +25,9 @@ import datetime as _dt
 import importlib.metadata as md
 import io
 import math
-import multiprocessing
 import os
 import platform
 import pstats
-import resource
 import subprocess
 import sys
 import tempfile
@@ -38,26 +36,15 @@ import tracemalloc
 import warnings
 from pathlib import Path
 
-# One BLAS thread unless the caller says otherwise, set before numpy loads. The pipeline and the
-# floor are single-threaded, and griddata's point location makes thousands of tiny LAPACK calls:
-# with OpenBLAS threads on 2 busy cores those calls were seen to run 10-100x slower, erratically,
-# which would flatter slicer's gridding speed-up.
-for _variable in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_variable, "1")
-
+import _common  # noqa: F401 - first: one BLAS thread before numpy loads
 import numpy as np  # noqa: E402 - after the thread settings
 import scipy.fft  # noqa: E402 - after the thread settings
 import scipy.interpolate  # noqa: E402 - after the thread settings
 import scipy.signal  # noqa: E402 - after the thread settings
 import segyio  # noqa: E402 - after the thread settings
+from _common import _f, _memory_mib, _table, in_fresh_process  # noqa: E402
 
-try:
-    import slicer
-except ModuleNotFoundError as missing:  # a checkout, not installed: the package is one level up
-    if missing.name != "slicer":
-        raise
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-    import slicer
+import slicer  # noqa: E402 - after the thread settings
 import slicer.synthetic as syn  # noqa: E402 - after the thread settings
 
 #: The contract settings every size is built with (ns, ns, m/ns, m, m).
@@ -117,25 +104,6 @@ def make_survey(folder: Path, n_traces: int) -> tuple[Path, list[Path], float, b
 
 # --- measurements ------------------------------------------------------------------------------
 
-def _memory_mib() -> tuple[float, float, str]:
-    """Current and peak resident memory of this process (MiB), and where the peak came from.
-
-    The peak is the kernel's high-water mark of this address space (``VmHWM``), which starts
-    afresh at exec. ``getrusage(...).ru_maxrss`` is the fallback where /proc is missing: on
-    Linux a spawned child inherits its parent's ru_maxrss through fork and exec (a 29 MiB child
-    of a parent that had peaked at 790 MiB reports 790 MiB), so it would overstate the peak.
-    """
-    try:
-        status = Path("/proc/self/status").read_text()
-        kib = {k: float(v.split()[0]) for k, v in
-               (line.split(":", 1) for line in status.splitlines() if ":" in line)
-               if k in ("VmRSS", "VmHWM")}
-        return kib["VmRSS"] / 1024, kib["VmHWM"] / 1024, "VmHWM"
-    except (OSError, KeyError, ValueError):
-        peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # KiB on Linux
-        return math.nan, peak, "ru_maxrss"
-
-
 def _settings(table: Path, out: Path | None = None):
     return slicer.load_settings(table, **SETTINGS, out=out, overwrite=out is not None)
 
@@ -157,13 +125,6 @@ def measure_build(table: str, out: str | None) -> dict:
             "rss_before_mib": before, "rss_peak_mib": peak, "peak_source": source,
             "shape": tuple(int(n) for n in result.cube.shape),
             "warnings": sorted({f"{w.category.__name__}: {w.message}" for w in caught})}
-
-
-def in_fresh_process(function, *args) -> dict:
-    """Run ``function(*args)`` in a new spawned interpreter, so its peak memory is its own."""
-    context = multiprocessing.get_context("spawn")
-    with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool:
-        return pool.submit(function, *args).result()
 
 
 def _floor_one(path: Path) -> int:
@@ -311,15 +272,6 @@ def profile_build(table: Path, top: int = 15) -> str:
 
 # --- report ------------------------------------------------------------------------------------
 
-def _table(header: list[str], rows: list[list[str]]) -> str:
-    widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(header)]
-    line = "| " + " | ".join(h.rjust(w) for h, w in zip(header, widths, strict=True)) + " |"
-    rule = "|" + "|".join("-" * (w + 1) + ":" for w in widths) + "|"
-    body = ["| " + " | ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) + " |"
-            for r in rows]
-    return "\n".join([line, rule, *body])
-
-
 def _source() -> str:
     """Where slicer was imported from, with its git commit when it is a checkout."""
     folder = Path(slicer.__file__).resolve().parent
@@ -336,10 +288,6 @@ def _source() -> str:
 
 def _load() -> str:
     return "/".join(f"{v:.2f}" for v in os.getloadavg())
-
-
-def _f(value: float, digits: int = 2) -> str:
-    return "-" if value is None or not math.isfinite(value) else f"{value:.{digits}f}"
 
 
 def parse_args(argv=None):

@@ -29,36 +29,24 @@ import datetime as _dt
 import importlib.metadata as md
 import json
 import math
-import multiprocessing
 import os
 import platform
-import resource
 import sys
 import tempfile
 import time
 import warnings
 from pathlib import Path
 
-# One BLAS thread unless the caller says otherwise, set before numpy loads: griddata's point
-# location makes many tiny LAPACK calls, which OpenBLAS threads slow down erratically on a busy
-# machine (see benchmarks/README.md, build_throughput.py).
-for _variable in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_variable, "1")
-
+import _common  # noqa: F401 - first: one BLAS thread before numpy loads
 import numpy as np  # noqa: E402 - after the thread settings
 import scipy  # noqa: E402 - after the thread settings
 import scipy.fft  # noqa: E402 - after the thread settings
 import scipy.interpolate  # noqa: E402 - after the thread settings
 import scipy.signal  # noqa: E402 - after the thread settings
 import segyio  # noqa: E402 - after the thread settings
+from _common import _f, _memory_mib, _table, in_fresh_process  # noqa: E402
 
-try:
-    import slicer
-except ModuleNotFoundError as missing:  # a checkout, not installed: the package is one level up
-    if missing.name != "slicer":
-        raise
-    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
-    import slicer
+import slicer  # noqa: E402 - after the thread settings
 import slicer.synthetic as syn  # noqa: E402 - after the thread settings
 from slicer._reduce import reduce_survey  # noqa: E402 - after the thread settings
 
@@ -125,29 +113,6 @@ def read_targets(folder: Path) -> list[dict]:
 
 
 # --- measurements ------------------------------------------------------------------------------
-
-def _memory_mib() -> tuple[float, float, str]:
-    """Current and peak resident memory of this process (MiB), and where the peak came from.
-
-    ``VmHWM`` starts afresh at exec; ``ru_maxrss`` (the fallback) is inherited by a spawned
-    child from its parent on Linux and would overstate the peak.
-    """
-    try:
-        status = Path("/proc/self/status").read_text()
-        kib = {k: float(v.split()[0]) for k, v in
-               (line.split(":", 1) for line in status.splitlines() if ":" in line)
-               if k in ("VmRSS", "VmHWM")}
-        return kib["VmRSS"] / 1024, kib["VmHWM"] / 1024, "VmHWM"
-    except (OSError, KeyError, ValueError):
-        return math.nan, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024, "ru_maxrss"
-
-
-def in_fresh_process(function, *args):
-    """Run ``function(*args)`` in a new spawned interpreter, so its peak memory is its own."""
-    context = multiprocessing.get_context("spawn")
-    with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool:
-        return pool.submit(function, *args).result()
-
 
 def worker_peak_mib(_=None) -> tuple[int, float]:
     """``(pid, VmHWM in MiB)`` of the process running this (a build's worker)."""
@@ -312,19 +277,6 @@ def measure_gridding(table: str, survey: str, n_griddata: int, run_griddata: boo
 
 
 # --- report ------------------------------------------------------------------------------------
-
-def _f(value, digits: int = 2) -> str:
-    return "-" if value is None or not math.isfinite(value) else f"{value:.{digits}f}"
-
-
-def _table(header: list[str], rows: list[list[str]]) -> str:
-    widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(header)]
-    line = "| " + " | ".join(h.rjust(w) for h, w in zip(header, widths, strict=True)) + " |"
-    rule = "|" + "|".join("-" * (w + 1) + ":" for w in widths) + "|"
-    body = ["| " + " | ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) + " |"
-            for r in rows]
-    return "\n".join([line, rule, *body])
-
 
 def _max_error(targets: list[dict], method: str) -> float:
     errors = [t[method]["error_m"] for t in targets if method in t]

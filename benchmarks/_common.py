@@ -1,0 +1,68 @@
+"""What the benchmark scripts share: one BLAS thread, slicer from the checkout, memory readings,
+fresh processes and plain-text tables.
+
+Import it before numpy: the thread settings only take effect if they precede numpy's import.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures
+import math
+import multiprocessing
+import os
+import resource
+import sys
+from pathlib import Path
+
+# One BLAS thread unless the caller says otherwise, set before numpy loads. The pipeline and the
+# floor are single-threaded, and griddata's point location makes thousands of tiny LAPACK calls:
+# with OpenBLAS threads on 2 busy cores those calls were seen to run 10-100x slower, erratically,
+# which would flatter slicer's gridding speed-up (see benchmarks/README.md).
+for _variable in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+    os.environ.setdefault(_variable, "1")
+
+try:
+    import slicer  # noqa: F401 - imported for the scripts, after the thread settings
+except ModuleNotFoundError as missing:  # a checkout, not installed: the package is one level up
+    if missing.name != "slicer":
+        raise
+    sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
+
+
+def _f(value, digits: int = 2) -> str:
+    return "-" if value is None or not math.isfinite(value) else f"{value:.{digits}f}"
+
+
+def _memory_mib() -> tuple[float, float, str]:
+    """Current and peak resident memory of this process (MiB), and where the peak came from.
+
+    The peak is the kernel's high-water mark of this address space (``VmHWM``), which starts
+    afresh at exec. ``getrusage(...).ru_maxrss`` is the fallback where /proc is missing: on
+    Linux a spawned child inherits its parent's ru_maxrss through fork and exec (a 29 MiB child
+    of a parent that had peaked at 790 MiB reports 790 MiB), so it would overstate the peak.
+    """
+    try:
+        status = Path("/proc/self/status").read_text()
+        kib = {k: float(v.split()[0]) for k, v in
+               (line.split(":", 1) for line in status.splitlines() if ":" in line)
+               if k in ("VmRSS", "VmHWM")}
+        return kib["VmRSS"] / 1024, kib["VmHWM"] / 1024, "VmHWM"
+    except (OSError, KeyError, ValueError):
+        peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024  # KiB on Linux
+        return math.nan, peak, "ru_maxrss"
+
+
+def in_fresh_process(function, *args):
+    """Run ``function(*args)`` in a new spawned interpreter, so its peak memory is its own."""
+    context = multiprocessing.get_context("spawn")
+    with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool:
+        return pool.submit(function, *args).result()
+
+
+def _table(header: list[str], rows: list[list[str]]) -> str:
+    widths = [max(len(h), *(len(r[i]) for r in rows)) for i, h in enumerate(header)]
+    line = "| " + " | ".join(h.rjust(w) for h, w in zip(header, widths, strict=True)) + " |"
+    rule = "|" + "|".join("-" * (w + 1) + ":" for w in widths) + "|"
+    body = ["| " + " | ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) + " |"
+            for r in rows]
+    return "\n".join([line, rule, *body])
