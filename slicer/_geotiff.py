@@ -249,7 +249,8 @@ class SliceTiffWriter:
 
     def slice_job(self, index: int, store: str | os.PathLike) -> SliceFileJob:
         """What :func:`write_slice_file` needs to write slice ``index`` from a Zarr store."""
-        return SliceFileJob(str(store), index, str(self._temps[index]), str(self.paths[index]),
+        return SliceFileJob(str(Path(store).resolve()), index,
+                            str(self._temps[index].resolve()), str(self.paths[index]),
                             dict(self._profile), self._tags[index], self._descriptions[index],
                             self._units)
 

@@ -122,7 +122,7 @@ class WorkerSink(CubeSink):
             fd, tmp = tempfile.mkstemp(prefix=f".{NETCDF_NAME}.", suffix=".tmp",
                                        dir=self.out_dir)
             os.close(fd)
-            self._early = Path(tmp)
+            self._early = Path(tmp).resolve()
             self._skeleton = self._offload(write_skeleton, self.template, str(self._early),
                                            tile=self.tile)
         except BaseException:
@@ -145,7 +145,7 @@ class WorkerSink(CubeSink):
 
     def grid(self, jobs: Iterable[TileJob], *, count: int) -> None:
         """Grid and store every tile on the workers, keeping the overview's panels."""
-        store = str(self._store.path)
+        store = self._worker_path(self._store.path)
         items = (StoredTile(job, store, self._stride) for job in jobs)
         for row0, col0, part in self._engine.map(grid_and_store, items, desc="gridding",
                                                  unit="tile", progress=False,
@@ -153,15 +153,20 @@ class WorkerSink(CubeSink):
             self._put_panels(row0, col0, part)
             self._bar.update(1)
 
+    @staticmethod
+    def _worker_path(path) -> str:
+        # absolute: a worker need not share this process's working folder
+        return str(Path(path).resolve())
+
     def _draw_overview(self, png):
         # on a worker too: rendering and encoding the sheet took about 5 s of a core at 1 M
         # traces, which the workers writing the slices would otherwise lose
-        return self._offload(save_overview, self.template, self._panels, str(png),
+        return self._offload(save_overview, self.template, self._panels, self._worker_path(png),
                              title=self._title, where=str(self.out_dir / "overview.png"))
 
     def _start_netcdf(self, target):
         self._slicer = concurrent.futures.ThreadPoolExecutor(max_workers=1)
-        future = self._slicer.submit(self._write_slices, target)  # this thread: the overview
+        future = self._slicer.submit(self._write_slices, target)  # this thread: the sink
         self._slicer.shutdown(wait=False)
         return future
 
@@ -169,9 +174,9 @@ class WorkerSink(CubeSink):
         import h5py
         layout = self._skeleton.result()
         self._skeleton = None
-        store = str(self._store.path)
+        store = self._worker_path(self._store.path)
         parts = Path(tempfile.mkdtemp(prefix=f".{NETCDF_NAME}.", suffix=".parts",
-                                      dir=self.out_dir))
+                                      dir=self.out_dir)).resolve()
         jobs = [SliceOutputs(self._tiffs.slice_job(i, store), layout,
                              str(parts / f"slice_{i}.bin")) for i in range(self.shape[0])]
         try:
