@@ -66,3 +66,15 @@ def _table(header: list[str], rows: list[list[str]]) -> str:
     body = ["| " + " | ".join(c.rjust(w) for c, w in zip(r, widths, strict=True)) + " |"
             for r in rows]
     return "\n".join([line, rule, *body])
+
+
+def square_patch(n_traces: int, *, line_spacing: float, trace_spacing: float, west: float,
+                 south: float) -> list:
+    """Zigzag west-east lines over a roughly square patch holding about ``n_traces`` traces."""
+    from slicer.synthetic import grid_lines
+    # a square patch: lines = sqrt(N x trace spacing / line spacing)
+    n_lines = max(2, round(math.sqrt(n_traces * trace_spacing / line_spacing)))
+    per_line = max(2, round(n_traces / n_lines))
+    return grid_lines(west=west, south=south, length=trace_spacing * (per_line - 1),
+                      width=line_spacing * (n_lines - 1), line_spacing=line_spacing,
+                      trace_spacing=trace_spacing, direction="x", zigzag=True)

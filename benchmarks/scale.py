@@ -44,7 +44,7 @@ import scipy.fft  # noqa: E402 - after the thread settings
 import scipy.interpolate  # noqa: E402 - after the thread settings
 import scipy.signal  # noqa: E402 - after the thread settings
 import segyio  # noqa: E402 - after the thread settings
-from _common import _f, _memory_mib, _table, in_fresh_process  # noqa: E402
+from _common import _f, _memory_mib, _table, in_fresh_process, square_patch  # noqa: E402
 
 import slicer  # noqa: E402 - after the thread settings
 import slicer.synthetic as syn  # noqa: E402 - after the thread settings
@@ -70,11 +70,8 @@ DEFAULT_SIZES = (50_000, 200_000, 1_000_000)
 
 def plan(n_traces: int) -> list[syn.PlannedLine]:
     """Zigzag west-east lines over a roughly square patch holding about ``n_traces`` traces."""
-    n_lines = max(2, round(math.sqrt(n_traces * TRACE_SPACING / LINE_SPACING)))
-    per_line = max(2, round(n_traces / n_lines))
-    return syn.grid_lines(west=WEST, south=SOUTH, length=TRACE_SPACING * (per_line - 1),
-                          width=LINE_SPACING * (n_lines - 1), line_spacing=LINE_SPACING,
-                          trace_spacing=TRACE_SPACING, direction="x", zigzag=True)
+    return square_patch(n_traces, line_spacing=LINE_SPACING, trace_spacing=TRACE_SPACING,
+                        west=WEST, south=SOUTH)
 
 
 def ground_for(lines: list[syn.PlannedLine]) -> syn.Ground:
