@@ -155,7 +155,7 @@ def _grid_one_worker(values, grid_args: dict) -> float:
     Uses the private engine module; NaN if this version of slicer has none.
     """
     try:
-        from slicer._engine import Engine, parse_scheduler
+        from slicer.pipeline.engine import Engine, parse_scheduler
         engine = Engine(parse_scheduler("threads", workers=1))
     except (ImportError, TypeError):
         return math.nan
@@ -235,7 +235,7 @@ def _in_thread_engine():
     spend their time (private API: a benchmark helper, not a way to build).
     """
     try:
-        from slicer._engine import Engine, parse_scheduler
+        from slicer.pipeline.engine import Engine, parse_scheduler
     except ImportError:
         yield None
         return

@@ -48,7 +48,7 @@ from _common import _f, _memory_mib, _table, in_fresh_process, square_patch  # n
 
 import slicer  # noqa: E402 - after the thread settings
 import slicer.synthetic as syn  # noqa: E402 - after the thread settings
-from slicer._reduce import reduce_survey  # noqa: E402 - after the thread settings
+from slicer.pipeline.line_tasks import reduce_survey  # noqa: E402 - after the thread settings
 
 #: The settings every build and table uses (ns, ns, m/ns, m, m); memory limit left at default.
 SETTINGS = dict(crs="EPSG:32633", sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.05,
@@ -119,7 +119,7 @@ def worker_peak_mib(_=None) -> tuple[int, float]:
 
 def _watch_workers(peaks: dict) -> None:
     """Read every worker's VmHWM just before a build's engine closes (pool or cluster)."""
-    from slicer import _engine
+    from slicer.pipeline import engine as _engine
 
     close = _engine.Engine.__exit__
 

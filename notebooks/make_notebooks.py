@@ -434,9 +434,9 @@ VELOCITY_AND_MIGRATION = [
         import numpy as np
 
         import slicer
-        from slicer._diffraction import find_diffractions, survey_velocity
-        from slicer._hyperbola import fit_hyperbola, hyperbola_time
-        from slicer._migration import migrate
+        from slicer.velocity.diffraction import find_diffractions, survey_velocity
+        from slicer.velocity.hyperbola import fit_hyperbola, hyperbola_time
+        from slicer.processing.migration import migrate
         from slicer.synthetic import (
             Ground,
             LineTarget,

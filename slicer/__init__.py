@@ -1,110 +1,93 @@
 """slicer: ground-penetrating-radar grid surveys to georeferenced plan-view depth slices.
 
-The flow, each arrow a function from xarray objects to xarray objects::
+The flow, each arrow a function from xarray objects to xarray objects, and the subpackage that
+holds it::
 
-    read_line -> place_line -> correct_time_zero -> dewow -> remove_background -> apply_gain
-    -> envelope -> reduce_to_windows -> grid_slices -> write_slice_geotiffs / write_cube_netcdf
+    read_line (io) -> place_line / load_line (geometry)
+    -> correct_time_zero -> dewow -> remove_background -> apply_gain -> envelope (processing)
+    -> to_depth_axis (velocity) -> reduce_to_windows -> grid_slices (gridding)
+    -> write_slice_geotiffs / write_cube_netcdf (outputs)
 
-:func:`build` runs all of it from a :class:`BuildSettings` (see :func:`load_settings`).
+:func:`build` (pipeline) runs all of it from a :class:`BuildSettings` (see :func:`load_settings`).
+
+Every public name is importable from here; the subpackages load on first use, so that
+``import slicer`` and the command line start without NumPy's heavier friends (dask, zarr, h5py,
+matplotlib, scipy.signal).
 """
+
+from __future__ import annotations
+
+import importlib
+from typing import Any
 
 __version__ = "0.1.0"
 
-from ._atomic import atomic_path, prepare_output_dir
-from ._build import BuildResult, build, build_cube, grid_slices
-from ._channels import ChannelTable, expand_channels, read_channel_table
-from ._conventions import C_M_PER_NS
-from ._crossings import find_crossings
-from ._cube import cube_crs, cube_transform, new_cube, read_cube_netcdf, write_cube_netcdf
-from ._demo import run_demo
-from ._diffraction import find_diffractions, survey_velocity
-from ._engine import Engine, engine, parse_scheduler
-from ._errors import (
-    InputFileError,
-    LineTableError,
-    OutputError,
-    SettingsError,
-    SlicerError,
-    SlicerWarning,
-)
-from ._figures import plot_overview, plot_slice
-from ._geometry import prepare_survey, read_marks
-from ._geotiff import slice_file_name, write_slice_geotiffs
-from ._grid import Grid, grid_for, neighbour_weights
-from ._hyperbola import fit_hyperbola, hyperbola_time
-from ._levelling import level_lines, stripe_amplitude
-from ._linetable import LineEntry, read_line_table
-from ._localgrid import (
-    ControlPoint,
-    GridTransform,
-    fit_affine,
-    fit_control_points,
-    fit_similarity,
-    read_control_points,
-)
-from ._migration import migrate
-from ._positions import (
-    positions_from_headers,
-    positions_from_track,
-    read_track,
-    resample_even,
-    stretch_by_marks,
-)
-from ._processing import (
-    apply_gain,
-    correct_time_zero,
-    dewow,
-    dominant_frequency,
-    envelope,
-    pick_time_zero,
-    remove_background,
-)
-from ._reading import line_info, read_line
-from ._reduce import process_line, reduce_survey
-from ._segy import write_segy_line
-from ._settings import BuildSettings, load_settings
-from ._survey import iter_lines, load_line, place_line, survey_info
-from ._ties import apply_ties, measure_ties, solve_ties
-from ._velocity import (
-    check_velocity,
-    depth_from_time,
-    permittivity_from_velocity,
-    time_from_depth,
-    to_depth,
-    velocity_from_permittivity,
-)
-from ._velocity_file import read_velocity_model, write_velocity_model
-from ._velocity_model import (
-    ConstantVelocity,
-    LateralVelocity,
-    LayeredVelocity,
-    depth_error,
-    to_depth_axis,
-    velocity_from_known_depth,
-)
-from ._velocity_search import analyse_velocity
-from ._windows import Windows, make_windows, parse_range, reduce_to_windows
+#: Where each public name lives, by module.
+_PUBLIC: dict[str, tuple[str, ...]] = {
+    "slicer.core.atomic": ("atomic_path", "prepare_output_dir"),
+    "slicer.core.conventions": ("C_M_PER_NS",),
+    "slicer.core.errors": ("InputFileError", "LineTableError", "OutputError", "SettingsError",
+        "SlicerError", "SlicerWarning"),
+    "slicer.core.physics": ("check_velocity", "depth_from_time", "permittivity_from_velocity",
+        "time_from_depth", "to_depth", "velocity_from_permittivity"),
+    "slicer.geometry.channels": ("ChannelTable", "expand_channels", "read_channel_table"),
+    "slicer.geometry.crossings": ("find_crossings",),
+    "slicer.geometry.localgrid": ("ControlPoint", "GridTransform", "fit_affine",
+        "fit_control_points", "fit_similarity", "read_control_points"),
+    "slicer.geometry.positioning": ("prepare_survey", "read_marks"),
+    "slicer.geometry.positions": ("positions_from_headers", "positions_from_track", "read_track",
+        "resample_even", "stretch_by_marks"),
+    "slicer.geometry.survey": ("iter_lines", "load_line", "place_line", "survey_info"),
+    "slicer.gridding.grid": ("Grid", "grid_for", "neighbour_weights"),
+    "slicer.gridding.levelling": ("level_lines", "stripe_amplitude"),
+    "slicer.gridding.windows": ("Windows", "make_windows", "parse_range", "reduce_to_windows"),
+    "slicer.io.linetable": ("LineEntry", "read_line_table"),
+    "slicer.io.reading": ("line_info", "read_line"),
+    "slicer.io.segy": ("write_segy_line",),
+    "slicer.outputs.cube": ("cube_crs", "cube_transform", "new_cube", "read_cube_netcdf",
+        "write_cube_netcdf"),
+    "slicer.outputs.figures": ("plot_overview", "plot_slice"),
+    "slicer.outputs.geotiff": ("slice_file_name", "write_slice_geotiffs"),
+    "slicer.pipeline.build": ("BuildResult", "build", "build_cube", "grid_slices"),
+    "slicer.pipeline.demo": ("run_demo",),
+    "slicer.pipeline.engine": ("Engine", "engine", "parse_scheduler"),
+    "slicer.pipeline.line_chain": ("process_line",),
+    "slicer.pipeline.line_tasks": ("reduce_survey",),
+    "slicer.pipeline.settings": ("BuildSettings", "load_settings"),
+    "slicer.pipeline.velocity_survey": ("analyse_velocity",),
+    "slicer.processing.migration": ("migrate",),
+    "slicer.processing.steps": ("apply_gain", "correct_time_zero", "dewow", "dominant_frequency",
+        "envelope", "pick_time_zero", "remove_background"),
+    "slicer.processing.ties": ("apply_ties", "measure_ties", "solve_ties"),
+    "slicer.velocity.diffraction": ("find_diffractions", "survey_velocity"),
+    "slicer.velocity.hyperbola": ("fit_hyperbola", "hyperbola_time"),
+    "slicer.velocity.model_file": ("read_velocity_model", "write_velocity_model"),
+    "slicer.velocity.models": ("ConstantVelocity", "LateralVelocity", "LayeredVelocity",
+        "depth_error", "to_depth_axis", "velocity_from_known_depth"),
+}
 
-__all__ = [
-    "ConstantVelocity", "LateralVelocity", "LayeredVelocity", "analyse_velocity",
-    "depth_error", "find_diffractions", "fit_hyperbola", "hyperbola_time", "migrate",
-    "read_velocity_model", "survey_velocity", "to_depth_axis", "velocity_from_known_depth",
-    "write_velocity_model",
-    "Engine", "engine", "parse_scheduler",
-    "ChannelTable", "ControlPoint", "GridTransform", "apply_ties", "expand_channels",
-    "find_crossings", "fit_affine", "fit_control_points", "fit_similarity", "level_lines",
-    "load_line", "measure_ties", "positions_from_headers", "positions_from_track",
-    "prepare_survey", "read_channel_table", "read_control_points", "read_marks", "read_track",
-    "resample_even", "solve_ties", "stretch_by_marks", "stripe_amplitude", "write_segy_line",
-    "BuildResult", "BuildSettings", "C_M_PER_NS", "Grid", "InputFileError", "LineEntry",
-    "LineTableError", "OutputError", "SettingsError", "SlicerError", "SlicerWarning",
-    "Windows", "apply_gain", "atomic_path", "build", "build_cube", "check_velocity",
-    "correct_time_zero", "cube_crs", "cube_transform", "depth_from_time", "dewow",
-    "dominant_frequency", "envelope", "grid_for", "grid_slices", "iter_lines", "line_info",
-    "load_settings", "make_windows", "neighbour_weights", "new_cube", "parse_range",
-    "permittivity_from_velocity", "pick_time_zero", "place_line", "plot_overview",
-    "plot_slice", "prepare_output_dir", "process_line", "read_cube_netcdf", "read_line",
-    "read_line_table", "reduce_survey", "reduce_to_windows", "remove_background", "run_demo",
-    "slice_file_name", "survey_info", "time_from_depth", "to_depth",
-    "velocity_from_permittivity", "write_cube_netcdf", "write_slice_geotiffs",
-]
+_HOME = {name: module for module, names in _PUBLIC.items() for name in names}
+
+#: The subpackages, one per stage of the flow (bottom to top), loaded on first use too.
+_SUBPACKAGES = ("core", "io", "geometry", "processing", "velocity", "gridding", "outputs",
+                "synthetic", "pipeline")
+
+__all__ = sorted(_HOME)
+
+
+def __getattr__(name: str) -> Any:
+    """Import a public name's module on first use (PEP 562) and keep the name here."""
+    if name in _SUBPACKAGES:
+        return importlib.import_module(f"{__name__}.{name}")
+    try:
+        module = _HOME[name]
+    except KeyError:
+        raise AttributeError(f"module 'slicer' has no attribute {name!r}") from None
+    value = getattr(importlib.import_module(module), name)
+    globals()[name] = value
+    return value
+
+
+def __dir__() -> list[str]:
+    return sorted(set(globals()) | set(__all__) | set(_SUBPACKAGES))
+

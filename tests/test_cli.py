@@ -9,9 +9,9 @@ import numpy as np
 import pytest
 import rasterio
 
-from slicer._cli import main
-from slicer._linefile import write_line_netcdf
-from slicer._reading import read_line
+from slicer.cli import main
+from slicer.io.linefile import write_line_netcdf
+from slicer.io.reading import read_line
 
 GOOD = ["--crs", "EPSG:32633", "--sample-interval", "0.1", "--time-zero", "3.0",
         "--velocity", "0.1", "--cell", "0.1", "--depths", "0:2.4:0.1"]
@@ -59,7 +59,7 @@ def test_quiet_prints_nothing(survey, capsys):
 
 def test_help_everywhere():
     for argv in (["--help"], ["build", "--help"], ["demo", "--help"]):
-        proc = subprocess.run([sys.executable, "-m", "slicer._cli", *argv],
+        proc = subprocess.run([sys.executable, "-m", "slicer.cli", *argv],
                               capture_output=True, text=True)
         assert proc.returncode == 0 and "usage: slicer" in proc.stdout
 
@@ -239,7 +239,7 @@ def test_nan_samples_are_tolerated_and_reported(survey, tmp_path, capsys):
 
 
 def test_killed_mid_way_leaves_no_half_written_file(survey, capsys, monkeypatch):
-    import slicer._sink
+    import slicer.outputs.sink
 
     def killed(*args, **kwargs):
         raise KeyboardInterrupt
@@ -249,7 +249,7 @@ def test_killed_mid_way_leaves_no_half_written_file(survey, capsys, monkeypatch)
     assert code == 0
     before = {p: p.read_bytes() for p in (out / "slices").glob("*.tif")}
     # a second build, stopped while it writes the NetCDF cube (after every slice is gridded)
-    monkeypatch.setattr(slicer._sink, "_write_netcdf", killed)
+    monkeypatch.setattr(slicer.outputs.sink, "_write_netcdf", killed)
     argv = list(GOOD)
     argv[argv.index("--velocity") + 1] = "0.12"
     code, _, err = run(capsys, "build", survey / "lines.csv", *argv, "--out", out, "-q",

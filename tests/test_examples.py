@@ -6,7 +6,7 @@ import subprocess
 import sys
 from pathlib import Path
 
-from slicer._settings import load_settings
+from slicer.pipeline.settings import load_settings
 
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 

@@ -1,0 +1,51 @@
+"""Straight lines: traces spaced evenly between a line's start and end points, which come from
+the line table or from the file's own first and last trace-header positions."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+import numpy as np
+import xarray as xr
+
+from slicer.core.conventions import DISTANCE, TRACE, X, Y
+from slicer.core.errors import InputFileError
+from slicer.io.linetable import LineEntry, with_ends
+from slicer.io.reading import header_positions
+
+
+def place_line(line: xr.DataArray, entry: LineEntry) -> xr.DataArray:
+    """Give every trace its ground position, spaced evenly from the entry's start to its end.
+
+    Adds per-trace coordinates ``x``, ``y`` (m, survey CRS) and ``distance`` (m from start).
+    """
+    n = line.sizes[TRACE]
+    if n < 2:
+        raise InputFileError(f"a line needs at least two traces, found {n}",
+                             where=str(entry.file))
+    frac = np.arange(n) / (n - 1)
+    (sx, sy), (ex, ey) = entry.start, entry.end
+    return line.assign_coords({
+        X: (TRACE, sx + frac * (ex - sx), {"units": "m", "long_name": "easting"}),
+        Y: (TRACE, sy + frac * (ey - sy), {"units": "m", "long_name": "northing"}),
+        DISTANCE: (TRACE, frac * entry.length, {"units": "m", "long_name": "distance along line"}),
+    })
+
+
+def ends_from_headers(entries: Sequence[LineEntry]) -> list[LineEntry]:
+    """Entries whose start and end are their files' first and last trace-header positions.
+
+    Raises
+    ------
+    InputFileError
+        A file holds no trace coordinates.
+    """
+    out = []
+    for e in entries:
+        xy = header_positions(e.file)
+        if xy is None:
+            raise InputFileError("the file holds no trace coordinates for --positions "
+                                 "headers (SEG-Y: CDP or source X/Y are all zero)",
+                                 where=str(e.file))
+        out.append(with_ends(e, *xy))
+    return out

@@ -1,0 +1,227 @@
+"""Slice windows, and the reduction of every trace to its slice values.
+
+A slice value is the mean envelope over a window ``[top, bottom)`` of depth (m) or two-way time
+(ns). It is computed exactly for the piecewise-linear trace (linear between samples) from its
+cumulative integral, so windows need not line up with samples and may be thinner or thicker than
+the sample interval.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import xarray as xr
+
+from slicer.core.conventions import DEPTH, SLICE, TWT
+from slicer.core.errors import SettingsError
+from slicer.core.physics import check_velocity, time_from_depth
+
+
+@dataclass(frozen=True)
+class Windows:
+    """Slice windows along one axis.
+
+    Attributes
+    ----------
+    axis : {"depth", "twt"}
+        Depth below the surface (m, positive down) or two-way time below time zero (ns).
+    top, bottom : numpy.ndarray
+        Window limits, ``top < bottom``, in the axis's unit.
+    """
+
+    axis: str
+    top: np.ndarray
+    bottom: np.ndarray
+
+    @property
+    def units(self) -> str:
+        return "m" if self.axis == DEPTH else "ns"
+
+    def __len__(self) -> int:
+        return len(self.top)
+
+    def select(self, keep: np.ndarray) -> Windows:
+        """The windows where boolean ``keep`` is true."""
+        return Windows(self.axis, self.top[keep], self.bottom[keep])
+
+    def times(self, velocity: float | None) -> tuple[np.ndarray, np.ndarray]:
+        """Window limits as two-way times below time zero (ns)."""
+        if self.axis == TWT:
+            return self.top, self.bottom
+        if velocity is None:
+            raise SettingsError("depth slices need a velocity: give --velocity or "
+                                "--permittivity, or cut time slices with --times",
+                                where="--velocity")
+        if hasattr(velocity, "profile"):  # a velocity model: the slowest place is the latest
+            return _model_times(velocity, self.top), _model_times(velocity, self.bottom)
+        return time_from_depth(self.top, velocity=velocity), time_from_depth(
+            self.bottom, velocity=velocity)
+
+    def describe(self) -> str:
+        u = self.units
+        return (f"{len(self)} {self.axis} slices {self.top[0]:g}-{self.bottom[-1]:g} {u}, "
+                f"thickness {float(np.median(self.bottom - self.top)):g} {u}")
+
+
+def _model_times(model, depth: np.ndarray) -> np.ndarray:
+    """Two-way times (ns) of ``depth`` in a velocity model; for a lateral model, the latest
+    time anywhere (its slowest velocity), so that a window fits the record everywhere."""
+    from slicer.velocity.models import time_of_depth
+    if getattr(model, "lateral", False):
+        return time_from_depth(depth, velocity=float(np.min(model.velocity)))
+    return time_of_depth(model, depth)
+
+
+def parse_range(text: str, *, option: str) -> tuple[float, float, float]:
+    """Parse ``"TOP:BOTTOM:STEP"`` into three finite floats, naming ``option`` on error."""
+    parts = str(text).split(":")
+    if len(parts) != 3:
+        raise SettingsError(f"expected TOP:BOTTOM:STEP, got {text!r}", where=option)
+    try:
+        top, bottom, step = (float(p) for p in parts)
+    except ValueError:
+        raise SettingsError(f"TOP:BOTTOM:STEP must be numbers, got {text!r}",
+                            where=option) from None
+    if not all(math.isfinite(v) for v in (top, bottom, step)):
+        raise SettingsError(f"TOP:BOTTOM:STEP must be finite, got {text!r}", where=option)
+    return top, bottom, step
+
+
+def make_windows(top: float, bottom: float, step: float, *, thickness: float | None = None,
+                 axis: str = DEPTH, option: str | None = None) -> Windows:
+    """Windows starting at ``top`` every ``step``, each ``thickness`` thick (default ``step``).
+
+    The last window ends at or before ``bottom`` (a rounding tolerance of 1e-9 of the range
+    lets ``0:2.4:0.1`` give 24 windows). Depth and time must not be negative: they are counted
+    down from the surface (time zero).
+    """
+    option = option or ("--depths" if axis == DEPTH else "--times")
+    unit = "m" if axis == DEPTH else "ns"
+    if step <= 0:
+        raise SettingsError(f"step must be positive, got {step:g} {unit}", where=option)
+    if bottom <= top:
+        raise SettingsError(f"range is empty or reversed ({top:g} to {bottom:g} {unit})",
+                            where=option)
+    if top < 0:
+        raise SettingsError(f"top must be at or below the surface (>= 0), got {top:g} {unit}",
+                            where=option)
+    thick = step if thickness is None else float(thickness)
+    if not math.isfinite(thick) or thick <= 0:
+        raise SettingsError(f"thickness must be positive, got {thick:g} {unit}",
+                            where="--thickness")
+    span = bottom - top
+    if thick > span * (1 + 1e-9):
+        raise SettingsError(f"thickness {thick:g} {unit} exceeds the range {top:g}-{bottom:g}",
+                            where="--thickness")
+    n = int(math.floor((span - thick) / step + 1e-9)) + 1
+    tops = top + step * np.arange(n)
+    return Windows(axis, tops, tops + thick)
+
+
+def _window_means_core(samples: np.ndarray, *, twt: np.ndarray, t_top: np.ndarray,
+                       t_bottom: np.ndarray) -> np.ndarray:
+    """Exact mean of the piecewise-linear traces over each ``[t_top, t_bottom)`` (last axis).
+
+    The integral from the first sample to sample ``k`` is ``dt * (S_k - (y_0 + y_k) / 2)``
+    with ``S_k`` the sum of samples 0 to ``k`` (the trapezoid rule, exact for a
+    piecewise-linear trace). Only the ``S_k`` at the windows' ends are needed: sums of the
+    runs of samples between them (one pass, in double precision), summed up.
+    """
+    y = np.asarray(samples)
+    n = y.shape[-1]
+    dt = float(twt[1] - twt[0])
+
+    def position(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        pos = (t - twt[0]) / dt
+        k = np.clip(np.floor(pos).astype(int), 0, n - 2)
+        return k, pos - k
+
+    (k_top, u_top), (k_bottom, u_bottom) = position(t_top), position(t_bottom)
+    ends = np.unique(np.concatenate([k_top, k_bottom]) + 1)  # S_k is the sum of y[:k + 1]
+    runs = np.add.reduceat(y, np.concatenate([[0], ends]), axis=-1, dtype=np.float64)
+    sums = np.cumsum(runs[..., :-1], axis=-1)  # sums[..., i]: sum of y[:ends[i]]
+    first = y[..., :1].astype(np.float64)
+
+    def integral_to(k: np.ndarray, u: np.ndarray) -> np.ndarray:
+        y0 = y[..., k].astype(np.float64)
+        y1 = y[..., k + 1]
+        s_k = sums[..., np.searchsorted(ends, k + 1)]
+        return dt * (s_k - 0.5 * (first + y0) + u * y0 + 0.5 * u * u * (y1 - y0))
+
+    means = ((integral_to(k_bottom, u_bottom) - integral_to(k_top, u_top))
+             / (t_bottom - t_top))
+    outside = (t_top < twt[0] - 1e-9) | (t_bottom > twt[-1] + 1e-9)
+    means[..., outside] = np.nan  # a window the record does not reach has no value
+    return means.astype(np.float32)
+
+
+def _limits_along(line: xr.DataArray, windows: Windows, velocity) -> tuple[str, np.ndarray,
+                                                                           np.ndarray]:
+    """The dimension windows are cut along, and the window limits on it."""
+    if DEPTH in line.dims:  # already resampled to depth (a layered or lateral model)
+        return DEPTH, windows.top, windows.bottom
+    if velocity is not None and not hasattr(velocity, "profile"):
+        velocity = check_velocity(velocity)
+    t_top, t_bottom = windows.times(velocity)
+    return TWT, t_top, t_bottom
+
+
+def window_values(line: xr.DataArray, windows: Windows, *,
+                  velocity: float | None = None) -> np.ndarray:
+    """The values of :func:`reduce_to_windows` as a plain ``(trace, slice)`` float32 array.
+
+    For one in-memory line (a build's line task): the same core, without building the
+    labelled result.
+    """
+    dim, lo, hi = _limits_along(line, windows, velocity)
+    if line.chunks is not None or line.dims[-1] != dim:
+        return np.asarray(reduce_to_windows(line, windows, velocity=velocity).values)
+    return _window_means_core(line.values, twt=line[dim].values, t_top=lo, t_bottom=hi)
+
+
+def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
+                      velocity: float | None = None) -> xr.DataArray:
+    """Mean of each trace over every window: a ``(trace, slice)`` table.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``, time-zero corrected (``twt = 0`` at the surface), usually the
+        envelope.
+    windows : Windows
+        Depth windows (then ``velocity`` is required) or time windows.
+    velocity : float, optional
+        Constant radar velocity (m/ns) converting depth windows to time windows.
+
+    Returns
+    -------
+    xarray.DataArray
+        Dims ``(trace, slice)``, NaN for windows the record does not reach.
+    """
+    dim, lo, hi = _limits_along(line, windows, velocity)
+    return _reduce_along(line, dim, lo, hi, windows)
+
+
+def _reduce_along(line: xr.DataArray, dim: str, lo: np.ndarray, hi: np.ndarray,
+                  windows: Windows) -> xr.DataArray:
+    twt = line[dim].values
+    t_top, t_bottom = lo, hi
+    data = line.chunk({dim: -1}) if line.chunks is not None else line
+    out = xr.apply_ufunc(
+        _window_means_core, data,
+        kwargs={"twt": twt, "t_top": t_top, "t_bottom": t_bottom},
+        input_core_dims=[[dim]], output_core_dims=[[SLICE]],
+        dask="parallelized", output_dtypes=[np.float32],
+        dask_gufunc_kwargs={"output_sizes": {SLICE: len(windows)}}, keep_attrs=True)
+    u = windows.units
+    return out.assign_coords(
+        top=(SLICE, windows.top, {"units": u, "axis": windows.axis}),
+        bottom=(SLICE, windows.bottom, {"units": u, "axis": windows.axis}))
+
+
+def record_reach(twt_end: float, windows: Windows, *, velocity: float | None) -> np.ndarray:
+    """Boolean mask of the windows whose bottom lies within a record ending at ``twt_end`` ns."""
+    _, t_bottom = windows.times(velocity)
+    return t_bottom <= twt_end + 1e-9

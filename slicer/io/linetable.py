@@ -1,0 +1,212 @@
+"""The line table: one CSV row per recorded line, naming its file and where it ran.
+
+Columns (header required, extra columns ignored)::
+
+    file,start_x,start_y,end_x,end_y
+
+``file`` is relative to the CSV's folder (or absolute); coordinates are in the survey CRS (m).
+The traces of a line are spaced evenly from its start point (first trace) to its end point (last
+trace), so a zigzag (bidirectional) survey simply swaps start and end on every other row.
+
+Optional columns say how a row's traces are placed instead (see
+:mod:`slicer.geometry.positioning`); an
+empty field means the survey's default:
+
+``positions``
+    ``table`` (start to end), ``headers`` (the file's trace-header coordinates) or ``track``.
+``track``
+    A CSV of GNSS fixes for this line (``trace`` or ``time`` key, ``lon,lat`` or ``x,y``).
+``marks``
+    A CSV ``trace,distance`` of marks dropped at known distances (m) from the start point.
+``channels``
+    A channel table ``channel,across,along``: the file is a multi-channel swath, expanded
+    into one line per channel.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+from slicer.core.errors import LineTableError
+
+COLUMNS = ("file", "start_x", "start_y", "end_x", "end_y")
+#: Optional columns: how a row is positioned (values), and which of them name files.
+OPTIONAL = ("positions", "track", "marks", "channels")
+PATH_COLUMNS = ("track", "marks", "channels")
+#: Where a line's positions can come from.
+POSITION_SOURCES = ("table", "headers", "track")
+
+
+@dataclass(frozen=True)
+class LineEntry:
+    """One line of a survey: its file and the ground positions of its first and last traces.
+
+    Attributes
+    ----------
+    file : pathlib.Path
+        The radar file (resolved against the table's folder).
+    start, end : tuple of float
+        ``(x, y)`` of the first and last trace in the survey CRS (m).
+    where : str
+        ``table:row`` for error messages.
+    """
+
+    file: Path
+    start: tuple[float, float]
+    end: tuple[float, float]
+    where: str
+    #: Per-line position source (one of :data:`POSITION_SOURCES`), or None for the survey's.
+    positions: str | None = None
+    #: GNSS track, distance marks and channel table files of this line, if any.
+    track: Path | None = None
+    marks: Path | None = None
+    channels: Path | None = None
+    #: After channel expansion: this entry's channel name, its index among the swath's
+    #: channels (trace ``k`` of the file is channel ``k % channel_count`` when the headers
+    #: do not number channels), and its offset ``(across, along)`` (m) from the reference.
+    channel: str | None = None
+    channel_index: int = 0
+    channel_count: int = 1
+    offset: tuple[float, float] = (0.0, 0.0)
+    #: Block of the survey the line belongs to (TOML ``[[block]]`` name), if any.
+    block: str | None = None
+
+    @property
+    def has_ends(self) -> bool:
+        """True when start and end are known (not NaN)."""
+        return all(math.isfinite(v) for v in (*self.start, *self.end))
+
+    @property
+    def length(self) -> float:
+        """Distance from start to end (m)."""
+        return math.hypot(self.end[0] - self.start[0], self.end[1] - self.start[1])
+
+
+def _number(text: str | None, column: str, where: str) -> float:
+    if text is None or not text.strip():
+        raise LineTableError(f"column {column} is empty", where=where)
+    try:
+        value = float(text)
+    except ValueError:
+        raise LineTableError(f"column {column}: {text.strip()!r} is not a number",
+                             where=where) from None
+    if not math.isfinite(value):
+        raise LineTableError(f"column {column}: {text.strip()!r} is not finite", where=where)
+    return value
+
+
+def make_entry(fields: dict, *, base: Path, where: str, ends: bool = True) -> LineEntry:
+    """Validate one row (a mapping of the five columns) into a :class:`LineEntry`.
+
+    With ``ends=False`` (positions from the files' headers) the start and end columns may be
+    absent or empty; the entry then has NaN ends until :func:`with_ends` fills them.
+    """
+    name = fields.get("file")
+    if name is None or not str(name).strip():
+        raise LineTableError("column file is empty", where=where)
+    extra = _optional(fields, base=base, where=where)
+    source = extra.get("positions")
+    if source is None and extra.get("track") is not None:
+        source = extra["positions"] = "track"
+    if source == "track" and extra.get("track") is None:
+        raise LineTableError("positions = track needs a track file in column track",
+                             where=where)
+    if extra.get("marks") is not None and source not in (None, "table"):
+        raise LineTableError(f"distance marks stretch a line between its start and end; they "
+                             f"do not combine with positions = {source}", where=where)
+    need_ends = ends if source is None else source == "table"
+    if not need_ends and all(str(fields.get(c) or "").strip() == "" for c in COLUMNS[1:]):
+        nan = (math.nan, math.nan)
+        return LineEntry(file=(base / str(name).strip()), start=nan, end=nan, where=where,
+                         **extra)
+    sx, sy, ex, ey = (_number(None if fields.get(c) is None else str(fields.get(c)), c, where)
+                      for c in COLUMNS[1:])
+    entry = LineEntry(file=(base / str(name).strip()), start=(sx, sy), end=(ex, ey), where=where,
+                      **extra)
+    if entry.length == 0:
+        raise LineTableError("line has zero length (start and end points coincide)",
+                             where=where)
+    return entry
+
+
+def _optional(fields: dict, *, base: Path, where: str) -> dict:
+    """The optional columns of a row that are filled in, checked."""
+    out = {}
+    for column in OPTIONAL:
+        value = fields.get(column)
+        text = "" if value is None else str(value).strip()
+        if not text:
+            continue
+        if column == "positions":
+            if text not in POSITION_SOURCES:
+                raise LineTableError(f"column positions: expected one of "
+                                     f"{', '.join(POSITION_SOURCES)}, got {text!r}", where=where)
+            out[column] = text
+        else:
+            out[column] = base / text
+    return out
+
+
+def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineEntry]:
+    """Read and validate a line table CSV.
+
+    With ``ends=False`` only the ``file`` column is required (positions come from the files).
+
+    Raises
+    ------
+    LineTableError
+        Missing file or columns, an empty table, an empty or non-numeric field (naming the row),
+        a zero-length line or a file named twice.
+    """
+    path = Path(path)
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except FileNotFoundError:
+        raise LineTableError("line table not found", where=str(path)) from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise LineTableError(f"cannot read line table ({exc})", where=str(path)) from None
+    reader = csv.DictReader(text.splitlines())
+    header = [h.strip() for h in (reader.fieldnames or [])]
+    if not header:
+        raise LineTableError("line table is empty (no header row)", where=str(path))
+    sources = set()
+    if "positions" in header or "track" in header:
+        sources = {"given per row"}
+    missing = [c for c in (COLUMNS if ends and not sources else COLUMNS[:1]) if c not in header]
+    if missing:
+        raise LineTableError(
+            f"missing column(s) {', '.join(missing)}; expected header {','.join(COLUMNS)}",
+            where=str(path))
+    reader.fieldnames = header
+    entries = []
+    for row_number, row in enumerate(reader, start=2):
+        if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
+            continue  # blank line
+        entries.append(make_entry(row, base=path.parent, where=f"{path}:{row_number}",
+                                  ends=ends))
+    if not entries:
+        raise LineTableError("line table has no lines", where=str(path))
+    check_unique(entries)
+    return entries
+
+
+def check_unique(entries: list[LineEntry]) -> None:
+    """Refuse a survey that names the same file twice."""
+    seen: dict[Path, str] = {}
+    for e in entries:
+        key = e.file.resolve()
+        if key in seen:
+            raise LineTableError(f"file {e.file.name} is already used at {seen[key]}",
+                                 where=e.where)
+        seen[key] = e.where
+
+
+def with_ends(entry: LineEntry, x, y) -> LineEntry:
+    """The entry with its start and end taken from its first and last trace positions."""
+    import dataclasses
+    return dataclasses.replace(entry, start=(float(x[0]), float(y[0])),
+                               end=(float(x[-1]), float(y[-1])))

@@ -1,0 +1,398 @@
+"""One single-band GeoTIFF per slice, written with rasterio.
+
+Each file holds one slice as float32 with NaN nodata, the cube's CRS and its exact transform
+(from the grid corner and cell size, never from coordinates), tiled and DEFLATE-compressed with
+the floating-point predictor.  The window bounds travel in GDAL metadata tags and in the band
+description, because a GeoTIFF has no place for a depth coordinate.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import math
+import os
+import tempfile
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import rasterio
+import xarray as xr
+from rasterio.crs import CRS as RasterioCRS
+from rasterio.windows import Window
+
+from slicer.core.conventions import DEPTH, TWT, UNITS
+from slicer.core.errors import OutputError, SettingsError
+from slicer.core.progress import progress_bar
+from slicer.outputs.cube import check_tile, cube_crs, cube_transform, slice_axis
+
+#: Default TIFF block edge, pixels; TIFF tiles must be multiples of 16.
+_TILE = 256
+#: Largest TIFF block edge chosen for a large output tile, pixels.
+_MAX_BLOCK = 512
+
+#: Decimals of the window bounds in file names and band descriptions (mm, hundredths of ns).
+_DECIMALS = {DEPTH: 3, TWT: 2}
+
+
+def slice_file_name(index: int, top: float, bottom: float, axis: str = DEPTH, *,
+                    digits: int = 3) -> str:
+    """Return the GeoTIFF file name of one slice, e.g. ``slice_003_0.300-0.400m.tif``.
+
+    The zero-padded index comes first, so names sort like the slices (by depth or time) as long
+    as ``digits`` covers the largest index.
+
+    Parameters
+    ----------
+    index : int
+        Position of the slice in the cube (0-based, >= 0).
+    top, bottom : float
+        Window bounds, m for depth or ns for two-way time.
+    axis : {"depth", "twt"}
+        Slice dimension; selects the unit written into the name.
+    digits : int
+        Minimum width of the zero-padded index.
+    """
+    if axis not in _DECIMALS:
+        raise SettingsError(f"slice axis must be {DEPTH!r} or {TWT!r}, not {axis!r}",
+                            where="axis")
+    if int(index) < 0:
+        raise SettingsError(f"slice index must be >= 0, got {index}", where="index")
+    dec = _DECIMALS[axis]
+    return (f"slice_{int(index):0{int(digits)}d}_{float(top):.{dec}f}-{float(bottom):.{dec}f}"
+            f"{UNITS[axis]}.tif")
+
+
+def _tile_block(tile: int) -> int:
+    # The largest multiple of 16 (TIFF 6.0: tile edges are multiples of 16), at most 512,
+    # that divides the tile: every tile written then fills whole TIFF blocks, so GDAL never
+    # compresses a half-filled block and has to rewrite it later.
+    for size in range(min(_MAX_BLOCK, tile) // 16 * 16, 15, -16):
+        if tile % size == 0:
+            return size
+    return _TILE
+
+
+def _block(n: int, tile: int = _TILE) -> int:
+    # Whole blocks for large rasters; one block (rounded up to 16) for small ones, so a
+    # small slice is not padded out to a mostly empty 256 x 256 block.
+    return min(_tile_block(tile), 16 * math.ceil(n / 16))
+
+
+def _number(value: float) -> str:
+    return f"{float(value):.10g}"
+
+
+def _tag_text(value) -> str:
+    if isinstance(value, str):
+        return value
+    if isinstance(value, Sequence):
+        return "; ".join(str(v) for v in value)
+    return str(value)
+
+
+def _rasterio_crs(cube: xr.DataArray) -> RasterioCRS | None:
+    pcrs = cube_crs(cube)
+    if pcrs is None:
+        return None
+    # An EPSG code gives GDAL a plain ProjectedCRSGeoKey; otherwise hand over the full WKT.
+    code = pcrs.to_epsg()
+    return RasterioCRS.from_epsg(code) if code else RasterioCRS.from_wkt(pcrs.to_wkt())
+
+
+class SliceTiffWriter:
+    """One temporary GeoTIFF per slice, filled window by window, renamed into place at the end.
+
+    Each file is a tiled float32 GeoTIFF with NaN nodata, the cube's CRS and exact transform,
+    DEFLATE with the floating-point predictor, and the tags and band description described in
+    :func:`write_slice_geotiffs`. Files are written under hidden temporary names beside their
+    final names (:func:`slice_file_name`); :meth:`commit` renames them all. Leaving the
+    ``with`` block on an exception removes every temporary file and leaves the final names
+    as they were.
+
+    Parameters
+    ----------
+    cube : xarray.DataArray
+        The cube, or any template of it (grid, windows, CRS, attrs; values are not read).
+    folder : path-like
+        Output folder; created if missing.
+    tags : mapping, optional
+        Extra dataset-level metadata tags.
+    tile : int
+        Edge of the windows that will be written, cells; the TIFF blocks are chosen to divide
+        it (multiples of 16, at most 512).
+    deferred : bool
+        Only reserve the temporary names: each file is then written whole, by
+        :func:`write_slice_file` with a job from :meth:`slice_job` (in any process), and
+        :meth:`commit` renames them as usual.
+    """
+
+    def __init__(self, cube: xr.DataArray, folder: str | os.PathLike, *,
+                 tags: Mapping[str, object] | None = None, tile: int = _TILE,
+                 deferred: bool = False):
+        axis = slice_axis(cube)
+        tile = int(tile)
+        if tile < 1:
+            raise SettingsError(f"tile must be a positive number of cells, got {tile}",
+                                where="tile")
+        self.folder = Path(folder)
+        if self.folder.exists() and not self.folder.is_dir():
+            raise OutputError("output path is a file, not a folder", where=str(self.folder))
+        self._created = [p for p in (self.folder, *self.folder.parents) if not p.exists()]
+        try:
+            self.folder.mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            raise OutputError(f"cannot create output folder ({exc.strerror})",
+                              where=str(self.folder)) from None
+        self.shape = tuple(cube.shape)
+        n_slices, ny, nx = self.shape
+        unit, dec = UNITS[axis], _DECIMALS[axis]
+        digits = max(3, len(str(n_slices - 1)))
+        tops = np.asarray(cube[f"{axis}_top"].values, dtype=np.float64)
+        bottoms = np.asarray(cube[f"{axis}_bottom"].values, dtype=np.float64)
+        common = {
+            "UNITS": str(cube.attrs.get("units", "")),
+            "PROCESSING": _tag_text(cube.attrs.get("processing", "")),
+        }
+        if axis == DEPTH and cube.attrs.get("velocity") is not None:
+            common["VELOCITY_M_PER_NS"] = _number(cube.attrs["velocity"])
+        extra = {str(k): _tag_text(v) for k, v in (tags or {}).items()}
+        self._profile = {
+            "driver": "GTiff", "width": nx, "height": ny, "count": 1, "dtype": "float32",
+            "crs": _rasterio_crs(cube), "transform": cube_transform(cube), "nodata": np.nan,
+            "tiled": True, "blockxsize": _block(nx, tile), "blockysize": _block(ny, tile),
+            # zlib level 1: envelope slices compress no better at the default level 6 (the
+            # floating-point predictor does the work), which took a fifth longer to write
+            "compress": "deflate", "predictor": 3, "zlevel": 1,
+            # Key directory version 1.1 as in OGC 19-008r4 (GeoTIFF 1.1).
+            "geotiff_version": "1.1",
+        }
+        self.paths: list[Path] = []
+        self._tags: list[dict[str, str]] = []
+        self._descriptions: list[str] = []
+        for i in range(n_slices):
+            top, bottom = float(tops[i]), float(bottoms[i])
+            self.paths.append(self.folder / slice_file_name(i, top, bottom, axis, digits=digits))
+            per_slice = {f"{axis.upper()}_TOP": _number(top),
+                         f"{axis.upper()}_BOTTOM": _number(bottom)}
+            if "depth_error" in cube.coords:  # one-sigma depth error from the velocity's std
+                per_slice["DEPTH_ERROR_M"] = _number(float(cube["depth_error"].values[i]))
+            self._tags.append({**per_slice, **common, **extra})
+            self._descriptions.append(f"{axis} {top:.{dec}f}-{bottom:.{dec}f} {unit}")
+        self._units = common["UNITS"]
+        self._temps: list[Path] = []
+        self._datasets: list = []
+        self._stack = contextlib.ExitStack()
+        self._state = "open"
+        try:
+            for path in self.paths:
+                fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=f".tmp{path.suffix}",
+                                           dir=self.folder)
+                os.close(fd)
+                self._temps.append(Path(tmp))
+                if deferred:
+                    continue
+                with self._naming(path):
+                    dst = rasterio.open(tmp, "w", **self._profile)
+                self._datasets.append(self._stack.enter_context(dst))
+        except BaseException:
+            self.abort()
+            raise
+
+    @property
+    def block_shape(self) -> tuple[int, int]:
+        """(rows, columns) of the TIFF blocks."""
+        return self._profile["blockysize"], self._profile["blockxsize"]
+
+    def __enter__(self) -> SliceTiffWriter:
+        return self
+
+    def __exit__(self, exc_type, exc, tb) -> None:
+        if exc_type is None:
+            if self._state != "committed":
+                self.commit()
+        else:
+            self.abort()
+
+    @staticmethod
+    @contextlib.contextmanager
+    def _naming(path: Path):
+        # A failing write names the final file, which is what the user knows of.
+        try:
+            yield
+        except (OSError, rasterio.errors.RasterioIOError) as exc:
+            raise OutputError(f"cannot write GeoTIFF ({exc})", where=str(path)) from None
+
+    def _check_open(self) -> None:
+        if self._state != "open":
+            raise OutputError(f"the GeoTIFFs are already {self._state}", where=str(self.folder))
+
+    def write_band(self, index: int, row0: int, col0: int, band) -> None:
+        """Write a window of slice ``index``: ``band`` (h, w) at grid row/column ``row0, col0``."""
+        self._check_open()
+        values = np.asarray(band, dtype=np.float32)
+        if values.ndim != 2:
+            raise SettingsError(f"a band window is 2-D, got shape {values.shape}", where="tile")
+        check_tile(values[None], (1, *self.shape[1:]), row0, col0)
+        h, w = values.shape
+        with self._naming(self.paths[index]):
+            self._datasets[index].write(np.ascontiguousarray(values), 1,
+                                        window=Window(int(col0), int(row0), w, h))
+
+    def write(self, row0: int, col0: int, block) -> None:
+        """Write one tile of every slice: ``block`` (n_slices, h, w) at ``row0, col0``."""
+        self._check_open()
+        values = check_tile(block, self.shape, row0, col0)
+        for i in range(self.shape[0]):
+            self.write_band(i, row0, col0, values[i])
+
+    def slice_job(self, index: int, store: str | os.PathLike) -> SliceFileJob:
+        """What :func:`write_slice_file` needs to write slice ``index`` from a Zarr store."""
+        return SliceFileJob(str(Path(store).resolve()), index,
+                            str(self._temps[index].resolve()), str(self.paths[index]),
+                            dict(self._profile), self._tags[index], self._descriptions[index],
+                            self._units)
+
+    def close(self) -> None:
+        """Finish the temporary files (tags, band descriptions, flush) without renaming them."""
+        if self._state == "closed":
+            return
+        self._check_open()
+        if not self._datasets:  # deferred: the files were written whole, by slice jobs
+            self._state = "closed"
+            return
+        try:
+            for path, dst, tags, description in zip(self.paths, self._datasets, self._tags,
+                                                    self._descriptions, strict=True):
+                with self._naming(path):
+                    dst.update_tags(**tags)
+                    dst.set_band_description(1, description)
+                    dst.set_band_unit(1, self._units)
+            with self._naming(self.folder):
+                self._stack.close()  # flushes the last blocks
+        except BaseException:
+            self.abort()
+            raise
+        self._state = "closed"
+
+    def commit(self) -> list[Path]:
+        """Close the files and rename each to its final name; return the final paths."""
+        self.close()
+        done = 0
+        try:
+            for tmp, path in zip(self._temps, self.paths, strict=True):
+                with self._naming(path):
+                    os.replace(tmp, path)
+                done += 1
+        except BaseException:
+            self._remove(self._temps[done:])
+            self._state = "aborted"
+            raise
+        self._state = "committed"
+        return list(self.paths)
+
+    def abort(self) -> None:
+        """Close and remove every temporary file; final names are left as they were."""
+        if self._state in ("committed", "aborted"):
+            return
+        self._state = "aborted"
+        with contextlib.suppress(Exception):
+            self._stack.close()
+        self._remove(self._temps)
+        for folder in self._created:  # innermost first; only folders this writer made
+            with contextlib.suppress(OSError):
+                folder.rmdir()
+
+    @staticmethod
+    def _remove(paths) -> None:
+        for tmp in paths:
+            with contextlib.suppress(FileNotFoundError):
+                tmp.unlink()
+
+
+@dataclass(frozen=True)
+class SliceFileJob:
+    """One slice GeoTIFF to write from a Zarr cube store (picklable, for worker processes)."""
+
+    store: str
+    index: int
+    temp: str
+    final: str
+    profile: dict
+    tags: dict
+    description: str
+    units: str
+
+
+def write_slice_file(job: SliceFileJob, values: np.ndarray | None = None) -> str:
+    """Write one whole slice GeoTIFF (under its temporary name) from a Zarr cube store.
+
+    ``values`` (ny, nx), if given, are the slice already read from the store. Returns the
+    temporary path. Errors name the final file, which is what the user knows of.
+    """
+    if values is None:
+        from slicer.outputs.zarr_store import read_slice
+        values = read_slice(job.store, job.index)
+    with SliceTiffWriter._naming(Path(job.final)), rasterio.open(job.temp, "w",
+                                                                 **job.profile) as dst:
+        dst.write(values, 1)
+        dst.update_tags(**job.tags)
+        dst.set_band_description(1, job.description)
+        dst.set_band_unit(1, job.units)
+    return job.temp
+
+
+def tile_windows(shape: tuple[int, ...], tile: int):
+    """Yield ``(row0, col0, h, w)`` of the tiles covering the plan grid of ``shape``, row-major."""
+    ny, nx = shape[-2:]
+    for row0 in range(0, ny, tile):
+        for col0 in range(0, nx, tile):
+            yield row0, col0, min(tile, ny - row0), min(tile, nx - col0)
+
+
+def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
+                         tags: Mapping[str, object] | None = None,
+                         progress: bool = True) -> list[Path]:
+    """Write every slice of ``cube`` to its own GeoTIFF in ``folder``.
+
+    Files are named by :func:`slice_file_name`; they are written under temporary names and
+    renamed only when all are complete (:class:`SliceTiffWriter`), so existing files of the
+    same name are replaced whole or not at all; nothing else in ``folder`` is touched.
+
+    Each file carries GDAL metadata tags ``DEPTH_TOP``/``DEPTH_BOTTOM`` (m) and
+    ``VELOCITY_M_PER_NS`` for depth slices, or ``TWT_TOP``/``TWT_BOTTOM`` (ns) for time slices,
+    plus ``UNITS`` (of the values), ``PROCESSING`` and any extra ``tags``; the band description
+    reads e.g. ``"depth 0.300-0.400 m"``.
+
+    Parameters
+    ----------
+    cube : xarray.DataArray
+        A cube as built by :func:`slicer.outputs.cube.new_cube`; a dask-backed cube is read one
+        tile at a time.
+    folder : path-like
+        Output folder; created if missing.
+    tags : mapping, optional
+        Extra dataset-level metadata tags (values converted to text, sequences joined with
+        ``"; "``).
+    progress : bool
+        Show a tqdm progress bar.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The files written, in slice order.
+
+    Raises
+    ------
+    OutputError
+        If ``folder`` is a file or cannot be created or written.
+    """
+    axis = slice_axis(cube)
+    data = cube.data
+    with SliceTiffWriter(cube, folder, tags=tags, tile=_TILE) as writer:
+        for i in progress_bar(range(cube.shape[0]), desc=f"GeoTIFF {axis} slices",
+                              unit="slice", enabled=progress):
+            for row0, col0, h, w in tile_windows(cube.shape, _TILE):
+                writer.write_band(i, row0, col0, data[i, row0:row0 + h, col0:col0 + w])
+        return writer.commit()

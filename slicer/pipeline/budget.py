@@ -1,0 +1,109 @@
+"""The memory a build will need, estimated before it starts, against a limit.
+
+A build holds at once: the trace x slice table and trace frames of the whole survey (a few
+dozen numbers per trace), one line per worker being processed (samples and the FFT work arrays
+of the envelope), and one output tile per worker being gridded (its weights and values). The
+estimate adds these up; a build that cannot fit in ``--memory-limit`` even with one worker is
+refused with the numbers, before anything is read.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+
+from slicer.core.errors import SettingsError
+
+#: Default budget for a build's working data (the interpreter and libraries add ~0.3 GB).
+DEFAULT_LIMIT = 1 << 30
+
+_UNITS = {"": 1, "b": 1, "kb": 1e3, "mb": 1e6, "gb": 1e9, "tb": 1e12,
+          "kib": 1 << 10, "mib": 1 << 20, "gib": 1 << 30, "tib": 1 << 40}
+
+#: Bytes per sample while a line is processed: float32 samples and copies at each step, and
+#: the complex128 FFT of the envelope on a trace zero-padded to twice its length.
+LINE_BYTES_PER_SAMPLE = 56
+#: Bytes per trace of the survey-wide table: positions, frame (direction, spacing), line id.
+TRACE_BYTES = 7 * 8 + 4
+#: Bytes per weight (sparse row, column, value, and the temporaries that build them).
+WEIGHT_BYTES = 48
+
+
+def parse_bytes(value, *, where: str = "--memory-limit") -> int:
+    """Bytes from ``1GB``, ``512MiB``, ``2e9`` or a number."""
+    if isinstance(value, int | float) and not isinstance(value, bool):
+        number, unit = float(value), ""
+    else:
+        m = re.fullmatch(r"\s*([0-9.]+(?:e[0-9]+)?)\s*([a-zA-Z]*)\s*", str(value))
+        if not m or m.group(2).lower() not in _UNITS:
+            raise SettingsError(f"expected a size such as 1GB or 512MiB, got {value!r}",
+                                where=where)
+        number, unit = float(m.group(1)), m.group(2).lower()
+    size = number * _UNITS[unit]
+    if not math.isfinite(size) or size <= 0:
+        raise SettingsError(f"must be a positive size, got {value!r}", where=where)
+    return int(size)
+
+
+def human(n: float) -> str:
+    """``1.2 GB`` style."""
+    for unit, size in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
+        if n >= size:
+            return f"{n / size:.1f} {unit}"
+    return f"{n:.0f} B"
+
+
+@dataclass(frozen=True)
+class Estimate:
+    """Peak working memory of a build, by part (bytes)."""
+
+    table: int
+    lines: int
+    tiles: int
+    cube: int
+    workers: int
+    #: The overview's decimated slices, kept while a streamed cube is written.
+    overview: int = 0
+
+    @property
+    def total(self) -> int:
+        return self.table + self.lines + self.tiles + self.cube + self.overview
+
+    def describe(self) -> str:
+        return (f"about {human(self.total)}: {human(self.table)} for the trace table, "
+                f"{human(self.lines)} for {self.workers} line(s) in work, {human(self.tiles)} "
+                f"for tiles, {human(self.cube)} for the cube in memory"
+                + (f", {human(self.overview)} for the overview" if self.overview else ""))
+
+
+def estimate(*, n_traces: int, max_line_traces: int, n_samples: int, n_slices: int,
+             grid_cells: int, tile: int, neighbours: float, workers: int,
+             cube_in_memory: bool) -> Estimate:
+    """Estimate a build's peak working memory.
+
+    Parameters
+    ----------
+    n_traces, max_line_traces, n_samples, n_slices : int
+        Survey size: all traces, the longest line, samples per trace, slices.
+    grid_cells : int
+        Cells of the output grid.
+    tile : int
+        Tile edge (cells).
+    neighbours : float
+        Traces weighing in on a cell, on average.
+    workers : int
+        Tasks running at once.
+    cube_in_memory : bool
+        Whether the whole cube is assembled in memory (rather than streamed to disk).
+    """
+    table = n_traces * (TRACE_BYTES + 4 * n_slices)
+    lines = workers * max_line_traces * n_samples * LINE_BYTES_PER_SAMPLE
+    cells = min(grid_cells, tile * tile)
+    tiles = workers * int(cells * (neighbours * WEIGHT_BYTES + 12 * n_slices))
+    cube = 4 * n_slices * grid_cells if cube_in_memory else 0
+    # A streamed cube's writer keeps the overview's panels (at most MAX_SHEET_CELLS cells).
+    from slicer.outputs.figures import MAX_SHEET_CELLS
+    overview = 0 if cube_in_memory else 4 * min(n_slices * grid_cells, MAX_SHEET_CELLS)
+    return Estimate(table=int(table), lines=int(lines), tiles=tiles, cube=int(cube),
+                    workers=workers, overview=int(overview))

@@ -1,0 +1,409 @@
+"""The pipeline: survey lines in, georeferenced slices, cube, overview and record out.
+
+read -> place -> time zero -> dewow -> background -> gain -> envelope -> reduce to windows
+(one line in memory at a time) -> neighbour weights (once) -> grid every slice -> write.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import json
+import math
+import platform
+import sys
+import time
+import warnings
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from slicer.core.atomic import atomic_write_text, prepare_output_dir
+from slicer.core.errors import SettingsError, SlicerWarning
+from slicer.geometry.positioning import prepare_survey
+from slicer.geometry.survey import SurveyInfo, survey_info
+from slicer.gridding.grid import (
+    Grid,
+    TraceFrame,
+    grid_for,
+    grid_tile,
+    line_spacings,
+    tile_count,
+    tile_jobs,
+    trace_frame,
+    trace_spacing,
+)
+from slicer.gridding.levelling import level_lines
+from slicer.io.reading import describe_file, line_info
+from slicer.outputs.cube import empty_cube, new_cube
+from slicer.outputs.sink import CubeSink
+from slicer.outputs.zarr_store import open_cube_zarr
+from slicer.pipeline.budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
+from slicer.pipeline.engine import Engine, parse_scheduler
+from slicer.pipeline.line_chain import processing_summary
+from slicer.pipeline.line_tasks import nice_number, reduce_survey
+from slicer.pipeline.settings import BuildSettings
+from slicer.pipeline.worker_outputs import WorkerSink
+from slicer.velocity.models import depth_error
+
+#: Tile edge of the output grid, cells: each tile is gridded from the traces near it only.
+TILE = 256
+
+
+def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float | None = None,
+                crs=None, velocity: float | None = None, processing: str = "",
+                engine: Engine | None = None, tile: int = 256,
+                progress: bool = True) -> tuple[xr.DataArray, dict]:
+    """Grid a trace x slice table onto a regular grid: the cube, and how it was gridded.
+
+    Parameters
+    ----------
+    table : xarray.DataArray
+        Dims ``(trace, slice)`` with per-trace ``x``, ``y`` (m) and ``line`` (int), and
+        per-slice ``top``, ``bottom`` (``attrs["axis"]`` depth or twt).
+    cell : float, optional
+        Cell edge (m). Default a round number near a quarter of the median line spacing.
+    radius : float, optional
+        Search radius (m); see :func:`slicer.neighbour_weights`.
+    crs : optional
+        Survey CRS, stored in the cube.
+    velocity : float, optional
+        Radar velocity (m/ns), stored in the cube's attrs.
+    processing : str
+        Summary of the processing, stored in the cube's attrs.
+    engine : Engine, optional
+        Where the tile tasks run; default dask's threads.
+    tile : int
+        Tile edge in cells: each tile is gridded from the traces near it only.
+    """
+    layout = GridLayout.of(table, cell=cell, radius=radius, tile=tile)
+    values = layout.assemble(table.values, engine=engine, progress=progress)
+    cube = new_cube(values, **layout.cube_kwargs(table, crs=crs, velocity=velocity,
+                                                 processing=processing))
+    return cube, layout.details(empty=int(np.isnan(values[0]).sum()))
+
+
+@dataclass(frozen=True)
+class GridLayout:
+    """The output grid of a trace table, its trace frames and its tiles."""
+
+    grid: Grid
+    frame: TraceFrame
+    tile: int
+
+    @classmethod
+    def of(cls, table: xr.DataArray, *, cell: float | None, radius: float | None,
+           tile: int = TILE) -> GridLayout:
+        x, y, line = table["x"].values, table["y"].values, table["line"].values
+        cell = default_cell(x, y, line) if cell is None else cell
+        grid = grid_for(x, y, cell=cell)
+        return cls(grid, trace_frame(x, y, line, cell=grid.cell, radius=radius), tile)
+
+    def shape(self, n_slices: int) -> tuple[int, int, int]:
+        return (n_slices, self.grid.ny, self.grid.nx)
+
+    def blocks(self, values: np.ndarray, *, engine: Engine | None = None,
+               progress: bool = True):
+        """Grid ``values`` (traces x slices) tile by tile: yields ``(row0, col0, block)``."""
+        if engine is None:
+            with Engine(parse_scheduler("threads")) as own:
+                yield from self.blocks(values, engine=own, progress=progress)
+            return
+        yield from engine.map(grid_tile, self.jobs(values), desc="gridding", unit="tile",
+                              progress=progress, weights=[1] * self.count)
+
+    def jobs(self, values: np.ndarray):
+        """The tile tasks of ``values`` (traces x slices), row-major."""
+        return tile_jobs(self.grid, self.frame, values, tile=self.tile)
+
+    @property
+    def count(self) -> int:
+        """Number of tiles."""
+        return tile_count(self.grid, self.tile)
+
+    def assemble(self, values: np.ndarray, *, engine: Engine | None = None,
+                 progress: bool = True) -> np.ndarray:
+        """The whole cube in memory: ``(slices, ny, nx)``, NaN where no tile reaches."""
+        out = np.full(self.shape(values.shape[1]), np.nan, dtype=np.float32)
+        for row0, col0, block in self.blocks(values, engine=engine, progress=progress):
+            out[:, row0:row0 + block.shape[1], col0:col0 + block.shape[2]] = block
+        return out
+
+    def cube_kwargs(self, table: xr.DataArray, *, crs, velocity, processing) -> dict:
+        return {"west": self.grid.west, "north": self.grid.north, "cell": self.grid.cell,
+                "crs": crs, "top": table["top"].values, "bottom": table["bottom"].values,
+                "axis": table["top"].attrs.get("axis", "depth"), "velocity": velocity,
+                "processing": processing}
+
+    def details(self, *, empty: int | None = None) -> dict:
+        g, f = self.grid, self.frame
+        out = {"west": g.west, "north": g.north, "cell": g.cell, "nx": g.nx, "ny": g.ny,
+               "tile": self.tile, "search_radius_m": f.radius, "line_spacing_m": f.line_spacing,
+               "along_line_half_width_m": f.along}
+        if empty is not None:
+            out["empty_cells"] = empty
+        return out
+
+
+def default_cell(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> float:
+    """A round cell size near a quarter of the median line spacing (m)."""
+    spacing = np.nanmedian(line_spacings(x, y, line))
+    base = spacing / 4 if math.isfinite(spacing) else 4 * trace_spacing(x, y, line)
+    return nice_number(base)
+
+
+@dataclass
+class BuildResult:
+    """What a build made: the cube, the files written and the record of how."""
+
+    cube: xr.DataArray
+    record: dict
+    files: list[Path] = field(default_factory=list)
+    warnings: list[str] = field(default_factory=list)
+
+
+@dataclass
+class _Reduction:
+    """A survey reduced to slice values, with its grid and the record so far."""
+
+    reduced: object
+    layout: GridLayout
+    kwargs: dict
+    record: dict
+    started: float
+
+
+def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
+            cube_in_memory: bool) -> _Reduction:
+    started = time.perf_counter()
+    settings = prepare_survey(settings)
+    info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
+    budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=cube_in_memory)
+    reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)
+    if settings.level:  # per line and slice, against its neighbouring lines
+        reduced.table = level_lines(reduced.table)
+    read_s = time.perf_counter() - started
+    velocity = settings.resolved_velocity if reduced.windows.axis == "depth" else None
+    summary = processing_summary(settings, reduced.dewow_ns)
+    layout = GridLayout.of(reduced.table, cell=settings.cell, radius=settings.radius)
+    kwargs = layout.cube_kwargs(reduced.table, crs=settings.crs, velocity=velocity,
+                                processing=summary)
+    record = {
+        "slicer": _version(),
+        "created_utc": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
+        "settings": settings.to_record(),
+        "processing": summary,
+        "engine": engine.spec.label,
+        "memory_estimate_bytes": budget.total,
+        "survey": {"lines": len(settings.lines), "traces": info.n_traces,
+                   "samples_per_trace": info.n_samples,
+                   "sample_interval_ns": info.sample_interval_ns},
+        "slices": {"axis": reduced.windows.axis, "units": reduced.windows.units,
+                   "top": reduced.windows.top.tolist(),
+                   "bottom": reduced.windows.bottom.tolist()},
+        "grid": layout.details(),
+        "lines": reduced.lines,
+        "ties": reduced.ties,
+        "seconds": {"read_and_process": round(read_s, 3)},
+        "environment": _environment(),
+    }
+    return _Reduction(reduced, layout, kwargs, record, started)
+
+
+def build_cube(settings: BuildSettings, *, progress: bool = True,
+               engine: Engine | None = None) -> BuildResult:
+    """Run the whole pipeline in memory, writing nothing: the cube and its record.
+
+    ``engine`` (default: the one ``settings.scheduler`` names) runs the line and tile tasks.
+    """
+    if engine is None:
+        with open_engine(settings) as own:
+            return build_cube(settings, progress=progress, engine=own)
+    r = _reduce(settings, engine, progress=progress, cube_in_memory=True)
+    gridding = time.perf_counter()
+    values = r.layout.assemble(r.reduced.table.values, engine=engine, progress=progress)
+    cube = with_depth_error(new_cube(values, **r.kwargs), settings, r.reduced.table)
+    r.record["grid"]["empty_cells"] = int(np.isnan(values[0]).sum())
+    r.record["seconds"]["grid"] = round(time.perf_counter() - gridding, 3)
+    return BuildResult(cube=cube, record=r.record)
+
+
+def with_depth_error(cube: xr.DataArray, settings: BuildSettings,
+                     table: xr.DataArray) -> xr.DataArray:
+    """Add ``depth_error`` (m, one sigma, per slice centre) from the velocity's uncertainty.
+
+    For a lateral model the error at the survey's median trace position is given.
+    """
+    model = settings.resolved_model
+    if model is None or cube.dims[0] != "depth":
+        return cube
+    x = y = None
+    if getattr(model, "lateral", False):
+        x, y = float(np.median(table["x"].values)), float(np.median(table["y"].values))
+    error = np.asarray(depth_error(model, cube["depth"].values, x=x, y=y), dtype=float)
+    out = cube.assign_coords(depth_error=("depth", error, {
+        "units": "m", "long_name": "one-sigma depth error from the velocity uncertainty"}))
+    out.attrs["velocity_model"] = model.describe()
+    return out
+
+
+def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
+                 cube_in_memory: bool) -> Estimate:
+    """Estimate the build's working memory from the headers and line table; refuse if over.
+
+    Raises
+    ------
+    SettingsError
+        The estimate exceeds ``settings.memory_limit`` (default 1 GiB), naming the parts.
+    """
+    limit = (parse_bytes(settings.memory_limit) if settings.memory_limit is not None
+             else DEFAULT_LIMIT)
+    ends = np.array([[*e.start, *e.end] for e in settings.lines])
+    x, y = ends[:, [0, 2]].ravel(), ends[:, [1, 3]].ravel()
+    line = np.repeat(np.arange(len(settings.lines)), 2)
+    cell = settings.cell or default_cell(x, y, line)
+    grid = grid_for(x, y, cell=cell)
+    windows = settings.requested_windows
+    n_slices = len(windows) if windows is not None else 24
+    step = float(np.median([e.length / max(i.n_traces - 1, 1)
+                            for e, i in zip(settings.lines, info.lines, strict=True)]))
+    along = max(cell, step)
+    est = estimate(n_traces=info.n_traces, max_line_traces=max(i.n_traces for i in info.lines),
+                   n_samples=info.n_samples, n_slices=n_slices, grid_cells=grid.size,
+                   tile=TILE, neighbours=4 * along / step, workers=workers,
+                   cube_in_memory=cube_in_memory)
+    if est.total > limit:
+        raise SettingsError(f"this build needs {est.describe()}, more than the memory limit of "
+                            f"{human(limit)}; raise --memory-limit, use fewer workers or a "
+                            "larger --cell", where="--memory-limit")
+    return est
+
+
+def open_engine(settings: BuildSettings) -> Engine:
+    """The engine ``settings.scheduler`` names (a context manager)."""
+    traces = None
+    if settings.scheduler == "auto":
+        traces = sum(line_info(e.file).n_traces for e in settings.lines)
+    return Engine(parse_scheduler(settings.scheduler, traces=traces))
+
+
+def build(settings: BuildSettings, *, progress: bool = True,
+          command: list[str] | None = None) -> BuildResult:
+    """Build the slices of a survey and write them to ``settings.out``.
+
+    Writes ``slices/`` (one GeoTIFF per slice), ``cube.zarr`` and ``cube.nc`` (the cube as
+    Zarr and CF NetCDF), ``overview.png`` and ``record.json`` (every setting and input, with
+    checksums). The cube is gridded tile by tile straight into the outputs, which stay under
+    temporary names until all are complete, so memory does not grow with the grid and a build
+    that fails or is stopped leaves no half-written file.
+
+    Parameters
+    ----------
+    settings : BuildSettings
+        What to build; ``settings.out`` must be set.
+    progress : bool
+        Show progress bars (on a terminal).
+    command : list of str, optional
+        The command line, kept in the record.
+
+    Raises
+    ------
+    SlicerError
+        On any bad input or setting, before anything is written.
+    """
+    if settings.out is None:
+        raise SettingsError("no output folder given", where="--out")
+    out = prepare_output_dir(settings.out, overwrite=settings.overwrite, create=False)
+    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine:
+        warnings.simplefilter("always", SlicerWarning)
+        r = _reduce(settings, engine, progress=progress, cube_in_memory=False)
+        r.record["inputs"] = None  # filled in below, in this place of the record
+        if command is not None:
+            r.record["command"] = command
+        gridding = time.perf_counter()
+        table = r.reduced.table
+        template = with_depth_error(
+            empty_cube(r.layout.shape(table.sizes["slice"]), tile=TILE, **r.kwargs), settings,
+            table)
+        prepare_output_dir(out, overwrite=settings.overwrite)
+        tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
+        common = dict(tags=tags, tile=TILE, progress=progress, title=settings.title)
+        if engine.offloader() is not None:  # workers on this machine write every output
+            sink = WorkerSink(out, template, engine=engine, **common)
+        else:
+            sink = CubeSink(out, template, offload=None, **common)
+        with sink:
+            if isinstance(sink, WorkerSink):
+                sink.grid(r.layout.jobs(table.values), count=r.layout.count)
+            else:
+                for row0, col0, block in r.layout.blocks(table.values, engine=engine,
+                                                         progress=progress):
+                    sink.write(row0, col0, block)
+        # The line files were checksummed by their tasks; the tables and geometry files
+        # (small) are done here.
+        r.record["inputs"] = [describe_file(p) for p in _side_inputs(settings)] + \
+            r.reduced.inputs
+        files = list(sink.files)
+        if settings.overwrite:  # slices of an earlier build that this one does not replace
+            slices_dir = out / "slices"
+            for stale in sorted(set(slices_dir.glob("slice_*.tif")) - set(files)):
+                stale.unlink()
+    warned = [str(w.message) for w in caught if issubclass(w.category, SlicerWarning)]
+    for w in caught:
+        if not issubclass(w.category, SlicerWarning):
+            warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    cube = open_cube_zarr(out / "cube.zarr")
+    r.record["grid"]["empty_cells"] = int(np.isnan(cube.isel({cube.dims[0]: 0}).values).sum())
+    r.record["warnings"] = warned
+    r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
+    r.record["outputs"] = [str(p.relative_to(out)) for p in files]
+    record_path = out / "record.json"
+    atomic_write_text(record_path, json.dumps(r.record, indent=2, default=_jsonable) + "\n")
+    for message in warned:  # the caller sees them too
+        warnings.warn(message, SlicerWarning, stacklevel=2)
+    return BuildResult(cube=cube, record=r.record, files=[*files, record_path],
+                       warnings=warned)
+
+
+def _side_inputs(settings: BuildSettings) -> list[Path]:
+    """The build's input files other than the line files, each once, in a stable order."""
+    files = [settings.source]
+    for f in (settings.velocity_model, settings.control_points):
+        if f is not None:
+            files.append(Path(f))
+    for e in settings.lines:
+        files.extend(p for p in (e.track, e.marks, e.channels) if p is not None)
+    for fit in settings.extras.get("control_fits", []):
+        files.append(Path(fit["control_points"]))
+    return list(dict.fromkeys(files))
+
+
+def _version() -> str:
+    from slicer import __version__
+    return __version__
+
+
+def _environment() -> dict:
+    import importlib.metadata as md
+    versions = {}
+    for name in ("numpy", "scipy", "xarray", "pyproj", "rasterio", "segyio", "matplotlib",
+                 "h5netcdf", "dask"):
+        try:
+            versions[name] = md.version(name)
+        except md.PackageNotFoundError:
+            versions[name] = None
+    return {"python": sys.version.split()[0], "platform": platform.platform(), **versions}
+
+
+def _jsonable(value):
+    if isinstance(value, np.generic):
+        return value.item()
+    if isinstance(value, np.ndarray):
+        return value.tolist()
+    if isinstance(value, Path):
+        return str(value)
+    raise TypeError(f"cannot record {type(value).__name__}")
+
+
+__all__ = ["BuildResult", "build", "build_cube", "grid_slices"]

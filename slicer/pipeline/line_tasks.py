@@ -1,0 +1,246 @@
+"""Reducing a survey to slice values: every line read, placed, processed and cut into windows.
+
+Each line is one task (:func:`reduce_line`): a picklable :class:`LineJob` in, a few dozen
+numbers per trace out, so lines run concurrently on any engine (:mod:`slicer.pipeline.engine`) and
+only
+one line per worker is ever in memory. The first line runs first, alone: its record decides
+which slice windows fit, and with ``dewow = "auto"`` its dominant frequency sets the dewow
+window of every line (one filter for the whole survey).
+"""
+
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass, field
+
+import numpy as np
+import xarray as xr
+
+from slicer.core.conventions import TRACE, TWT
+from slicer.core.errors import SettingsError, SlicerWarning
+from slicer.geometry.survey import SurveyInfo, load_line, survey_info
+from slicer.gridding.windows import Windows, make_windows, record_reach, window_values
+from slicer.io.linetable import LineEntry
+from slicer.io.reading import describe_file
+from slicer.pipeline.engine import Engine, parse_scheduler
+from slicer.pipeline.line_chain import process_line
+from slicer.pipeline.settings import BuildSettings
+from slicer.processing.steps import (
+    correct_time_zero,
+    dominant_frequency,
+)
+from slicer.velocity.models import ConstantVelocity
+
+
+def nice_number(value: float) -> float:
+    """The largest of 1, 2 or 5 times a power of ten that does not exceed ``value``."""
+    if not math.isfinite(value) or value <= 0:
+        raise ValueError(f"nice_number needs a positive value, got {value}")
+    exponent = math.floor(math.log10(value))
+    for m in (5, 2, 1):
+        candidate = m * 10.0 ** exponent
+        if candidate <= value * (1 + 1e-9):
+            return float(f"{candidate:.12g}")
+    return float(f"{10.0 ** exponent:.12g}")
+
+
+def reach_depth(velocity, record_ns: float) -> float:
+    """Depth (m) a record ``record_ns`` long reaches, everywhere, with a velocity or model."""
+    if not hasattr(velocity, "profile"):
+        return velocity * record_ns / 2
+    if getattr(velocity, "lateral", False):
+        return float(np.min(velocity.velocity)) * record_ns / 2
+    from slicer.velocity.models import depth_of_time
+    return float(depth_of_time(velocity, record_ns))
+
+
+def default_windows(record_ns: float, velocity: float | None) -> Windows:
+    """About twenty slices from the surface to the end of a record ``record_ns`` long."""
+    if velocity is not None:
+        reach, axis = reach_depth(velocity, record_ns), "depth"
+    else:
+        reach, axis = record_ns, "twt"
+    step = nice_number(reach / 20)
+    bottom = math.floor(reach / step + 1e-9) * step
+    return make_windows(0.0, bottom, step, axis=axis)
+
+
+def fit_windows(windows: Windows, record_ns: float, velocity: float | None,
+                where: str) -> Windows:
+    """Drop windows below the end of the record (warning); refuse if none is left."""
+    keep = record_reach(record_ns, windows, velocity=velocity)
+    unit = windows.units
+    if not keep.any():
+        reach = record_ns if windows.axis == TWT else reach_depth(velocity, record_ns)
+        raise SettingsError(
+            f"every slice lies below the record, which reaches {reach:.3g} {unit} below "
+            "time zero", where=where)
+    if not keep.all():
+        dropped = windows.select(~keep)
+        warnings.warn(f"{len(dropped)} slice(s) from {dropped.top[0]:g} {unit} down lie below "
+                      f"the end of the record and are left out", SlicerWarning, stacklevel=2)
+    return windows.select(keep)
+
+
+@dataclass(frozen=True)
+class LineJob:
+    """Everything one line's task needs (picklable, for process and cluster engines)."""
+
+    number: int
+    entry: LineEntry
+    settings: BuildSettings
+    windows: Windows
+    velocity: float | None
+    interval_ns: float
+    dewow_ns: float | None
+    #: Tie correction ``(time_zero_ns, gain)`` of this line, or None (see
+    #: :mod:`slicer.pipeline.survey_ties`).
+    correction: tuple[float, float] | None = None
+
+
+def reduce_line(job: LineJob) -> dict:
+    """Read, place, process and reduce one line: its trace x slice values and what was found.
+
+    Returns
+    -------
+    dict
+        ``values`` (traces, slices) float32, ``x``, ``y`` (m), ``line`` (the job number),
+        ``time_zero_ns``, ``history`` and ``input`` (the file's size and SHA-256, for the
+        record: taken here, where the file is read anyway, so the process that builds never
+        reads the survey a second time; None for the second and later channels of a swath).
+    """
+    line = load_line(job.entry, job.settings, sample_interval_ns=job.interval_ns)
+    env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
+    if job.correction is not None:
+        from slicer.pipeline.survey_ties import correct_line
+        env = correct_line(env, *job.correction)
+    values = window_values(depth_axis_for(env, job.windows, job.velocity), job.windows,
+                           velocity=job.velocity)
+    return {"values": np.asarray(values, dtype=np.float32),
+            "x": line["x"].values, "y": line["y"].values, "line": job.number,
+            "file": str(job.entry.file), "traces": line.sizes[TRACE],
+            "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
+            "history": env.attrs.get("history", ""),
+            "input": describe_file(job.entry.file) if job.entry.channel_index == 0 else None}
+
+
+def depth_axis_for(env: xr.DataArray, windows: Windows, model) -> xr.DataArray:
+    """``env`` resampled to depth when depth windows meet a velocity that is not one number.
+
+    With one velocity a depth window is a time window and nothing is resampled. With a
+    layered or lateral model each trace is resampled to a depth axis whose step is the depth
+    the slowest layer covers in one sample (so no sample is lost), then windows are cut in
+    depth.
+    """
+    if windows.axis != "depth" or model is None or not hasattr(model, "profile"):
+        return env
+    if isinstance(model, ConstantVelocity):
+        return env
+    from slicer.velocity.models import to_depth_axis
+    dt = float(env[TWT].values[1] - env[TWT].values[0])
+    v_min = float(np.min(model.velocity))
+    step = v_min * dt / 2
+    depths = np.arange(0.0, float(windows.bottom.max()) + 2 * step, step)
+    return to_depth_axis(env, model, depths=depths)
+
+
+@dataclass
+class Reduced:
+    """The survey reduced to slice values: a trace x slice table plus what was learned."""
+
+    table: xr.DataArray
+    info: SurveyInfo
+    windows: Windows
+    dewow_ns: float | None
+    lines: list[dict] = field(default_factory=list)
+    #: The tie report (:func:`slicer.pipeline.survey_ties.tie_survey`), when ties were measured.
+    ties: dict | None = None
+    #: Size and SHA-256 of every line file (:func:`slicer.io.reading.describe_file`).
+    inputs: list[dict] = field(default_factory=list)
+
+
+def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
+    """The requested windows, checked against the record when time zero is fixed."""
+    windows = settings.requested_windows
+    if isinstance(settings.time_zero, str):
+        return windows
+    t0 = float(settings.time_zero)
+    if not 0 <= t0 < info.record_ns:
+        raise SettingsError(f"time zero {settings.time_zero} ns lies outside the record "
+                            f"(0 to {info.record_ns:g} ns)", where="--time-zero")
+    if windows is None:
+        return None
+    where = "--times" if settings.times is not None else "--depths"
+    return fit_windows(windows, info.record_ns - t0,
+                       settings.resolved_velocity or settings.resolved_model, where)
+
+
+def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
+                  info: SurveyInfo | None = None, progress: bool = True) -> Reduced:
+    """Read, place, process and reduce every line of the survey to its slice values.
+
+    Parameters
+    ----------
+    settings : BuildSettings
+        The build.
+    engine : Engine, optional
+        Where the line tasks run; default dask's threads on this machine.
+    info : SurveyInfo, optional
+        The survey's headers, if already read.
+    progress : bool
+        Show a progress bar (on a terminal).
+    """
+    if engine is None:
+        with Engine(parse_scheduler("threads")) as own:
+            return reduce_survey(settings, engine=own, info=info, progress=progress)
+    info = info or survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
+    velocity = settings.resolved_velocity or settings.resolved_model
+    where = "--times" if settings.times is not None else "--depths"
+    windows = plan_windows(settings, info)
+
+    record_ns = (info.record_ns - float(settings.time_zero)
+                 if not isinstance(settings.time_zero, str) else None)
+    dewow_ns, first = None, None
+    if settings.dewow == "auto" or windows is None or record_ns is None:
+        first = load_line(settings.lines[0], settings, sample_interval_ns=info.sample_interval_ns)
+    if settings.dewow == "auto":
+        t0_line = correct_time_zero(first, time_zero=settings.time_zero,
+                                    threshold=settings.time_zero_threshold)
+        dewow_ns = 1.5 / dominant_frequency(t0_line)
+    if windows is None or record_ns is None:
+        env = process_line(first, settings, dewow_ns=dewow_ns)
+        record_ns = float(env[TWT].values[-1])
+        windows = (default_windows(record_ns, velocity) if windows is None
+                   else fit_windows(windows, record_ns, velocity, where))
+    ties, corrections = None, {}
+    if settings.ties != "off":
+        from slicer.pipeline.survey_ties import tie_survey
+        ties, corrections = tie_survey(settings, engine=engine, info=info, dewow_ns=dewow_ns,
+                                       progress=progress)
+    jobs = [LineJob(k, entry, settings, windows, velocity, info.sample_interval_ns, dewow_ns,
+                    corrections.get(k))
+            for k, entry in enumerate(settings.lines)]
+    sizes = [line.n_traces for line in info.lines]
+    results = list(engine.map(reduce_line, jobs, desc="reading and processing", unit="trace",
+                              progress=progress, weights=sizes))
+    inputs = [r["input"] for r in results if r["input"] is not None]
+    return Reduced(table=assemble_table(results, windows), info=info, windows=windows,
+                   inputs=inputs,
+                   dewow_ns=dewow_ns, ties=ties,
+                   lines=[{k: r[k] for k in ("file", "traces", "time_zero_ns", "history")}
+                          for r in results])
+
+
+def assemble_table(results: list[dict], windows: Windows) -> xr.DataArray:
+    """Concatenate per-line results into one ``(trace, slice)`` table with positions."""
+    values = np.concatenate([r["values"] for r in results], axis=0)
+    u = windows.units
+    return xr.DataArray(
+        values, dims=(TRACE, "slice"), name="value",
+        coords={"x": (TRACE, np.concatenate([r["x"] for r in results]), {"units": "m"}),
+                "y": (TRACE, np.concatenate([r["y"] for r in results]), {"units": "m"}),
+                "line": (TRACE, np.concatenate([np.full(r["traces"], r["line"], np.int32)
+                                                for r in results])),
+                "top": ("slice", windows.top, {"units": u, "axis": windows.axis}),
+                "bottom": ("slice", windows.bottom, {"units": u, "axis": windows.axis})})

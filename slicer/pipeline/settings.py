@@ -1,0 +1,461 @@
+"""The one settings object of a build, read from a line table or TOML survey file plus flags.
+
+A TOML survey file holds the lines and any build option; command-line flags override it. Keys
+are the long option names with ``_`` for ``-`` (see :data:`OPTION_KEYS`)::
+
+    lines = "lines.csv"            # a line table beside this file, or inline:
+    # [[line]]
+    # file = "L000.sgy"
+    # start_x = 512000.0 ...
+    crs = "EPSG:32633"
+    sample_interval = 0.1          # ns
+    time_zero = 3.0                # ns, or "auto"
+    velocity = 0.1                 # m/ns (or permittivity = 9)
+    cell = 0.1                     # m
+    depths = "0:2.4:0.1"           # m, TOP:BOTTOM:STEP
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pyproj
+
+from slicer.core.errors import LineTableError, SettingsError
+from slicer.core.physics import check_velocity, velocity_from_permittivity
+from slicer.gridding.grid import check_cell
+from slicer.gridding.windows import Windows, make_windows, parse_range
+from slicer.io.linetable import (
+    POSITION_SOURCES,
+    LineEntry,
+    check_unique,
+    make_entry,
+    read_line_table,
+)
+from slicer.io.tomlfile import read_toml
+from slicer.velocity.model_file import read_velocity_model
+from slicer.velocity.models import ConstantVelocity
+
+#: Build options that a TOML survey file may set, with their meaning (for the docs).
+OPTION_KEYS = {
+    "crs": "survey CRS of the line coordinates (EPSG code, WKT or PROJ string)",
+    "positions": "where trace positions come from: 'table' (even from start to end, or "
+                 "stretched between distance marks), 'headers' (the files' trace-header "
+                 "coordinates, in the survey CRS) or 'track' (each row's GNSS track file)",
+    "track_crs": "CRS of the GNSS fixes (default EPSG:4326, longitude/latitude)",
+    "antenna_along": "antenna centre ahead of the GNSS receiver, along travel (m)",
+    "antenna_across": "antenna centre to the right of the GNSS receiver, across travel (m)",
+    "trace_spacing": "resample every line to this even trace spacing (m) after positioning",
+    "control_points": "CSV name,local_x,local_y,x,y tying a local grid to the survey CRS; "
+                      "line-table coordinates are then local",
+    "control_fit": "local grid to CRS fit: 'similarity' (4 parameters) or 'affine' (6)",
+    "control_tolerance": "largest control-point residual accepted (m)",
+    "sample_interval": "sample interval in ns, when the files cannot hold it",
+    "time_zero": "time zero in ns on the raw record, or 'auto' (direct-wave pick)",
+    "time_zero_threshold": "fraction of the peak the direct wave must reach for 'auto'",
+    "dewow": "running-mean window in ns, 'auto' (1.5 dominant periods) or 'off'",
+    "background": "background removal: 'mean', 'median' or 'off'",
+    "gain": "gain: 'power:P' (t^P), 'exp:DB_PER_NS' or 'none'",
+    "velocity": "radar velocity in m/ns",
+    "permittivity": "relative permittivity (instead of velocity)",
+    "velocity_std": "one-sigma uncertainty of the velocity (m/ns), for the depth error",
+    "velocity_model": "velocity-model TOML file (constant, layered or lateral; see README)",
+    "migrate": "2-D migration before the envelope: 'stolt', 'phase-shift' or 'off'",
+    "ties": "ties at line crossings: 'off', 'report' (measure and report the misfit) or "
+            "'apply' (also correct each line's time zero and gain)",
+    "level": "remove line-to-line stripes from the slice values before gridding (true/false)",
+    "cell": "grid cell in m (default: a round number near a quarter of the line spacing)",
+    "radius": "search radius in m; cells farther from any trace stay nodata",
+    "depths": "depth slices TOP:BOTTOM:STEP in m",
+    "thickness": "slice thickness (m or ns), default the step",
+    "times": "time slices TOP:BOTTOM:STEP in ns below time zero",
+    "scheduler": "where to run: auto, threads, processes, local:N or tcp://HOST:PORT",
+    "memory_limit": "memory budget of the build's working data, e.g. 1GB",
+    "title": "title of the overview sheet",
+    "out": "output folder",
+    "overwrite": "replace the outputs of an earlier build in the output folder",
+}
+
+
+@dataclass(frozen=True)
+class BuildSettings:
+    """Everything a build needs; validated on construction.
+
+    Attributes are the options of :data:`OPTION_KEYS` plus ``lines`` (the survey's lines) and
+    ``source`` (the line table or survey file they came from).
+    """
+
+    lines: tuple[LineEntry, ...]
+    source: Path
+    crs: str | None = None
+    positions: str = "table"
+    track_crs: str | None = None
+    antenna_along: float | None = None
+    antenna_across: float | None = None
+    trace_spacing: float | None = None
+    control_points: Path | None = None
+    control_fit: str = "similarity"
+    control_tolerance: float = 0.05
+    sample_interval: float | None = None
+    time_zero: float | str = "auto"
+    time_zero_threshold: float = 0.5
+    dewow: float | str = "auto"
+    background: str = "median"
+    gain: str = "power:1"
+    velocity: float | None = None
+    permittivity: float | None = None
+    velocity_std: float | None = None
+    velocity_model: Path | None = None
+    migrate: str = "off"
+    ties: str = "off"
+    level: bool = False
+    cell: float | None = None
+    radius: float | None = None
+    depths: str | None = None
+    thickness: float | None = None
+    times: str | None = None
+    scheduler: str = "auto"
+    memory_limit: str | float | None = None
+    title: str | None = None
+    out: Path | None = None
+    overwrite: bool = False
+    extras: dict = field(default_factory=dict, compare=False)
+
+    def __post_init__(self):
+        if not self.lines:
+            raise LineTableError("the survey has no lines", where=str(self.source))
+        given = [n for n in ("velocity", "permittivity", "velocity_model")
+                 if getattr(self, n) is not None]
+        if len(given) > 1:
+            raise SettingsError(f"give one of --velocity, --permittivity or --velocity-model, "
+                                f"not {' and '.join(given)}",
+                                where="--" + given[0].replace("_", "-"))
+        if self.velocity_std is not None:
+            try:
+                ok = float(self.velocity_std) >= 0 and math.isfinite(float(self.velocity_std))
+            except (TypeError, ValueError):
+                ok = False
+            if not ok:
+                raise SettingsError(f"must be a number >= 0, got {self.velocity_std!r}",
+                                    where="--velocity-std")
+        if self.velocity is not None:
+            check_velocity(self.velocity)
+        if self.permittivity is not None:
+            velocity_from_permittivity(self.permittivity)
+        if self.positions not in POSITION_SOURCES:
+            raise SettingsError(f"expected one of {', '.join(POSITION_SOURCES)}, got "
+                                f"{self.positions!r}", where="--positions")
+        self._check_geometry()
+        if self.crs is not None:
+            check_crs(self.crs)
+        if self.cell is not None:
+            check_cell(self.cell)
+        if self.radius is not None:
+            _positive(self.radius, "--radius", "m")
+        if self.sample_interval is not None:
+            _positive(self.sample_interval, "--sample-interval", "ns")
+        if isinstance(self.time_zero, str) and self.time_zero != "auto":
+            raise SettingsError(f"expected a number of ns or 'auto', got {self.time_zero!r}",
+                                where="--time-zero")
+        if isinstance(self.dewow, str) and self.dewow not in ("auto", "off"):
+            raise SettingsError(f"expected a window in ns, 'auto' or 'off', got {self.dewow!r}",
+                                where="--dewow")
+        if not isinstance(self.dewow, str):
+            _positive(self.dewow, "--dewow", "ns")
+        if self.migrate not in ("off", "stolt", "phase-shift"):
+            raise SettingsError(f"expected 'stolt', 'phase-shift' or 'off', got "
+                                f"{self.migrate!r}", where="--migrate")
+        if self.ties not in ("off", "report", "apply"):
+            raise SettingsError(f"expected 'off', 'report' or 'apply', got {self.ties!r}",
+                                where="--ties")
+        if self.background not in ("mean", "median", "off"):
+            raise SettingsError(f"expected 'mean', 'median' or 'off', got {self.background!r}",
+                                where="--background")
+        self.gain_curve  # noqa: B018 - validates
+        if self.depths is not None and self.times is not None:
+            raise SettingsError("give depth slices or time slices, not both", where="--times")
+        if self.velocity_model is not None:
+            object.__setattr__(self, "extras", {**self.extras,
+                                                "model": read_velocity_model(
+                                                    self.velocity_model)})
+        if self.depths is not None and self.resolved_model is None:
+            raise SettingsError("depth slices need a velocity: give --velocity or "
+                                "--permittivity (or cut time slices with --times)",
+                                where="--depths")
+        self.requested_windows  # noqa: B018 - validates
+        if self.migrate != "off" and self.resolved_model is None:
+            raise SettingsError("migration needs a velocity (--velocity, --permittivity or "
+                                "--velocity-model)", where="--migrate")
+        from slicer.pipeline.budget import parse_bytes
+        from slicer.pipeline.engine import parse_scheduler
+        parse_scheduler(self.scheduler)
+        if self.memory_limit is not None:
+            parse_bytes(self.memory_limit, where="--memory-limit")
+
+    def _check_geometry(self) -> None:
+        for name in ("antenna_along", "antenna_across"):
+            value = getattr(self, name)
+            if value is not None and not _finite(value):
+                raise SettingsError(f"expected a finite length in m, got {value!r}",
+                                    where="--" + name.replace("_", "-"))
+        if self.trace_spacing is not None:
+            _positive(self.trace_spacing, "--trace-spacing", "m")
+        _positive(self.control_tolerance, "--control-tolerance", "m")
+        if self.control_fit not in ("similarity", "affine"):
+            raise SettingsError(f"expected 'similarity' or 'affine', got {self.control_fit!r}",
+                                where="--control-fit")
+        if self.track_crs is not None:
+            try:
+                pyproj.CRS.from_user_input(self.track_crs)
+            except pyproj.exceptions.CRSError:
+                raise SettingsError(f"unknown CRS {self.track_crs!r}",
+                                    where="--track-crs") from None
+        tracked = [e for e in self.lines if (e.positions or self.positions) == "track"]
+        if tracked and self.crs is None:
+            raise SettingsError("positions from a GNSS track need the survey CRS to project "
+                                "into", where="--crs")
+        for e in tracked:
+            if e.track is None:
+                raise SettingsError(f"positions = track, but the line at {e.where} has no "
+                                    "track file (column track)", where="--positions")
+
+    @property
+    def resolved_velocity(self) -> float | None:
+        """One radar velocity (m/ns) when the model is constant, else None."""
+        model = self.resolved_model
+        if isinstance(model, ConstantVelocity):
+            return model.velocity
+        return None
+
+    @property
+    def resolved_model(self):
+        """The velocity model (:mod:`slicer.velocity.models`) of the build, or None."""
+        std = float(self.velocity_std) if self.velocity_std is not None else 0.0
+        if self.velocity is not None:
+            return ConstantVelocity(check_velocity(self.velocity), std)
+        if self.permittivity is not None:
+            v = velocity_from_permittivity(self.permittivity)
+            return ConstantVelocity(v, std)
+        return self.extras.get("model")
+
+    @property
+    def gain_curve(self) -> tuple[str, float] | None:
+        """``(kind, value)`` of the gain, or None for no gain."""
+        text = str(self.gain).strip().lower()
+        if text in ("none", "off"):
+            return None
+        kind, _, value = text.partition(":")
+        if kind not in ("power", "exp"):
+            raise SettingsError(f"expected 'power:P', 'exp:DB_PER_NS' or 'none', got "
+                                f"{self.gain!r}", where="--gain")
+        try:
+            number = float(value) if value else 1.0
+        except ValueError:
+            raise SettingsError(f"gain value must be a number, got {value!r}",
+                                where="--gain") from None
+        if not math.isfinite(number) or number < 0:
+            raise SettingsError(f"gain value must be finite and >= 0, got {value}",
+                                where="--gain")
+        return kind, number
+
+    @property
+    def requested_windows(self) -> Windows | None:
+        """The slice windows asked for, or None to choose them from the record."""
+        if self.depths is not None:
+            top, bottom, step = parse_range(self.depths, option="--depths")
+            return make_windows(top, bottom, step, thickness=self.thickness, axis="depth",
+                                option="--depths")
+        if self.times is not None:
+            top, bottom, step = parse_range(self.times, option="--times")
+            return make_windows(top, bottom, step, thickness=self.thickness, axis="twt",
+                                option="--times")
+        return None
+
+    def replace(self, **changes) -> BuildSettings:
+        """A copy with some settings changed (validated again)."""
+        return dataclasses.replace(self, **changes)
+
+    def to_record(self) -> dict:
+        """The settings as plain JSON-able values."""
+        out = {}
+        for f in dataclasses.fields(self):
+            if f.name in ("lines", "extras"):
+                continue
+            value = getattr(self, f.name)
+            out[f.name] = str(value) if isinstance(value, Path) else value
+        out["control_fits"] = self.extras.get("control_fits", [])
+        out["velocity_used"] = self.resolved_velocity
+        model = self.resolved_model
+        out["velocity_model_used"] = model.describe() if model is not None else None
+        return out
+
+
+def check_crs(crs) -> pyproj.CRS:
+    """The CRS for ``crs`` (EPSG code, WKT or PROJ string) if it is known and projected."""
+    try:
+        parsed = pyproj.CRS.from_user_input(crs)
+    except pyproj.exceptions.CRSError:
+        raise SettingsError(f"unknown CRS {crs!r} (try an EPSG code such as EPSG:32633)",
+                            where="--crs") from None
+    if not parsed.is_projected:
+        raise SettingsError(f"CRS {crs!r} is not projected; line coordinates and cells are in "
+                            "metres, so give a projected CRS (for example a UTM zone)",
+                            where="--crs")
+    unit = parsed.axis_info[0].unit_name if parsed.axis_info else "metre"
+    if unit not in ("metre", "meter"):
+        raise SettingsError(f"CRS {crs!r} is in {unit}, not metres", where="--crs")
+    return parsed
+
+
+def _finite(value) -> bool:
+    try:
+        return math.isfinite(float(value))
+    except (TypeError, ValueError):
+        return False
+
+
+def _positive(value, where: str, unit: str) -> float:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise SettingsError(f"expected a number of {unit}, got {value!r}", where=where) from None
+    if not math.isfinite(v) or v <= 0:
+        raise SettingsError(f"must be positive, got {v:g} {unit}", where=where)
+    return v
+
+
+#: Keys of a TOML ``[[block]]`` table.
+BLOCK_KEYS = ("name", "lines", "line", "positions", "control_points", "control_fit",
+              "control_tolerance")
+
+
+@dataclass
+class _Group:
+    """Lines read from one table (or one TOML block), with the block's own geometry keys."""
+
+    entries: list[LineEntry]
+    options: dict = field(default_factory=dict)
+
+
+def _entries_of(spec: dict, folder: Path, where: str, ends: bool) -> list[LineEntry]:
+    """The lines a TOML table names: ``lines`` (one table or a list of them) or ``[[line]]``."""
+    lines, inline = spec.get("lines"), spec.get("line")
+    if (lines is None) == (inline is None):
+        raise LineTableError("give either lines = \"TABLE.csv\" (or a list of tables) or "
+                             "[[line]] tables", where=where)
+    if lines is not None:
+        tables = [lines] if isinstance(lines, str) else lines
+        if not isinstance(tables, list) or not tables or not all(
+                isinstance(t, str) for t in tables):
+            raise LineTableError("lines must be the path of a line table, or a list of them",
+                                 where=where)
+        return [e for t in tables for e in read_line_table(folder / t, ends=ends)]
+    if not isinstance(inline, list) or not inline:
+        raise LineTableError("[[line]] tables are empty", where=where)
+    return [make_entry(row, base=folder, where=f"{where}:line[{i}]", ends=ends)
+            for i, row in enumerate(inline)]
+
+
+def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
+    data = read_toml(path, what="survey file")
+    specs = {k: data.pop(k) for k in ("lines", "line", "block") if k in data}
+    unknown = sorted(set(data) - set(OPTION_KEYS))
+    if unknown:
+        raise SettingsError(f"unknown key(s) {', '.join(unknown)}; known keys: lines, line, "
+                            f"block, {', '.join(OPTION_KEYS)}", where=str(path))
+    positions = overrides.get("positions") or data.get("positions", "table")
+    for key in ("out", "velocity_model", "control_points"):
+        if key in data:
+            data[key] = path.parent / data[key]
+    blocks = specs.pop("block", None)
+    if blocks is None:
+        return [_Group(_entries_of(specs, path.parent, str(path), positions == "table"))], data
+    if specs:
+        raise LineTableError("give the lines inside the [[block]] tables, not beside them",
+                             where=str(path))
+    if not isinstance(blocks, list) or not blocks:
+        raise LineTableError("[[block]] tables are empty", where=str(path))
+    groups = []
+    for i, block in enumerate(blocks):
+        where = f"{path}:block[{i}]"
+        unknown = sorted(set(block) - set(BLOCK_KEYS))
+        if unknown:
+            raise SettingsError(f"unknown key(s) {', '.join(unknown)} in a block; known keys: "
+                                f"{', '.join(BLOCK_KEYS)}", where=where)
+        name = str(block.get("name", f"block{i}"))
+        own = block.get("positions")
+        if own is not None and own not in POSITION_SOURCES:
+            raise SettingsError(f"positions: expected one of {', '.join(POSITION_SOURCES)}, "
+                                f"got {own!r}", where=where)
+        entries = _entries_of(block, path.parent, where, (own or positions) == "table")
+        entries = [dataclasses.replace(e, block=name, positions=e.positions or own)
+                   for e in entries]
+        options = {k: block[k] for k in ("control_points", "control_fit", "control_tolerance")
+                   if k in block}
+        if "control_points" in options:
+            options["control_points"] = path.parent / options["control_points"]
+        groups.append(_Group(entries, options))
+    return groups, data
+
+
+def _to_crs(groups: list[_Group], options: dict) -> tuple[list[LineEntry], list[dict]]:
+    """All groups' entries, those in local-grid coordinates mapped into the CRS."""
+    from slicer.geometry.localgrid import fit_control_points, read_control_points, transform_entries
+    default = options.get("positions") or "table"
+    entries, fits = [], []
+    for group in groups:
+        own = {**{k: options[k] for k in ("control_points", "control_fit", "control_tolerance")
+                  if options.get(k) is not None}, **group.options}
+        points = own.get("control_points")
+        if points is None:
+            entries.extend(group.entries)
+            continue
+        transform = fit_control_points(read_control_points(points),
+                                       kind=own.get("control_fit", "similarity"),
+                                       tolerance=own.get("control_tolerance", 0.05))
+        local = [(e.positions or default) == "table" and e.has_ends for e in group.entries]
+        moved = iter(transform_entries([e for e, m in zip(group.entries, local, strict=True)
+                                        if m], transform))
+        entries.extend(next(moved) if m else e
+                       for e, m in zip(group.entries, local, strict=True))
+        fits.append({"control_points": str(points), "block": group.entries[0].block,
+                     "fit": transform.describe(), "rms_m": transform.rms,
+                     "residuals_m": dict(zip(transform.names, transform.residuals,
+                                             strict=True)),
+                     "lines_mapped": sum(local)})
+    return entries, fits
+
+
+def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
+    """Settings from a line table (``.csv``) or survey file (``.toml``), overridden by flags.
+
+    Parameters
+    ----------
+    path : path-like
+        A line table or a TOML survey file.
+    **overrides
+        Options of :data:`OPTION_KEYS`; ``None`` means "not given" and keeps the file's value.
+    """
+    unknown = sorted(set(overrides) - set(OPTION_KEYS))
+    if unknown:
+        raise SettingsError(f"unknown option(s) {', '.join(unknown)}")
+    path = Path(path)
+    if path.suffix.lower() == ".toml":
+        groups, options = _read_toml(path, overrides)
+    else:
+        ends = (overrides.get("positions") or "table") == "table"
+        groups, options = [_Group(read_line_table(path, ends=ends))], {}
+    for key, value in overrides.items():
+        if value is not None:
+            options[key] = value
+    for key in ("out", "velocity_model", "control_points"):
+        if options.get(key) is not None:
+            options[key] = Path(options[key])
+    entries, fits = _to_crs(groups, options)
+    check_unique(entries)
+    return BuildSettings(lines=tuple(entries), source=path, extras={"control_fits": fits},
+                         **options)

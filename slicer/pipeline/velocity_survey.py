@@ -1,0 +1,117 @@
+"""The survey-wide velocity from the diffraction hyperbolas of every line (``slicer velocity``).
+
+Each line is read, placed and time-zero corrected, its hyperbolas are found and fitted
+(:func:`slicer.velocity.diffraction.find_diffractions`), and the fits of all lines are combined by
+:func:`slicer.velocity.diffraction.survey_velocity` (the slowest consistent group, since hyperbolas
+of
+linear targets crossed obliquely look too fast). Depths are given with the survey velocity.
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.figure import Figure
+
+from slicer.core.atomic import atomic_path, prepare_output_dir
+from slicer.core.progress import bar_for
+from slicer.geometry.survey import load_line, survey_info
+from slicer.pipeline.settings import BuildSettings
+from slicer.processing.steps import correct_time_zero
+from slicer.velocity.diffraction import find_diffractions, survey_velocity
+from slicer.velocity.model_file import write_velocity_model
+from slicer.velocity.models import ConstantVelocity
+
+
+@dataclass
+class VelocityAnalysis:
+    """Fits of every line and the survey-wide estimate."""
+
+    velocity: float
+    velocity_std: float
+    fits: list
+    kept: list
+
+    def to_json(self) -> dict:
+        """``velocity``, ``velocity_std`` (m/ns) and ``fits`` with position, time and depth."""
+        kept = {id(f) for f in self.kept}
+        return {"velocity": self.velocity, "velocity_std": self.velocity_std,
+                "units": {"velocity": "m/ns", "x": "m", "y": "m", "time": "ns", "depth": "m"},
+                "fits": [{"line": f.line, "velocity": f.velocity,
+                          "velocity_std": f.velocity_std, "x": f.x, "y": f.y, "time": f.time,
+                          "depth": self.velocity * f.time / 2, "score": f.score,
+                          "kept": id(f) in kept} for f in self.fits]}
+
+    def model(self) -> ConstantVelocity:
+        """The estimate as a velocity model for ``slicer build --velocity-model``."""
+        return ConstantVelocity(self.velocity, self.velocity_std,
+                                note=f"from {len(self.kept)} of {len(self.fits)} diffraction "
+                                     "hyperbolas (slicer velocity)")
+
+
+def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
+                     figures: str | os.PathLike | None = None) -> VelocityAnalysis:
+    """Find and fit the diffraction hyperbolas of every line; combine them.
+
+    Parameters
+    ----------
+    settings : BuildSettings
+        The survey (lines, sample interval, time zero, positions).
+    progress : bool
+        Show a progress bar (on a terminal).
+    figures : path-like, optional
+        Folder for one PNG per line: the radargram with each fitted hyperbola drawn on it.
+    """
+    from slicer.geometry.positioning import prepare_survey
+    settings = prepare_survey(settings)
+    info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
+    fits = []
+    with bar_for(enabled=progress, total=info.n_traces, desc="diffraction search",
+                 unit="trace") as bar:
+        for entry in settings.lines:
+            line = load_line(entry, settings, sample_interval_ns=info.sample_interval_ns)
+            line = correct_time_zero(line, time_zero=settings.time_zero,
+                                     threshold=settings.time_zero_threshold)
+            found = find_diffractions(line)
+            fits.extend(found)
+            if figures is not None:
+                plot_line_fits(line, found, Path(figures) / f"{line.attrs['line']}.png")
+            bar.update(line.sizes["trace"])
+    estimate = survey_velocity(fits)
+    return VelocityAnalysis(float(estimate.velocity), float(estimate.std), fits,
+                            list(estimate.kept))
+
+
+def plot_line_fits(line, fits, path: Path) -> Path:
+    """Radargram of a line (distance across, two-way time down) with its fitted hyperbolas."""
+    fig = Figure(figsize=(10, 4.5))
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    d, t = line["distance"].values, line["twt"].values
+    data = line.values - np.median(line.values, axis=0)
+    lim = np.percentile(np.abs(data), 99) or 1.0
+    ax.imshow(data.T, aspect="auto", cmap="gray", vmin=-lim, vmax=lim,
+              extent=(d[0], d[-1], t[-1], t[0]))
+    for f in fits:
+        x = np.linspace(max(d[0], f.distance - 2), min(d[-1], f.distance + 2), 200)
+        ax.plot(x, f.fit.travel_time(x), color="tab:red", lw=1)
+        ax.annotate(f"{f.velocity:.3f} m/ns", (f.distance, f.time), color="tab:red",
+                    fontsize=7, xytext=(3, -8), textcoords="offset points")
+    ax.set_xlabel("distance along line (m)")
+    ax.set_ylabel("two-way time (ns)")
+    ax.set_title(f"{line.attrs.get('line', '')}: {len(fits)} fitted hyperbola(s)")
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, dpi=110)
+    return path
+
+
+def write_velocity_outputs(analysis: VelocityAnalysis, out: str | os.PathLike, *,
+                           overwrite: bool = False) -> Path:
+    """Write ``velocity.toml`` (a model for ``--velocity-model``) into ``out``."""
+    out = prepare_output_dir(out, overwrite=overwrite)
+    return write_velocity_model(out / "velocity.toml", analysis.model())

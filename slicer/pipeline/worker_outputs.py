@@ -1,0 +1,191 @@
+"""Outputs written by the worker processes of this machine, not by the process that builds.
+
+On a process pool or a LocalCluster the workers share this machine's files, so the calling
+process need not touch the cube's values at all. Each tile task grids its tile and writes it
+straight into the temporary Zarr store (:func:`grid_and_store`); only a decimated copy for the
+overview comes back. Once every tile is stored, one task per slice reads it back, writes its
+GeoTIFF (:func:`slicer.outputs.geotiff.write_slice_file`) and compresses its NetCDF chunks
+(:mod:`slicer.outputs.netcdf_chunks`), which a thread of the calling process stores in the NetCDF
+file as they come; one more task draws the overview. Everything stays under
+temporary names until all is done, as with :class:`slicer.outputs.sink.CubeSink`. The compression of
+the outputs, which a build otherwise does in its own process, is then shared by the workers:
+with N workers a build uses N cores, and its time falls as workers are added.
+
+A remote cluster's workers may not see the output folder, so they use :class:`CubeSink`.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures
+import contextlib
+import os
+import shutil
+import tempfile
+from collections.abc import Iterable
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+
+from slicer.gridding.grid import TileJob, grid_tile
+from slicer.outputs.geotiff import SliceFileJob, SliceTiffWriter, write_slice_file
+from slicer.outputs.netcdf_chunks import (
+    ChunkLayout,
+    compress_slice,
+    store_chunks,
+    write_skeleton,
+)
+from slicer.outputs.sink import NETCDF_NAME, SLICES_DIR, CubeSink, decimate, save_overview
+from slicer.outputs.zarr_store import read_slice, write_tile
+
+
+@dataclass(frozen=True)
+class StoredTile:
+    """A tile to grid and the temporary store it goes into (picklable)."""
+
+    job: TileJob
+    store: str
+    stride: int
+
+
+def grid_and_store(item: StoredTile) -> tuple[int, int, np.ndarray]:
+    """Grid one tile, write it into the store: ``(row0, col0, decimated tile)``."""
+    row0, col0, block = grid_tile(item.job)
+    write_tile(item.store, row0, col0, block)
+    return row0, col0, decimate(block, row0, col0, item.stride)
+
+
+@dataclass(frozen=True)
+class SliceOutputs:
+    """One slice's GeoTIFF to write and NetCDF chunks to compress (picklable)."""
+
+    tiff: SliceFileJob
+    layout: ChunkLayout
+    #: File the compressed chunks go to, one after another.
+    parts: str
+
+
+def write_slice_outputs(job: SliceOutputs) -> tuple[int, str, list[tuple[int, int, int, int]]]:
+    """Read one slice from the store, write its GeoTIFF and its compressed NetCDF chunks.
+
+    The chunks go to the file ``job.parts`` rather than back through the engine: sending
+    them as results cost the calling process most of a core (distributed's messages),
+    taken from the workers. Returns ``(index, parts file, [(row0, col0, offset, size)])``.
+    """
+    values = read_slice(job.tiff.store, job.tiff.index)
+    write_slice_file(job.tiff, values)
+    index, offset = [], 0
+    with open(job.parts, "wb") as f:
+        for row0, col0, data in compress_slice(values, job.layout):
+            f.write(data)
+            index.append((row0, col0, offset, len(data)))
+            offset += len(data)
+    return job.tiff.index, job.parts, index
+
+
+def _stored_parts(f, layout: ChunkLayout, index: int, parts: str, where) -> None:
+    with open(parts, "rb") as source:
+        data = memoryview(source.read())
+    store_chunks(f, layout, index, [(r, c, data[o:o + n]) for r, c, o, n in where])
+    os.remove(parts)
+
+
+class WorkerSink(CubeSink):
+    """A :class:`CubeSink` whose values are written by the engine's workers.
+
+    Feed it with :meth:`grid` instead of :meth:`CubeSink.write`.
+
+    Parameters
+    ----------
+    out_dir, cube_template, tags, tile, progress, title
+        As for :class:`CubeSink`.
+    engine : slicer.pipeline.engine.Engine
+        An engine whose workers share this machine's files (``engine.offloader()`` is not
+        None).
+    """
+
+    def __init__(self, out_dir, cube_template, *, engine, **kwargs):
+        offload = engine.offloader()
+        if offload is None:
+            raise ValueError("WorkerSink needs a process pool or LocalCluster engine")
+        super().__init__(out_dir, cube_template, offload=offload, **kwargs)
+        self._engine = engine
+        self._slicer: concurrent.futures.ThreadPoolExecutor | None = None
+        self._skeleton = None
+        self._early: Path | None = None
+
+    def __enter__(self) -> WorkerSink:
+        super().__enter__()
+        try:
+            # The empty NetCDF file needs only the template: a worker makes it among the
+            # tiles (about 2 s for a 1 M-trace cube here).
+            fd, tmp = tempfile.mkstemp(prefix=f".{NETCDF_NAME}.", suffix=".tmp",
+                                       dir=self.out_dir)
+            os.close(fd)
+            self._early = Path(tmp).resolve()
+            self._skeleton = self._offload(write_skeleton, self.template, str(self._early),
+                                           tile=self.tile)
+        except BaseException:
+            self._abort()
+            raise
+        return self
+
+    def _abort(self) -> None:
+        if self._skeleton is not None:
+            self._skeleton.exception()  # the skeleton is not left writing
+            self._skeleton = None
+        if self._early is not None:
+            with contextlib.suppress(FileNotFoundError):
+                self._early.unlink()
+        super()._abort()
+
+    def _slice_writer(self) -> SliceTiffWriter:
+        return SliceTiffWriter(self.template, self.out_dir / SLICES_DIR, tags=self._tags,
+                               tile=self.tile, deferred=True)
+
+    def grid(self, jobs: Iterable[TileJob], *, count: int) -> None:
+        """Grid and store every tile on the workers, keeping the overview's panels."""
+        store = self._worker_path(self._store.path)
+        items = (StoredTile(job, store, self._stride) for job in jobs)
+        for row0, col0, part in self._engine.map(grid_and_store, items, desc="gridding",
+                                                 unit="tile", progress=False,
+                                                 weights=[1] * count):
+            self._put_panels(row0, col0, part)
+            self._bar.update(1)
+
+    @staticmethod
+    def _worker_path(path) -> str:
+        # absolute: a worker need not share this process's working folder
+        return str(Path(path).resolve())
+
+    def _draw_overview(self, png):
+        # on a worker too: rendering and encoding the sheet took about 5 s of a core at 1 M
+        # traces, which the workers writing the slices would otherwise lose
+        return self._offload(save_overview, self.template, self._panels, self._worker_path(png),
+                             title=self._title, where=str(self.out_dir / "overview.png"))
+
+    def _start_netcdf(self, target):
+        self._slicer = concurrent.futures.ThreadPoolExecutor(max_workers=1)
+        future = self._slicer.submit(self._write_slices, target)  # this thread: the sink
+        self._slicer.shutdown(wait=False)
+        return future
+
+    def _write_slices(self, target) -> None:
+        import h5py
+        layout = self._skeleton.result()
+        self._skeleton = None
+        store = self._worker_path(self._store.path)
+        parts = Path(tempfile.mkdtemp(prefix=f".{NETCDF_NAME}.", suffix=".parts",
+                                      dir=self.out_dir)).resolve()
+        jobs = [SliceOutputs(self._tiffs.slice_job(i, store), layout,
+                             str(parts / f"slice_{i}.bin")) for i in range(self.shape[0])]
+        try:
+            with h5py.File(self._early, "r+") as f:
+                for index, path, where in self._engine.map(
+                        write_slice_outputs, jobs, desc="slices", unit="slice",
+                        progress=False):
+                    _stored_parts(f, layout, index, path, where)
+        finally:
+            shutil.rmtree(parts, ignore_errors=True)
+        os.replace(self._early, target)
+        self._early = None

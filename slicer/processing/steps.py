@@ -1,0 +1,435 @@
+"""Trace processing: time zero, dewow, background removal, gain and the amplitude envelope.
+
+Each step is a function from a line ``DataArray`` (dims ``trace, twt``) to a new one, appending
+to ``attrs["history"]``. Per-trace steps are written once as NumPy functions over the last axis
+and wrapped once by :func:`_per_trace` with ``xr.apply_ufunc(..., dask="parallelized")``, so the
+same code runs eagerly or on dask arrays (chunked along ``trace``; ``twt`` in one chunk).
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import scipy.fft
+import scipy.ndimage
+import scipy.signal
+import xarray as xr
+
+from slicer.core.conventions import TRACE, TWT
+from slicer.core.errors import SettingsError
+
+
+def _per_trace(core, line: xr.DataArray, step: str, **kwargs) -> xr.DataArray:
+    """Apply ``core(samples, **kwargs)`` (last axis = twt) to every trace of ``line``."""
+    data = line
+    if data.chunks is not None:
+        data = data.chunk({TWT: -1})
+    out = xr.apply_ufunc(
+        core, data, kwargs=kwargs,
+        input_core_dims=[[TWT]], output_core_dims=[[TWT]],
+        dask="parallelized", output_dtypes=[np.float32], keep_attrs=True)
+    return _add_history(out, step)
+
+
+def _add_history(line: xr.DataArray, step: str) -> xr.DataArray:
+    history = line.attrs.get("history", "")
+    line.attrs = {**line.attrs, "history": f"{history}; {step}" if history else step}
+    return line
+
+
+def sample_interval(line: xr.DataArray) -> float:
+    """Sample interval (ns) of a line, from its ``twt`` coordinate."""
+    twt = line[TWT].values
+    if twt.size < 2:
+        raise SettingsError("a line needs at least two samples per trace")
+    return float(twt[1] - twt[0])
+
+
+# ---------------------------------------------------------------------------- dominant frequency
+
+def _remove_baseline(samples: np.ndarray) -> np.ndarray:
+    """Subtract a Gaussian running mean, sigma a twentieth of the record (last axis)."""
+    sigma = max(1.0, samples.shape[-1] / 20)
+    return samples - scipy.ndimage.gaussian_filter1d(samples, sigma, axis=-1, mode="nearest")
+
+
+def dominant_frequency(line: xr.DataArray) -> float:
+    """Frequency (GHz) of the peak of the line's mean amplitude spectrum.
+
+    Wow (a slow drift of the trace baseline) is first reduced by subtracting a Gaussian
+    running mean (sigma a twentieth of the record), and frequencies below four cycles per
+    record are ignored, so that the drift cannot be taken for the signal.
+    """
+    dt = sample_interval(line)
+    samples = np.asarray(line.values, dtype=np.float64)
+    # a first running mean (sigma a twentieth of the record) takes out most of the wow, which would
+    # otherwise dominate the low end of the spectrum
+    # (a Gaussian, whose response has no side lobes to shift the peak)
+    samples = _remove_baseline(samples)
+    spectrum = np.abs(scipy.fft.rfft(samples, axis=-1)).mean(axis=tuple(range(samples.ndim - 1)))
+    freqs = scipy.fft.rfftfreq(samples.shape[-1], d=dt)
+    usable = freqs >= 4.0 / (samples.shape[-1] * dt)
+    if not usable.any() or not np.isfinite(spectrum[usable]).any() or spectrum[usable].max() == 0:
+        raise SettingsError("cannot find a dominant frequency in a silent or too short record",
+                            where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
+    return float(freqs[usable][np.argmax(spectrum[usable])])
+
+
+# ------------------------------------------------------------------------------------ time zero
+
+def _first_peak(trace: np.ndarray, threshold: float, period: int) -> float:
+    """Fractional index of the largest ``|trace|`` within one period of its first crossing
+    of ``threshold * max|trace|``."""
+    a = np.abs(trace)
+    top = a.max()
+    if not np.isfinite(top) or top == 0:
+        return math.nan
+    first = int(np.argmax(a >= threshold * top))
+    i = first + int(np.argmax(a[first:first + max(period, 1) + 1]))
+    if 0 < i < a.size - 1:  # parabola through the peak and its neighbours: sub-sample time
+        y0, y1, y2 = a[i - 1], a[i], a[i + 1]
+        denom = y0 - 2 * y1 + y2
+        if denom != 0:
+            return i + 0.5 * (y0 - y2) / denom
+    return float(i)
+
+
+def pick_time_zero(line: xr.DataArray, *, threshold: float = 0.5) -> float:
+    """Pick time zero (ns, on the line's current time axis) from the direct wave.
+
+    The pick is made on the line's mean trace, after removing its slow baseline (a Gaussian
+    running mean, sigma a twentieth of the record): the first sample whose absolute amplitude
+    reaches ``threshold`` times the largest starts the first arrival, and the largest absolute
+    amplitude within one dominant period after it is its main peak, refined to a fraction of a
+    sample by a parabola through the peak. The direct (air-ground) wave is the strongest and
+    earliest arrival on a ground-coupled antenna; its main peak is the project's definition of
+    time zero (see the glossary in DEVELOPERS.md). Looking one period on keeps a side lobe
+    that crosses the threshold first from being taken for the peak.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``.
+    threshold : float
+        Fraction (0-1] of the largest absolute amplitude that the direct wave must reach.
+    """
+    if not 0 < threshold <= 1:
+        raise SettingsError(f"time-zero threshold must be in (0, 1], got {threshold:g}")
+    dt = sample_interval(line)
+    mean = np.asarray(line.mean(TRACE).values, dtype=np.float64)
+    mean = _remove_baseline(mean)
+    if not np.any(mean):
+        index = math.nan
+    else:
+        period = int(round(1.0 / (dominant_frequency(line) * dt)))
+        index = _first_peak(mean, threshold, period)
+    if not math.isfinite(index):
+        raise SettingsError("cannot pick time zero on a silent line; give --time-zero NS",
+                            where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
+    return float(line[TWT].values[0] + index * dt)
+
+
+def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",
+                      threshold: float = 0.5) -> xr.DataArray:
+    """Shift the time axis so that ``twt = 0`` at time zero.
+
+    Only the ``twt`` coordinate changes (no resampling); samples before time zero keep negative
+    times. ``attrs["time_zero_ns"]`` accumulates the shift applied.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``.
+    time_zero : float or "auto"
+        Time zero in ns on the line's current time axis, or ``"auto"`` for
+        :func:`pick_time_zero`.
+    threshold : float
+        Passed to :func:`pick_time_zero` when ``time_zero="auto"``.
+    """
+    if isinstance(time_zero, str):
+        if time_zero != "auto":
+            raise SettingsError(f"time zero must be a number of ns or 'auto', got {time_zero!r}",
+                                where="--time-zero")
+        t0 = pick_time_zero(line, threshold=threshold)
+        how = f"time zero {t0:.3f} ns (picked)"
+    else:
+        t0 = float(time_zero)
+        if not math.isfinite(t0):
+            raise SettingsError("time zero must be finite", where="--time-zero")
+        how = f"time zero {t0:.3f} ns"
+    twt = line[TWT].values
+    if not twt[0] <= t0 < twt[-1]:
+        raise SettingsError(
+            f"time zero {t0:g} ns lies outside the record ({twt[0]:g} to {twt[-1]:g} ns)",
+            where="--time-zero")
+    out = line.assign_coords({TWT: (TWT, twt - t0, line[TWT].attrs)})
+    out.attrs = {**line.attrs, "time_zero_ns": float(line.attrs.get("time_zero_ns", 0.0)) + t0}
+    return _add_history(out, how)
+
+
+# ---------------------------------------------------------------------------------------- dewow
+
+def _wow_window(line: xr.DataArray, dt: float, window_ns: float | None = None) -> int:
+    if window_ns is None:
+        window_ns = 1.5 / dominant_frequency(line)
+    if not math.isfinite(window_ns) or window_ns <= 0:
+        raise SettingsError(f"dewow window must be positive, got {window_ns:g} ns",
+                            where="--dewow")
+    return max(3, int(round(window_ns / dt)) | 1)  # odd, so the mean is centred
+
+
+def _dewow_core(samples: np.ndarray, *, size: int) -> np.ndarray:
+    samples = samples.astype(np.float32, copy=False)
+    return samples - scipy.ndimage.uniform_filter1d(samples, size, axis=-1, mode="nearest")
+
+
+def dewow(line: xr.DataArray, *, window_ns: float | None = None) -> xr.DataArray:
+    """Remove wow, the slow drift of each trace's baseline, by subtracting a running mean.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``.
+    window_ns : float, optional
+        Length of the running mean (ns). Default 1.5 periods of the line's dominant frequency
+        (:func:`dominant_frequency`): long enough to leave the wavelet, short enough to follow
+        the drift (common practice: one to two periods).
+    """
+    dt = sample_interval(line)
+    size = _wow_window(line, dt, window_ns)
+    return _per_trace(_dewow_core, line, f"dewow {size * dt:.2f} ns", size=size)
+
+
+# ---------------------------------------------------------------------------- background removal
+
+def _transposed(samples: np.ndarray) -> np.ndarray:
+    """A C-contiguous float32 copy of ``samples`` with its last two axes swapped.
+
+    Copied in bands of 32 traces, which stay in the CPU cache: a plain strided copy of a
+    line took seven times longer, more than the median itself.
+    """
+    if samples.ndim != 2:
+        return np.ascontiguousarray(np.swapaxes(samples, -1, -2), dtype=np.float32)
+    out = np.empty(samples.shape[::-1], dtype=np.float32)
+    for i in range(0, samples.shape[0], 32):
+        out[:, i:i + 32] = samples[i:i + 32].T
+    return out
+
+
+def _median_trace(samples: np.ndarray) -> np.ndarray:
+    """Median over the trace axis (-2) of ``(..., trace, twt)`` samples: ``(..., twt)``.
+
+    One partition of a contiguous ``(twt, trace)`` copy: NumPy's median along the strided
+    trace axis is about a third slower. A column holding NaN gives NaN, as ``np.median``.
+    """
+    t = _transposed(samples)
+    n = t.shape[-1]
+    k = n // 2
+    t.partition(k, axis=-1)
+    median = t[..., k].copy()
+    if n % 2 == 0:  # the mean of the two middle values; the lower one leads the left part
+        median += t[..., :k].max(axis=-1)
+        median *= np.float32(0.5)
+    median[np.isnan(t).any(axis=-1)] = np.nan
+    return median
+
+
+def _background_core(samples: np.ndarray, *, method: str) -> np.ndarray:
+    """Samples ``(..., trace, twt)`` minus their mean or median trace, float32."""
+    if method == "mean":  # accumulated in double: thousands of traces per line
+        background = samples.mean(axis=-2, dtype=np.float64).astype(np.float32)
+    else:
+        background = _median_trace(samples)
+    return np.subtract(samples, background[..., None, :], dtype=np.float32)
+
+
+def _check_background(method: str) -> str:
+    if method not in ("mean", "median"):
+        raise SettingsError(f"background method must be 'mean' or 'median', got {method!r}",
+                            where="--background")
+    return method
+
+
+def remove_background(line: xr.DataArray, *, method: str = "mean") -> xr.DataArray:
+    """Subtract the line's mean (or median) trace, removing horizontal banding.
+
+    Antenna ringing and the direct wave are the same on every trace; subtracting the average
+    trace removes them (and any truly flat reflector along the whole line, which is the usual
+    price of this step).
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``.
+    method : {"mean", "median"}
+        The median resists strong local reflections better; the mean is faster.
+    """
+    # Not NaN-aware: readers have set non-finite samples to 0, and NaN-aware medians loop in
+    # Python over every sample (a third of a build's time when it was used)
+    method = _check_background(method)
+    data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
+    out = xr.apply_ufunc(
+        _background_core, data, kwargs={"method": method},
+        input_core_dims=[[TRACE, TWT]], output_core_dims=[[TRACE, TWT]],
+        dask="parallelized", output_dtypes=[np.float32], keep_attrs=True)
+    out = out.transpose(*line.dims)
+    out.attrs = dict(line.attrs)
+    return _add_history(out, f"background removal ({method} trace)")
+
+
+# ----------------------------------------------------------------------------------------- gain
+
+def _gain_core(samples: np.ndarray, *, factor: np.ndarray) -> np.ndarray:
+    return (samples * factor).astype(np.float32, copy=False)
+
+
+def gain_curve(twt_ns: np.ndarray, *, kind: str, value: float) -> np.ndarray:
+    """Gain factor against two-way time (ns since time zero).
+
+    ``kind="power"``: ``(t / 1 ns) ** value`` for ``t > 0`` (compensates geometric spreading
+    for ``value = 1``); ``kind="exp"``: ``10 ** (value * t / 20)`` with ``value`` in dB/ns
+    (compensates attenuation). Samples at or before time zero keep gain 1.
+    """
+    t = np.clip(np.asarray(twt_ns, dtype=np.float64), 1.0, None)
+    if kind == "power":
+        return (t ** value).astype(np.float32)
+    if kind == "exp":
+        return (10.0 ** (value * (t - 1.0) / 20.0)).astype(np.float32)
+    raise SettingsError(f"gain must be 'none', 'power:P' or 'exp:DB_PER_NS', got {kind!r}",
+                        where="--gain")
+
+
+def apply_gain(line: xr.DataArray, *, kind: str = "power", value: float = 1.0) -> xr.DataArray:
+    """Multiply every trace by a gain curve of two-way time (see :func:`gain_curve`).
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``, time-zero corrected.
+    kind : {"power", "exp"}
+        Shape of the curve.
+    value : float
+        Exponent (power) or rate in dB/ns (exp); must be finite and >= 0.
+    """
+    if not math.isfinite(value) or value < 0:
+        raise SettingsError(f"gain value must be finite and >= 0, got {value:g}", where="--gain")
+    factor = gain_curve(line[TWT].values, kind=kind, value=value)
+    return _per_trace(_gain_core, line, f"gain {kind} {value:g}", factor=factor)
+
+
+# ------------------------------------------------------------------------------------- envelope
+
+def _envelope_core(samples: np.ndarray) -> np.ndarray:
+    n = samples.shape[-1]
+    x = samples.astype(np.float32, copy=False)
+    # Zero-pad to at least twice the length: the FFT makes the trace periodic, and without
+    # padding the end of the record leaks into its start.
+    nfft = scipy.fft.next_fast_len(2 * n, real=False)
+    # The analytic signal x + i H[x] as scipy.signal.hilbert forms it (positive frequencies
+    # doubled, negative ones zeroed) has real part x, so only H[x] is computed: a real
+    # transform each way, -i for the positive frequencies, 0 for the DC term and (even
+    # length) the Nyquist term. Single precision: float32 samples need no more, and this is
+    # the largest step of a build.
+    spectrum = scipy.fft.rfft(x, n=nfft, axis=-1)
+    spectrum[..., 0] = 0
+    if nfft % 2 == 0:
+        spectrum[..., -1] = 0
+    spectrum *= np.complex64(-1j)
+    hilbert = scipy.fft.irfft(spectrum, n=nfft, axis=-1, overwrite_x=True)[..., :n]
+    # sqrt(x^2 + H^2) rather than np.hypot, which guards against overflow at three times
+    # the cost; float32 squares overflow only beyond 1.8e19, far above any recorded amplitude
+    out = np.square(x, dtype=np.float32)
+    out += np.square(hilbert, dtype=np.float32)
+    return np.sqrt(out, out=out)
+
+
+def envelope(line: xr.DataArray) -> xr.DataArray:
+    """Amplitude envelope: magnitude of the analytic signal along ``twt``.
+
+    The analytic signal is ``x + i H[x]`` with ``H`` the Hilbert transform (Taner, Koehler and
+    Sheriff 1979, Geophysics 44:1041-1063), formed from :func:`scipy.fft.fft` of the
+    zero-padded trace in single precision, as :func:`scipy.signal.hilbert` forms it.
+    """
+    out = _per_trace(_envelope_core, line, "envelope")
+    out.name = "envelope"
+    return out
+
+
+# ------------------------------------------------------------------------------- the fused chain
+
+def _chain_core(samples: np.ndarray, *, size: int | None, background: str | None,
+                factor: np.ndarray | None, take_envelope: bool) -> np.ndarray:
+    """Dewow, background removal, gain and envelope of ``(..., trace, twt)`` samples.
+
+    The same cores as the single steps, in their order, on one float32 array: no
+    intermediate DataArrays, and the input is never modified.
+    """
+    out = samples.astype(np.float32, copy=False)
+    if size is not None:
+        out = _dewow_core(out, size=size)
+    if background is not None:
+        out = _background_core(out, method=background)
+    if factor is not None:
+        out = _gain_core(out, factor=factor)
+    if take_envelope:
+        out = _envelope_core(out)
+    return out if out is not samples else out.copy()
+
+
+def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
+                  background: str | None = "median",
+                  gain: tuple[str, float] | None = ("power", 1.0),
+                  take_envelope: bool = True) -> xr.DataArray:
+    """Dewow, background removal, gain and envelope in one pass: the result of
+    ``envelope(apply_gain(remove_background(dewow(line))))``, with the same history.
+
+    Each step runs the NumPy core of its single-step function (:func:`dewow`,
+    :func:`remove_background`, :func:`apply_gain`, :func:`envelope`) on one array, which
+    saves the per-step xarray work (about a third of a line's time in a build).
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``, time-zero corrected.
+    dewow_ns : float, None or "off"
+        Dewow window (ns); None for the default of :func:`dewow`; ``"off"`` for no dewow.
+    background : {"median", "mean"} or None
+        Background removal method, None for none.
+    gain : (kind, value) or None
+        Gain curve (see :func:`apply_gain`), None for none.
+    take_envelope : bool
+        End with the envelope (named ``envelope``).
+    """
+    dt = sample_interval(line)
+    steps, size, factor = [], None, None
+    if dewow_ns != "off":
+        size = _wow_window(line, dt, dewow_ns)
+        steps.append(f"dewow {size * dt:.2f} ns")
+    if background is not None:
+        steps.append(f"background removal ({_check_background(background)} trace)")
+    if gain is not None:
+        kind, value = gain
+        if not math.isfinite(value) or value < 0:
+            raise SettingsError(f"gain value must be finite and >= 0, got {value:g}",
+                                where="--gain")
+        factor = gain_curve(line[TWT].values, kind=kind, value=value)
+        steps.append(f"gain {kind} {value:g}")
+    if take_envelope:
+        steps.append("envelope")
+    core = {"size": size, "background": background, "factor": factor,
+            "take_envelope": take_envelope}
+    if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array
+        out = line.copy(data=_chain_core(line.values, **core))
+    else:
+        data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
+        out = xr.apply_ufunc(
+            _chain_core, data, kwargs=core, input_core_dims=[[TRACE, TWT]],
+            output_core_dims=[[TRACE, TWT]], dask="parallelized",
+            output_dtypes=[np.float32], keep_attrs=True).transpose(*line.dims)
+    out.attrs = dict(line.attrs)
+    for step in steps:
+        out = _add_history(out, step)
+    if take_envelope:
+        out.name = "envelope"
+    return out

@@ -1,0 +1,502 @@
+"""Automatic search for diffraction hyperbolas and a survey-wide radar velocity from them.
+
+Without any picks, :func:`find_diffractions` scans a line for hyperbolas: for every trial
+velocity and every apex (position along the line, two-way time) the band-passed analytic
+signal is summed along the hyperbola through that apex (a Kirchhoff-style diffraction stack)
+and the stack is normalised into a semblance, the fraction of the energy along the curve that
+adds up coherently (Neidell & Taner 1971, Geophysics 36:482-497; here with the complex trace,
+so the measure does not depend on the wavelet's phase). Peaks of semblance over (position,
+time, velocity) are then refined: picks are taken at the envelope peak nearest the predicted
+time on every trace within the aperture and fitted with
+:func:`~slicer.velocity.hyperbola.fit_hyperbola`;
+poor fits are rejected.
+
+:func:`survey_velocity` combines the fits of a whole survey. A linear target (pipe, wall,
+drain) crossed at an angle ``a`` to the line gives a hyperbola whose apparent velocity is
+``v / sin(a)``, faster than the ground's, so the estimate favours the slowest cluster of
+mutually consistent fits that has enough members.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, fields
+from typing import NamedTuple
+
+import numpy as np
+import scipy.fft
+import scipy.ndimage
+import xarray as xr
+
+from slicer.core.conventions import DISTANCE, TRACE, TWT, UNITS, X, Y
+from slicer.core.errors import SettingsError
+from slicer.core.physics import check_velocity
+from slicer.processing.migration import trace_spacing
+from slicer.processing.steps import dominant_frequency, sample_interval
+from slicer.velocity.hyperbola import HyperbolaFit, fit_hyperbola, hyperbola_time
+
+__all__ = ["Diffraction", "SurveyVelocity", "diffraction_table", "find_diffractions",
+           "survey_velocity"]
+
+#: Default trial velocities, m/ns: geometric steps of 6 % from 0.05 to 0.20 m/ns.
+DEFAULT_VELOCITIES = tuple(float(v) for v in np.geomspace(0.05, 0.20, 25))
+
+
+@dataclass(frozen=True)
+class Diffraction:
+    """A diffraction hyperbola found on a line and its fitted apex.
+
+    Attributes
+    ----------
+    line : str
+        Name of the line (``attrs["line"]``).
+    trace : int
+        Index of the trace nearest the apex.
+    distance : float
+        Apex position along the line, m.
+    x, y : float
+        Apex position in the survey CRS, m (interpolated between traces).
+    time : float
+        Two-way time of the apex, ns.
+    depth : float
+        Depth of the apex, ``velocity * time / 2``, m.
+    velocity, velocity_std : float
+        Fitted velocity and its standard error, m/ns.
+    score : float
+        Semblance (0-1) of the scan at the detection.
+    fit : HyperbolaFit
+        The full least-squares fit.
+    """
+
+    line: str
+    trace: int
+    distance: float
+    x: float
+    y: float
+    time: float
+    depth: float
+    velocity: float
+    velocity_std: float
+    score: float
+    fit: HyperbolaFit
+
+
+class SurveyVelocity(NamedTuple):
+    """Result of :func:`survey_velocity`: ``velocity, std, kept`` (m/ns, m/ns, list)."""
+
+    velocity: float
+    std: float
+    kept: list
+
+
+def _analytic(samples: np.ndarray, dt: float, f_dom: float) -> np.ndarray:
+    """Band-passed analytic signal along the last axis (one-sided spectrum, zero-padded)."""
+    n = samples.shape[-1]
+    nfft = scipy.fft.next_fast_len(2 * n, real=False)
+    spectrum = scipy.fft.fft(samples, n=nfft, axis=-1)
+    f = scipy.fft.fftfreq(nfft, d=dt)
+    # pass 0.4-2.5 times the dominant frequency with raised-cosine flanks (to 0 and to 4
+    # times it): wow and what is left of the direct wave's low end lie below, noise above
+    lo, hi, top = 0.4 * f_dom, 2.5 * f_dom, 4.0 * f_dom
+    gain = np.where(f < lo, 0.5 * (1.0 - np.cos(np.pi * np.clip(f, 0.0, None) / lo)), 1.0)
+    gain = np.where(f > hi, 0.5 * (1.0 + np.cos(np.pi * np.clip((f - hi) / (top - hi), 0, 1))),
+                    gain)
+    gain = np.where(f > 0, 2.0 * gain, 0.0)  # one-sided: the analytic signal
+    return scipy.fft.ifft(spectrum * gain, axis=-1)[..., :n].astype(np.complex64)
+
+
+def _curves(t0: np.ndarray, velocities: np.ndarray, *, dx: float, step: int, dts: float,
+            t_first: float, nt: int, aperture: float, max_angle: float, v_ref: float):
+    """For each trace offset of the aperture: ``(shift, idx, use)``.
+
+    ``shift`` is the offset in traces (both signs), ``idx`` the sample (shape
+    ``(velocities, t0)``) of the hyperbola through each apex time at each velocity, ``nt``
+    where the trace is not used. The aperture depends on the apex time only (the depth at
+    ``v_ref``), so that every trial velocity sums the same traces and their stacks compare.
+    """
+    dxs = step * dx
+    z = v_ref * np.maximum(t0, 0.0) / 2.0
+    reach = np.clip(z * math.tan(math.radians(max_angle)), 2.0 * dxs, aperture)[None, :]
+    for h in range(max(1, int(math.floor(aperture / dxs + 1e-9))) + 1):
+        offset = h * dxs
+        tt = np.sqrt(t0[None, :] ** 2 + (2.0 * offset / velocities[:, None]) ** 2)
+        idx = np.rint((tt - t_first) / dts).astype(np.int64)
+        use = (offset <= reach + 1e-9) & (idx < nt)
+        idx = np.where(use, idx, nt)  # unused samples read a zero column
+        for sign in ((1,) if h == 0 else (1, -1)):
+            yield sign * h * step, idx, use
+
+
+def _stack_scan(a: np.ndarray, t0: np.ndarray, velocities: np.ndarray, *, window: int,
+                **geometry) -> np.ndarray:
+    """Stack power ``|sum a|^2 / n^2`` over (apex trace, velocity, apex time ``t0``).
+
+    Every trace is an apex (the phase along the flanks is too sensitive to the apex position
+    for a coarser grid); the sums use every ``step``-th trace from the apex. A window of
+    ``window`` samples along time smooths the coherent energy over about half a period.
+    """
+    nx, nt = a.shape
+    padded = np.concatenate([a, np.zeros((nx, 1), a.dtype)], axis=1)
+    num = np.zeros((nx, velocities.size, t0.size), np.complex64)
+    valid, uses = [], []
+    for shift, idx, use in _curves(t0, velocities, nt=nt, **geometry):
+        lo, hi = max(0, -shift), min(nx, nx - shift)  # apexes that have this trace
+        if hi <= lo:
+            continue
+        num[lo:hi] += np.take(padded[lo + shift:hi + shift], idx, axis=1)
+        inside = np.zeros(nx, np.float32)
+        inside[lo:hi] = 1.0
+        valid.append(inside)
+        uses.append(use.ravel())
+    # traces summed at each apex: (apex trace x offset) @ (offset x velocity-time)
+    count = (np.stack(valid, axis=1) @ np.stack(uses).astype(np.float32)).reshape(num.shape)
+    coherent = scipy.ndimage.uniform_filter1d(np.abs(num) ** 2, window, axis=-1)
+    return np.where(count > 0, coherent / np.maximum(count, 1.0) ** 2, 0.0).astype(np.float32)
+
+
+def _semblance_at(a: np.ndarray, i: int, t0: np.ndarray, velocity: float, **geometry) -> float:
+    """Semblance ``sum_t |sum a|^2 / (n sum_t sum |a|^2)`` at apex trace ``i`` over times ``t0``
+    (Neidell & Taner 1971, with the complex trace)."""
+    nx, nt = a.shape
+    num = np.zeros(t0.size, np.complex128)
+    den = np.zeros(t0.size)
+    count = np.zeros(t0.size)
+    for shift, idx, use in _curves(t0, np.array([velocity]), nt=nt, **geometry):
+        if 0 <= i + shift < nx:
+            values = np.where(use[0], a[i + shift, np.minimum(idx[0], nt - 1)], 0.0)
+            num += values
+            den += np.abs(values) ** 2
+            count += use[0]
+    total = float((count * den).sum())
+    return float((np.abs(num) ** 2).sum() / total) if total > 0 else 0.0
+
+
+def _pick(env: np.ndarray, distance: np.ndarray, t_axis: np.ndarray, *, x0: float, predict,
+          reach: float, half_window: float):
+    """Envelope-peak picks near the curve ``predict(x)`` within ``reach`` m of ``x0``."""
+    dt = t_axis[1] - t_axis[0]
+    near = np.nonzero(np.abs(distance - x0) <= reach)[0]
+    pred = predict(distance[near])
+    half = max(1, int(round(half_window / dt)))
+    centre = np.rint((pred - t_axis[0]) / dt).astype(np.int64)
+    ok = (centre - half >= 1) & (centre + half < t_axis.size - 1)
+    near, centre = near[ok], centre[ok]
+    if near.size == 0:
+        return np.empty(0), np.empty(0), np.empty(0)
+    cols = centre[:, None] + np.arange(-half, half + 1)
+    win = env[near[:, None], cols]
+    k = np.argmax(win, axis=1)
+    interior = (k > 0) & (k < 2 * half)  # a peak on the window's edge belongs to another event
+    i = centre + k - half
+    y0, y1, y2 = env[near, i - 1], env[near, i], env[near, i + 1]
+    denom = y0 - 2 * y1 + y2
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shift = np.where(denom < 0, 0.5 * (y0 - y2) / denom, 0.0)
+    t = t_axis[0] + (i + np.clip(shift, -0.5, 0.5)) * dt
+    return distance[near][interior], t[interior], y1[interior]
+
+
+def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, min_picks):
+    """Pick, fit, drop outlying picks and fit again; ``None`` when the picks fit badly."""
+    fit = None
+    for half_window in (0.5 * period, 0.3 * period):
+        if fit is None:
+            def predict(x, x0=x0):
+                return hyperbola_time(x, x0=x0, t0=t0, velocity=velocity)
+        else:  # the fitted curve, with its radius when fitted
+            x0, predict = fit.x0, fit.travel_time
+        xs, ts, amp = _pick(env, distance, t_axis, x0=x0, predict=predict, reach=reach,
+                            half_window=half_window)
+        strong = amp >= 0.2 * amp.max() if amp.size else amp.astype(bool)
+        xs, ts, amp = xs[strong], ts[strong], amp[strong]
+        if xs.size < min_picks:
+            return None
+        try:
+            fit = fit_hyperbola(xs, ts, radius=radius, weights=amp ** 2)
+            residual = np.abs(fit.travel_time(xs) - ts)
+            good = residual <= max(3.0 * 1.4826 * np.median(residual), 0.05 * period)
+            if good.sum() >= min_picks and not good.all():
+                fit = fit_hyperbola(xs[good], ts[good], radius=radius, weights=amp[good] ** 2)
+        except SettingsError:
+            return None
+    return fit
+
+
+def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 1.5,
+                      max_angle: float = 50.0, threshold: float = 0.5,
+                      min_time: float | None = None, frequency_ghz: float | None = None,
+                      radius: bool = False, max_relative_std: float = 0.1,
+                      min_picks: int = 8) -> list[Diffraction]:
+    """Find diffraction hyperbolas on a line and fit each one, without picks.
+
+    The line (time-zero corrected; samples before time zero are ignored) has its median trace
+    subtracted (background removal) and is band-passed around its dominant frequency into an
+    analytic signal. For every trial velocity, every trace as apex and every apex time (on
+    samples decimated to about ten per period), the signal is summed along the hyperbola over
+    traces about half a wavelength apart within the aperture. Local maxima of the stack power
+    that stand above the section's noise and whose semblance reaches ``threshold`` are
+    refined by :func:`~slicer.velocity.hyperbola.fit_hyperbola` on envelope-peak picks along the
+    predicted curve, at full resolution, and kept when the fit is tight. Lines are
+    independent: a survey can be searched line by line in parallel.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``, ``twt`` in ns from time zero, per-trace ``distance`` (m) and,
+        when present, ``x`` and ``y`` (m).
+    velocities : sequence of float, optional
+        Trial velocities, m/ns, ascending; default :data:`DEFAULT_VELOCITIES` (0.05-0.20).
+    aperture : float
+        Largest horizontal distance from the apex used, m.
+    max_angle : float
+        Largest angle from vertical of the path to the apex, degrees: far traces at shallow
+        apexes see mostly other events.
+    threshold : float
+        Smallest semblance (0-1) of a detection.
+    min_time : float, optional
+        Earliest apex time searched, ns; default two dominant periods, below what remains of
+        the direct wave.
+    frequency_ghz : float, optional
+        Dominant frequency of the record, GHz; default
+        :func:`~slicer.processing.steps.dominant_frequency` of the line.
+    radius : bool
+        Fit the round-target form (radius as well).
+    max_relative_std : float
+        Largest relative standard error of the velocity of a kept fit.
+    min_picks : int
+        Fewest picks a kept fit must have.
+
+    Returns
+    -------
+    list of Diffraction
+        Sorted by decreasing score.
+
+    Raises
+    ------
+    SettingsError
+        Bad options, or a line without ``distance`` or samples after time zero.
+    """
+    name = str(line.attrs.get("line", line.attrs.get("source", "line")))
+    v = np.asarray(DEFAULT_VELOCITIES if velocities is None else velocities, dtype=float)
+    if v.ndim != 1 or v.size < 3 or np.any(np.diff(v) <= 0):
+        raise SettingsError("give three or more ascending trial velocities", where="velocities")
+    for value in v:
+        check_velocity(value, where="velocities")
+    for option, value, ok in (("aperture", aperture, aperture > 0),
+                              ("max_angle", max_angle, 0 < max_angle < 90),
+                              ("threshold", threshold, 0 < threshold < 1),
+                              ("max_relative_std", max_relative_std, max_relative_std > 0)):
+        if not (math.isfinite(value) and ok):
+            raise SettingsError(f"out of range: {value!r}", where=option)
+    if not (isinstance(min_picks, int | np.integer) and min_picks >= (5 if radius else 4)):
+        raise SettingsError(f"must be an integer >= {5 if radius else 4}, got {min_picks!r}",
+                            where="min_picks")
+    dx = trace_spacing(line)
+    dt = sample_interval(line)
+    twt = np.asarray(line[TWT].values, dtype=float)
+    start = int(np.searchsorted(twt, -1e-6 * dt))
+    if twt.size - start < 8:
+        raise SettingsError("too few samples after time zero to search", where=name)
+    t_axis = twt[start:]
+    data = np.asarray(line.transpose(TRACE, TWT).values[:, start:], dtype=np.float32)
+    data = data - np.median(data, axis=0)
+    if frequency_ghz is None:
+        f_dom = dominant_frequency(line)
+    elif math.isfinite(frequency_ghz) and frequency_ghz > 0:
+        f_dom = float(frequency_ghz)
+    else:
+        raise SettingsError(f"must be a positive frequency in GHz, got {frequency_ghz!r}",
+                            where="frequency_ghz")
+    period = 1.0 / f_dom
+    analytic = _analytic(data, dt, f_dom)
+    env = np.abs(analytic)
+    distance = np.asarray(line[DISTANCE].values, dtype=float)
+
+    lam = math.sqrt(v[0] * v[-1]) / f_dom
+    step = max(1, int(lam / 2 / dx))  # aperture traces about half a wavelength apart
+    kt = max(1, int(period / 10 / dt))  # about ten samples per period
+    scan = analytic[:, ::kt]
+    dxs, dts = step * dx, kt * dt
+    t0s = t_axis[0] + dts * np.arange(scan.shape[1])
+    earliest = 2.0 * period if min_time is None else float(min_time)
+    searched = np.nonzero((t0s >= earliest) & (t0s <= t_axis[-1] - period))[0]
+    if searched.size == 0:
+        return []
+    t0s = t0s[searched]
+    window = max(1, int(round(0.5 * period / dts)))
+    geometry = dict(dx=dx, step=step, dts=dts, t_first=t_axis[0], aperture=aperture,
+                    max_angle=max_angle, v_ref=math.sqrt(v[0] * v[-1]))
+    stack = _stack_scan(scan, t0s, v, window=window, **geometry)
+    # The stack power (mean coherent amplitude squared) peaks where the high-amplitude part of
+    # the curve lines up, at the apex and velocity; semblance, blind to amplitude, stays high
+    # over a period or more around the apex, so it only vets the detections.
+    best_v = np.argmax(stack, axis=1)
+    power = np.take_along_axis(stack, best_v[:, None, :], axis=1)[:, 0, :]
+    # a stack must stand well above the typical power of the section (mostly noise), or faint
+    # coherent residues would count
+    floor = 10.0 * float(np.median(np.abs(scan) ** 2))
+    size = (max(3, 2 * int(round(0.5 * aperture / dx)) + 1),
+            max(3, 2 * int(round(period / dts)) + 1))
+    peaks = (power == scipy.ndimage.maximum_filter(power, size=size, mode="nearest"))
+    peaks &= power > floor
+
+    xs = np.asarray(line[X].values, dtype=float) if X in line.coords else distance * np.nan
+    ys = np.asarray(line[Y].values, dtype=float) if Y in line.coords else distance * np.nan
+    order = np.argsort(distance)
+    found: list[Diffraction] = []
+    for i, j in sorted(zip(*np.nonzero(peaks), strict=True), key=lambda ij: -power[ij]):
+        k = best_v[i, j]
+        gate = t0s[max(0, j - window // 2):j + window // 2 + 1]
+        score = _semblance_at(scan, i, gate, float(v[k]), **geometry)
+        if score < threshold:
+            continue
+        # parabola through the stack power at neighbouring velocities (log scale)
+        vk = v[k]
+        if 0 < k < v.size - 1:
+            s0, s1, s2 = stack[i, k - 1:k + 2, j]
+            denom = s0 - 2 * s1 + s2
+            if denom < 0:
+                vk = float(np.exp(np.log(v[k]) + 0.5 * (s0 - s2) / denom
+                                  * np.log(v[k + 1] / v[k])))
+        x0, t0 = distance[i], t0s[j]
+        reach = min(aperture, max(2 * dxs, vk * t0 / 2 * math.tan(math.radians(max_angle))))
+        fit = _refine(env, distance, t_axis, x0=x0, t0=t0, velocity=vk, reach=reach,
+                      period=period, radius=radius, min_picks=min_picks)
+        if (fit is None or fit.velocity_std > max_relative_std * fit.velocity
+                or fit.rms_ns > 0.25 * period or abs(fit.x0 - x0) > 0.5 * reach
+                or abs(fit.t0 - t0) > period or fit.t0 < earliest
+                or not 0.7 * v[0] <= fit.velocity <= 1.3 * v[-1]):
+            continue
+        if any(abs(fit.x0 - d.distance) < 2 * dxs and abs(fit.t0 - d.time) < period
+               for d in found):
+            continue  # the same hyperbola reached from a side peak
+        trace = int(np.argmin(np.abs(distance - fit.x0)))
+        found.append(Diffraction(
+            line=name, trace=trace, distance=fit.x0,
+            x=float(np.interp(fit.x0, distance[order], xs[order])),
+            y=float(np.interp(fit.x0, distance[order], ys[order])),
+            time=fit.t0, depth=fit.depth, velocity=fit.velocity,
+            velocity_std=fit.velocity_std, score=score, fit=fit))
+    return found
+
+
+def _weighted_median(values: np.ndarray, weights: np.ndarray) -> float:
+    order = np.argsort(values)
+    cum = np.cumsum(weights[order])
+    return float(values[order][np.searchsorted(cum, 0.5 * cum[-1])])
+
+
+def survey_velocity(fits, *, tolerance: float = 0.05, min_count: int = 3) -> SurveyVelocity:
+    """A robust survey-wide velocity from many hyperbola fits.
+
+    Fits are grouped by velocity: the modes of a kernel density of ``log(v)`` (Gaussian,
+    bandwidth ``tolerance / 2``) each gather the fits within ``tolerance`` (relative) of them.
+    The slowest mode with at least ``min_count`` fits is taken, because a linear target
+    crossed at an angle ``a`` to the line appears faster (``v / sin(a)``) while point targets
+    show the true velocity; fits slower than every supported mode are isolated outliers. The
+    estimate is the median of that group weighted by ``1 / velocity_std^2``.
+
+    Parameters
+    ----------
+    fits : sequence
+        :class:`Diffraction` or :class:`~slicer.velocity.hyperbola.HyperbolaFit` records (anything
+        with
+        ``velocity`` and ``velocity_std``, m/ns).
+    tolerance : float
+        Relative half-width of a group of consistent velocities.
+    min_count : int
+        Fewest fits a group needs to be believed.
+
+    Returns
+    -------
+    SurveyVelocity
+        ``velocity`` (m/ns); ``std``, its standard error (m/ns): the larger of the group's
+        robust scatter (1.4826 MAD) times ``1.2533 / sqrt(n)`` and the standard error of the
+        weighted mean of the fits; ``kept``, the fits used.
+
+    Raises
+    ------
+    SettingsError
+        No fits, bad options, or no group of ``min_count`` consistent fits.
+    """
+    if not 0 < tolerance < 1:
+        raise SettingsError(f"must be in (0, 1), got {tolerance!r}", where="tolerance")
+    if not (isinstance(min_count, int) and min_count >= 1):
+        raise SettingsError(f"must be a positive integer, got {min_count!r}", where="min_count")
+    fits = [f for f in fits if math.isfinite(f.velocity) and f.velocity > 0]
+    if len(fits) < min_count:
+        raise SettingsError(f"{len(fits)} usable hyperbola fits; at least {min_count} are "
+                            "needed for a survey velocity", where="fits")
+    vel = np.array([f.velocity for f in fits])
+    std = np.array([f.velocity_std for f in fits])
+    std = np.where(np.isfinite(std) & (std > 0), std, max(1e-6, 1e-3 * float(np.median(vel))))
+    u = np.log(vel)
+    grid = np.arange(u.min() - tolerance, u.max() + tolerance, tolerance / 20)
+    density = np.exp(-0.5 * ((grid[:, None] - u[None, :]) / (tolerance / 2)) ** 2).sum(axis=1)
+    modes = [m for m in range(grid.size)
+             if density[m] >= density[max(m - 1, 0)] and density[m] >= density[
+                 min(m + 1, grid.size - 1)]]
+    w_all = 1.0 / std ** 2
+    chosen = None
+    for m in modes:  # ascending velocity
+        members = np.abs(u - grid[m]) <= tolerance
+        if members.sum() < min_count:
+            continue
+        # re-centre the group on its own weighted median until it settles, so that a mode on
+        # the shoulder of a larger group does not cut that group in two
+        for _ in range(10):
+            centre = math.log(_weighted_median(vel[members], w_all[members]))
+            moved = np.abs(u - centre) <= tolerance
+            if (moved == members).all() or moved.sum() < min_count:
+                break
+            members = moved
+        chosen = members
+        break
+    if chosen is None:
+        raise SettingsError(f"no {min_count} fits agree within {tolerance:.0%}; velocities "
+                            f"range {vel.min():.3g}-{vel.max():.3g} m/ns", where="fits")
+    kept = [f for f, k in zip(fits, chosen, strict=True) if k]
+    vk, w = vel[chosen], w_all[chosen]
+    estimate = _weighted_median(vk, w)
+    mad = 1.4826 * float(np.median(np.abs(vk - estimate)))
+    error = max(1.2533 * mad / math.sqrt(vk.size), 1.0 / math.sqrt(float(w.sum())))
+    return SurveyVelocity(float(estimate), float(error), kept)
+
+
+def diffraction_table(found) -> xr.Dataset:
+    """The diffractions as a Dataset with dim ``diffraction``, units in attrs.
+
+    Parameters
+    ----------
+    found : sequence of Diffraction
+
+    Returns
+    -------
+    xarray.Dataset
+        Variables ``line``, ``trace``, ``distance``, ``x``, ``y`` (m), ``time`` (ns),
+        ``depth`` (m), ``velocity``, ``velocity_std`` (m/ns), ``radius`` (m), ``rms`` (ns),
+        ``picks`` and ``score``.
+    """
+    found = list(found)
+    units = {"trace": "1", "distance": UNITS[DISTANCE], "x": UNITS[X], "y": UNITS[Y],
+             "time": UNITS[TWT], "depth": "m", "velocity": "m/ns", "velocity_std": "m/ns",
+             "score": "1"}
+    data = {}
+    for f in fields(Diffraction):
+        if f.name == "fit":
+            continue
+        values = np.array([getattr(d, f.name) for d in found],
+                          dtype=object if f.name == "line" else float)
+        if f.name == "line":
+            values = values.astype(str)
+        elif f.name == "trace":
+            values = values.astype(np.int64)
+        data[f.name] = ("diffraction", values, {"units": units[f.name]} if f.name in units
+                        else {})
+    data["radius"] = ("diffraction", np.array([d.fit.radius for d in found], float),
+                      {"units": "m"})
+    data["rms"] = ("diffraction", np.array([d.fit.rms_ns for d in found], float),
+                   {"units": "ns"})
+    data["picks"] = ("diffraction", np.array([d.fit.n_points for d in found], np.int64),
+                     {"units": "1"})
+    return xr.Dataset(data, attrs={"description": "diffraction hyperbolas found by slicer"})

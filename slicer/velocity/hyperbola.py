@@ -1,0 +1,278 @@
+"""Diffraction hyperbolas: travel times and least-squares fits of picked apex curves.
+
+A point diffractor at depth ``z0`` below the surface position ``x0`` appears on a line as the
+hyperbola ``t(x) = (2 / v) sqrt(z0^2 + (x - x0)^2)`` (Yilmaz 2001, Seismic Data Analysis, SEG,
+ch. 4), whose apex time is ``t0 = 2 z0 / v``. A round object of radius ``R`` whose top lies at
+``z0`` reflects from its surface instead of its centre, which flattens the curve:
+``t(x) = (2 / v) [sqrt((z0 + R)^2 + (x - x0)^2) - R]`` (Shihab & Al-Nuaimy 2005, Subsurface
+Sensing Technologies and Applications 6:151-166). Fitting either form to picks ``(x, t)``
+measures the radar velocity in the ground above the target.
+
+Times are two-way, in ns below time zero; positions are distances along the line, m; velocities
+m/ns.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.optimize
+
+from slicer.core.conventions import C_M_PER_NS
+from slicer.core.errors import SettingsError
+
+__all__ = ["HyperbolaFit", "fit_hyperbola", "hyperbola_time"]
+
+#: Largest relative standard error of the velocity that a fit may have and still be reported.
+MAX_RELATIVE_VELOCITY_STD = 0.5
+
+_WHERE = "hyperbola picks"
+
+
+def hyperbola_time(x_m, *, x0: float, t0: float, velocity: float, radius: float = 0.0):
+    """Two-way time (ns) of a point (``radius = 0``) or round diffractor seen at ``x_m``.
+
+    ``t = (2 / v) [sqrt((z0 + R)^2 + (x - x0)^2) - R]`` with ``z0 = v t0 / 2`` the depth of the
+    target's top (Shihab & Al-Nuaimy 2005); ``R = 0`` gives the diffraction hyperbola
+    ``t = sqrt(t0^2 + (2 (x - x0) / v)^2)`` (Yilmaz 2001, ch. 4).
+
+    Parameters
+    ----------
+    x_m : array_like
+        Antenna positions along the line, m.
+    x0 : float
+        Position of the apex along the line, m.
+    t0 : float
+        Two-way time of the apex, ns.
+    velocity : float
+        Radar velocity above the target, m/ns.
+    radius : float
+        Target radius, m.
+
+    Returns
+    -------
+    numpy.ndarray
+        Two-way times, ns, shaped like ``x_m``.
+    """
+    d = np.asarray(x_m, dtype=float) - x0
+    z0 = velocity * t0 / 2.0
+    return (2.0 / velocity) * (np.sqrt((z0 + radius) ** 2 + d * d) - radius)
+
+
+@dataclass(frozen=True)
+class HyperbolaFit:
+    """A fitted diffraction hyperbola and the standard errors of its parameters.
+
+    Attributes
+    ----------
+    velocity, velocity_std : float
+        Radar velocity above the target and its standard error, m/ns.
+    x0, x0_std : float
+        Apex position along the line, m.
+    t0, t0_std : float
+        Two-way time of the apex (the target's top), ns.
+    depth, depth_std : float
+        Depth of the target's top, ``v t0 / 2``, m.
+    radius, radius_std : float
+        Target radius, m (0 and 0 for a point fit).
+    rms_ns : float
+        Root-mean-square residual of the picks, ns (unweighted).
+    n_points : int
+        Number of picks fitted.
+    """
+
+    velocity: float
+    velocity_std: float
+    x0: float
+    x0_std: float
+    t0: float
+    t0_std: float
+    depth: float
+    depth_std: float
+    radius: float
+    radius_std: float
+    rms_ns: float
+    n_points: int
+
+    def travel_time(self, x_m) -> np.ndarray:
+        """Two-way time (ns) of the fitted curve at positions ``x_m`` (m)."""
+        return hyperbola_time(x_m, x0=self.x0, t0=self.t0, velocity=self.velocity,
+                              radius=self.radius)
+
+
+def _model(p: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Travel times and their Jacobian over ``p = (v, x0, t0[, R])``."""
+    v, x0, t0 = p[:3]
+    r = p[3] if p.size > 3 else 0.0
+    d = x - x0
+    zr = v * t0 / 2.0 + r
+    q = np.sqrt(zr * zr + d * d)
+    q = np.where(q > 0, q, np.finfo(float).tiny)
+    t = (2.0 / v) * (q - r)
+    jac = np.empty((x.size, p.size))
+    jac[:, 0] = -t / v + t0 * zr / (v * q)  # d/dv of 2 (q - R) / v with q depending on v
+    jac[:, 1] = -2.0 * d / (v * q)
+    jac[:, 2] = zr / q
+    if p.size > 3:
+        jac[:, 3] = (2.0 / v) * (zr / q - 1.0)
+    return t, jac
+
+
+def _check_picks(x_m, t_ns, weights, n_min: int, radius: bool):
+    try:
+        x = np.asarray(x_m, dtype=float).ravel()
+        t = np.asarray(t_ns, dtype=float).ravel()
+    except (TypeError, ValueError):
+        raise SettingsError("positions and times must be numbers", where=_WHERE) from None
+    if x.shape != t.shape:
+        raise SettingsError(f"{x.size} positions but {t.size} times", where=_WHERE)
+    if not (np.isfinite(x).all() and np.isfinite(t).all()):
+        raise SettingsError("positions and times must be finite", where=_WHERE)
+    if (t <= 0).any():
+        raise SettingsError("two-way times must be positive (ns below time zero)", where=_WHERE)
+    form = "a round-target fit (radius=True)" if radius else "a hyperbola fit"
+    if x.size < n_min:
+        raise SettingsError(f"{form} needs at least {n_min} picks, got {x.size}", where=_WHERE)
+    distinct = np.unique(np.round(x, 9)).size
+    if distinct == 1:
+        raise SettingsError("all picks lie at one position: no curvature to measure a velocity",
+                            where=_WHERE)
+    if distinct < n_min - 1:
+        raise SettingsError(f"{form} needs picks at {n_min - 1} or more positions, got "
+                            f"{distinct}", where=_WHERE)
+    if weights is None:
+        w = np.ones_like(x)
+    else:
+        w = np.asarray(weights, dtype=float).ravel()
+        if w.shape != x.shape or not np.isfinite(w).all() or (w <= 0).any():
+            raise SettingsError("weights must be positive, finite and one per pick",
+                                where="weights")
+    return x, t, w
+
+
+def _initial_guess(x, t, w):
+    """``(v, x0, t0)`` from the linear fit of ``t^2 = a + b x + c x^2`` (``c = 4 / v^2``)."""
+    scale = max(np.ptp(x), 1e-9)
+    xc = (x - x.mean()) / scale  # centred and scaled so the normal equations stay well posed
+    design = np.stack([np.ones_like(xc), xc, xc * xc], axis=1) * np.sqrt(w)[:, None]
+    (a, b, c), *_ = np.linalg.lstsq(design, t * t * np.sqrt(w), rcond=None)
+    # the quadratic term must matter over the picks (xc spans [-0.5, 0.5]), beyond rounding
+    if not c * 0.25 > 1e-9 * float(np.mean(t * t)):
+        raise SettingsError("the picks show no downward curvature: they cannot fix a velocity "
+                            "(a flat or straight event is not a diffraction)", where=_WHERE)
+    apex = -b / (2 * c)
+    t0_sq = a - c * apex * apex
+    velocity = 2.0 * scale / math.sqrt(c)
+    x0 = x.mean() + apex * scale
+    t0 = math.sqrt(t0_sq) if t0_sq > 0 else 0.5 * t.min()
+    return velocity, x0, t0
+
+
+def _solve(p0, x, t, w, lower, upper):
+    sw = np.sqrt(w)
+
+    def residuals(p):
+        return sw * (_model(p, x)[0] - t)
+
+    def jacobian(p):
+        return sw[:, None] * _model(p, x)[1]
+
+    p0 = np.clip(p0, lower + 1e-9 * (1 + np.abs(lower)), upper)
+    return scipy.optimize.least_squares(residuals, p0, jac=jacobian, bounds=(lower, upper),
+                                        x_scale="jac", method="trf", xtol=1e-12, ftol=1e-12,
+                                        gtol=1e-12, max_nfev=500)
+
+
+def fit_hyperbola(x_m, t_ns, *, radius: bool = False, weights=None) -> HyperbolaFit:
+    """Fit a diffraction hyperbola (or a round-target curve) to picked times by least squares.
+
+    The model is ``t(x) = (2 / v) sqrt(z0^2 + (x - x0)^2)`` with ``t0 = 2 z0 / v`` (Yilmaz 2001,
+    Seismic Data Analysis, ch. 4), or with ``radius=True``
+    ``t(x) = (2 / v) [sqrt((z0 + R)^2 + (x - x0)^2) - R]`` (Shihab & Al-Nuaimy 2005). A linear
+    fit of ``t^2`` against a quadratic in ``x`` gives the starting point; the nonlinear fit is
+    :func:`scipy.optimize.least_squares` with the analytic Jacobian. Standard errors are the
+    square roots of the diagonal of ``(J^T J)^-1 s^2``, ``s^2`` the residual variance
+    (weighted sum of squares over ``n - p``); the depth error propagates those of ``v`` and
+    ``t0`` with their covariance.
+
+    Parameters
+    ----------
+    x_m : array_like
+        Pick positions along the line, m.
+    t_ns : array_like
+        Picked two-way times, ns below time zero (positive).
+    radius : bool
+        Fit the round-target form with its radius ``R >= 0`` (needs 5 picks at 4 positions)
+        instead of the point hyperbola (4 picks at 3 positions).
+    weights : array_like, optional
+        Positive weight of each pick (e.g. ``1 / sigma^2`` or the squared amplitude); the
+        weighted sum of squared residuals is minimised.
+
+    Returns
+    -------
+    HyperbolaFit
+
+    Raises
+    ------
+    SettingsError
+        When the picks cannot constrain a velocity: too few picks or positions, all picks at
+        one position, no downward curvature, picks on one side of the apex spanning less than
+        half its depth, a relative velocity error above 50 %, or a velocity that is not
+        between 0 and the speed of light (0.2998 m/ns).
+    """
+    n_min = 5 if radius else 4
+    x, t, w = _check_picks(x_m, t_ns, weights, n_min, radius)
+    v0, x00, t00 = _initial_guess(x, t, w)
+    span = np.ptp(x)
+    # velocity may run past c here, so that an impossible result is reported, not clipped
+    lower = np.array([1e-6, x.min() - 100 * span, 0.0])
+    upper = np.array([10 * C_M_PER_NS, x.max() + 100 * span, np.inf])
+    p0 = np.array([min(v0, 5 * C_M_PER_NS), x00, t00])
+    if radius:
+        lower, upper = np.append(lower, 0.0), np.append(upper, np.inf)
+        # a few starting radii: the radius trades off against velocity, so one start can stall
+        starts = [np.append(p0, f * v0 * t00 / 2) for f in (0.0, 0.3, 1.0)]
+    else:
+        starts = [p0]
+    result = min((_solve(s, x, t, w, lower, upper) for s in starts), key=lambda r: r.cost)
+    p = result.x
+    v, x0, t0 = p[:3]
+    r = float(p[3]) if radius else 0.0
+    n, k = x.size, p.size
+    s2 = 2.0 * result.cost / (n - k)
+    jtj = result.jac.T @ result.jac
+    try:
+        cov = np.linalg.inv(jtj) * s2
+    except np.linalg.LinAlgError:
+        cov = np.full((k, k), np.inf)
+    if not np.isfinite(cov).all():
+        raise SettingsError("the picks do not constrain the hyperbola (singular fit)",
+                            where=_WHERE)
+    std = np.sqrt(np.clip(np.diag(cov), 0.0, None))
+    if not 0 < v < C_M_PER_NS:
+        raise SettingsError(f"the fitted velocity {v:.4g} m/ns is not between 0 and the speed of "
+                            f"light ({C_M_PER_NS:.4f} m/ns): the picks are not a diffraction "
+                            "from below the surface", where=_WHERE)
+    depth = v * t0 / 2.0
+    outside = max(x.min() - x0, x0 - x.max())
+    if outside > 0.01 * span and span < 0.5 * depth:
+        raise SettingsError(f"the picks lie on one side of the apex and span only {span:.3g} m "
+                            f"(less than half the apex depth, {depth:.3g} m): their curvature "
+                            "cannot fix a velocity", where=_WHERE)
+    if not t0 > 1e-3 * t.min():
+        raise SettingsError("the fitted apex lies at the surface (t0 = 0): a straight event, "
+                            "not a diffraction", where=_WHERE)
+    if std[0] > MAX_RELATIVE_VELOCITY_STD * v:
+        raise SettingsError(f"the velocity is not constrained: {v:.4g} +- {std[0]:.2g} m/ns "
+                            f"(more than {MAX_RELATIVE_VELOCITY_STD:.0%})", where=_WHERE)
+    grad = np.zeros(k)
+    grad[0], grad[2] = t0 / 2.0, v / 2.0
+    depth_std = math.sqrt(max(float(grad @ cov @ grad), 0.0))
+    residual = _model(p, x)[0] - t
+    return HyperbolaFit(
+        velocity=float(v), velocity_std=float(std[0]), x0=float(x0), x0_std=float(std[1]),
+        t0=float(t0), t0_std=float(std[2]), depth=float(depth), depth_std=depth_std,
+        radius=r, radius_std=float(std[3]) if radius else 0.0,
+        rms_ns=float(np.sqrt(np.mean(residual ** 2))), n_points=int(n))

@@ -1,0 +1,92 @@
+import numpy as np
+import pytest
+import xarray as xr
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from slicer.core.errors import SettingsError
+from slicer.gridding.windows import Windows, make_windows, parse_range, reduce_to_windows
+
+
+def linear_line(a, b, n=200, dt=0.1, t_start=-2.0, traces=3):
+    twt = t_start + dt * np.arange(n)
+    data = np.tile(a + b * twt, (traces, 1)).astype(np.float32)
+    return xr.DataArray(data, dims=("trace", "twt"), coords={"twt": twt})
+
+
+def test_contract_range_gives_24_slices():
+    w = make_windows(*parse_range("0:2.4:0.1", option="--depths"))
+    assert len(w) == 24
+    np.testing.assert_allclose(w.top, np.arange(24) * 0.1, atol=1e-12)
+    np.testing.assert_allclose(w.bottom, np.arange(1, 25) * 0.1, atol=1e-12)
+    assert w.axis == "depth" and w.units == "m"
+
+
+def test_thickness_other_than_step():
+    w = make_windows(0.0, 1.0, 0.1, thickness=0.3)
+    assert len(w) == 8  # tops 0.0 ... 0.7, the last ending at 1.0
+    np.testing.assert_allclose(w.bottom - w.top, 0.3)
+    assert w.bottom[-1] == pytest.approx(1.0)
+
+
+@pytest.mark.parametrize("text", ["0:2", "a:b:c", "0:2:0.1:4", "0:nan:0.1", "", "0:inf:1"])
+def test_bad_range_text(text):
+    with pytest.raises(SettingsError, match="--depths"):
+        parse_range(text, option="--depths")
+
+
+@pytest.mark.parametrize("top, bottom, step, thickness", [
+    (0, 2, 0, None), (0, 2, -0.1, None), (2, 1, 0.1, None), (1, 1, 0.1, None),
+    (-0.5, 1, 0.1, None), (0, 1, 0.1, 2.0), (0, 1, 0.1, -0.1)])
+def test_bad_windows(top, bottom, step, thickness):
+    with pytest.raises(SettingsError):
+        make_windows(top, bottom, step, thickness=thickness)
+
+
+def test_depth_windows_to_time():
+    # t = 2 d / v (ASTM D6432-19 section 5): 0.5-0.6 m at 0.1 m/ns -> 10-12 ns
+    w = Windows("depth", np.array([0.5]), np.array([0.6]))
+    top, bottom = w.times(0.1)
+    assert top[0] == pytest.approx(10.0) and bottom[0] == pytest.approx(12.0)
+    with pytest.raises(SettingsError, match="velocity"):
+        w.times(None)
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.floats(-3, 3), st.floats(-2, 2), st.floats(0, 13), st.floats(0.001, 4))
+def test_window_mean_of_a_linear_trace_is_exact(a, b, top, thick):
+    # The mean of a + b t over [t1, t2] is a + b (t1 + t2) / 2 (elementary calculus), for any
+    # window, aligned with samples or not, thinner or thicker than the sample interval.
+    line = linear_line(a, b)
+    w = Windows("twt", np.array([top]), np.array([top + thick]))
+    out = reduce_to_windows(line, w).values
+    expected = a + b * (2 * top + thick) / 2
+    np.testing.assert_allclose(out, expected, atol=1e-4 * (1 + abs(a) + 20 * abs(b)))
+
+
+def test_window_mean_of_a_sampled_curve_converges():
+    twt = np.arange(0, 30, 0.05)
+    line = xr.DataArray(np.sin(twt)[None, :].astype(np.float32), dims=("trace", "twt"),
+                        coords={"twt": twt})
+    w = Windows("twt", np.array([1.0, 4.03]), np.array([2.5, 9.71]))
+    got = reduce_to_windows(line, w).values[0]
+    exact = (np.cos(w.top) - np.cos(w.bottom)) / (w.bottom - w.top)
+    np.testing.assert_allclose(got, exact, atol=2e-4)
+
+
+def test_windows_the_record_does_not_reach_are_nan():
+    line = linear_line(1.0, 0.0)  # record -2 .. 17.9 ns
+    w = Windows("twt", np.array([0.0, 17.0, 18.0]), np.array([1.0, 17.9, 19.0]))
+    out = reduce_to_windows(line, w).values[0]
+    assert np.isfinite(out[:2]).all() and np.isnan(out[2])
+
+
+def test_reduce_runs_on_dask_and_keeps_coordinates():
+    line = linear_line(0.0, 1.0, traces=10).assign_coords(x=("trace", np.arange(10.0)))
+    w = make_windows(0.0, 1.0, 0.25, axis="depth")
+    eager = reduce_to_windows(line, w, velocity=0.1)
+    lazy = reduce_to_windows(line.chunk({"trace": 3}), w, velocity=0.1)
+    np.testing.assert_allclose(lazy.compute().values, eager.values)
+    assert eager.dims == ("trace", "slice")
+    np.testing.assert_allclose(eager["top"].values, w.top)
+    assert "x" in eager.coords

@@ -1,0 +1,91 @@
+"""Dispatch of line files on their suffix, and agreement between the two line formats."""
+
+from __future__ import annotations
+
+import dataclasses
+import shutil
+
+import numpy as np
+import pytest
+import xarray as xr
+
+from slicer.core.errors import InputFileError, SettingsError, SlicerWarning
+from slicer.io.linefile import read_line_netcdf, write_line_netcdf
+from slicer.io.reading import LineInfo, line_info, read_line
+from slicer.io.segy import read_segy_line, write_segy_line
+
+
+def _line(n_traces=4, n_samples=6, interval_ns=0.2):
+    data = np.random.default_rng(2).normal(size=(n_traces, n_samples)).astype(np.float32)
+    return xr.DataArray(
+        data, dims=("trace", "twt"), name="amplitude",
+        coords={"twt": ("twt", interval_ns * np.arange(n_samples)),
+                "x": ("trace", 300000.0 + 0.1 * np.arange(n_traces)),
+                "y": ("trace", 5000000.0 + np.zeros(n_traces))},
+        attrs={"line": "L1", "sample_interval_ns": interval_ns})
+
+
+@pytest.fixture
+def files(tmp_path):
+    line = _line()
+    return {"segy": write_segy_line(tmp_path / "a.sgy", line),
+            "netcdf": write_line_netcdf(tmp_path / "a.nc", line)}
+
+
+@pytest.mark.parametrize("suffix", [".sgy", ".segy", ".SGY", ".SeGy"])
+def test_segy_suffixes_any_case(tmp_path, files, suffix):
+    path = tmp_path / f"copy{suffix}"
+    shutil.copy(files["segy"], path)
+    xr.testing.assert_identical(read_line(path, name="n"), read_segy_line(path, name="n"))
+    assert line_info(path).format == "segy-ieee"
+
+
+def test_netcdf_dispatch(files):
+    xr.testing.assert_identical(read_line(files["netcdf"]), read_line_netcdf(files["netcdf"]))
+    assert line_info(files["netcdf"]).format == "netcdf"
+
+
+@pytest.mark.parametrize("name", ["line.txt", "line", "line.nc.bak", "line.sgy.gz"])
+def test_unknown_suffix_lists_accepted(tmp_path, files, name):
+    path = tmp_path / name
+    shutil.copy(files["segy"], path)
+    for call in (read_line, line_info):
+        with pytest.raises(InputFileError, match=r"\.sgy, \.segy, \.nc") as exc:
+            call(path)
+        assert exc.value.where == str(path)
+
+
+def test_both_formats_give_the_same_line(files):
+    segy, netcdf = read_line(files["segy"]), read_line(files["netcdf"])
+    np.testing.assert_array_equal(segy.values, netcdf.values)
+    np.testing.assert_array_equal(segy["twt"].values, netcdf["twt"].values)
+    # SEG-Y keeps centimetres (coordinate scalar -100); NetCDF keeps the float64 values.
+    np.testing.assert_allclose(segy["header_x"].values, netcdf["header_x"].values, atol=5e-3)
+    assert set(segy.coords) == set(netcdf.coords) == {"trace", "twt", "header_x", "header_y"}
+    assert set(segy.attrs) == set(netcdf.attrs)
+    for key in ("line", "sample_interval_ns", "time_zero_ns", "history", "units"):
+        assert segy.attrs[key] == netcdf.attrs[key], key
+    assert segy.attrs["line"] == "a"  # the file stem by default (DEVELOPERS.md, Line)
+    infos = [line_info(p) for p in files.values()]
+    assert {(i.n_traces, i.n_samples, i.sample_interval_ns) for i in infos} == {(4, 6, 0.2)}
+
+
+def test_line_info_is_frozen(files):
+    info = line_info(files["segy"])
+    assert isinstance(info, LineInfo) and info.path == files["segy"]
+    with pytest.raises(dataclasses.FrozenInstanceError):
+        info.n_traces = 0  # type: ignore[misc]
+
+
+def test_interval_rules_through_dispatch(files):
+    for path in files.values():
+        with pytest.warns(SlicerWarning, match=path.name):
+            assert read_line(path, sample_interval_ns=0.4).attrs["sample_interval_ns"] == 0.4
+        with pytest.raises(SettingsError):
+            read_line(path, sample_interval_ns=-1.0)
+
+
+def test_missing_files_raise_input_file_error(tmp_path):
+    for name in ("gone.sgy", "gone.nc"):
+        with pytest.raises(InputFileError, match="not found"):
+            read_line(tmp_path / name)

@@ -1,0 +1,97 @@
+"""Engines: the same tasks give the same results on threads, processes and a LocalCluster."""
+
+import math
+
+import numpy as np
+import pytest
+
+import slicer
+from slicer.core.errors import SettingsError
+from slicer.pipeline.engine import Engine, parse_scheduler
+
+
+@pytest.mark.parametrize("text, kind, workers", [
+    (None, "threads", None), ("threads", "threads", None), ("processes", "processes", None),
+    ("local:3", "local", 3), ("tcp://10.0.0.5:8786", "remote", None)])
+def test_parse_scheduler(text, kind, workers):
+    spec = parse_scheduler(text)
+    assert spec.kind == kind
+    if workers:
+        assert spec.workers == workers
+    if kind == "remote":
+        assert spec.address == "tcp://10.0.0.5:8786"
+
+
+@pytest.mark.parametrize("bad", ["local:0", "local:x", "gpu", "tcp://", "cluster"])
+def test_bad_scheduler(bad):
+    with pytest.raises(SettingsError, match="--scheduler"):
+        parse_scheduler(bad)
+
+
+@pytest.mark.parametrize("scheduler", ["threads", "processes", "local:2"])
+def test_map_keeps_order(scheduler):
+    items = list(range(1, 30))
+    with Engine(parse_scheduler(scheduler)) as e:
+        got = list(e.map(math.factorial, items, desc="t", progress=False))
+    assert got == [math.factorial(i) for i in items]
+
+
+def test_unreachable_cluster_is_one_clear_error(monkeypatch):
+    monkeypatch.setattr(Engine, "connect_timeout", 2)
+    with pytest.raises(SettingsError, match="cannot reach the dask scheduler"), \
+            Engine(parse_scheduler("tcp://127.0.0.1:9")):
+        pass
+
+
+def test_distributed_build_equals_threaded(small_survey):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, velocity=0.1, depths="0:2.4:0.1",
+                                    cell=0.1)
+    threaded = slicer.build_cube(settings, progress=False).cube
+    clustered = slicer.build_cube(settings.replace(scheduler="local:2"), progress=False)
+    assert clustered.record["engine"] == "local:2"
+    np.testing.assert_allclose(clustered.cube.values, threaded.values, rtol=1e-6,
+                               equal_nan=True)
+    processes = slicer.build_cube(settings.replace(scheduler="processes"), progress=False)
+    np.testing.assert_allclose(processes.cube.values, threaded.values, rtol=1e-6,
+                               equal_nan=True)
+
+
+def test_auto_scheduler_by_survey_size():
+    assert parse_scheduler("auto", traces=10, workers=2).kind == "threads"
+    assert parse_scheduler("auto", traces=10**6, workers=2).kind == "processes"
+    assert parse_scheduler("auto", traces=10**6, workers=1).kind == "threads"
+
+
+@pytest.mark.parametrize("scheduler", ["threads", "processes"])
+def test_map_of_a_generator_in_batches_keeps_order(scheduler):
+    # 300 items on 2 process workers go as batches of 8; a generator is consumed lazily.
+    with Engine(parse_scheduler(scheduler, workers=2)) as e:
+        assert e._batch_size(300) == (1 if scheduler == "threads" else 8)
+        got = list(e.map(math.factorial, (i % 40 for i in range(300)), desc="t",
+                         progress=False, weights=[1] * 300))
+    assert got == [math.factorial(i % 40) for i in range(300)]
+
+
+def test_map_keeps_a_bounded_window_in_flight():
+    # The sliding window: while the caller holds result k, at most 2 x workers later items
+    # have been taken from the generator.
+    taken = []
+
+    def source():
+        for i in range(50):
+            taken.append(i)
+            yield i
+
+    with Engine(parse_scheduler("threads", workers=2)) as e:
+        results = e.map(abs, source(), desc="t", progress=False)
+        for k, value in enumerate(results):
+            assert value == k
+            assert len(taken) <= k + 1 + 4
+    assert len(taken) == 50
+
+
+def test_map_error_is_raised_and_stops_the_rest():
+    with Engine(parse_scheduler("threads", workers=2)) as e, \
+            pytest.raises(ZeroDivisionError):
+        list(e.map(lambda x: 1 / x, [3, 2, 1, 0, 1, 2], desc="t", progress=False))

@@ -1,0 +1,91 @@
+"""Outputs written by worker processes (slicer.pipeline.worker_outputs) equal those of the threaded
+sink."""
+
+from __future__ import annotations
+
+import concurrent.futures
+import json
+
+import numpy as np
+import pytest
+import rasterio
+import tifffile
+
+import slicer
+from slicer.core.errors import OutputError
+from slicer.outputs.zarr_store import open_cube_zarr
+from slicer.pipeline import worker_outputs as _worker_outputs
+
+
+@pytest.fixture(scope="module")
+def threaded(small_survey, tmp_path_factory):
+    out = tmp_path_factory.mktemp("threads") / "o"
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, velocity=0.1, depths="0:2.4:0.1", cell=0.1,
+                                    scheduler="threads", out=out)
+    slicer.build(settings, progress=False)
+    return settings, out
+
+
+def _tiffs(folder):
+    return sorted((folder / "slices").glob("*.tif"))
+
+
+@pytest.mark.parametrize("scheduler", ["processes", "local:2"])
+def test_worker_written_outputs_equal_the_threaded_ones(threaded, tmp_path, scheduler):
+    settings, reference = threaded
+    out = tmp_path / "o"
+    result = slicer.build(settings.replace(scheduler=scheduler, out=out), progress=False)
+    assert result.record["engine"].startswith(scheduler.split(":")[0])
+    names = [p.name for p in _tiffs(out)]
+    assert names == [p.name for p in _tiffs(reference)] and len(names) == 24
+    for mine, theirs in zip(_tiffs(out), _tiffs(reference), strict=True):
+        with rasterio.open(mine) as a, rasterio.open(theirs) as b:
+            np.testing.assert_allclose(a.read(1), b.read(1), rtol=1e-6, equal_nan=True)
+            assert a.transform == b.transform and a.crs == b.crs
+            assert a.descriptions == b.descriptions and a.units == b.units
+        # tifffile, an independent TIFF reader: the same metadata and tile layout
+        with tifffile.TiffFile(mine) as a, tifffile.TiffFile(theirs) as b:
+            assert a.pages[0].tags["GDAL_METADATA"].value == \
+                b.pages[0].tags["GDAL_METADATA"].value
+            assert a.pages[0].tilewidth == b.pages[0].tilewidth
+    for name in ("cube.nc", "cube.zarr"):
+        read = (slicer.read_cube_netcdf if name.endswith(".nc")
+                else open_cube_zarr)
+        np.testing.assert_allclose(read(out / name).values, read(reference / name).values,
+                                   rtol=1e-6, equal_nan=True)
+    assert (out / "overview.png").stat().st_size > 10_000
+    assert not [p for p in out.rglob(".*") if p.name != ".zattrs" and ".zarr" not in str(p)
+                and p.suffix != ".zgroup"]  # no temporary file left behind
+    record = json.loads((out / "record.json").read_text())
+    assert record["outputs"] == json.loads((reference / "record.json").read_text())["outputs"]
+
+
+class _InThread:
+    """An engine stand-in whose 'workers' are threads of this process (for a failure test)."""
+
+    def __init__(self):
+        self._pool = concurrent.futures.ThreadPoolExecutor(max_workers=2)
+
+    def offloader(self):
+        return self._pool.submit
+
+    def map(self, func, items, **_):
+        return map(func, items)
+
+
+def test_a_failing_slice_leaves_nothing_behind(threaded, tmp_path, monkeypatch):
+    settings, reference = threaded
+    cube = open_cube_zarr(reference / "cube.zarr")
+
+    def broken(job, values=None):
+        raise OutputError("disk full (simulated)", where=job.final)
+
+    monkeypatch.setattr(_worker_outputs, "write_slice_file", broken)
+    out = tmp_path / "o"
+    layout_jobs = []  # the tiles are written by hand below; no gridding needed
+    with pytest.raises(OutputError, match="disk full"):
+        with _worker_outputs.WorkerSink(out, cube, engine=_InThread(), progress=False) as sink:
+            sink.grid(layout_jobs, count=0)
+            sink._store.write_tile(0, 0, cube.values)
+    assert not out.exists() or not any(out.rglob("*"))

@@ -1,0 +1,212 @@
+import warnings
+
+import numpy as np
+import pytest
+import scipy.optimize
+import xarray as xr
+
+from slicer.core.errors import SettingsError, SlicerWarning
+from slicer.processing.migration import interval_velocity, migrate, trace_spacing
+from slicer.synthetic import forward as _forward
+from slicer.synthetic.forward import PointTarget
+
+# The worked case of check-values.md, "Migration" (Stolt 1978, Geophysics 43:23-48): traces
+# every 0.05 m, samples every 0.2 ns, a 400 MHz Ricker wavelet, a point diffractor at 6.4 m
+# along the line and 2.0 m deep in ground of 0.1 m/ns.
+DX, DT, SAMPLES, TRACES = 0.05, 0.2, 512, 257
+X0, Z0, V = 6.4, 2.0, 0.1
+
+
+def make_line(times, amplitudes, *, dx=DX, dt=DT, samples=SAMPLES, t_start=0.0):
+    """A line from arrival times/amplitudes (traces, reflectors) rendered by the forward model."""
+    n = times.shape[0]
+    distance = dx * np.arange(n)
+    twt = t_start + dt * np.arange(samples)
+    data = _forward.render_reflections(twt, times, amplitudes, kind="ricker", frequency_ghz=0.4)
+    return xr.DataArray(
+        data.astype(np.float32), dims=("trace", "twt"), name="amplitude",
+        coords={"twt": ("twt", twt, {"units": "ns"}), "trace": np.arange(n),
+                "distance": ("trace", distance, {"units": "m"}),
+                "x": ("trace", 500.0 + distance, {"units": "m"}),
+                "y": ("trace", np.full(n, 200.0), {"units": "m"})},
+        attrs={"line": "test", "history": "simulated", "units": "1"})
+
+
+@pytest.fixture(scope="module")
+def point_line():
+    x = DX * np.arange(TRACES)
+    times, amplitudes = _forward.arrivals(x, np.zeros_like(x), (PointTarget(X0, 0.0, Z0),),
+                                          velocity=V, pattern_exponent=0.0)
+    return make_line(times, amplitudes)
+
+
+def focus(image, *, x0, t0, dx=DX, half_time=4.0):
+    """Peak position and the fraction of the energy within +-3 traces x +-half_time ns of it
+    (4 ns is +-0.2 m at 0.1 m/ns) and of the truth."""
+    energy = np.asarray(image.values, dtype=float) ** 2
+    distance, twt = image["distance"].values, image["twt"].values
+    i, j = np.unravel_index(np.argmax(np.abs(image.values)), energy.shape)
+
+    def fraction(xc, tc):
+        box = ((np.abs(distance - xc) <= 3 * dx + 1e-9)[:, None]
+               & (np.abs(twt - tc) <= half_time + 1e-9)[None, :])
+        return energy[box].sum() / energy.sum()
+
+    return distance[i], twt[j], fraction(x0, t0), fraction(distance[i], twt[j])
+
+
+def test_stolt_focuses_the_worked_case(point_line):
+    # check-values.md, Migration (Stolt 1978): peak at (6.400 m, 2.010 m), 97 % of the energy
+    # within +-3 traces x +-0.2 m (7.5 % before); suggested check: peak within 1 trace and
+    # 2 samples, focused fraction > 0.9.
+    t0 = 2 * Z0 / V
+    *_, before, _ = focus(point_line, x0=X0, t0=t0)
+    image = migrate(point_line, velocity=V)
+    x, t, after, _ = focus(image, x0=X0, t0=t0)
+    assert abs(x - X0) <= DX + 1e-9
+    assert abs(t - t0) <= 2 * DT + 1e-9
+    assert after > 0.9
+    assert before == pytest.approx(0.075, abs=0.02)
+    assert image.dtype == np.float32 and image.dims == point_line.dims
+    np.testing.assert_array_equal(image["twt"].values, point_line["twt"].values)
+    assert image.attrs["migration_velocity"] == V
+    assert image.attrs["history"].startswith("simulated; Stolt migration 0.1 m/ns")
+
+
+@pytest.mark.parametrize("factor, depth", [(0.9, 1.80), (1.1, 2.17)])
+def test_a_wrong_velocity_defocuses(point_line, factor, depth):
+    # check-values.md, Migration: velocity -10 % -> peak at 1.80 m with 51 % of the energy;
+    # +10 % -> 2.17 m with 50 % (depth converted with the velocity used).
+    v = V * factor
+    image = migrate(point_line, velocity=v)
+    x, t, at_truth, at_peak = focus(image, x0=X0, t0=2 * Z0 / V)
+    assert v * t / 2 == pytest.approx(depth, abs=0.02)
+    assert abs(x - X0) <= 2 * DX + 1e-9
+    assert at_peak < 0.65  # well below the > 0.9 of the right velocity
+    assert at_truth < 0.65
+
+
+def test_phase_shift_with_one_layer_equals_stolt(point_line):
+    # Gazdag (1978), Geophysics 43:1342-1351 and Stolt (1978) migrate a constant velocity
+    # exactly; they differ only by Stolt's interpolation in frequency.
+    stolt = migrate(point_line, velocity=V).values.astype(float)
+    phase = migrate(point_line, velocity=V, method="phase-shift").values.astype(float)
+    assert np.sqrt(((phase - stolt) ** 2).sum() / (stolt ** 2).sum()) < 0.02
+    layered = migrate(point_line, velocity=[V, V], layer_tops=[0.0, 20.0], method="phase-shift")
+    np.testing.assert_allclose(layered.values, phase, atol=1e-5 * np.abs(phase).max())
+
+
+# Two layers: 0.12 m/ns down to 0.96 m (16 ns two-way), then 0.08 m/ns; a diffractor 0.64 m
+# below the interface (32 ns two-way at the apex).
+V1, V2, H1, H2 = 0.12, 0.08, 0.96, 0.64
+
+
+def layered_time(offset):
+    """Zero-offset two-way time through a flat interface, by Snell's law (ray parameter p:
+    sin(a1)/v1 = sin(a2)/v2; Sheriff & Geldart 1995, Exploration Seismology, 2nd ed.)."""
+    offset = abs(offset)
+    if offset == 0:
+        return 2 * (H1 / V1 + H2 / V2)
+
+    def miss(p):
+        return (H1 * np.tan(np.arcsin(p * V1)) + H2 * np.tan(np.arcsin(p * V2))) - offset
+
+    p = scipy.optimize.brentq(miss, 0.0, (1 - 1e-12) / V1, xtol=1e-14)
+    return 2 * (H1 / (V1 * np.sqrt(1 - (p * V1) ** 2)) + H2 / (V2 * np.sqrt(1 - (p * V2) ** 2)))
+
+
+@pytest.fixture(scope="module")
+def layered_line():
+    x = DX * np.arange(TRACES)
+    times = np.array([[layered_time(xi - X0)] for xi in x])
+    return make_line(times, 1.0 / times)  # amplitude falling with the path, as spreading does
+
+
+def test_phase_shift_focuses_under_an_interface(layered_line):
+    t0 = layered_time(0.0)
+    tops = [0.0, 2 * H1 / V1]
+    image = migrate(layered_line, velocity=[V1, V2], layer_tops=tops, method="phase-shift")
+    x, t, fraction, _ = focus(image, x0=X0, t0=t0)
+    assert abs(x - X0) <= DX + 1e-9
+    assert abs(t - t0) <= 2 * DT + 1e-9
+    assert fraction > 0.85
+    # no single velocity does as well (Stolt with the upper, lower or mean velocity)
+    for v in (V1, V2, 0.5 * (V1 + V2)):
+        assert focus(migrate(layered_line, velocity=v), x0=X0, t0=t0)[2] < fraction - 0.15
+    # the same layers given by depth, or as a function of time, give the same image
+    by_depth = migrate(layered_line, velocity=[V1, V2], layer_tops=[0.0, H1], tops="depth",
+                       method="phase-shift")
+    np.testing.assert_allclose(by_depth.values, image.values, atol=1e-6)
+    as_function = migrate(layered_line, velocity=lambda t: np.where(t < tops[1], V1, V2),
+                          method="phase-shift")
+    np.testing.assert_allclose(as_function.values, image.values, atol=1e-6)
+    assert "layered" in image.attrs["history"] and "migration_velocity" not in image.attrs
+
+
+def test_interval_velocity_from_depth_tops():
+    # the second top at 0.96 m lies 2 * 0.96 / 0.12 = 16 ns down
+    speed = interval_velocity([V1, V2, 0.1], layer_tops=[0.0, H1, H1 + H2], tops="depth")
+    np.testing.assert_allclose(speed(np.array([0.0, 15.9, 16.1, 31.9, 32.1])),
+                               [V1, V1, V2, V2, 0.1])
+
+
+def test_samples_before_time_zero_pass_through(point_line):
+    before = np.full((TRACES, 15), 0.25, dtype=np.float32)
+    data = np.concatenate([before, point_line.values], axis=1)
+    twt = DT * np.arange(data.shape[1]) - 15 * DT - 1e-12  # rounding of a time-zero shift
+    shifted = xr.DataArray(data, dims=point_line.dims, name="amplitude",
+                           coords={**{k: c for k, c in point_line.coords.items() if k != "twt"},
+                                   "twt": ("twt", twt, {"units": "ns"})},
+                           attrs=point_line.attrs)
+    assert shifted.sizes["twt"] == SAMPLES + 15
+    for method in ("stolt", "phase-shift"):
+        out = migrate(shifted, velocity=V, method=method)
+        np.testing.assert_array_equal(out.values[:, :15], before)
+        reference = migrate(point_line, velocity=V, method=method).values
+        np.testing.assert_allclose(out.values[:, 15:], reference,
+                                   atol=1e-4 * np.abs(reference).max())
+        np.testing.assert_array_equal(out["twt"].values, twt)
+
+
+def test_dask_backed_line_gives_the_same_image(point_line):
+    lazy = migrate(point_line.chunk({"trace": 64}), velocity=V)
+    assert lazy.chunks is not None
+    np.testing.assert_array_equal(lazy.values, migrate(point_line, velocity=V).values)
+
+
+def test_trace_spacing_is_the_median_step_and_uneven_lines_warn(point_line):
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # an even line does not warn
+        assert trace_spacing(point_line) == pytest.approx(DX)
+    distance = point_line["distance"].values.copy()
+    distance[100:] += 0.03  # one long step (wheel slip): the median ignores it, with a warning
+    with pytest.warns(SlicerWarning, match="even spacing"):
+        assert trace_spacing(point_line.assign_coords(distance=("trace", distance))) == (
+            pytest.approx(DX))
+
+
+@pytest.mark.parametrize("kwargs, match", [
+    (dict(velocity=0.1, method="kirchhoff"), "method"),
+    (dict(velocity=0.35), "speed of light"),
+    (dict(velocity=0.0), "positive"),
+    (dict(velocity=[0.1, 0.08], layer_tops=[0.0, 10.0]), "Stolt"),
+    (dict(velocity=[0.1, 0.08], layer_tops=[0.0, 10.0, 20.0], method="phase-shift"),
+     "2 velocities for 3"),
+    (dict(velocity=[0.1, 0.08], layer_tops=[5.0, 10.0], method="phase-shift"), "ascend"),
+    (dict(velocity=[0.1, 0.08], method="phase-shift"), "layer_tops"),
+    (dict(velocity=[0.1, 0.08], layer_tops=[0, 1], tops="feet", method="phase-shift"), "tops"),
+    (dict(velocity=lambda t: 0.5 + 0 * t, method="phase-shift"), "speed of light"),
+    (dict(velocity=0.1, taper=1.5), "taper"),
+    (dict(velocity=0.1, pad=1), "padding"),
+])
+def test_bad_settings_are_refused(point_line, kwargs, match):
+    with pytest.raises(SettingsError, match=match):
+        migrate(point_line, **kwargs)
+
+
+def test_lines_that_cannot_be_migrated_are_refused(point_line):
+    with pytest.raises(SettingsError, match="distance"):
+        migrate(point_line.drop_vars("distance"), velocity=V)
+    early = point_line.assign_coords(twt=point_line["twt"] - 500.0)
+    with pytest.raises(SettingsError, match="time zero"):
+        migrate(early, velocity=V)
