@@ -434,9 +434,13 @@ VELOCITY_AND_MIGRATION = [
         import numpy as np
 
         import slicer
-        from slicer.velocity.diffraction import find_diffractions, survey_velocity
-        from slicer.velocity.hyperbola import fit_hyperbola, hyperbola_time
-        from slicer.processing.migration import migrate
+        from slicer import (
+            find_diffractions,
+            fit_hyperbola,
+            hyperbola_time,
+            migrate,
+            survey_velocity,
+        )
         from slicer.synthetic import (
             Ground,
             LineTarget,

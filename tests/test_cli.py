@@ -1,4 +1,5 @@
-"""The command line: the contract, bad input (one line, exit 2, nothing written), safety."""
+"""Tests of slicer.cli, the command line: the contract, bad input (one line, exit 2, nothing
+written), safety."""
 
 import os
 import shutil

@@ -1,4 +1,5 @@
-"""The examples in examples/ run and say what they should."""
+"""Tests of the examples in examples/ (scripts on slicer's public API): they run and say what
+they should."""
 
 import re
 import shutil

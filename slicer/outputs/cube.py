@@ -405,8 +405,7 @@ def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
     ``<axis>_top``/``<axis>_bottom`` coordinates; the data are float32, zlib-compressed, with a
     NaN ``_FillValue``; the grid-mapping variable keeps the CF attributes and ``crs_wkt``.
     A dask-backed cube (e.g. from :func:`slicer.outputs.zarr_store.open_cube_zarr`) is written
-    chunk by
-    chunk, one NetCDF chunk per dask chunk, without loading it whole.
+    chunk by chunk, one NetCDF chunk per dask chunk, without loading it whole.
 
     Parameters
     ----------

@@ -9,17 +9,12 @@ refused with the numbers, before anything is read.
 
 from __future__ import annotations
 
-import math
-import re
 from dataclasses import dataclass
 
 from slicer.core.errors import SettingsError
 
 #: Default budget for a build's working data (the interpreter and libraries add ~0.3 GB).
 DEFAULT_LIMIT = 1 << 30
-
-_UNITS = {"": 1, "b": 1, "kb": 1e3, "mb": 1e6, "gb": 1e9, "tb": 1e12,
-          "kib": 1 << 10, "mib": 1 << 20, "gib": 1 << 30, "tib": 1 << 40}
 
 #: Bytes per sample while a line is processed: float32 samples and copies at each step, and
 #: the complex128 FFT of the envelope on a trace zero-padded to twice its length.
@@ -31,27 +26,33 @@ WEIGHT_BYTES = 48
 
 
 def parse_bytes(value, *, where: str = "--memory-limit") -> int:
-    """Bytes from ``1GB``, ``512MiB``, ``2e9`` or a number."""
-    if isinstance(value, int | float) and not isinstance(value, bool):
-        number, unit = float(value), ""
-    else:
-        m = re.fullmatch(r"\s*([0-9.]+(?:e[0-9]+)?)\s*([a-zA-Z]*)\s*", str(value))
-        if not m or m.group(2).lower() not in _UNITS:
-            raise SettingsError(f"expected a size such as 1GB or 512MiB, got {value!r}",
-                                where=where)
-        number, unit = float(m.group(1)), m.group(2).lower()
-    size = number * _UNITS[unit]
-    if not math.isfinite(size) or size <= 0:
+    """Bytes from ``1GB``, ``512MiB``, ``2e9`` or a number (units as :func:`dask.utils.parse_bytes`
+    reads them: kB/MB/GB decimal, KiB/MiB/GiB binary).
+
+    Raises
+    ------
+    SettingsError
+        Not a size, or not a positive one (naming ``where``).
+    """
+    import dask.utils  # ~0.1 s; only a build that states a limit pays it
+
+    if isinstance(value, bool):
+        value = repr(value)  # True is an int to Python, but not a size
+    try:
+        size = dask.utils.parse_bytes(value)
+    except (ValueError, TypeError, AttributeError):  # dask reads strings and numbers only
+        raise SettingsError(f"expected a size such as 1GB or 512MiB, got {value!r}",
+                            where=where) from None
+    if size <= 0:
         raise SettingsError(f"must be a positive size, got {value!r}", where=where)
     return int(size)
 
 
 def human(n: float) -> str:
-    """``1.2 GB`` style."""
-    for unit, size in (("GB", 1e9), ("MB", 1e6), ("kB", 1e3)):
-        if n >= size:
-            return f"{n / size:.1f} {unit}"
-    return f"{n:.0f} B"
+    """``1.40 GiB`` style (:func:`dask.utils.format_bytes`)."""
+    import dask.utils
+
+    return dask.utils.format_bytes(int(n))
 
 
 @dataclass(frozen=True)

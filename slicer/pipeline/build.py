@@ -274,8 +274,9 @@ def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
                    tile=TILE, neighbours=4 * along / step, workers=workers,
                    cube_in_memory=cube_in_memory)
     if est.total > limit:
+        given = f" ({settings.memory_limit})" if settings.memory_limit is not None else ""
         raise SettingsError(f"this build needs {est.describe()}, more than the memory limit of "
-                            f"{human(limit)}; raise --memory-limit, use fewer workers or a "
+                            f"{human(limit)}{given}; raise --memory-limit, use fewer workers or a "
                             "larger --cell", where="--memory-limit")
     return est
 

@@ -66,8 +66,7 @@ class EngineSpec:
 
 #: From this many traces ``auto`` uses processes, whose workers (and not the calling process)
 #: then write every output (:mod:`slicer.pipeline.worker_outputs`). Measured by benchmarks/scale.py
-#: on
-#: 2 cores (2026-12-02): threads 9.1 s and processes 10.1 s at 200 k traces (starting and
+#: on 2 cores (2026-12-02): threads 9.1 s and processes 10.1 s at 200 k traces (starting and
 #: importing in the workers costs 2-3 s), threads 28.8 s and processes 24.4 s at 1 M.
 AUTO_PROCESSES_TRACES = 300_000
 

@@ -2,8 +2,7 @@
 
 Each line is one task (:func:`reduce_line`): a picklable :class:`LineJob` in, a few dozen
 numbers per trace out, so lines run concurrently on any engine (:mod:`slicer.pipeline.engine`) and
-only
-one line per worker is ever in memory. The first line runs first, alone: its record decides
+only one line per worker is ever in memory. The first line runs first, alone: its record decides
 which slice windows fit, and with ``dewow = "auto"`` its dominant frequency sets the dewow
 window of every line (one filter for the whole survey).
 """

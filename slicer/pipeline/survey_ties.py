@@ -1,7 +1,7 @@
 """Ties over a whole survey during a build: measure, solve, report and (on request) apply.
 
 With ``ties = "report"`` or ``"apply"`` a build first finds where lines of different directions
-cross (:func:`slicer.processing.ties.find_crossings`, on every line's trace positions), then
+cross (:func:`slicer.geometry.crossings.find_crossings`, on every line's trace positions), then
 processes the lines that cross (time zero, dewow and gain as the build does; no background
 removal, migration or envelope) and keeps only the two traces either side of each crossing,
 measures the time shift and amplitude ratio there (:func:`slicer.processing.ties.measure_ties`)

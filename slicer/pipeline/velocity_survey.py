@@ -3,8 +3,7 @@
 Each line is read, placed and time-zero corrected, its hyperbolas are found and fitted
 (:func:`slicer.velocity.diffraction.find_diffractions`), and the fits of all lines are combined by
 :func:`slicer.velocity.diffraction.survey_velocity` (the slowest consistent group, since hyperbolas
-of
-linear targets crossed obliquely look too fast). Depths are given with the survey velocity.
+of linear targets crossed obliquely look too fast). Depths are given with the survey velocity.
 """
 
 from __future__ import annotations

@@ -8,8 +8,7 @@ adds up coherently (Neidell & Taner 1971, Geophysics 36:482-497; here with the c
 so the measure does not depend on the wavelet's phase). Peaks of semblance over (position,
 time, velocity) are then refined: picks are taken at the envelope peak nearest the predicted
 time on every trace within the aperture and fitted with
-:func:`~slicer.velocity.hyperbola.fit_hyperbola`;
-poor fits are rejected.
+:func:`~slicer.velocity.hyperbola.fit_hyperbola`; poor fits are rejected.
 
 :func:`survey_velocity` combines the fits of a whole survey. A linear target (pipe, wall,
 drain) crossed at an angle ``a`` to the line gives a hyperbola whose apparent velocity is
@@ -399,9 +398,8 @@ def survey_velocity(fits, *, tolerance: float = 0.05, min_count: int = 3) -> Sur
     Parameters
     ----------
     fits : sequence
-        :class:`Diffraction` or :class:`~slicer.velocity.hyperbola.HyperbolaFit` records (anything
-        with
-        ``velocity`` and ``velocity_std``, m/ns).
+        :class:`Diffraction` or :class:`~slicer.velocity.hyperbola.HyperbolaFit` records
+        (anything with ``velocity`` and ``velocity_std``, m/ns).
     tolerance : float
         Relative half-width of a group of consistent velocities.
     min_count : int

@@ -1,3 +1,6 @@
+"""Tests of slicer.core.atomic: whole-file writes through a temporary, and the rules for an
+output folder."""
+
 import pytest
 
 from slicer.core.atomic import atomic_path, atomic_write_text, prepare_output_dir

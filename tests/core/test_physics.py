@@ -1,3 +1,5 @@
+"""Tests of slicer.core.physics: velocity and permittivity, two-way time and depth."""
+
 import math
 
 import numpy as np

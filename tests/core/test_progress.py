@@ -1,3 +1,5 @@
+"""Tests of slicer.core.progress: progress bars drawn on a terminal only, and cleared on error."""
+
 import io
 
 import pytest

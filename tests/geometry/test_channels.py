@@ -1,4 +1,5 @@
-"""Multi-channel arrays: channel tables and one positioned Line per channel.
+"""Tests of slicer.geometry.channels: multi-channel arrays, channel tables and one positioned
+Line per channel.
 
 The geometry is hand-computed: offsets are in the frame of travel, across positive to the right
 of the direction of travel seen from above and along positive forward (common practice for

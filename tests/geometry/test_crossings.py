@@ -1,4 +1,4 @@
-"""Tests of where lines cross (slicer.geometry.crossings)."""
+"""Tests of slicer.geometry.crossings: where lines cross."""
 
 from __future__ import annotations
 

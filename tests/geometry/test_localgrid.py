@@ -1,4 +1,5 @@
-"""Local survey grid to CRS: similarity (2D Helmert) and affine fits from control points.
+"""Tests of slicer.geometry.localgrid: local survey grid to CRS, similarity (2D Helmert) and
+affine fits from control points.
 
 Sources named beside the checks:
 - The 4-parameter similarity transformation X = a x - b y + tx, Y = b x + a y + ty with

@@ -1,5 +1,5 @@
-"""Survey geometry in builds (slicer.geometry.positioning): marks, GNSS tracks, local grids,
-channels, blocks.
+"""Tests of slicer.geometry.positioning: survey geometry in builds (marks, GNSS tracks, local
+grids, channels, blocks).
 
 Every survey here is invented synthetic ground truth (slicer.synthetic); a build must put each
 point target on its true cell or the next one (within one cell), the issue's acceptance rule.

@@ -1,4 +1,5 @@
-"""Trace positions from trace headers, GNSS tracks and distance marks; even resampling.
+"""Tests of slicer.geometry.positions: trace positions from trace headers, GNSS tracks and
+distance marks; even resampling.
 
 Sources named beside the checks:
 - SEG-Y rev 1: Norris & Faichney (eds., 2002), "SEG Y rev 1 Data Exchange format", trace header
@@ -143,7 +144,7 @@ def test_header_jump_and_repeats_reported():
 def test_headers_of_the_synthetic_survey_match_its_line_table(small_survey):
     # The forward model writes CDP/source X/Y in centimetres (scalar -100); read back, they must
     # reproduce the even start-to-end placement of the line table to within half a centimetre.
-    from slicer.geometry.survey import place_line
+    from slicer.geometry.placement import place_line
     from slicer.io.linetable import read_line_table
     from slicer.io.reading import read_line
 

@@ -1,3 +1,5 @@
+"""Tests of slicer.gridding.grid: the grid of a survey and the gridding of scattered traces."""
+
 import numpy as np
 import pytest
 import scipy.interpolate

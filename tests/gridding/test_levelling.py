@@ -1,4 +1,4 @@
-"""Tests of line levelling (slicer.gridding.levelling) on trace x slice tables with known
+"""Tests of slicer.gridding.levelling: line levelling on trace x slice tables with known
 stripes."""
 
 from __future__ import annotations

@@ -1,3 +1,6 @@
+"""Tests of slicer.gridding.windows: slice windows in depth or time and the mean of a trace
+over each."""
+
 import numpy as np
 import pytest
 import xarray as xr

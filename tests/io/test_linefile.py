@@ -1,5 +1,6 @@
-"""The NetCDF line format, checked with netCDF4-python (Unidata's reader, independent of the
-h5netcdf engine slicer writes with) and against files written by xarray directly."""
+"""Tests of slicer.io.linefile: the NetCDF line format, checked with netCDF4-python (Unidata's
+reader, independent of the h5netcdf engine slicer writes with) and against files written by
+xarray directly."""
 
 from __future__ import annotations
 

@@ -1,3 +1,6 @@
+"""Tests of slicer.io.linetable: reading a line table (CSV), naming the row or column at
+fault."""
+
 import pytest
 from hypothesis import given
 from hypothesis import strategies as st

@@ -1,8 +1,8 @@
-"""Dispatch of line files on their suffix, and agreement between the two line formats."""
+"""Tests of slicer.io.reading: dispatch of line files on their suffix, and agreement between
+the two line formats."""
 
 from __future__ import annotations
 
-import dataclasses
 import shutil
 
 import numpy as np
@@ -11,7 +11,7 @@ import xarray as xr
 
 from slicer.core.errors import InputFileError, SettingsError, SlicerWarning
 from slicer.io.linefile import read_line_netcdf, write_line_netcdf
-from slicer.io.reading import LineInfo, line_info, read_line
+from slicer.io.reading import line_info, read_line
 from slicer.io.segy import read_segy_line, write_segy_line
 
 
@@ -68,13 +68,6 @@ def test_both_formats_give_the_same_line(files):
     assert segy.attrs["line"] == "a"  # the file stem by default (DEVELOPERS.md, Line)
     infos = [line_info(p) for p in files.values()]
     assert {(i.n_traces, i.n_samples, i.sample_interval_ns) for i in infos} == {(4, 6, 0.2)}
-
-
-def test_line_info_is_frozen(files):
-    info = line_info(files["segy"])
-    assert isinstance(info, LineInfo) and info.path == files["segy"]
-    with pytest.raises(dataclasses.FrozenInstanceError):
-        info.n_traces = 0  # type: ignore[misc]
 
 
 def test_interval_rules_through_dispatch(files):

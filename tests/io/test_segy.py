@@ -1,4 +1,5 @@
-"""SEG-Y reading and writing, checked against segyio as the independent reader/writer.
+"""Tests of slicer.io.segy: SEG-Y reading and writing, checked against segyio as the
+independent reader/writer.
 
 Byte positions are 1-based as printed in SEG-Y rev 1 (Norris & Faichney eds., 2002, "SEG Y rev 1
 Data Exchange format") and SEG-Y rev 2.0 (Hagelund & Levin eds., 2017, "SEG-Y_r2.0: SEG-Y

@@ -1,3 +1,5 @@
+"""Tests of slicer.io.tomlfile: reading TOML files, errors naming the file."""
+
 import pytest
 
 from slicer.core.errors import InputFileError, LineTableError

@@ -1,5 +1,5 @@
-"""NetCDF chunks compressed by hand (slicer.outputs.netcdf_chunks) read back through netCDF4 and
-h5py."""
+"""Tests of slicer.outputs.netcdf_chunks: NetCDF chunks compressed by hand, read back through
+netCDF4 and h5py."""
 
 from __future__ import annotations
 

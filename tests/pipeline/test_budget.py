@@ -11,7 +11,7 @@ def test_parse_bytes(text, expected):
     assert parse_bytes(text) == int(expected)
 
 
-@pytest.mark.parametrize("bad", ["lots", "-1GB", "0", "1XB", True])
+@pytest.mark.parametrize("bad", ["lots", "-1GB", "0", "1XB", True, "nan", None, [1]])
 def test_bad_sizes(bad):
     with pytest.raises(SettingsError, match="--memory-limit"):
         parse_bytes(bad)
@@ -24,7 +24,7 @@ def test_estimate_grows_with_survey_and_workers():
     assert estimate(**{**base, "workers": 2}).lines == 2 * one.lines
     assert estimate(**{**base, "n_traces": 20_000}).table == 2 * one.table
     assert estimate(**{**base, "cube_in_memory": True}).cube == 4 * 24 * 40_000
-    assert "trace table" in one.describe() and human(1.5e9) == "1.5 GB"
+    assert "trace table" in one.describe() and human(1.5e9) == "1.40 GiB"
 
 
 def test_build_that_cannot_fit_is_refused_before_it_starts(small_survey, tmp_path):
@@ -32,7 +32,7 @@ def test_build_that_cannot_fit_is_refused_before_it_starts(small_survey, tmp_pat
                                     time_zero=3.0, velocity=0.1, depths="0:2.4:0.1",
                                     memory_limit="1MB", out=tmp_path / "o")
     with pytest.raises(SettingsError, match=r"--memory-limit: this build needs about .* more "
-                                            r"than the memory limit of 1\.0 MB"):
+                                            r"than the memory limit of 0\.95 MiB \(1MB\)"):
         slicer.build(settings, progress=False)
     assert not (tmp_path / "o").exists()
     ok = slicer.build_cube(settings.replace(memory_limit="200MB"), progress=False)

@@ -1,4 +1,5 @@
-"""End to end: the documented command line on the demo survey against its synthetic truth."""
+"""Tests of slicer.pipeline.build, end to end: the documented command line on the demo survey
+against its synthetic truth."""
 
 import json
 import shutil

@@ -1,4 +1,5 @@
-"""Engines: the same tasks give the same results on threads, processes and a LocalCluster."""
+"""Tests of slicer.pipeline.engine: the same tasks give the same results on threads,
+processes and a LocalCluster."""
 
 import math
 

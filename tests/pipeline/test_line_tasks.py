@@ -1,4 +1,5 @@
-"""Line tasks: the fused per-line path equals the public step-by-step xarray functions."""
+"""Tests of slicer.pipeline.line_tasks: the per-line task (read, place, fused chain, windows)
+equals the public step-by-step xarray functions."""
 
 import numpy as np
 import pytest

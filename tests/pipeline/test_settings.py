@@ -1,3 +1,6 @@
+"""Tests of slicer.pipeline.settings: build settings from a line table or TOML survey file
+plus flags, and options refused by name."""
+
 import pytest
 
 from slicer.core.errors import LineTableError, SettingsError

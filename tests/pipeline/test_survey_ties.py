@@ -1,5 +1,5 @@
-"""Ties in a build (slicer.pipeline.survey_ties): measured over the survey, reported, applied on
-request.
+"""Tests of slicer.pipeline.survey_ties: ties in a build, measured over the survey, reported,
+applied on request.
 
 The survey is invented synthetic ground truth: two orthogonal line sets over layers and point
 targets, every line recorded with a known time-zero offset and gain, all processed with the

@@ -1,3 +1,5 @@
+"""Tests of slicer.processing.migration: Stolt and phase-shift migration of a line."""
+
 import warnings
 
 import numpy as np

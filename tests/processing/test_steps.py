@@ -1,3 +1,6 @@
+"""Tests of slicer.processing.steps: time zero, dewow, background removal, gain, envelope and
+the fused chain."""
+
 import numpy as np
 import pytest
 import scipy.signal

@@ -1,4 +1,4 @@
-"""Tests of ties at line crossings (slicer.processing.ties): crossings, tie measurement, network
+"""Tests of slicer.processing.ties: ties at line crossings: crossings, tie measurement, network
 solution."""
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""Tests of the NumPy forward model (slicer.synthetic.forward)."""
+"""Tests of slicer.synthetic.forward: the NumPy forward model."""
 
 from __future__ import annotations
 

@@ -1,4 +1,4 @@
-"""Tests of the synthetic survey generator (slicer.synthetic)."""
+"""Tests of slicer.synthetic.surveys: the synthetic survey generator."""
 
 from __future__ import annotations
 

@@ -1,4 +1,4 @@
-"""Tests of the source wavelets (slicer.synthetic.wavelets)."""
+"""Tests of slicer.synthetic.wavelets: the source wavelets."""
 
 from __future__ import annotations
 

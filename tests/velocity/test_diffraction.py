@@ -1,3 +1,6 @@
+"""Tests of slicer.velocity.diffraction: finding and fitting diffraction hyperbolas, and the
+survey velocity from them."""
+
 import math
 import time
 from types import SimpleNamespace

@@ -1,3 +1,5 @@
+"""Tests of slicer.velocity.hyperbola: diffraction travel times and the hyperbola fit."""
+
 import numpy as np
 import pytest
 

@@ -1,3 +1,5 @@
+"""Tests of slicer.velocity.model_file: velocity-model files (TOML) written and read back."""
+
 import tempfile
 from pathlib import Path
 

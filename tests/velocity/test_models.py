@@ -1,3 +1,6 @@
+"""Tests of slicer.velocity.models: Dix, layered and lateral velocity models, depth conversion
+and depth errors."""
+
 import math
 
 import numpy as np

@@ -1,3 +1,6 @@
+"""Tests of slicer.velocity.planning: survey planning numbers (wavelength, resolution, Fresnel
+zone, footprint, sampling, attenuation)."""
+
 import math
 
 import pytest

@@ -1,0 +1,123 @@
+"""The package's shape: layers and cycles (import-linter), the public API, lazy start-up and
+module size. These are the project's own rules (DEVELOPERS.md, "Layout"), checked by tools."""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+import tomllib
+from pathlib import Path
+
+import pytest
+
+import slicer
+
+ROOT = Path(__file__).resolve().parents[1]
+PACKAGE = ROOT / "slicer"
+
+#: Every name of ``slicer.__all__`` before the package was split into subpackages: the public
+#: API that must keep importing from ``slicer``.
+PUBLIC_BEFORE_SPLIT = """
+BuildResult BuildSettings C_M_PER_NS ChannelTable ConstantVelocity ControlPoint Engine Grid
+GridTransform InputFileError LateralVelocity LayeredVelocity LineEntry LineTableError
+OutputError SettingsError SlicerError SlicerWarning Windows analyse_velocity apply_gain
+apply_ties atomic_path build build_cube check_velocity correct_time_zero cube_crs
+cube_transform depth_error depth_from_time dewow dominant_frequency engine envelope
+expand_channels find_crossings find_diffractions fit_affine fit_control_points fit_hyperbola
+fit_similarity grid_for grid_slices hyperbola_time iter_lines level_lines line_info load_line
+load_settings make_windows measure_ties migrate neighbour_weights new_cube parse_range
+parse_scheduler permittivity_from_velocity pick_time_zero place_line plot_overview plot_slice
+positions_from_headers positions_from_track prepare_output_dir prepare_survey process_line
+read_channel_table read_control_points read_cube_netcdf read_line read_line_table read_marks
+read_track read_velocity_model reduce_survey reduce_to_windows remove_background resample_even
+run_demo slice_file_name solve_ties stretch_by_marks stripe_amplitude survey_info
+survey_velocity time_from_depth to_depth to_depth_axis velocity_from_known_depth
+velocity_from_permittivity write_cube_netcdf write_segy_line write_slice_geotiffs
+write_velocity_model
+""".split()
+
+#: Libraries the quick commands must not load (each costs 0.1-1 s; stack-notes 16).
+HEAVY = ("dask", "distributed", "zarr", "h5py", "h5netcdf", "matplotlib", "scipy.signal",
+         "rasterio", "segyio")
+
+
+def _contracts() -> list[dict]:
+    config = tomllib.loads((ROOT / "pyproject.toml").read_text())
+    return config["tool"]["importlinter"]["contracts"]
+
+
+def test_import_linter_contracts_are_kept():
+    """`lint-imports` (import-linter, PyPI) with the contracts of pyproject.toml."""
+    from importlinter.cli import lint_imports
+
+    assert lint_imports(config_filename=str(ROOT / "pyproject.toml"), no_cache=True) == 0
+
+
+def test_every_subpackage_is_a_layer_of_the_flow():
+    layers = next(c for c in _contracts() if c["type"] == "layers")["layers"]
+    named = [name.strip() for layer in layers for name in layer.split("|")]
+    on_disk = sorted(p.parent.name for p in PACKAGE.glob("*/__init__.py"))
+    on_disk += sorted(p.stem for p in PACKAGE.glob("*.py") if p.stem != "__init__")
+    assert sorted(named) == sorted(on_disk)
+    assert len(named) == len(set(named))
+    assert any(c["type"] == "acyclic_siblings" and c["ancestors"] == ["slicer"]
+               for c in _contracts())
+
+
+def test_a_wrong_way_import_breaks_the_layer_contract():
+    """The contract is not vacuous: an import from a low layer up into a high one breaks it."""
+    import grimp
+
+    layers = next(c for c in _contracts() if c["type"] == "layers")["layers"]
+    graph = grimp.build_graph("slicer", cache_dir=None)
+    levels = [grimp.Layer(*(f"slicer.{n.strip()}" for n in layer.split("|")),
+                          independent=True) for layer in layers]
+    assert graph.find_illegal_dependencies_for_layers(layers=levels) == set()
+    graph.add_import(importer="slicer.core.errors", imported="slicer.pipeline.build",
+                     line_number=1, line_contents="import slicer.pipeline.build")
+    assert graph.find_illegal_dependencies_for_layers(layers=levels) != set()
+
+
+def test_public_api_is_unchanged():
+    missing = [name for name in PUBLIC_BEFORE_SPLIT if name not in slicer.__all__]
+    assert missing == []
+    for name in slicer.__all__:
+        assert getattr(slicer, name) is not None, name
+    assert slicer.build.__module__ == "slicer.pipeline.build"
+    with pytest.raises(AttributeError, match="no attribute 'no_such_name'"):
+        slicer.no_such_name  # noqa: B018
+
+
+def _modules_after(argv: list[str] | None, code: str = "") -> set[str]:
+    """The modules loaded in a fresh process by the command line ``slicer <argv>`` (or by
+    ``code``)."""
+    if argv is not None:
+        code = ("from slicer.cli import main\n"
+                f"try:\n    main({argv!r})\nexcept SystemExit:\n    pass\n")
+    code = "import sys\n" + code + "\nprint('\\n'.join(sys.modules), file=sys.stderr)"
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          cwd=ROOT, timeout=120)
+    return set(done.stderr.split())
+
+
+@pytest.mark.parametrize("argv", [
+    ["--help"], ["--version"], ["build", "--help"],
+    ["plan", "--frequency", "400", "--permittivity", "9", "--target-depth", "1"],
+], ids=["help", "version", "build-help", "plan"])
+def test_quick_commands_do_not_load_heavy_libraries(argv):
+    loaded = _modules_after(argv)
+    assert "slicer.cli" in loaded  # the command ran in that process
+    assert [m for m in HEAVY if m in loaded] == []
+
+
+def test_the_build_does_load_them():
+    """The check above can fail: reaching for the build loads the heavy stack."""
+    loaded = _modules_after(None, "import slicer\nslicer.build")
+    assert {"dask", "h5py", "matplotlib"} <= loaded
+
+
+def test_modules_stay_small():
+    """DEVELOPERS.md: modules under ~500 lines."""
+    sizes = {str(p.relative_to(ROOT)): len(p.read_text().splitlines())
+             for p in PACKAGE.rglob("*.py")}
+    assert {k: v for k, v in sizes.items() if v > 500} == {}
