@@ -1,8 +1,8 @@
 """Trace positions from what was recorded in the field, instead of an even start-to-end spacing.
 
 Ways to give every trace of a Line its per-trace ``x``, ``y`` (survey CRS) and ``distance``
-(path length from the first trace), all in metres, as :func:`slicer.geometry.placement.place_line` does
-for a straight, evenly walked line:
+(path length from the first trace), all in metres, as
+:func:`slicer.geometry.placement.place_line` does for a straight, evenly walked line:
 
 - :func:`positions_from_headers`: the coordinates stored in the radar file's trace headers;
 - :func:`positions_from_track`: a separate CSV of GNSS (or total-station) fixes, keyed by trace

@@ -1,9 +1,9 @@
 """Reading radar line files of any supported format into the Line data model.
 
 :func:`read_line` and :func:`line_info` choose the reader from the file suffix: ``.sgy`` /
-``.segy`` (any case) for SEG-Y, ``.nc`` for the project's own NetCDF line format. Both readers build on :mod:`slicer.io.lines`, so the
-sample-interval rules, NaN handling and the shape of the returned :class:`xarray.DataArray` are
-the same whatever the format.
+``.segy`` (any case) for SEG-Y, ``.nc`` for the project's own NetCDF line format. Both readers
+build on :mod:`slicer.io.lines`, so the sample-interval rules, NaN handling and the shape of the
+returned :class:`xarray.DataArray` are the same whatever the format.
 """
 
 from __future__ import annotations
