@@ -18,7 +18,12 @@ EXIT_BAD_INPUT = 2
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse that reports a usage error in one line (and exit code 2)."""
+    """argparse that reports a usage error in one line (and exit code 2), and takes only whole
+    option names (``--over`` is not ``--overwrite``)."""
+
+    def __init__(self, *args, **kwargs):
+        kwargs.setdefault("allow_abbrev", False)
+        super().__init__(*args, **kwargs)
 
     def error(self, message):  # noqa: D102 - argparse API
         self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see --help)\n")
@@ -124,6 +129,17 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--title", help="title of the overview sheet")
     g.add_argument("--overwrite", action="store_const", const=True, default=None,
                    help="replace the outputs of an earlier build in a non-empty --out folder")
+    _state_limits(p)
+
+
+def _state_limits(parser: argparse.ArgumentParser) -> None:
+    """Append each number option's accepted range (from the one table of options) to its help."""
+    from slicer.pipeline.options import OPTIONS
+
+    for action in parser._actions:
+        option = OPTIONS.get(action.dest)
+        if option is not None and option.limits and action.help:
+            action.help += f" [{option.limits}]"
 
 
 def make_parser() -> argparse.ArgumentParser:
@@ -316,7 +332,11 @@ _default_showwarning = warnings.showwarning
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``slicer`` command; returns the exit code."""
     argv = sys.argv[1:] if argv is None else list(argv)
-    args = make_parser().parse_args(argv)
+    try:
+        args = make_parser().parse_args(argv)
+    except KeyboardInterrupt:
+        print("slicer: interrupted before it started; nothing was written", file=sys.stderr)
+        return 130
     warnings.showwarning = _show_warning
     try:
         if args.command == "build":

@@ -1,6 +1,7 @@
 """The line table: one CSV row per recorded line, naming its file and where it ran.
 
-Columns (header required, extra columns ignored)::
+Columns (header required; other columns are ignored with a warning, and one that looks like a
+misspelt column name, or a column named twice, is refused)::
 
     file,start_x,start_y,end_x,end_y
 
@@ -26,12 +27,14 @@ empty field means the survey's default:
 from __future__ import annotations
 
 import csv
+import difflib
 import math
 import os
+from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
 
-from slicer.core.errors import LineTableError
+from slicer.core.errors import LineTableError, warn
 
 COLUMNS = ("file", "start_x", "start_y", "end_x", "end_y")
 #: Optional columns: how a row is positioned (values), and which of them name files.
@@ -99,15 +102,36 @@ def _number(text: str | None, column: str, where: str) -> float:
     return value
 
 
+def unknown_names(names, *, what: str, where: str, strict: bool) -> list[str]:
+    """Names (columns or keys) that are not line-table columns.
+
+    A name within a typo of a known one is refused ("did you mean"); with ``strict`` every
+    unknown name is. Returns the unknown names left, for the caller to mention.
+    """
+    known = COLUMNS + OPTIONAL
+    unknown = [n for n in names if n not in known]
+    for n in unknown:
+        close = difflib.get_close_matches(n.lower(), known, n=1, cutoff=0.75)
+        if close or strict:
+            hint = f" (did you mean {close[0]!r}?)" if close else ""
+            raise LineTableError(f"unknown {what} {n!r}{hint}; known: {', '.join(known)}",
+                                 where=where)
+    return unknown
+
+
 def make_entry(fields: dict, *, base: Path, where: str, ends: bool = True) -> LineEntry:
     """Validate one row (a mapping of the five columns) into a :class:`LineEntry`.
 
     With ``ends=False`` (positions from the files' headers) the start and end columns may be
     absent or empty; the entry then has NaN ends until :func:`with_ends` fills them.
     """
+    if not isinstance(fields, dict):
+        raise LineTableError(f"expected a table of file, start_x, ... (a [[line]] table), got "
+                             f"{fields!r}", where=where)
     name = fields.get("file")
-    if name is None or not str(name).strip():
-        raise LineTableError("column file is empty", where=where)
+    if not isinstance(name, str | os.PathLike) or not str(name).strip():
+        raise LineTableError("column file is empty" if name in (None, "") else
+                             f"column file: expected a file name, got {name!r}", where=where)
     extra = _optional(fields, base=base, where=where)
     source = extra.get("positions")
     if source is None and extra.get("track") is not None:
@@ -173,6 +197,13 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
     header = [h.strip() for h in (reader.fieldnames or [])]
     if not header:
         raise LineTableError("line table is empty (no header row)", where=str(path))
+    twice = sorted(n for n, k in Counter(header).items() if k > 1)
+    if twice:
+        raise LineTableError(f"column(s) {', '.join(twice)} named twice in the header",
+                             where=str(path))
+    ignored = unknown_names(header, what="column", where=str(path), strict=False)
+    if ignored:
+        warn(f"{path}: column(s) {', '.join(ignored)} ignored")
     sources = set()
     if "positions" in header or "track" in header:
         sources = {"given per row"}

@@ -23,6 +23,7 @@ import os
 from dataclasses import dataclass, field
 from pathlib import Path
 
+import numpy as np
 import pyproj
 
 from slicer.core.errors import LineTableError, SettingsError
@@ -35,50 +36,16 @@ from slicer.io.linetable import (
     check_unique,
     make_entry,
     read_line_table,
+    unknown_names,
 )
 from slicer.io.tomlfile import read_toml
+from slicer.pipeline.options import OPTIONS, check_option
 from slicer.velocity.model_file import read_velocity_model
 from slicer.velocity.models import ConstantVelocity
 
-#: Build options that a TOML survey file may set, with their meaning (for the docs).
-OPTION_KEYS = {
-    "crs": "survey CRS of the line coordinates (EPSG code, WKT or PROJ string)",
-    "positions": "where trace positions come from: 'table' (even from start to end, or "
-                 "stretched between distance marks), 'headers' (the files' trace-header "
-                 "coordinates, in the survey CRS) or 'track' (each row's GNSS track file)",
-    "track_crs": "CRS of the GNSS fixes (default EPSG:4326, longitude/latitude)",
-    "antenna_along": "antenna centre ahead of the GNSS receiver, along travel (m)",
-    "antenna_across": "antenna centre to the right of the GNSS receiver, across travel (m)",
-    "trace_spacing": "resample every line to this even trace spacing (m) after positioning",
-    "control_points": "CSV name,local_x,local_y,x,y tying a local grid to the survey CRS; "
-                      "line-table coordinates are then local",
-    "control_fit": "local grid to CRS fit: 'similarity' (4 parameters) or 'affine' (6)",
-    "control_tolerance": "largest control-point residual accepted (m)",
-    "sample_interval": "sample interval in ns, when the files cannot hold it",
-    "time_zero": "time zero in ns on the raw record, or 'auto' (direct-wave pick)",
-    "time_zero_threshold": "fraction of the peak the direct wave must reach for 'auto'",
-    "dewow": "running-mean window in ns, 'auto' (1.5 dominant periods) or 'off'",
-    "background": "background removal: 'mean', 'median' or 'off'",
-    "gain": "gain: 'power:P' (t^P), 'exp:DB_PER_NS' or 'none'",
-    "velocity": "radar velocity in m/ns",
-    "permittivity": "relative permittivity (instead of velocity)",
-    "velocity_std": "one-sigma uncertainty of the velocity (m/ns), for the depth error",
-    "velocity_model": "velocity-model TOML file (constant, layered or lateral; see README)",
-    "migrate": "2-D migration before the envelope: 'stolt', 'phase-shift' or 'off'",
-    "ties": "ties at line crossings: 'off', 'report' (measure and report the misfit) or "
-            "'apply' (also correct each line's time zero and gain)",
-    "level": "remove line-to-line stripes from the slice values before gridding (true/false)",
-    "cell": "grid cell in m (default: a round number near a quarter of the line spacing)",
-    "radius": "search radius in m; cells farther from any trace stay nodata",
-    "depths": "depth slices TOP:BOTTOM:STEP in m",
-    "thickness": "slice thickness (m or ns), default the step",
-    "times": "time slices TOP:BOTTOM:STEP in ns below time zero",
-    "scheduler": "where to run: auto, threads, processes, local:N or tcp://HOST:PORT",
-    "memory_limit": "memory budget of the build's working data, e.g. 1GB",
-    "title": "title of the overview sheet",
-    "out": "output folder",
-    "overwrite": "replace the outputs of an earlier build in the output folder",
-}
+#: Build options that a TOML survey file may set, with their meaning (for the docs); their
+#: types and limits are in :data:`slicer.pipeline.options.OPTIONS`.
+OPTION_KEYS = {name: option.help for name, option in OPTIONS.items()}
 
 
 @dataclass(frozen=True)
@@ -128,20 +95,14 @@ class BuildSettings:
     def __post_init__(self):
         if not self.lines:
             raise LineTableError("the survey has no lines", where=str(self.source))
+        for name in OPTIONS:  # types and limits of every option, in one place
+            object.__setattr__(self, name, check_option(name, getattr(self, name)))
         given = [n for n in ("velocity", "permittivity", "velocity_model")
                  if getattr(self, n) is not None]
         if len(given) > 1:
             raise SettingsError(f"give one of --velocity, --permittivity or --velocity-model, "
                                 f"not {' and '.join(given)}",
                                 where="--" + given[0].replace("_", "-"))
-        if self.velocity_std is not None:
-            try:
-                ok = float(self.velocity_std) >= 0 and math.isfinite(float(self.velocity_std))
-            except (TypeError, ValueError):
-                ok = False
-            if not ok:
-                raise SettingsError(f"must be a number >= 0, got {self.velocity_std!r}",
-                                    where="--velocity-std")
         if self.velocity is not None:
             check_velocity(self.velocity)
         if self.permittivity is not None:
@@ -187,6 +148,13 @@ class BuildSettings:
                                 "--permittivity (or cut time slices with --times)",
                                 where="--depths")
         self.requested_windows  # noqa: B018 - validates
+        model = self.resolved_model
+        if self.velocity_std is not None and model is not None:
+            slowest = float(min(np.atleast_1d(model.velocity)))
+            if self.velocity_std >= slowest:
+                raise SettingsError(f"the uncertainty {self.velocity_std:g} m/ns is not below "
+                                    f"the velocity ({slowest:g} m/ns); give a one-sigma "
+                                    "uncertainty in m/ns", where="--velocity-std")
         if self.migrate != "off" and self.resolved_model is None:
             raise SettingsError("migration needs a velocity (--velocity, --permittivity or "
                                 "--velocity-model)", where="--migrate")
@@ -356,8 +324,13 @@ def _entries_of(spec: dict, folder: Path, where: str, ends: bool) -> list[LineEn
         return [e for t in tables for e in read_line_table(folder / t, ends=ends)]
     if not isinstance(inline, list) or not inline:
         raise LineTableError("[[line]] tables are empty", where=where)
-    return [make_entry(row, base=folder, where=f"{where}:line[{i}]", ends=ends)
-            for i, row in enumerate(inline)]
+    entries = []
+    for i, row in enumerate(inline):
+        here = f"{where}:line[{i}]"
+        if isinstance(row, dict):
+            unknown_names(row, what="key", where=here, strict=True)
+        entries.append(make_entry(row, base=folder, where=here, ends=ends))
+    return entries
 
 
 def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
@@ -367,6 +340,8 @@ def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
     if unknown:
         raise SettingsError(f"unknown key(s) {', '.join(unknown)}; known keys: lines, line, "
                             f"block, {', '.join(OPTION_KEYS)}", where=str(path))
+    for key, value in data.items():  # types and limits, naming the key of this file
+        data[key] = check_option(key, value, where=f"{path}: {key}")
     positions = overrides.get("positions") or data.get("positions", "table")
     for key in ("out", "velocity_model", "control_points"):
         if key in data:
@@ -382,15 +357,18 @@ def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
     groups = []
     for i, block in enumerate(blocks):
         where = f"{path}:block[{i}]"
+        if not isinstance(block, dict):
+            raise SettingsError(f"expected a [[block]] table, got {block!r}", where=where)
         unknown = sorted(set(block) - set(BLOCK_KEYS))
         if unknown:
             raise SettingsError(f"unknown key(s) {', '.join(unknown)} in a block; known keys: "
                                 f"{', '.join(BLOCK_KEYS)}", where=where)
-        name = str(block.get("name", f"block{i}"))
+        block = {k: (v if k in ("name", "lines", "line") else
+                     check_option(k, v, where=f"{where}: {k}")) for k, v in block.items()}
+        name = block.get("name", f"block{i}")
+        if not isinstance(name, str):
+            raise SettingsError(f"expected a name in quotes, got {name!r}", where=f"{where}: name")
         own = block.get("positions")
-        if own is not None and own not in POSITION_SOURCES:
-            raise SettingsError(f"positions: expected one of {', '.join(POSITION_SOURCES)}, "
-                                f"got {own!r}", where=where)
         entries = _entries_of(block, path.parent, where, (own or positions) == "table")
         entries = [dataclasses.replace(e, block=name, positions=e.positions or own)
                    for e in entries]
@@ -451,7 +429,7 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
         groups, options = [_Group(read_line_table(path, ends=ends))], {}
     for key, value in overrides.items():
         if value is not None:
-            options[key] = value
+            options[key] = check_option(key, value)
     for key in ("out", "velocity_model", "control_points"):
         if options.get(key) is not None:
             options[key] = Path(options[key])

@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from slicer.core.errors import LineTableError
+from slicer.core.errors import LineTableError, SlicerWarning
 from slicer.io.linetable import COLUMNS, read_line_table
 
 HEADER = ",".join(COLUMNS)
@@ -19,7 +19,8 @@ def write(tmp_path, text, name="lines.csv"):
 
 def test_reads_rows_relative_to_the_table(tmp_path):
     p = write(tmp_path, f"{HEADER},note\nL0.sgy,0,0,0,10,first\nsub/L1.sgy,0.5,10,0.5,0,\n")
-    entries = read_line_table(p)
+    with pytest.warns(SlicerWarning, match="note ignored"):
+        entries = read_line_table(p)
     assert [e.file for e in entries] == [tmp_path / "L0.sgy", tmp_path / "sub" / "L1.sgy"]
     assert entries[1].start == (0.5, 10.0) and entries[1].end == (0.5, 0.0)
     assert entries[0].length == pytest.approx(10.0)
