@@ -395,5 +395,6 @@ def test_trace_spacing_resamples_every_line(small_survey):
     line = slicer.load_line(settings.lines[0], settings)
     assert line.sizes["trace"] == 41
     np.testing.assert_allclose(np.diff(line["distance"].values), 0.1, atol=1e-9)
-    with pytest.raises(slicer.SettingsError, match="--trace-spacing: -1 m is outside 0.001 <= value"):
+    with pytest.raises(slicer.SettingsError,
+                       match="--trace-spacing: -1 m is outside 0.001 <= value"):
         slicer.load_settings(small_survey.line_table, trace_spacing=-1)
