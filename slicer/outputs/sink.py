@@ -2,9 +2,9 @@
 
 A cube larger than memory is produced one tile (a block of rows x columns of the grid, every
 slice) at a time. :class:`CubeSink` hands each tile to the slice GeoTIFFs and the Zarr store,
-all kept under temporary names; a side thread writes the CF NetCDF cube from the store as the
-tiles arrive (or a worker process writes it from the finished store), the overview sheet is
-drawn from decimated panels kept as the tiles went by, and only then is every file moved to
+all kept under temporary names. Once every tile is in, the CF NetCDF cube is written from the
+finished store (on a thread of this process, or by a worker process) while the overview sheet
+is drawn from decimated panels kept as the tiles went by, and only then is every file moved to
 its final name. If anything fails on the way, every temporary file is removed and the final
 names are left as they were, so a folder never holds a half-written output.
 
@@ -21,7 +21,6 @@ from __future__ import annotations
 import concurrent.futures
 import contextlib
 import os
-import threading
 from collections.abc import Callable, Mapping
 from pathlib import Path
 
@@ -109,7 +108,6 @@ class CubeSink:
                                dtype=np.float32)
         self._writer: concurrent.futures.ThreadPoolExecutor | None = None
         self._offload = offload
-        self._stream: _NetCDFStream | None = None
         self._store = None
         self._bar = None
         self._created = [p for p in (self.out_dir, *self.out_dir.parents) if not p.exists()]
@@ -123,9 +121,6 @@ class CubeSink:
             self._tiffs = self._slice_writer()
             self._store = create_cube_store(out / ZARR_NAME, self.template, tile=self.tile,
                                             zarr_format=self._zarr_format)
-            if self._offload is None:
-                self._stream = _NetCDFStream(self._store.path, self.shape, self.tile,
-                                             out / NETCDF_NAME)
         except BaseException:
             self._abort()
             raise
@@ -139,8 +134,19 @@ class CubeSink:
                                tile=self.tile)
 
     def _start_netcdf(self, target: Path):
-        """Start writing the NetCDF cube (temporary path ``target``) from the store: a future."""
-        return self._offload(write_netcdf_from_store, str(self._store.path), str(target))
+        """Start writing the NetCDF cube (temporary path ``target``) from the finished store.
+
+        Returns a future. Without ``offload`` the file is written on a thread of this process
+        while this thread draws the overview. Writing it from the finished store was faster
+        than streaming it while the tiles arrived (benchmarks/netcdf_write.py).
+        """
+        if self._offload is not None:
+            return self._offload(write_netcdf_from_store, str(self._store.path), str(target))
+        pool = concurrent.futures.ThreadPoolExecutor(max_workers=1)
+        try:
+            return pool.submit(write_netcdf_from_store, str(self._store.path), str(target))
+        finally:
+            pool.shutdown(wait=False)
 
     def _draw_overview(self, png: Path):
         """Draw and save the overview to ``png`` (temporary path); a future if done elsewhere."""
@@ -175,8 +181,6 @@ class CubeSink:
         finally:
             for future in done:
                 future.result()
-        if self._stream is not None:
-            self._stream.written(row0, col0, values.shape[1], values.shape[2])
         self._bar.update(1)
 
     def _write_bands(self, bands, row0: int, col0: int, values) -> None:
@@ -207,15 +211,12 @@ class CubeSink:
         self._stop_writer()
         out = self.out_dir
         self._tiffs.close()
-        # The NetCDF cube has been written on a side thread as the tiles came (or is now
-        # written from the finished store by a worker process, with ``offload``) while this
-        # thread draws the overview from the panels it kept.
+        # The NetCDF cube is written from the finished store (on another thread, or by a
+        # worker process with ``offload``) while this thread draws the overview from the
+        # panels it kept.
         with contextlib.ExitStack() as stack:
             png = stack.enter_context(atomic_path(out / OVERVIEW_NAME))
-            if self._stream is not None:
-                netcdf = self._stream.complete()
-            else:
-                netcdf = self._start_netcdf(stack.enter_context(atomic_path(out / NETCDF_NAME)))
+            netcdf = self._start_netcdf(stack.enter_context(atomic_path(out / NETCDF_NAME)))
             overview = None
             try:
                 overview = self._draw_overview(png)
@@ -231,9 +232,6 @@ class CubeSink:
             # Everything is complete under temporary names: now the renames.
             tiffs = self._tiffs.commit()
             store = self._store.finalize()
-            if self._stream is not None:
-                self._stream.commit()
-                self._stream = None
         self.files = [*tiffs, store, out / NETCDF_NAME, out / OVERVIEW_NAME]
 
     def _close_bar(self, *, keep: bool) -> None:
@@ -250,9 +248,6 @@ class CubeSink:
     def _abort(self) -> None:
         self._close_bar(keep=False)
         self._stop_writer()
-        if self._stream is not None:
-            self._stream.abort()
-            self._stream = None
         if self._tiffs is not None:
             self._tiffs.abort()
         if self._store is not None:
@@ -282,84 +277,6 @@ def decimate(values, row0: int, col0: int, stride: int) -> np.ndarray:
     """Every ``stride``-th row and column of the grid within a tile, as the overview draws."""
     r, c = -(-row0 // stride), -(-col0 // stride)  # first panel row and column in this tile
     return np.asarray(values[:, r * stride - row0::stride, c * stride - col0::stride])
-
-
-class _NetCDFStream:
-    """The NetCDF cube written on a side thread while the tiles arrive.
-
-    The cube handed to the NetCDF writer is lazy: each tile's block waits until every cell
-    of the tile is in the Zarr store, then reads it back from there (so no tile is held in
-    memory for it). Its slices are split apart after the read, so the file keeps one HDF5
-    chunk per Zarr chunk (one slice of one tile) while dask writes them tile after tile, in
-    the order the tiles come. The file stays under a temporary name until :meth:`commit`.
-    """
-
-    def __init__(self, store: Path, shape: tuple[int, int, int], tile: int, target: Path):
-        import dask.array as darray
-
-        self._windows = list(tile_windows(shape, tile))
-        self._tile = tile
-        self._missing = {(r, c): h * w for r, c, h, w in self._windows}
-        self._ready = {(r, c): threading.Event() for r, c, _, _ in self._windows}
-        self._aborted = False
-        source = open_cube_zarr(store)
-        self._source = source.data  # read inside _read only: never an argument of a task
-        n = self._n = shape[0]
-        rows, block = {}, None
-        for r, c, h, w in self._windows:
-            # Each read after the one before it: dask would otherwise start from the last
-            # tile, and the whole file would wait for the end of the build.
-            block = dask.delayed(self._read, pure=False)(r, c, h, w, block)
-            rows.setdefault(r, []).append(
-                darray.from_delayed(block, shape=(n, h, w), dtype=np.float32))
-        lazy = darray.block([rows[r] for r in sorted(rows)]).rechunk({0: 1})
-        self._context = atomic_path(target)
-        self.path = self._context.__enter__()
-        self._pool = concurrent.futures.ThreadPoolExecutor(max_workers=1)
-        self.future = self._pool.submit(_write_lazy_netcdf, source.copy(data=lazy), self.path)
-
-    def _read(self, row0: int, col0: int, h: int, w: int, _after=None) -> np.ndarray:
-        self._ready[(row0, col0)].wait()
-        if self._aborted:  # the file is thrown away: finish it fast (failing would leave
-            # dask threads writing to it, which reopen it by name after it is removed)
-            return np.full((self._n, h, w), np.nan, dtype=np.float32)
-        return np.asarray(self._source[:, row0:row0 + h, col0:col0 + w].compute(
-            scheduler="synchronous"), dtype=np.float32)
-
-    def written(self, row0: int, col0: int, h: int, w: int) -> None:
-        """Cells ``[row0:row0+h, col0:col0+w]`` are in the store: release complete tiles."""
-        t = self._tile
-        for r, c, th, tw in self._windows:
-            if r // t in range(row0 // t, (row0 + h - 1) // t + 1) and \
-                    c // t in range(col0 // t, (col0 + w - 1) // t + 1):
-                overlap = ((min(r + th, row0 + h) - max(r, row0))
-                           * (min(c + tw, col0 + w) - max(c, col0)))
-                self._missing[(r, c)] -= max(overlap, 0)
-                if self._missing[(r, c)] <= 0:
-                    self._ready[(r, c)].set()
-
-    def complete(self):
-        """Every tile is written (cells never written stay NaN): the future of the file."""
-        for event in self._ready.values():
-            event.set()
-        return self.future
-
-    def commit(self) -> None:
-        self._pool.shutdown()
-        self._context.__exit__(None, None, None)
-
-    def abort(self) -> None:
-        self._aborted = True
-        self.complete()
-        self._pool.shutdown()  # the writer ends soon: every read left is NaN, not read
-        with contextlib.suppress(FileNotFoundError):
-            self.path.unlink()
-
-
-def _write_lazy_netcdf(cube: xr.DataArray, target: Path) -> None:
-    # zlib level 1: level 4 made the file 1 % smaller and took longer
-    with dask.config.set(scheduler="threads"):
-        _write_netcdf(cube, target, title=None, source=None, history=None, complevel=1)
 
 
 def write_netcdf_from_store(store: str, target: str) -> None:

@@ -98,7 +98,7 @@ def test_write_cube_takes_the_same_path_for_memory_and_dask_cubes(tmp_path):
     xr.testing.assert_identical(read_cube_netcdf(lazy_files[4]), cube)
 
 
-def test_netcdf_streamed_from_the_store_follows_cf_and_keeps_holes(tmp_path):
+def test_netcdf_written_from_the_store_follows_cf_and_keeps_holes(tmp_path):
     cube = make_cube()
     files = write_by_tiles(cube, tmp_path, skip={(32, 32)})
     with xr.open_dataset(files[4], engine="h5netcdf") as ds:
@@ -163,6 +163,27 @@ def test_a_failure_while_finishing_commits_nothing(tmp_path, monkeypatch):
     assert info.value.where == str(tmp_path / "overview.png")
     # The GeoTIFFs and the store were complete but not yet renamed: none is left.
     assert listing(tmp_path) == []
+
+
+def test_a_failing_netcdf_write_names_the_file_and_commits_nothing(tmp_path, monkeypatch):
+    import slicer.outputs.sink as sink_module
+    cube = make_cube()
+    first = write_cube(make_cube(seed=1), tmp_path, tags=TAGS, progress=False, tile=TILE)
+    before = {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
+
+    def full_disk(cube, target, **kwargs):
+        with open(target, "wb") as fh:
+            fh.write(b"\x89HDF partial")
+        raise OSError("No space left on device")
+
+    monkeypatch.setattr(sink_module, "_write_netcdf", full_disk)
+    with pytest.raises(OutputError, match="No space left") as info:
+        write_by_tiles(cube, tmp_path)
+    assert info.value.where == str(tmp_path / "cube.nc")
+    # The earlier build is intact and no temporary file is left beside it.
+    after = {p: p.read_bytes() for p in tmp_path.rglob("*") if p.is_file()}
+    assert after == before
+    assert all(p.exists() for p in first)
 
 
 def test_a_failing_tile_write_names_the_file(tmp_path, monkeypatch):
