@@ -149,6 +149,12 @@ class BuildSettings:
                                 where="--depths")
         self.requested_windows  # noqa: B018 - validates
         model = self.resolved_model
+        if self.velocity_std is not None and model is None:
+            raise SettingsError("has no effect without a velocity (--velocity, --permittivity "
+                                "or --velocity-model)", where="--velocity-std")
+        if self.thickness is not None and self.depths is None and self.times is None:
+            raise SettingsError("has no effect without --depths or --times (the default "
+                                "slices have their own thickness)", where="--thickness")
         if self.velocity_std is not None and model is not None:
             slowest = float(min(np.atleast_1d(model.velocity)))
             if self.velocity_std >= slowest:
@@ -183,6 +189,12 @@ class BuildSettings:
                 raise SettingsError(f"unknown CRS {self.track_crs!r}",
                                     where="--track-crs") from None
         tracked = [e for e in self.lines if (e.positions or self.positions) == "track"]
+        if not tracked:  # options that only GNSS-tracked lines use would be silently ignored
+            for name in ("antenna_along", "antenna_across", "track_crs"):
+                if getattr(self, name) is not None:
+                    raise SettingsError("has no effect: no line takes its positions from a GNSS "
+                                        "track (--positions track or a track column)",
+                                        where="--" + name.replace("_", "-"))
         if tracked and self.crs is None:
             raise SettingsError("positions from a GNSS track need the survey CRS to project "
                                 "into", where="--crs")
@@ -295,6 +307,9 @@ def _positive(value, where: str, unit: str) -> float:
         raise SettingsError(f"must be positive, got {v:g} {unit}", where=where)
     return v
 
+
+#: Options of which a build takes one: a flag for one of them overrides the survey file's.
+EXCLUSIVE = (("velocity", "permittivity", "velocity_model"), ("depths", "times"))
 
 #: Keys of a TOML ``[[block]]`` table.
 BLOCK_KEYS = ("name", "lines", "line", "positions", "control_points", "control_fit",
@@ -427,6 +442,10 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
     else:
         ends = (overrides.get("positions") or "table") == "table"
         groups, options = [_Group(read_line_table(path, ends=ends))], {}
+    for group in EXCLUSIVE:  # a flag of a group replaces the file's choice within it
+        if any(overrides.get(k) is not None for k in group):
+            for k in group:
+                options.pop(k, None)
     for key, value in overrides.items():
         if value is not None:
             options[key] = check_option(key, value)

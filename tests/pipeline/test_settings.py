@@ -93,3 +93,41 @@ def test_every_option_key_is_documented():
     assert all(isinstance(v, str) and v for v in OPTION_KEYS.values())
     with pytest.raises(SettingsError):
         load_settings("x.csv", colour="red")
+
+
+@pytest.mark.parametrize("file_line, flags, check", [
+    # README: "Options override a TOML survey file", within a group of alternatives too
+    ("velocity = 0.1", {"permittivity": 4.0},
+     lambda s: s.velocity is None and s.resolved_velocity == pytest.approx(0.2998 / 2, abs=1e-4)),
+    ("permittivity = 9.0", {"velocity": 0.12}, lambda s: s.resolved_velocity == 0.12),
+    ('depths = "0:1:0.1"', {"times": "0:20:2"},
+     lambda s: s.depths is None and len(s.requested_windows) == 10),
+    ('times = "0:20:2"', {"depths": "0:1:0.5", "velocity": 0.1},
+     lambda s: s.times is None and len(s.requested_windows) == 2),
+])
+def test_a_flag_replaces_the_files_choice_in_its_group(tmp_path, table, file_line, flags, check):
+    toml = tmp_path / "survey.toml"
+    toml.write_text(f'lines = "lines.csv"\n{file_line}\n')
+    assert check(load_settings(toml, **flags))
+
+
+def test_a_velocity_model_flag_replaces_the_files_velocity(tmp_path, table):
+    model = tmp_path / "v.toml"
+    model.write_text('kind = "constant"\nvelocity = 0.08\nvelocity_std = 0.004\n')
+    toml = tmp_path / "survey.toml"
+    toml.write_text('lines = "lines.csv"\nvelocity = 0.1\ndepths = "0:1:0.1"\n')
+    s = load_settings(toml, velocity_model=str(model))
+    assert s.velocity is None and s.resolved_velocity == 0.08
+
+
+@pytest.mark.parametrize("options, flag", [
+    ({"antenna_along": 0.3}, "--antenna-along"),
+    ({"antenna_across": -0.2}, "--antenna-across"),
+    ({"track_crs": "EPSG:4326"}, "--track-crs"),
+    ({"velocity_std": 0.01}, "--velocity-std"),
+    ({"thickness": 0.2}, "--thickness"),
+])
+def test_an_option_with_no_effect_is_refused(table, options, flag):
+    with pytest.raises(SettingsError, match="has no effect") as caught:
+        load_settings(table, **options)
+    assert caught.value.where == flag
