@@ -22,6 +22,10 @@ from typing import Any
 
 __version__ = "0.1.0"
 
+#: The distribution this package comes from (the import name is shared with an unrelated one;
+#: see depth_slicer.py).
+_DISTRIBUTION = "depth-slicer"
+
 #: Where each public name lives, by module.
 _PUBLIC: dict[str, tuple[str, ...]] = {
     "slicer.core.atomic": ("atomic_path", "prepare_output_dir"),

@@ -20,6 +20,22 @@ Engines, as ``--scheduler`` spells them:
 ``tcp://HOST:PORT``
     an existing dask.distributed scheduler; every worker must see the input files at the same
     paths (shared or object storage).
+
+Nothing hangs and nothing is left behind:
+
+* an address is checked before anything connects (scheme ``tcp``, a host, a port from 1 to
+  65535), and a remote scheduler must answer as one within :attr:`Engine.connect_timeout`
+  seconds and a few more, whether nothing listens at the address or something that is not
+  dask does;
+* ``local:N`` and ``processes`` start at most :data:`WORKERS_PER_CORE` worker processes per
+  core, and ``local:N`` no more than the machine's memory holds at :data:`WORKER_MEMORY` (or
+  the ``memory_limit`` given) each; a larger count is refused before any process starts;
+* worker processes end with the process that started them, even when it is killed
+  (SIGKILL gives it no chance to stop them): ``processes`` workers watch their parent
+  (:func:`_exit_with_parent`), and a LocalCluster's do so by themselves (dask.distributed
+  keeps a pipe from each to its parent open, and a worker exits when it closes).
+
+Every refusal is a :class:`~slicer.core.errors.SettingsError` naming ``--scheduler``.
 """
 
 from __future__ import annotations
@@ -31,6 +47,9 @@ import functools
 import itertools
 import multiprocessing
 import os
+import threading
+import time
+import urllib.parse
 from collections.abc import Callable, Iterable, Iterator, Sequence, Sized
 from dataclasses import dataclass
 
@@ -70,6 +89,20 @@ class EngineSpec:
 #: importing in the workers costs 2-3 s), threads 28.8 s and processes 24.4 s at 1 M.
 AUTO_PROCESSES_TRACES = 300_000
 
+#: Most worker processes per core: tasks are single-threaded numpy work and file reads, so more
+#: workers than cores only help while some wait on a disk; beyond a few per core they add
+#: memory, start-up time and contention and nothing else.
+WORKERS_PER_CORE = 4
+
+#: Bytes one worker process holds at least (when no ``memory_limit`` is given): a worker that
+#: has imported the build's libraries and run its tasks holds 220-250 MB here (2026-12).
+WORKER_MEMORY = 256 * 2**20
+
+#: Seconds between a ``processes`` worker's checks that the process that started it lives.
+PARENT_CHECK_INTERVAL = 0.5
+
+_FORMS = "auto, threads, processes, local:N or tcp://HOST:PORT"
+
 
 def parse_scheduler(text: str | None, *, workers: int | None = None,
                     traces: int | None = None) -> EngineSpec:
@@ -78,8 +111,10 @@ def parse_scheduler(text: str | None, *, workers: int | None = None,
     text = (text or "threads").strip()
     if text == "auto":
         text = "processes" if (traces or 0) >= AUTO_PROCESSES_TRACES and n > 1 else "threads"
-    if text in ("threads", "processes"):
+    if text == "threads":
         return EngineSpec(text, n)
+    if text == "processes":
+        return EngineSpec(text, _check_process_count(n, text))
     if text.startswith("local:"):
         try:
             count = int(text.split(":", 1)[1])
@@ -88,11 +123,46 @@ def parse_scheduler(text: str | None, *, workers: int | None = None,
         if count < 1:
             raise SettingsError(f"expected local:N with N >= 1 workers, got {text!r}",
                                 where="--scheduler")
-        return EngineSpec("local", count)
-    if text.startswith("tcp://") and len(text) > len("tcp://"):
-        return EngineSpec("remote", n, address=text)
-    raise SettingsError(f"expected threads, processes, local:N or tcp://HOST:PORT, got "
-                        f"{text!r}", where="--scheduler")
+        return EngineSpec("local", _check_process_count(count, text))
+    if "://" in text or text.startswith("tcp:"):
+        return EngineSpec("remote", n, address=_scheduler_address(text))
+    raise SettingsError(f"expected {_FORMS}, got {text!r}", where="--scheduler")
+
+
+def _check_process_count(count: int, text: str) -> int:
+    """``count`` worker processes, if at most :data:`WORKERS_PER_CORE` per core."""
+    cores = os.cpu_count() or 1
+    most = WORKERS_PER_CORE * cores
+    if count > most:
+        raise SettingsError(f"{text} asks for {count} worker processes; this machine has "
+                            f"{cores} cores and takes at most {most} ({WORKERS_PER_CORE} per "
+                            "core)", where="--scheduler")
+    return count
+
+
+def _scheduler_address(text: str) -> str:
+    """The ``tcp://HOST:PORT`` address ``text`` gives, checked for form only (no connection)."""
+    def bad(why: str) -> SettingsError:
+        return SettingsError(f"{why} in {text!r}; expected tcp://HOST:PORT, e.g. "
+                             "tcp://10.0.0.5:8786", where="--scheduler")
+
+    try:
+        parts = urllib.parse.urlsplit(text)
+        port = parts.port
+    except ValueError as exc:  # a port that is no number or out of range, a broken [IPv6]
+        raise bad(f"no valid address ({exc})") from None
+    if parts.scheme != "tcp":
+        raise bad(f"unknown scheme {parts.scheme + '://' if parts.scheme else '(none)'}")
+    if not parts.hostname:
+        raise bad("no host")
+    if parts.username is not None or parts.path not in ("", "/") or parts.query \
+            or parts.fragment:
+        raise bad("more than a host and port")
+    if port is None:
+        raise bad("no port (a dask scheduler listens on 8786 unless told otherwise)")
+    if port == 0:
+        raise bad("port 0")
+    return f"tcp://{parts.netloc}"
 
 
 class Engine:
@@ -106,10 +176,15 @@ class Engine:
         Bytes per worker for a LocalCluster.
     """
 
-    #: Seconds to wait for a remote scheduler.
+    #: Seconds a remote scheduler has to be reached (and 2 more to answer; see
+    #: :func:`_ask_scheduler`), then again to take this client: it bounds every wait on the
+    #: address. Across a WAN a reply takes well under a second; a scheduler that has not
+    #: answered in 10 s is not there or not dask.
     connect_timeout = 10
 
     def __init__(self, spec: EngineSpec, *, memory_limit: int | None = None):
+        if spec.kind in ("processes", "local"):  # also for a spec not from parse_scheduler
+            _check_process_count(spec.workers, spec.label if spec.kind == "local" else spec.kind)
         self.spec = spec
         self.memory_limit = memory_limit
         self._client = None
@@ -123,7 +198,8 @@ class Engine:
             # one pool for the whole build (dask would start one per compute call); spawn,
             # because forking a process that runs threads can deadlock
             self._pool = concurrent.futures.ProcessPoolExecutor(
-                max_workers=self.spec.workers, mp_context=multiprocessing.get_context("spawn"))
+                max_workers=self.spec.workers, mp_context=multiprocessing.get_context("spawn"),
+                initializer=_exit_with_parent, initargs=(os.getpid(),))
         if self.spec.kind in ("local", "remote"):
             try:
                 from distributed import Client, LocalCluster
@@ -131,19 +207,42 @@ class Engine:
                 raise SettingsError("dask.distributed is not installed",
                                     where="--scheduler") from None
             if self.spec.kind == "local":
+                self._check_memory()
                 self._cluster = LocalCluster(
                     n_workers=self.spec.workers, threads_per_worker=1, processes=True,
                     dashboard_address=None,
                     memory_limit=self.memory_limit if self.memory_limit else "auto")
                 self._client = Client(self._cluster)
             else:
-                try:
-                    self._client = Client(self.spec.address, timeout=self.connect_timeout)
-                except OSError as exc:
-                    raise SettingsError(f"cannot reach the dask scheduler at "
-                                        f"{self.spec.address} ({exc})",
-                                        where="--scheduler") from None
+                self._client = self._connect(Client)
         return self
+
+    def _check_memory(self) -> None:
+        """Refuse a LocalCluster whose workers cannot all have their memory on this machine."""
+        from dask.utils import format_bytes
+        from distributed.system import MEMORY_LIMIT  # RAM, or less under a cgroup or rlimit
+
+        each = max(self.memory_limit or 0, WORKER_MEMORY)
+        if self.spec.workers * each > MEMORY_LIMIT:
+            raise SettingsError(
+                f"{self.spec.label} needs {self.spec.workers} x {format_bytes(each)} of memory, "
+                f"more than this machine's {format_bytes(MEMORY_LIMIT)}; use fewer workers",
+                where="--scheduler")
+
+    def _connect(self, client_class: type):
+        """A client of the remote scheduler, within twice :attr:`connect_timeout` + 5 s.
+
+        ``Client(timeout=...)`` bounds the TCP connection but not dask's handshake after it
+        (dask.distributed issue 8071: a server that accepts and stays silent holds it for
+        ever), so first the scheduler is asked who it is, in a bounded wait.
+        """
+        address, timeout = self.spec.address, self.connect_timeout
+        _ask_scheduler(address, timeout)
+        try:
+            return client_class(address, timeout=timeout)
+        except (OSError, ValueError) as exc:  # TimeoutError is an OSError
+            raise SettingsError(f"cannot reach the dask scheduler at {address} within "
+                                f"{timeout:g} s ({_one_line(exc)})", where="--scheduler") from None
 
     def __exit__(self, *exc_info) -> None:
         if self._pool is not None:
@@ -244,6 +343,89 @@ def _batches(items: Iterable, size: int) -> Iterator[list]:
 def _run_batch(func: Callable, batch: list) -> list:
     """Run ``func`` on every item of one batch, in a worker (module level: picklable)."""
     return [func(item) for item in batch]
+
+
+def _ask_scheduler(address: str, timeout: float) -> None:
+    """Check that a dask scheduler answers at ``address``, waiting at most ``timeout + 5`` s.
+
+    Runs dask.distributed's own connection (which retries for ``timeout`` seconds) and its
+    ``identity`` call, bounded as a whole by ``asyncio.wait_for`` at ``timeout + 2`` s, on an
+    event loop of its own in a daemon thread (the caller may be inside a running loop, e.g. a
+    notebook). The thread is waited for 3 s more and then left behind: closing its loop also
+    waits for a host-name lookup, which only the system's resolver bounds.
+
+    Raises
+    ------
+    SettingsError
+        Nothing listens there (or the host is unknown), something listens that does not
+        answer as dask in time or at all, or it is a dask worker rather than a scheduler.
+    """
+    import asyncio
+
+    from distributed.core import rpc
+
+    async def identity() -> dict:
+        async with rpc(address, timeout=timeout) as scheduler:
+            return await scheduler.identity()
+
+    answer: concurrent.futures.Future = concurrent.futures.Future()
+
+    def ask() -> None:
+        try:
+            answer.set_result(asyncio.run(asyncio.wait_for(identity(), timeout + 2)))
+        except BaseException as exc:  # noqa: BLE001 - handed to the caller's thread
+            answer.set_exception(exc)
+
+    def refuse(why: str) -> SettingsError:
+        return SettingsError(f"cannot reach the dask scheduler at {address}: {why}",
+                             where="--scheduler")
+
+    threading.Thread(target=ask, name="slicer-connect", daemon=True).start()
+    try:
+        info = answer.result(timeout + 5)
+    except TimeoutError:
+        if not answer.done():  # the lookup of the host name hangs
+            raise refuse(f"no answer within {timeout + 5:g} s") from None
+        # connected, then no reply (dask's own timeout on connecting ends in an OSError)
+        raise refuse(f"something listens there but did not answer as dask within "
+                     f"{timeout + 2:g} s") from None
+    except OSError as exc:
+        detail, cause = "", exc.__cause__
+        while cause is not None:  # the last attempt's error: refused, unknown host...
+            if isinstance(cause, OSError) and not isinstance(cause, TimeoutError):
+                detail = f" ({_one_line(cause)})"
+            cause = cause.__cause__
+        raise refuse(f"nothing answered within {timeout:g} s{detail}") from None
+    except Exception:  # noqa: BLE001 - whatever a server that is not dask sends
+        raise refuse("something listens there but does not speak dask") from None
+    kind = info.get("type") if isinstance(info, dict) else None
+    if kind != "Scheduler":
+        raise refuse(f"it is a dask {kind or 'server'}, not a scheduler")
+
+
+def _one_line(exc: BaseException) -> str:
+    """An exception's message on one line, at most 200 characters."""
+    text = " ".join(str(exc).split()) or type(exc).__name__
+    return text if len(text) <= 200 else text[:197] + "..."
+
+
+def _exit_with_parent(parent: int) -> None:
+    """Make this ``processes`` worker exit as soon as ``parent`` (its pool's process) is gone.
+
+    A pool initializer. A killed parent cannot shut its pool down, and the workers would
+    wait on their task queue for ever (each holds both ends of it), keeping their memory
+    and the pool's resource tracker alive. A daemon thread compares ``os.getppid()`` with
+    ``parent`` every :data:`PARENT_CHECK_INTERVAL` seconds; once the worker has been given
+    to another parent it exits at once. Chosen over Linux's ``PR_SET_PDEATHSIG``, which
+    fires when the *thread* that started the worker ends (the pool may start workers from
+    any thread that submits) and exists on Linux only; polling costs two wake-ups a second.
+    """
+    def watch() -> None:
+        while os.getppid() == parent:
+            time.sleep(PARENT_CHECK_INTERVAL)
+        os._exit(1)
+
+    threading.Thread(target=watch, name="slicer-parent-watch", daemon=True).start()
 
 
 @contextlib.contextmanager
