@@ -162,38 +162,38 @@ def read_velocity_model(path) -> VelocityModel:
     return velocity_model_from_mapping(data, where=str(path))
 
 
-def _toml_string(text: str) -> str:
-    return '"' + text.replace("\\", "\\\\").replace('"', '\\"').replace("\n", " ") + '"'
-
-
 def write_velocity_model(path, model: VelocityModel) -> Path:
     """Write ``model`` in the file form (atomically); :func:`read_velocity_model` reads it back.
 
     Layers are written by top time with interval velocities (exact), the depth of each top in
-    a comment.
+    the header comment. The TOML is written by tomli-w, which escapes any text a note holds.
     """
-    rows = ["# radar velocity model (m/ns, one-sigma std)"]
+    import tomli_w
+
+    header = ["# radar velocity model (m/ns, one-sigma std)"]
+    doc: dict = {}
     if isinstance(model, ConstantVelocity):
-        rows.append('kind = "constant"')
+        doc["kind"] = "constant"
         if model.permittivity is not None:
-            rows += [f"permittivity = {model.permittivity!r}",
-                     f"permittivity_std = {model.permittivity_std!r}"]
+            doc |= {"permittivity": float(model.permittivity),
+                    "permittivity_std": float(model.permittivity_std)}
         else:
-            rows += [f"velocity = {model.velocity!r}", f"velocity_std = {model.velocity_std!r}"]
+            doc |= {"velocity": float(model.velocity), "velocity_std": float(model.velocity_std)}
     elif isinstance(model, LayeredVelocity):
-        rows.append('kind = "layered"')
-        for t, z, v, s in zip(model.top_time, model.top_depth, model.velocity,
-                              model.velocity_std, strict=True):
-            rows += ["", "[[layer]]", f"top_time = {t!r}  # top at {z:.4f} m",
-                     f"velocity = {v!r}", f"velocity_std = {s!r}"]
+        doc["kind"] = "layered"
+        doc["layer"] = [{"top_time": float(t), "velocity": float(v), "velocity_std": float(s)}
+                        for t, v, s in zip(model.top_time, model.velocity, model.velocity_std,
+                                           strict=True)]
+        header.append("# layer tops at " + ", ".join(f"{z:.4f}" for z in model.top_depth)
+                      + " m depth")
     elif isinstance(model, LateralVelocity):
-        rows += ['kind = "lateral"', f"length_scale = {model.length_scale!r}"]
-        for x, y, v, s in zip(model.x, model.y, model.velocity, model.velocity_std,
-                              strict=True):
-            rows += ["", "[[point]]", f"x = {x!r}", f"y = {y!r}", f"velocity = {v!r}",
-                     f"velocity_std = {s!r}"]
+        doc |= {"kind": "lateral", "length_scale": float(model.length_scale)}
+        doc["point"] = [{"x": float(x), "y": float(y), "velocity": float(v),
+                         "velocity_std": float(s)}
+                        for x, y, v, s in zip(model.x, model.y, model.velocity,
+                                              model.velocity_std, strict=True)]
     else:
         raise SettingsError(f"cannot write a {type(model).__name__}", where=str(path))
     if model.note:
-        rows.insert(2, f"note = {_toml_string(model.note)}")
-    return atomic_write_text(path, "\n".join(rows) + "\n")
+        doc = {"kind": doc.pop("kind"), "note": str(model.note), **doc}
+    return atomic_write_text(path, "\n".join(header) + "\n" + tomli_w.dumps(doc))

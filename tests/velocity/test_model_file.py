@@ -119,3 +119,16 @@ def test_file_round_trip_of_any_layered_model(layers):
     with tempfile.TemporaryDirectory() as folder:
         path = write_velocity_model(Path(folder) / "m.toml", model)
         assert read_velocity_model(path) == model
+
+
+@given(note=st.text(min_size=1, max_size=40))
+@settings(max_examples=60, deadline=None)
+def test_any_note_round_trips(tmp_path_factory, note):
+    """A note with control characters, quotes or newlines wrote a file slicer could not read
+    back when the TOML was written by hand; tomli-w escapes it (TOML 1.0, section Strings)."""
+    path = tmp_path_factory.mktemp("note") / "v.toml"
+    model = LayeredVelocity.by_time([0.0, 10.0], [0.1, 0.08], [0.004, 0.003], note=note)
+    write_velocity_model(path, model)
+    back = read_velocity_model(path)
+    assert back.note == note
+    np.testing.assert_array_equal(back.velocity, model.velocity)
