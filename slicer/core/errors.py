@@ -22,9 +22,19 @@ class SlicerError(Exception):
     """
 
     def __init__(self, message: str, *, where: str | None = None):
+        # One line whatever a file name or value holds: line breaks are shown escaped.
+        where, message = (None if where is None else _one_line(where)), _one_line(message)
         self.where = where
         self.message = message
         super().__init__(f"{where}: {message}" if where else message)
+
+
+def _one_line(text) -> str:
+    text = str(text)
+    if not any(c in text for c in "\r\n\x0b\x0c\x1c\x1d\x1e\x85\u2028\u2029"):
+        return text
+    return "".join(c if len(c.splitlines()) == 1 and c.splitlines()[0] == c
+                   else c.encode("unicode_escape").decode("ascii") for c in text)
 
 
 class InputFileError(SlicerError):

@@ -157,10 +157,14 @@ def _read_table(path: str | os.PathLike, what: str, columns: tuple[str, ...]
         text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise InputFileError(f"{what} not found", where=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
+    except (OSError, ValueError) as exc:  # ValueError: undecodable, or a NUL in the path
         raise InputFileError(f"cannot read {what} ({exc})", where=str(path)) from None
     reader = csv.DictReader(text.splitlines())
-    header = [h.strip() for h in (reader.fieldnames or [])]
+    try:
+        header = [h.strip() for h in (reader.fieldnames or [])]
+    except csv.Error as exc:
+        raise InputFileError(f"not a readable CSV {what} ({exc})",
+                             where=f"{path}:{reader.reader.line_num}") from None
     if not header:
         raise InputFileError(f"{what} is empty (no header row)", where=str(path))
     missing = [c for c in columns if c not in header]
@@ -169,7 +173,12 @@ def _read_table(path: str | os.PathLike, what: str, columns: tuple[str, ...]
                              f"{','.join(header)}", where=str(path))
     reader.fieldnames = header
     rows = []
-    for number, row in enumerate(reader, start=2):
+    try:
+        records = list(reader)
+    except csv.Error as exc:
+        raise InputFileError(f"not a readable CSV {what} ({exc})",
+                             where=f"{path}:{reader.reader.line_num}") from None
+    for number, row in enumerate(records, start=2):
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue
         rows.append((number, {k: (v or "").strip() if isinstance(v, str) else ""

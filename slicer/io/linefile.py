@@ -118,11 +118,26 @@ class _Contents:
 def _open(path: Path) -> Iterator[xr.Dataset]:
     """Open a line file, turning the NetCDF stack's exceptions into InputFileError."""
     _check_file(path)
+    _check_hdf5(path)
     try:
         # No CF time decoding: "ns" units on twt must stay plain float64 nanoseconds.
         with xr.open_dataset(path, engine=_ENGINE, decode_times=False,
                              decode_timedelta=False) as ds:
             yield ds
+    except _NETCDF_ERRORS as exc:
+        raise InputFileError(f"not a readable NetCDF-4 line file ({exc})",
+                             where=str(path)) from None
+
+
+def _check_hdf5(path: Path) -> None:
+    """Open the file with h5py alone and read what h5netcdf reads first (the root attribute
+    ``_nc3_strict``): when that fails, h5netcdf's half-built File prints an ignored
+    AttributeError traceback from its destructor, on stderr, past the InputFileError."""
+    import h5py
+
+    try:
+        with h5py.File(path, "r") as f:
+            f.attrs.get("_nc3_strict")
     except _NETCDF_ERRORS as exc:
         raise InputFileError(f"not a readable NetCDF-4 line file ({exc})",
                              where=str(path)) from None

@@ -132,6 +132,8 @@ def make_entry(fields: dict, *, base: Path, where: str, ends: bool = True) -> Li
     if not isinstance(name, str | os.PathLike) or not str(name).strip():
         raise LineTableError("column file is empty" if name in (None, "") else
                              f"column file: expected a file name, got {name!r}", where=where)
+    if "\x00" in str(name):
+        raise LineTableError(f"column file: {str(name)!r} holds a NUL character", where=where)
     extra = _optional(fields, base=base, where=where)
     source = extra.get("positions")
     if source is None and extra.get("track") is not None:
@@ -170,6 +172,9 @@ def _optional(fields: dict, *, base: Path, where: str) -> dict:
                 raise LineTableError(f"column positions: expected one of "
                                      f"{', '.join(POSITION_SOURCES)}, got {text!r}", where=where)
             out[column] = text
+        elif "\x00" in text:
+            raise LineTableError(f"column {column}: {text!r} holds a NUL character",
+                                 where=where)
         else:
             out[column] = base / text
     return out
@@ -191,10 +196,10 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
         text = path.read_text(encoding="utf-8-sig")
     except FileNotFoundError:
         raise LineTableError("line table not found", where=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
+    except (OSError, ValueError) as exc:  # ValueError: undecodable, or a NUL in the path
         raise LineTableError(f"cannot read line table ({exc})", where=str(path)) from None
     reader = csv.DictReader(text.splitlines())
-    header = [h.strip() for h in (reader.fieldnames or [])]
+    header = [h.strip() for h in (_csv(lambda: reader.fieldnames, reader, path) or [])]
     if not header:
         raise LineTableError("line table is empty (no header row)", where=str(path))
     twice = sorted(n for n, k in Counter(header).items() if k > 1)
@@ -214,7 +219,7 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
             where=str(path))
     reader.fieldnames = header
     entries = []
-    for row_number, row in enumerate(reader, start=2):
+    for row_number, row in enumerate(_csv(lambda: list(reader), reader, path), start=2):
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue  # blank line
         entries.append(make_entry(row, base=path.parent, where=f"{path}:{row_number}",
@@ -223,6 +228,15 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
         raise LineTableError("line table has no lines", where=str(path))
     check_unique(entries)
     return entries
+
+
+def _csv(read, reader: csv.DictReader, path: Path):
+    """``read()`` (the header or the rows of ``reader``), a csv.Error naming the line."""
+    try:
+        return read()
+    except csv.Error as exc:
+        raise LineTableError(f"not a readable CSV table ({exc})",
+                             where=f"{path}:{reader.reader.line_num}") from None
 
 
 def check_unique(entries: list[LineEntry]) -> None:

@@ -17,10 +17,12 @@ def read_toml(path: Path, *, what: str, missing: type[SlicerError] = LineTableEr
         ``missing`` for a missing or unreadable file, LineTableError for invalid TOML.
     """
     try:
-        return tomllib.loads(Path(path).read_text(encoding="utf-8"))
+        text = Path(path).read_text(encoding="utf-8")
     except FileNotFoundError:
         raise missing(f"{what} not found", where=str(path)) from None
-    except (OSError, UnicodeDecodeError) as exc:
+    except (OSError, ValueError) as exc:  # ValueError: undecodable, or a NUL in the path
         raise missing(f"cannot read {what} ({exc})", where=str(path)) from None
-    except tomllib.TOMLDecodeError as exc:
+    try:
+        return tomllib.loads(text)
+    except ValueError as exc:  # TOMLDecodeError, or an integer of more than 4300 digits
         raise LineTableError(f"not valid TOML ({exc})", where=str(path)) from None

@@ -61,7 +61,10 @@ def _number(table: dict, key: str, where: str):
     value = table[key]
     if isinstance(value, bool) or not isinstance(value, int | float):
         raise LineTableError(f"{key} must be a number, got {value!r}", where=where)
-    return float(value)
+    try:
+        return float(value)
+    except OverflowError:  # a TOML integer beyond any float
+        raise LineTableError(f"{key} is too large a number", where=where) from None
 
 
 def _tables(data: dict, key: str, where: str, allowed: set[str]) -> list[dict]:
@@ -108,7 +111,7 @@ def velocity_model_from_mapping(data: dict, *, where: str = "velocity model") ->
     if not isinstance(data, dict):
         raise LineTableError("a velocity model must be a table of keys", where=where)
     kind = data.get("kind")
-    if kind not in _KEYS:
+    if not isinstance(kind, str) or kind not in _KEYS:
         raise LineTableError(f"kind must be one of {', '.join(sorted(_KEYS))}, got {kind!r}",
                              where=f"{where}:kind")
     unknown = sorted(set(data) - _KEYS[kind])
