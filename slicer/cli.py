@@ -78,9 +78,11 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
     g.add_argument("--background", choices=("mean", "median", "off"),
                    help="subtract each line's median or mean trace (default median, which a "
                         "strong local reflection does not leak into)")
-    g.add_argument("--migrate", choices=("off", "stolt", "phase-shift"),
+    g.add_argument("--migrate", choices=("auto", "off", "stolt", "phase-shift"),
                    help="2-D migration of each line before the envelope: stolt (f-k, one "
-                        "velocity; Stolt 1978) or phase-shift (layered velocity; Gazdag 1978)")
+                        "velocity; Stolt 1978) or phase-shift (layered velocity; Gazdag 1978); "
+                        "default auto: depth slices are migrated (stolt for one velocity, "
+                        "phase-shift for layers), time slices and lateral models are not")
     g.add_argument("--ties", choices=("off", "report", "apply"),
                    help="ties where lines cross: 'report' measures the time shift and "
                         "amplitude ratio at every crossing and reports the misfit; 'apply' "
@@ -115,8 +117,14 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
                    help="grid cell in m (default: a round number near a quarter of the line "
                         "spacing)")
     g.add_argument("--radius", type=_float, metavar="M",
-                   help="search radius in m: cells farther from any trace stay nodata "
-                        "(default 0.75 x line spacing)")
+                   help="search radius in m: cells farther from any trace stay nodata, "
+                        "unless between two lines at most --max-gap apart (default 0.75 x "
+                        "line spacing)")
+    g.add_argument("--max-gap", type=_float, metavar="M",
+                   help="widest gap in m between parallel lines that is bridged by "
+                        "interpolation; a wider gap (missing lines, two blocks) stays nodata "
+                        "beyond --radius from the lines beside it (default 2.5 x line "
+                        "spacing; 0 bridges nothing)")
     g = p.add_argument_group("engine")
     g.add_argument("--scheduler", metavar="auto|threads|processes|local:N|tcp://HOST:PORT",
                    help="where the work runs: auto (default: threads below 300 000 traces, "
@@ -354,8 +362,8 @@ def main(argv: list[str] | None = None) -> int:
         print(f"slicer: error: {name}{exc.strerror or exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
-        print("slicer: interrupted; finished files are whole, the rest were not written",
-              file=sys.stderr)
+        print("slicer: interrupted; the output folder holds a whole build (the earlier one, or "
+              "this one if it was already switched in)", file=sys.stderr)
         return 130
     finally:
         warnings.showwarning = _default_showwarning

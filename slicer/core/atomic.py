@@ -1,27 +1,84 @@
-"""Atomic file writing and output-folder safety.
+"""Atomic file writing, the user's file permissions, and output-folder safety.
 
 Every file slicer writes goes first to a temporary file in the same folder and is then renamed
 over its final name (``os.replace`` is atomic on POSIX and Windows within one file system), so a
-build killed mid-way leaves each file either whole or absent, never half written.
+build killed mid-way leaves each file either whole or absent, never half written. A whole build
+folder is committed as one unit by :mod:`slicer.core.commit`, with the folder primitives here
+(:func:`exchange`, :func:`lock_folder`, :func:`held_interrupt`).
+
+Files and folders get the permissions any program of the user would give them: ``0o666`` and
+``0o777`` less the process's umask. ``tempfile.mkstemp`` and ``mkdtemp`` make ``0o600`` and
+``0o700`` (private while they are temporary), so :func:`temp_file` and :func:`temp_folder` set
+the normal mode at once, before anything is written into them.
 """
 
 from __future__ import annotations
 
 import contextlib
+import ctypes
+import errno
+import io
 import os
+import shutil
+import signal
+import sys
 import tempfile
-from collections.abc import Iterator
+import threading
+from collections.abc import Iterable, Iterator
 from pathlib import Path
 
 from slicer.core.errors import OutputError
+
+try:
+    import fcntl
+except ImportError:  # Windows: no advisory locks; a live build folder is then not recognised
+    fcntl = None
+
+
+def current_umask() -> int:
+    """The process's umask, read without changing it where the system allows (Linux)."""
+    with contextlib.suppress(OSError, ValueError, IndexError):
+        with open("/proc/self/status", encoding="ascii") as f:
+            for line in f:
+                if line.startswith("Umask:"):
+                    return int(line.split()[1], 8)
+    mask = os.umask(0o022)  # elsewhere the only way to read it is to set it, and set it back
+    os.umask(mask)
+    return mask
+
+
+def file_mode() -> int:
+    """Mode of a new file: ``0o666`` less the umask."""
+    return 0o666 & ~current_umask()
+
+
+def folder_mode() -> int:
+    """Mode of a new folder: ``0o777`` less the umask."""
+    return 0o777 & ~current_umask()
+
+
+def temp_file(folder: str | os.PathLike, *, prefix: str, suffix: str = "") -> Path:
+    """Create an empty temporary file in ``folder`` with the user's normal file mode."""
+    fd, tmp = tempfile.mkstemp(prefix=prefix, suffix=suffix, dir=folder)
+    os.close(fd)
+    os.chmod(tmp, file_mode())
+    return Path(tmp)
+
+
+def temp_folder(parent: str | os.PathLike, *, prefix: str, suffix: str = "") -> Path:
+    """Create an empty temporary folder in ``parent`` with the user's normal folder mode."""
+    tmp = tempfile.mkdtemp(prefix=prefix, suffix=suffix, dir=parent)
+    os.chmod(tmp, folder_mode())
+    return Path(tmp)
 
 
 @contextlib.contextmanager
 def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; rename it to ``path`` if the block succeeds.
 
-    The temporary file keeps the final suffix (GDAL and matplotlib choose a format from it).
-    On any exception the temporary file is removed and ``path`` is left as it was.
+    The temporary file keeps the final suffix (GDAL and matplotlib choose a format from it)
+    and already has the user's normal file mode. On any exception the temporary file is
+    removed and ``path`` is left as it was.
 
     Parameters
     ----------
@@ -29,10 +86,7 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
         The final file name.
     """
     path = Path(path)
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=f".tmp{path.suffix}",
-                               dir=path.parent)
-    os.close(fd)
-    tmp_path = Path(tmp)
+    tmp_path = temp_file(path.parent, prefix=f".{path.stem}.", suffix=f".tmp{path.suffix}")
     try:
         yield tmp_path
         os.replace(tmp_path, path)
@@ -47,6 +101,173 @@ def atomic_write_text(path: str | os.PathLike, text: str) -> Path:
     with atomic_path(path) as tmp:
         tmp.write_text(text, encoding="utf-8")
     return Path(path)
+
+
+def check_room(folder: str | os.PathLike, need: int, *, where: str | os.PathLike) -> None:
+    """Refuse to write ``need`` more bytes into ``folder`` if its disk has less room left.
+
+    Checked before each part of a build's outputs (a tile, a slice), with ``need`` the part's
+    uncompressed size: a disk that fills meanwhile (another program, or another build) then
+    ends the build with one line, before GDAL or zarr meet the full disk, which they report
+    with many lines of their own.
+
+    Raises
+    ------
+    OutputError
+        Less than ``need`` bytes free; ``where`` (the output file or folder) is named.
+    """
+    from dask.utils import format_bytes
+
+    free = shutil.disk_usage(folder).free
+    if free < need:
+        raise OutputError(f"the disk is full: {format_bytes(free)} free, and the next part of the "
+                          f"outputs may take {format_bytes(need)}", where=str(where))
+
+
+class GuardedFile(io.RawIOBase):
+    """A binary file whose first write error is kept, not raised; later writes are dropped.
+
+    For files written by a C library that cannot recover from a failed write: HDF5 (h5py,
+    h5netcdf) left a half-closed file behind when the disk filled, and closing it again at
+    exit crashed the interpreter (segmentation fault). Through this file the library never
+    sees an error: it finishes and closes a file that is not whole, and the caller checks
+    :attr:`error` afterwards, raises it and removes the file.
+
+    Parameters
+    ----------
+    path : path-like
+        The file, opened ``w+b`` (truncated) or ``r+b``.
+    mode : {"w+b", "r+b"}
+    """
+
+    def __init__(self, path: str | os.PathLike, mode: str = "w+b"):
+        super().__init__()
+        if mode not in ("w+b", "r+b"):
+            raise ValueError(f"mode must be 'w+b' or 'r+b', not {mode!r}")
+        self.path = Path(path)
+        self._file = open(self.path, mode, buffering=0)  # closed by close()
+        #: The first OSError of a write, truncate or flush, or None.
+        self.error: OSError | None = None
+
+    def readable(self) -> bool:
+        return True
+
+    def writable(self) -> bool:
+        return True
+
+    def seekable(self) -> bool:
+        return True
+
+    def readinto(self, buffer) -> int:
+        return self._file.readinto(buffer)
+
+    def write(self, data) -> int:
+        size = memoryview(data).nbytes
+        if self.error is None:
+            try:
+                written = self._file.write(data)
+            except OSError as exc:
+                self.error = exc
+            else:
+                # a short write is a full disk too; say so with the usual words
+                if written is not None and written < size:
+                    self.error = OSError(28, os.strerror(28), str(self.path))
+        return size
+
+    def seek(self, offset: int, whence: int = io.SEEK_SET) -> int:
+        return self._file.seek(offset, whence)
+
+    def tell(self) -> int:
+        return self._file.tell()
+
+    def truncate(self, size: int | None = None) -> int:
+        try:
+            return self._file.truncate(size)
+        except OSError as exc:
+            self.error = self.error or exc
+            return self.tell() if size is None else size
+
+    def flush(self) -> None:
+        pass  # unbuffered: every write went straight to the system
+
+    def close(self) -> None:
+        if not self.closed:
+            self._file.close()
+        super().close()
+
+    def check(self) -> None:
+        """Raise the kept error (an OSError naming the file), if there is one."""
+        if self.error is not None:
+            error = self.error
+            if error.filename is None:
+                error = OSError(error.errno, error.strerror or str(error), str(self.path))
+            raise error
+
+
+class FolderBusy(OutputError):
+    """A folder is locked by a running build (:func:`lock_folder`)."""
+
+
+def lock_folder(path: Path, *, wait: bool = False) -> int | None:
+    """Hold an advisory lock on folder ``path``: its descriptor, or None if there are none.
+
+    Raises :class:`FolderBusy` if another process holds it (and ``wait`` is false).
+    """
+    if fcntl is None:
+        return None
+    fd = os.open(path, os.O_RDONLY)
+    try:
+        fcntl.flock(fd, fcntl.LOCK_EX | (0 if wait else fcntl.LOCK_NB))
+    except OSError as exc:
+        os.close(fd)
+        if exc.errno in (errno.EWOULDBLOCK, errno.EAGAIN):
+            raise FolderBusy("is held by a running build", where=str(path)) from None
+        return None  # a file system without flock: go on unlocked
+    return fd
+
+
+def unlock(fds: Iterable[int | None]) -> None:
+    """Release the locks of :func:`lock_folder` (None stands for no lock)."""
+    for fd in fds:
+        if fd is not None:
+            os.close(fd)  # closing the descriptor releases the lock
+
+
+def exchange(a: Path, b: Path) -> bool:
+    """Swap folders ``a`` and ``b`` in one step; False where the system cannot.
+
+    Linux's ``renameat2(RENAME_EXCHANGE)`` (glibc 2.28+), which Python does not wrap; other
+    systems, and file systems without the flag, fall back to two renames.
+    """
+    if not sys.platform.startswith("linux"):
+        return False
+    try:
+        renameat2 = ctypes.CDLL(None, use_errno=True).renameat2
+    except (OSError, AttributeError):
+        return False
+    at_fdcwd, rename_exchange = -100, 2
+    if renameat2(at_fdcwd, os.fsencode(a), at_fdcwd, os.fsencode(b), rename_exchange) == 0:
+        return True
+    code = ctypes.get_errno()
+    if code in (errno.EINVAL, errno.ENOSYS, errno.EOPNOTSUPP, errno.ENOTSUP):
+        return False
+    raise OSError(code, os.strerror(code), str(b))
+
+
+@contextlib.contextmanager
+def held_interrupt() -> Iterator[None]:
+    """Hold back a Ctrl-C (SIGINT) until the block is done, then raise it."""
+    if threading.current_thread() is not threading.main_thread():
+        yield
+        return
+    caught = []
+    previous = signal.signal(signal.SIGINT, lambda signum, frame: caught.append(signum))
+    try:
+        yield
+    finally:
+        signal.signal(signal.SIGINT, previous)
+    if caught:
+        raise KeyboardInterrupt
 
 
 def prepare_output_dir(path: str | os.PathLike, *, overwrite: bool = False,

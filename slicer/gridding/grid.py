@@ -5,11 +5,20 @@ matrix ``W`` (cells x traces, rows summing to 1) and every slice is ``W @ values
 
 Sampling is dense along lines and sparse across them. Each trace's weight for a cell is the
 product of two tents measured in that trace's own line frame: ``1 - |along| / h`` along its line
-(``h`` about one cell) and ``1 - |across| / s`` across it (``s`` the spacing to the neighbouring
-line). Between two parallel lines this is linear interpolation across the lines of values
-averaged over about a cell along them, so neither line is copied into the gap (no stripes); lines
-of another direction (an orthogonal set) weigh in through their own frame. A cell whose nearest
-trace is farther than the search radius, or that no tent reaches, stays NaN.
+(``h`` about one cell) and ``1 - |across| / s`` across it, where ``s`` is taken on the cell's
+side of the line: the distance to the next parallel line on that side
+(:func:`slicer.gridding.neighbours.side_distances`). Between two parallel lines this is linear
+interpolation across the lines of values averaged over about a cell along them, so neither line
+is copied into the gap (no stripes), and no line weighs in beyond its neighbour on either side;
+lines of another direction (an orthogonal set) weigh in through their own frame.
+
+Gaps. Two lines at most ``max_gap`` apart (default :data:`MAX_GAP_SPACINGS` x the survey's line
+spacing) are *bridged*: every cell between them is interpolated. On a side with no parallel line
+within ``max_gap`` (a wider gap, or the survey's edge) the tent reaches the search radius
+``radius`` only, and a cell stays NaN unless a trace lies within ``radius`` of it. A cell that
+no tent reaches stays NaN too. So a wide gap is never filled by smearing the lines beside it,
+and the box of cells each trace visits spans at most ``along + max(max_gap, radius)`` either
+way, whatever the survey's layout (two blocks far apart included).
 """
 
 from __future__ import annotations
@@ -22,6 +31,13 @@ import scipy.sparse
 import scipy.spatial
 
 from slicer.core.errors import SettingsError, warn
+from slicer.gridding.neighbours import (
+    line_directions,
+    side_distances,
+    survey_spacing,
+    trace_spacing,
+)
+from slicer.gridding.neighbours import line_spacings as line_spacings  # re-exported
 
 
 @dataclass(frozen=True)
@@ -71,65 +87,61 @@ def check_cell(cell: float, *, where: str = "--cell") -> float:
     return c
 
 
-def grid_for(x: np.ndarray, y: np.ndarray, *, cell: float, max_cells: int = 200_000_000) -> Grid:
-    """The smallest grid of whole cells (corner on a multiple of ``cell``) covering the points."""
+#: Cells :func:`grid_for` lays out at most, whatever else allows: a last guard (a build checks
+#: the grid against its memory limit before any work, see :mod:`slicer.pipeline.bounds`).
+MAX_GRID_CELLS = 200_000_000
+
+
+def grid_for(x: np.ndarray, y: np.ndarray, *, cell: float, max_cells: int = MAX_GRID_CELLS,
+             where: str = "--cell") -> Grid:
+    """The smallest grid of whole cells (corner on a multiple of ``cell``) covering the points.
+
+    Raises
+    ------
+    SettingsError
+        A bad cell, no points or non-finite ones, or more than ``max_cells`` cells (counted
+        in floating point first, so no coordinate can make a huge integer or array; the
+        message names ``where``).
+    """
     cell = check_cell(cell)
+    x = np.asarray(x, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    if x.size == 0 or y.size == 0:
+        raise SettingsError("no trace positions to lay a grid over", where=where)
+    if not (np.isfinite(x).all() and np.isfinite(y).all()):
+        raise SettingsError("trace positions include NaN or infinite values", where=where)
+    west, east = float(np.min(x)), float(np.max(x))
+    south, north = float(np.min(y)), float(np.max(y))
+    with np.errstate(over="ignore"):
+        wide, high = (east - west) / cell + 2, (north - south) / cell + 2
+    if not (math.isfinite(wide * high) and wide * high <= 4 * max_cells + 16):
+        raise SettingsError(_too_many(cell, wide - 2, high - 2, east - west, north - south,
+                                      max_cells), where=where)
     # a small tolerance keeps a point lying exactly on a cell edge from adding a row of cells
-    i0 = math.floor(float(np.min(x)) / cell + 1e-9)
-    i1 = math.ceil(float(np.max(x)) / cell - 1e-9)
-    j0 = math.floor(float(np.min(y)) / cell + 1e-9)
-    j1 = math.ceil(float(np.max(y)) / cell - 1e-9)
+    i0 = math.floor(west / cell + 1e-9)
+    i1 = math.ceil(east / cell - 1e-9)
+    j0 = math.floor(south / cell + 1e-9)
+    j1 = math.ceil(north / cell - 1e-9)
     nx, ny = max(i1 - i0, 1), max(j1 - j0, 1)
     if nx * ny > max_cells:
-        raise SettingsError(
-            f"a {cell:g} m cell gives {nx} x {ny} cells over the survey; choose a larger cell",
-            where="--cell")
+        raise SettingsError(_too_many(cell, nx, ny, east - west, north - south, max_cells),
+                            where=where)
     return Grid(west=round(i0 * cell, 9), north=round(j1 * cell, 9), cell=cell, nx=nx, ny=ny)
 
 
-def line_spacings(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> np.ndarray:
-    """Spacing (m) from each line to its parallel neighbours, one value per line id.
-
-    For each line, the perpendicular offsets of the other lines' midpoints that run within
-    15 degrees of it and overlap it along its length are found on both sides; the line's
-    spacing is the larger of the nearest offsets on each side (the gap it must bridge).
-    Lines with no parallel neighbour get the median of the others.
-    """
-    ids = np.unique(line)
-    mid, direction, half = [], [], []
-    for i in ids:
-        sel = line == i
-        px, py = x[sel], y[sel]
-        d = np.array([px[-1] - px[0], py[-1] - py[0]])
-        length = float(np.hypot(*d))
-        direction.append(d / length if length > 0 else np.array([1.0, 0.0]))
-        mid.append(np.array([px.mean(), py.mean()]))
-        half.append(length / 2)
-    mid, direction, half = np.array(mid), np.array(direction), np.array(half)
-    spacing = np.full(len(ids), np.nan)
-    for k in range(len(ids)):
-        u = direction[k]
-        parallel = np.abs(direction @ u) > math.cos(math.radians(15))
-        rel = mid - mid[k]
-        along = rel @ u
-        across = rel @ np.array([-u[1], u[0]])
-        ok = parallel & (np.abs(along) < half + half[k]) & (np.abs(across) > 1e-9)
-        sides = [np.abs(across[ok & (across > 0)]), np.abs(across[ok & (across < 0)])]
-        nearest = [s.min() for s in sides if s.size]
-        if nearest:
-            spacing[k] = max(nearest)
-    if np.isnan(spacing).all():
-        return spacing
-    spacing[np.isnan(spacing)] = np.nanmedian(spacing)
-    return spacing
+def _too_many(cell: float, nx: float, ny: float, width: float, height: float,
+              max_cells: int) -> str:
+    return (f"a {cell:g} m cell gives {count_text(nx)} x {count_text(ny)} cells over the "
+            f"traces' extent of {width:.4g} x {height:.4g} m, more than {count_text(max_cells)}; "
+            "choose a larger cell, or check the trace coordinates")
 
 
-def trace_spacing(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> float:
-    """Median distance (m) between consecutive traces of the same line."""
-    same = line[1:] == line[:-1]
-    steps = np.hypot(np.diff(x), np.diff(y))[same]
-    steps = steps[steps > 0]
-    return float(np.median(steps)) if steps.size else math.nan
+def count_text(n: float) -> str:
+    """A count for a message: whole digits up to 1e12, else three significant digits."""
+    n = float(n)
+    if not math.isfinite(n):
+        return "countless"
+    return f"{math.ceil(n - 1e-9):d}" if n < 1e12 else f"{n:.3g}"
 
 
 @dataclass(frozen=True)
@@ -141,10 +153,12 @@ class Weights:
     matrix : scipy.sparse.csr_array
         Cells (row-major over ``(y, x)``) x traces, rows summing to 1 (or empty).
     empty : numpy.ndarray
-        Boolean per cell: no trace within the radius, or no weight; these cells are NaN.
+        Boolean per cell: no weight, or neither bridged nor within the radius; these are NaN.
     radius, across, along : float
-        Search radius, across-line tent half-width (the line spacing, median over lines) and
-        along-line tent half-width (m).
+        Search radius, the survey's line spacing (the median distance between neighbouring
+        lines) and along-line tent half-width (m).
+    max_gap : float
+        Widest gap between parallel lines that is bridged (m).
     """
 
     matrix: scipy.sparse.csr_array
@@ -152,6 +166,7 @@ class Weights:
     radius: float
     across: float
     along: float
+    max_gap: float = math.nan
 
     def apply(self, values: np.ndarray) -> np.ndarray:
         """Grid a ``(traces, slices)`` array into ``(slices, cells)``, NaN where empty.
@@ -183,38 +198,57 @@ class TraceFrame:
         Trace positions (m).
     ux, uy : numpy.ndarray
         Unit vector along each trace's line.
-    spacing : numpy.ndarray
-        Across-line tent half-width of each trace: its line's spacing to its neighbours (m).
+    left, right : numpy.ndarray
+        Across-line tent half-width of each trace on the left (a quarter turn anticlockwise
+        from its line's direction) and on the right (m): the distance to the next parallel line
+        on that side when it is at most ``max_gap``, else ``radius``.
+    bridged_left, bridged_right : numpy.ndarray
+        Boolean per trace: that side faces a parallel line at most ``max_gap`` away.
     along : float
         Along-line tent half-width (m).
     radius : float
-        Search radius (m): cells with no trace this close stay NaN.
+        Search radius (m): cells that are not bridged and have no trace this close stay NaN.
     line_spacing : float
         Median line spacing (m).
+    max_gap : float
+        Widest gap between parallel lines that is bridged (m).
     """
 
     x: np.ndarray
     y: np.ndarray
     ux: np.ndarray
     uy: np.ndarray
-    spacing: np.ndarray
+    left: np.ndarray
+    right: np.ndarray
+    bridged_left: np.ndarray
+    bridged_right: np.ndarray
     along: float
     radius: float
     line_spacing: float
+    max_gap: float
 
     @property
     def reach(self) -> float:
         """Farthest a trace can be from a cell it weighs in (m)."""
-        return max(self.radius, math.hypot(self.along, float(self.spacing.max())))
+        widest = max(float(self.left.max()), float(self.right.max())) if self.x.size else 0.0
+        return max(self.radius, math.hypot(self.along, widest))
 
     def subset(self, index: np.ndarray) -> TraceFrame:
         """The frame of some traces only (same lengths)."""
         return TraceFrame(self.x[index], self.y[index], self.ux[index], self.uy[index],
-                          self.spacing[index], self.along, self.radius, self.line_spacing)
+                          self.left[index], self.right[index], self.bridged_left[index],
+                          self.bridged_right[index], self.along, self.radius,
+                          self.line_spacing, self.max_gap)
+
+
+#: Default widest bridged gap, in line spacings (the median distance between neighbouring
+#: lines): a single missing line (a gap of two spacings) is bridged, two or more are not.
+MAX_GAP_SPACINGS = 2.5
 
 
 def trace_frame(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, cell: float,
-                radius: float | None = None, along: float | None = None) -> TraceFrame:
+                radius: float | None = None, along: float | None = None,
+                max_gap: float | None = None) -> TraceFrame:
     """Line frames and gridding lengths of traces at ``(x, y)`` on lines ``line``.
 
     Parameters
@@ -226,11 +260,17 @@ def trace_frame(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, cell: float,
     cell : float
         Grid cell (m).
     radius : float, optional
-        Cells with no trace closer than this (m) stay NaN. Default 0.75 x the median line
-        spacing, but at least one cell diagonal.
+        Cells that are not between two bridged lines and have no trace closer than this (m)
+        stay NaN. Default 0.75 x the line spacing (the median distance between neighbouring
+        lines, :func:`~slicer.gridding.neighbours.survey_spacing`), but at least one cell
+        diagonal.
     along : float, optional
         Half-width (m) of the along-line tent. Default the larger of the cell and the trace
         spacing.
+    max_gap : float, optional
+        Widest gap (m) between parallel lines that is bridged by interpolation; a wider gap
+        stays NaN beyond ``radius`` from its lines. Default :data:`MAX_GAP_SPACINGS` x the
+        line spacing.
     """
     x = np.asarray(x, dtype=np.float64)
     y = np.asarray(y, dtype=np.float64)
@@ -238,13 +278,10 @@ def trace_frame(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, cell: float,
     if x.size == 0:
         raise SettingsError("no traces to grid")
     dx_step = trace_spacing(x, y, line)
-    spacing_per_line = line_spacings(x, y, line)
-    ids, index = np.unique(line, return_inverse=True)
-    if np.isnan(spacing_per_line).all():
-        fallback = 20 * (dx_step if math.isfinite(dx_step) else cell)
-        warn(f"no parallel neighbour lines found; assuming a line spacing of {fallback:.3g} m")
-        spacing_per_line = np.full(len(ids), fallback)
-    s_median = float(np.median(spacing_per_line))
+    s_median = survey_spacing(x, y, line)
+    if not math.isfinite(s_median):
+        s_median = 20 * (dx_step if math.isfinite(dx_step) else cell)
+        warn(f"no parallel neighbour lines found; assuming a line spacing of {s_median:.3g} m")
     if along is None:
         along = max(cell, dx_step if math.isfinite(dx_step) else cell)
     if radius is None:
@@ -252,18 +289,28 @@ def trace_frame(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, cell: float,
     elif not math.isfinite(radius) or radius <= 0:
         raise SettingsError(f"search radius must be positive, got {radius:g} m",
                             where="--radius")
-    ux, uy = _line_directions(x, y, line)
-    return TraceFrame(x, y, ux, uy, spacing_per_line[index], float(along), float(radius),
-                      s_median)
+    if max_gap is None:
+        max_gap = MAX_GAP_SPACINGS * s_median
+    elif not math.isfinite(max_gap) or max_gap < 0:
+        raise SettingsError(f"the widest bridged gap must be zero or more, got {max_gap:g} m",
+                            where="--max-gap")
+    left, right = side_distances(x, y, line, limit=max_gap, overhang=along)
+    bridged_left, bridged_right = np.isfinite(left), np.isfinite(right)
+    left[~bridged_left] = radius
+    right[~bridged_right] = radius
+    ux, uy = line_directions(x, y, line)
+    return TraceFrame(x, y, ux, uy, left, right, bridged_left, bridged_right, float(along),
+                      float(radius), s_median, float(max_gap))
 
 
 def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
                  ) -> tuple[scipy.sparse.csr_array, np.ndarray]:
     """Row-normalised weights (cells x traces of ``frame``) and the empty-cell mask.
 
-    Each trace is spread onto the cells its tents reach (a small box of cells around it,
-    visited one offset at a time for all traces at once), which is much faster than asking a
-    tree for every cell's neighbours.
+    Each trace is spread onto the cells its tents reach (a box of cells around it, visited one
+    offset at a time for all traces with the same box at once), which is much faster than
+    asking a tree for every cell's neighbours. The box is as wide as the tents' rectangle
+    seen from the grid's axes, so a line along an axis visits a thin box.
 
     Parameters
     ----------
@@ -275,44 +322,61 @@ def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
     """
     ny, nx = yc.size, xc.size
     cell = float(xc[1] - xc[0]) if nx > 1 else float(yc[0] - yc[1]) if ny > 1 else 1.0
-    x, y, ux, uy, s = frame.x, frame.y, frame.ux, frame.uy, frame.spacing
-    reach = math.hypot(frame.along, float(s.max())) if x.size else 0.0
-    k = int(math.ceil(reach / cell))
+    x, y, ux, uy = frame.x, frame.y, frame.ux, frame.uy
     col0 = np.rint((x - xc[0]) / cell).astype(np.int64)
     row0 = np.rint((yc[0] - y) / cell).astype(np.int64)
-    rows, cols, vals = [], [], []
-    trace_index = np.arange(x.size)
-    for dj in range(-k, k + 1):
-        row = row0 + dj
-        ok_row = (row >= 0) & (row < ny)
-        for di in range(-k, k + 1):
-            col = col0 + di
-            ok = ok_row & (col >= 0) & (col < nx)
-            if not ok.any():
+    # half-extents (in cells) of each trace's tent rectangle along the grid's axes
+    wide = np.maximum(frame.left, frame.right)
+    kx = np.ceil((np.abs(ux) * frame.along + np.abs(uy) * wide) / cell - 1e-9).astype(np.int64)
+    ky = np.ceil((np.abs(uy) * frame.along + np.abs(ux) * wide) / cell - 1e-9).astype(np.int64)
+    # traces whose box lies wholly outside the block visit nothing
+    inside = (col0 + kx >= 0) & (col0 - kx < nx) & (row0 + ky >= 0) & (row0 - ky < ny)
+    rows, cols, vals, bridged = [], [], [], []
+    boxes = np.unique(np.column_stack([kx[inside], ky[inside]]), axis=0)
+    for bx, by in boxes:
+        t = np.flatnonzero(inside & (kx == bx) & (ky == by))
+        tx, ty, tux, tuy = x[t], y[t], ux[t], uy[t]
+        t_left, t_right = frame.left[t], frame.right[t]
+        t_bl, t_br = frame.bridged_left[t], frame.bridged_right[t]
+        t_col, t_row = col0[t], row0[t]
+        for dj in range(-by, by + 1):
+            row = t_row + dj
+            ok_row = (row >= 0) & (row < ny)
+            if not ok_row.any():
                 continue
-            t = trace_index[ok]
-            dxp = xc[col[ok]] - x[t]
-            dyp = yc[row[ok]] - y[t]
-            a = np.abs(dxp * ux[t] + dyp * uy[t])
-            b = np.abs(dyp * ux[t] - dxp * uy[t])
-            w = np.clip(1 - a / frame.along, 0, None) * np.clip(1 - b / s[t], 0, None)
-            keep = w > 0
-            rows.append(row[ok][keep] * nx + col[ok][keep])
-            cols.append(t[keep])
-            vals.append(w[keep])
+            dyp = yc[np.clip(row, 0, ny - 1)] - ty
+            for di in range(-bx, bx + 1):
+                col = t_col + di
+                ok = ok_row & (col >= 0) & (col < nx)
+                if not ok.any():
+                    continue
+                # every trace of the group at once; those off the block are dropped below
+                dxp = xc[np.clip(col, 0, nx - 1)] - tx
+                a = np.abs(dxp * tux + dyp * tuy)
+                b = dyp * tux - dxp * tuy  # left positive
+                on_left = b >= 0
+                w = np.clip(1 - a / frame.along, 0, None) * \
+                    np.clip(1 - np.abs(b) / np.where(on_left, t_left, t_right), 0, None)
+                keep = ok & (w > 0)
+                rows.append(row[keep] * nx + col[keep])
+                cols.append(t[keep])
+                vals.append(w[keep])
+                bridged.append(np.where(on_left, t_bl, t_br)[keep])
     if rows:
         rows, cols, vals = np.concatenate(rows), np.concatenate(cols), np.concatenate(vals)
+        bridged = np.concatenate(bridged)
     else:
         rows = cols = np.zeros(0, dtype=np.int64)
-        vals = np.zeros(0)
+        vals, bridged = np.zeros(0), np.zeros(0, dtype=bool)
     matrix = scipy.sparse.csr_array((vals, (rows, cols)), shape=(ny * nx, x.size))
     total = np.asarray(matrix.sum(axis=1)).ravel()
+    between = np.bincount(rows[bridged], minlength=ny * nx) > 0  # between two bridged lines
     if x.size:
         gx, gy = np.meshgrid(xc, yc)
         tree = scipy.spatial.cKDTree(np.column_stack([x, y]))
         nearest, _ = tree.query(np.column_stack([gx.ravel(), gy.ravel()]), k=1,
                                 distance_upper_bound=frame.radius)
-        empty = ~np.isfinite(nearest) | (total <= 0)
+        empty = (~np.isfinite(nearest) & ~between) | (total <= 0)
     else:
         empty = np.ones(ny * nx, dtype=bool)
     scale = np.where(total > 0, 1.0 / np.where(total > 0, total, 1.0), 0.0)
@@ -320,15 +384,17 @@ def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
 
 
 def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray, *,
-                      radius: float | None = None, along: float | None = None) -> Weights:
+                      radius: float | None = None, along: float | None = None,
+                      max_gap: float | None = None) -> Weights:
     """Sparse weights from traces at ``(x, y)`` on lines ``line`` to every cell of ``grid``.
 
     See :func:`trace_frame` for the parameters; :func:`grid_tile` does the same for one tile.
     """
-    frame = trace_frame(x, y, line, cell=grid.cell, radius=radius, along=along)
+    frame = trace_frame(x, y, line, cell=grid.cell, radius=radius, along=along,
+                        max_gap=max_gap)
     matrix, empty = grid_weights(frame, grid.x, grid.y)
     return Weights(matrix=matrix, empty=empty, radius=frame.radius, across=frame.line_spacing,
-                   along=frame.along)
+                   along=frame.along, max_gap=frame.max_gap)
 
 
 @dataclass(frozen=True)
@@ -350,7 +416,8 @@ def grid_tile(job: TileJob) -> tuple[int, int, np.ndarray]:
     if job.frame.x.size == 0:
         return job.row0, job.col0, np.full(shape, np.nan, dtype=np.float32)
     matrix, empty = grid_weights(job.frame, job.x, job.y)
-    weights = Weights(matrix, empty, job.frame.radius, job.frame.line_spacing, job.frame.along)
+    f = job.frame
+    weights = Weights(matrix, empty, f.radius, f.line_spacing, f.along, f.max_gap)
     return job.row0, job.col0, weights.apply(job.values).reshape(shape)
 
 
@@ -380,16 +447,3 @@ def tile_jobs(grid: Grid, frame: TraceFrame, values: np.ndarray, *, tile: int = 
 def tile_count(grid: Grid, tile: int) -> int:
     """Number of tiles :func:`tile_jobs` yields."""
     return math.ceil(grid.ny / tile) * math.ceil(grid.nx / tile)
-
-
-def _line_directions(x: np.ndarray, y: np.ndarray, line: np.ndarray):
-    """Unit vector (ux, uy) of each trace's line, from the line's first to its last trace."""
-    ux = np.ones_like(x)
-    uy = np.zeros_like(y)
-    for i in np.unique(line):
-        sel = np.flatnonzero(line == i)
-        d = np.array([x[sel[-1]] - x[sel[0]], y[sel[-1]] - y[sel[0]]])
-        n = float(np.hypot(*d))
-        if n > 0:
-            ux[sel], uy[sel] = d[0] / n, d[1] / n
-    return ux, uy

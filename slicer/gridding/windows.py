@@ -74,6 +74,22 @@ def _model_times(model, depth: np.ndarray) -> np.ndarray:
     return time_of_depth(model, depth)
 
 
+#: Most slice windows a build cuts. Each slice is one GeoTIFF and one plane of the cube, and
+#: every trace keeps one value per slice, so the count multiplies the whole output. Surveys
+#: are cut into tens to a few hundred slices; 4096 still allows one slice per sample of a
+#: 4096-sample record (thinner slices only repeat their neighbours), so a real build never
+#: meets this limit, while ``0:1:1e-9`` (a billion slices) is refused before it is allocated.
+MAX_WINDOWS = 4096
+
+
+def _round_up(value: float) -> float:
+    """``value`` rounded up to three significant digits (a step the message can suggest)."""
+    if not math.isfinite(value) or value <= 0:
+        return value
+    scale = 10.0 ** (math.floor(math.log10(value)) - 2)
+    return math.ceil(value / scale * (1 - 1e-12)) * scale
+
+
 def parse_range(text: str, *, option: str) -> tuple[float, float, float]:
     """Parse ``"TOP:BOTTOM:STEP"`` into three finite floats, naming ``option`` on error."""
     parts = str(text).split(":")
@@ -112,10 +128,27 @@ def make_windows(top: float, bottom: float, step: float, *, thickness: float | N
         raise SettingsError(f"thickness must be positive, got {thick:g} {unit}",
                             where="--thickness")
     span = bottom - top
+    if not math.isfinite(span):
+        raise SettingsError(f"range {top:g} to {bottom:g} {unit} is too wide to count slices in",
+                            where=option)
     if thick > span * (1 + 1e-9):
         raise SettingsError(f"thickness {thick:g} {unit} exceeds the range {top:g}-{bottom:g}",
                             where="--thickness")
-    n = int(math.floor((span - thick) / step + 1e-9)) + 1
+    thick = min(thick, span)  # over the range only by rounding: the window is the range
+    # counted in floating point first: a tiny step over a wide range must be refused before
+    # any array of that length is made (1e300 / 0.1 is still a float, never an int to allocate)
+    steps = (span - thick) / step + 1e-9
+    if not math.isfinite(steps) or math.floor(steps) + 1 > MAX_WINDOWS:
+        count = (f"{math.floor(steps) + 1}" if steps < 1e12 else
+                 f"{steps + 1:.3g}" if math.isfinite(steps) else "countless")
+        # the step that gives MAX_WINDOWS slices (with the thickness following the step if
+        # it was not given)
+        least = span / MAX_WINDOWS if thickness is None else (span - thick) / (MAX_WINDOWS - 1)
+        raise SettingsError(
+            f"{top:g} to {bottom:g} {unit} every {step:g} {unit} gives {count} slices, "
+            f"more than the {MAX_WINDOWS} a build cuts; choose a step of at least "
+            f"{_round_up(least):.3g} {unit}", where=option)
+    n = max(int(math.floor(steps)), 0) + 1  # a thickness within the tolerance of the range
     tops = top + step * np.arange(n)
     return Windows(axis, tops, tops + thick)
 

@@ -22,7 +22,7 @@ import pyproj
 import xarray as xr
 from affine import Affine
 
-from slicer.core.atomic import atomic_path
+from slicer.core.atomic import GuardedFile, atomic_path
 from slicer.core.conventions import C_M_PER_NS, DEPTH, TWT, UNITS, X, Y
 from slicer.core.errors import InputFileError, OutputError, SettingsError
 
@@ -104,10 +104,8 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
         If the cell, windows, velocity, CRS or shapes are invalid.
     """
     axis = _check_axis(axis)
-    if dask.is_dask_collection(data):
-        values = data.astype(np.float32)
-    else:
-        values = np.asarray(data, dtype=np.float32)
+    lazy = dask.is_dask_collection(data)
+    values = data.astype(np.float32) if lazy else np.asarray(data, dtype=np.float32)
     if values.ndim != 3:
         raise SettingsError(f"cube data must be 3-D (n_slices, ny, nx), got shape {values.shape}",
                             where="data")
@@ -169,10 +167,9 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
         "cell_size": cell,
         "west": west,
         "north": north,
+        **({"velocity": velocity} if velocity is not None else {}),
+        "processing": _as_text(processing),
     }
-    if velocity is not None:
-        attrs["velocity"] = velocity
-    attrs["processing"] = _as_text(processing)
     if pcrs is not None:
         transform = Affine(cell, 0.0, west, 0.0, -cell, north)
         coords[GRID_MAPPING] = ((), 0, _grid_mapping_attrs(pcrs, transform))
@@ -393,7 +390,10 @@ def _write_netcdf(cube: xr.DataArray, target: Path, *, title: str | None,
     for var in (X, Y, axis, f"{axis}_top", f"{axis}_bottom", bnds):
         # Coordinates and bounds never hold missing values (CF 1.8 section 5).
         encodings[var] = {"_FillValue": None, "dtype": "float64"}
-    ds.to_netcdf(target, engine="h5netcdf", format="NETCDF4", encoding=encodings)
+    # HDF5 must never see a failed write (full disk): closing its file again crashed at exit
+    with GuardedFile(target) as f:
+        ds.to_netcdf(f, engine="h5netcdf", format="NETCDF4", encoding=encodings)
+        f.check()
 
 
 def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
@@ -435,7 +435,7 @@ def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
             _write_netcdf(cube, tmp, title=title, source=source, history=history,
                           complevel=complevel)
     except OSError as exc:
-        raise OutputError(f"cannot write NetCDF ({exc})", where=str(path)) from None
+        raise OutputError(f"cannot write NetCDF ({exc.strerror or exc})", where=str(path)) from None
     return path
 
 

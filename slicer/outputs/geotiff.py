@@ -9,9 +9,12 @@ description, because a GeoTIFF has no place for a depth coordinate.
 from __future__ import annotations
 
 import contextlib
+import ctypes
+import errno
 import math
 import os
-import tempfile
+import shutil
+import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -22,6 +25,7 @@ import xarray as xr
 from rasterio.crs import CRS as RasterioCRS
 from rasterio.windows import Window
 
+from slicer.core.atomic import temp_file
 from slicer.core.conventions import DEPTH, TWT, UNITS
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
@@ -99,6 +103,52 @@ def _rasterio_crs(cube: xr.DataArray) -> RasterioCRS | None:
     # An EPSG code gives GDAL a plain ProjectedCRSGeoKey; otherwise hand over the full WKT.
     code = pcrs.to_epsg()
     return RasterioCRS.from_epsg(code) if code else RasterioCRS.from_wkt(pcrs.to_wkt())
+
+
+_QUIET = threading.Lock()
+_quiet: dict = {"depth": 0, "saved": [], "setters": None}
+
+
+def _libtiff_setters() -> list:
+    """``TIFFSetErrorHandler`` of every libtiff loaded in this process (found once; Linux)."""
+    if _quiet["setters"] is None:
+        setters = []
+        with contextlib.suppress(OSError):
+            with open("/proc/self/maps", encoding="utf-8", errors="replace") as f:
+                paths = sorted({line.split(maxsplit=5)[-1].strip() for line in f
+                                if "/libtiff" in line})
+            for path in paths:
+                with contextlib.suppress(OSError, AttributeError):
+                    setter = ctypes.CDLL(path).TIFFSetErrorHandler
+                    setter.restype, setter.argtypes = ctypes.c_void_p, [ctypes.c_void_p]
+                    setters.append(setter)
+        _quiet["setters"] = setters
+    return _quiet["setters"]
+
+
+@contextlib.contextmanager
+def _quiet_libtiff():
+    """Mute libtiff's process-wide error handler while slicer's GeoTIFFs are written.
+
+    GDAL 3.10 reports a failed write or seek of a GeoTIFF (a full disk) twice: as the error
+    rasterio raises, which names the file here, and through libtiff's default handler, which
+    prints a line per failed block straight to stderr, hundreds of them on a full disk. That
+    handler is set aside meanwhile (``TIFFSetErrorHandler``; on Linux, where the libtiff GDAL
+    loaded is found in ``/proc/self/maps``; elsewhere nothing changes). Nested and concurrent
+    uses share one muting.
+    """
+    with _QUIET:
+        if _quiet["depth"] == 0:
+            _quiet["saved"] = [(setter, setter(None)) for setter in _libtiff_setters()]
+        _quiet["depth"] += 1
+    try:
+        yield
+    finally:
+        with _QUIET:
+            _quiet["depth"] -= 1
+            if _quiet["depth"] == 0:
+                for setter, previous in _quiet["saved"]:
+                    setter(previous)
 
 
 class SliceTiffWriter:
@@ -187,10 +237,8 @@ class SliceTiffWriter:
         self._state = "open"
         try:
             for path in self.paths:
-                fd, tmp = tempfile.mkstemp(prefix=f".{path.stem}.", suffix=f".tmp{path.suffix}",
-                                           dir=self.folder)
-                os.close(fd)
-                self._temps.append(Path(tmp))
+                tmp = temp_file(self.folder, prefix=f".{path.stem}.", suffix=f".tmp{path.suffix}")
+                self._temps.append(tmp)
                 if deferred:
                     continue
                 with self._naming(path):
@@ -220,9 +268,14 @@ class SliceTiffWriter:
     def _naming(path: Path):
         # A failing write names the final file, which is what the user knows of.
         try:
-            yield
+            with _quiet_libtiff():
+                yield
         except (OSError, rasterio.errors.RasterioIOError) as exc:
-            raise OutputError(f"cannot write GeoTIFF ({exc})", where=str(path)) from None
+            reason = str(exc)
+            with contextlib.suppress(OSError):  # libtiff's own words were muted: say them
+                if shutil.disk_usage(path if path.is_dir() else path.parent).free == 0:
+                    reason = os.strerror(errno.ENOSPC)
+            raise OutputError(f"cannot write GeoTIFF ({reason})", where=str(path)) from None
 
     def _check_open(self) -> None:
         if self._state != "open":
@@ -297,7 +350,7 @@ class SliceTiffWriter:
         if self._state in ("committed", "aborted"):
             return
         self._state = "aborted"
-        with contextlib.suppress(Exception):
+        with contextlib.suppress(Exception), _quiet_libtiff():
             self._stack.close()
         self._remove(self._temps)
         for folder in self._created:  # innermost first; only folders this writer made

@@ -28,7 +28,7 @@ import dask
 import numpy as np
 import xarray as xr
 
-from slicer.core.atomic import atomic_path
+from slicer.core.atomic import atomic_path, check_room
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
 from slicer.outputs.cube import TILE, _check_tile_size, _write_netcdf, check_tile, slice_axis
@@ -38,6 +38,8 @@ from slicer.outputs.zarr_store import ZARR_FORMAT, create_cube_store, open_cube_
 
 #: Names of the outputs inside ``out_dir``.
 SLICES_DIR, ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME = "slices", "cube.zarr", "cube.nc", "overview.png"
+#: What a sink may write into ``out_dir``: names and patterns, relative POSIX paths.
+OUTPUT_NAMES = (f"{SLICES_DIR}/slice_*.tif", ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME)
 
 #: Resolution of the overview sheet, dots per inch.
 OVERVIEW_DPI = 150
@@ -168,6 +170,7 @@ class CubeSink:
             raise OutputError("the sink is not open (use it in a with block)",
                               where=str(self.out_dir))
         values = check_tile(block, self.shape, row0, col0)
+        check_room(self.out_dir, 2 * values.nbytes, where=self.out_dir)  # GeoTIFFs and Zarr
         if self._writer is None:
             self._writer = concurrent.futures.ThreadPoolExecutor(max_workers=2)
         # The Zarr chunks and half of the GeoTIFFs on two more threads while this one writes
@@ -225,7 +228,7 @@ class CubeSink:
                 if overview is not None:
                     error = error or overview.exception()
             if isinstance(error, OSError):
-                raise OutputError(f"cannot write NetCDF ({error})",
+                raise OutputError(f"cannot write NetCDF ({error.strerror or error})",
                                   where=str(out / NETCDF_NAME)) from None
             if error is not None:
                 raise error

@@ -20,7 +20,6 @@ from __future__ import annotations
 import json
 import os
 import shutil
-import tempfile
 import uuid
 from pathlib import Path
 
@@ -30,6 +29,7 @@ import xarray as xr
 import zarr
 from numcodecs import Blosc
 
+from slicer.core.atomic import temp_folder
 from slicer.core.errors import InputFileError, OutputError
 from slicer.outputs.cube import (
     TILE,
@@ -197,8 +197,7 @@ def create_cube_store(path: str | os.PathLike, template: xr.DataArray, *, tile: 
         raise OutputError("exists and is not a Zarr store; not replaced", where=str(target))
     try:
         target.parent.mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix=f".{target.name}.", suffix=".tmp",
-                                    dir=target.parent))
+        tmp = temp_folder(target.parent, prefix=f".{target.name}.", suffix=".tmp")
     except OSError as exc:
         raise OutputError(f"cannot create the Zarr store ({exc.strerror})",
                           where=str(target)) from None

@@ -7,7 +7,6 @@ read -> place -> time zero -> dewow -> background -> gain -> envelope -> reduce 
 from __future__ import annotations
 
 import datetime as _dt
-import json
 import math
 import platform
 import sys
@@ -19,7 +18,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from slicer.core.atomic import atomic_write_text, prepare_output_dir
+from slicer.core.commit import OutputFolder
 from slicer.core.errors import SettingsError, SlicerWarning
 from slicer.geometry.positioning import prepare_survey
 from slicer.geometry.survey import SurveyInfo, survey_info
@@ -37,8 +36,9 @@ from slicer.gridding.grid import (
 from slicer.gridding.levelling import level_lines
 from slicer.io.reading import describe_file, line_info
 from slicer.outputs.cube import empty_cube, new_cube
-from slicer.outputs.sink import CubeSink
-from slicer.outputs.zarr_store import open_cube_zarr
+from slicer.outputs.sink import OUTPUT_NAMES, CubeSink
+from slicer.outputs.zarr_store import open_cube_zarr, read_slice
+from slicer.pipeline.bounds import check_bounds
 from slicer.pipeline.budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
 from slicer.pipeline.engine import Engine, parse_scheduler
 from slicer.pipeline.line_chain import processing_summary
@@ -52,8 +52,8 @@ TILE = 256
 
 
 def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float | None = None,
-                crs=None, velocity: float | None = None, processing: str = "",
-                engine: Engine | None = None, tile: int = 256,
+                max_gap: float | None = None, crs=None, velocity: float | None = None,
+                processing: str = "", engine: Engine | None = None, tile: int = 256,
                 progress: bool = True) -> tuple[xr.DataArray, dict]:
     """Grid a trace x slice table onto a regular grid: the cube, and how it was gridded.
 
@@ -66,6 +66,9 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
         Cell edge (m). Default a round number near a quarter of the median line spacing.
     radius : float, optional
         Search radius (m); see :func:`slicer.neighbour_weights`.
+    max_gap : float, optional
+        Widest gap (m) between parallel lines that is bridged; see
+        :func:`slicer.gridding.grid.trace_frame`.
     crs : optional
         Survey CRS, stored in the cube.
     velocity : float, optional
@@ -77,7 +80,7 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
     tile : int
         Tile edge in cells: each tile is gridded from the traces near it only.
     """
-    layout = GridLayout.of(table, cell=cell, radius=radius, tile=tile)
+    layout = GridLayout.of(table, cell=cell, radius=radius, max_gap=max_gap, tile=tile)
     values = layout.assemble(table.values, engine=engine, progress=progress)
     cube = new_cube(values, **layout.cube_kwargs(table, crs=crs, velocity=velocity,
                                                  processing=processing))
@@ -94,11 +97,12 @@ class GridLayout:
 
     @classmethod
     def of(cls, table: xr.DataArray, *, cell: float | None, radius: float | None,
-           tile: int = TILE) -> GridLayout:
+           max_gap: float | None = None, tile: int = TILE) -> GridLayout:
         x, y, line = table["x"].values, table["y"].values, table["line"].values
         cell = default_cell(x, y, line) if cell is None else cell
         grid = grid_for(x, y, cell=cell)
-        return cls(grid, trace_frame(x, y, line, cell=grid.cell, radius=radius), tile)
+        frame = trace_frame(x, y, line, cell=grid.cell, radius=radius, max_gap=max_gap)
+        return cls(grid, frame, tile)
 
     def shape(self, n_slices: int) -> tuple[int, int, int]:
         return (n_slices, self.grid.ny, self.grid.nx)
@@ -140,7 +144,7 @@ class GridLayout:
         g, f = self.grid, self.frame
         out = {"west": g.west, "north": g.north, "cell": g.cell, "nx": g.nx, "ny": g.ny,
                "tile": self.tile, "search_radius_m": f.radius, "line_spacing_m": f.line_spacing,
-               "along_line_half_width_m": f.along}
+               "along_line_half_width_m": f.along, "max_gap_m": f.max_gap}
         if empty is not None:
             out["empty_cells"] = empty
         return out
@@ -186,7 +190,8 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
     read_s = time.perf_counter() - started
     velocity = settings.resolved_velocity if reduced.windows.axis == "depth" else None
     summary = processing_summary(settings, reduced.dewow_ns)
-    layout = GridLayout.of(reduced.table, cell=settings.cell, radius=settings.radius)
+    layout = GridLayout.of(reduced.table, cell=settings.cell, radius=settings.radius,
+                           max_gap=settings.max_gap)
     kwargs = layout.cube_kwargs(reduced.table, crs=settings.crs, velocity=velocity,
                                 processing=summary)
     record = {
@@ -256,6 +261,8 @@ def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
     ------
     SettingsError
         The estimate exceeds ``settings.memory_limit`` (default 1 GiB), naming the parts.
+    SlicerError
+        Any size :func:`slicer.pipeline.bounds.check_bounds` refuses (checked first).
     """
     limit = (parse_bytes(settings.memory_limit) if settings.memory_limit is not None
              else DEFAULT_LIMIT)
@@ -263,13 +270,14 @@ def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
     x, y = ends[:, [0, 2]].ravel(), ends[:, [1, 3]].ravel()
     line = np.repeat(np.arange(len(settings.lines)), 2)
     cell = settings.cell or default_cell(x, y, line)
-    grid = grid_for(x, y, cell=cell)
-    windows = settings.requested_windows
-    n_slices = len(windows) if windows is not None else 24
+    # every other size of the build, from the same headers (refused before any line is read)
+    plan = check_bounds(settings, info, cell=cell, memory_limit=limit,
+                        writes=not cube_in_memory)
+    grid, n_slices = plan.grid, plan.n_slices
     step = float(np.median([e.length / max(i.n_traces - 1, 1)
                             for e, i in zip(settings.lines, info.lines, strict=True)]))
     along = max(cell, step)
-    est = estimate(n_traces=info.n_traces, max_line_traces=max(i.n_traces for i in info.lines),
+    est = estimate(n_traces=plan.n_traces, max_line_traces=plan.max_line_traces,
                    n_samples=info.n_samples, n_slices=n_slices, grid_cells=grid.size,
                    tile=TILE, neighbours=4 * along / step, workers=workers,
                    cube_in_memory=cube_in_memory)
@@ -295,9 +303,11 @@ def build(settings: BuildSettings, *, progress: bool = True,
 
     Writes ``slices/`` (one GeoTIFF per slice), ``cube.zarr`` and ``cube.nc`` (the cube as
     Zarr and CF NetCDF), ``overview.png`` and ``record.json`` (every setting and input, with
-    checksums). The cube is gridded tile by tile straight into the outputs, which stay under
-    temporary names until all are complete, so memory does not grow with the grid and a build
-    that fails or is stopped leaves no half-written file.
+    checksums). The cube is gridded tile by tile straight into the outputs, so memory does not
+    grow with the grid. Everything is written into a folder beside ``settings.out`` and switched
+    in whole at the end (:mod:`slicer.core.commit`): a build that fails or is stopped leaves the
+    earlier build, or the new one, whole. With ``overwrite`` the earlier build's outputs are
+    replaced and every other file in the folder is kept.
 
     Parameters
     ----------
@@ -315,8 +325,9 @@ def build(settings: BuildSettings, *, progress: bool = True,
     """
     if settings.out is None:
         raise SettingsError("no output folder given", where="--out")
-    out = prepare_output_dir(settings.out, overwrite=settings.overwrite, create=False)
-    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine:
+    folder = OutputFolder(settings.out, overwrite=bool(settings.overwrite), names=OUTPUT_NAMES,
+                          inputs=[*(e.file for e in settings.lines), *_side_inputs(settings)])
+    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine, folder:
         warnings.simplefilter("always", SlicerWarning)
         r = _reduce(settings, engine, progress=progress, cube_in_memory=False)
         r.record["inputs"] = None  # filled in below, in this place of the record
@@ -327,7 +338,7 @@ def build(settings: BuildSettings, *, progress: bool = True,
         template = with_depth_error(
             empty_cube(r.layout.shape(table.sizes["slice"]), tile=TILE, **r.kwargs), settings,
             table)
-        prepare_output_dir(out, overwrite=settings.overwrite)
+        out = folder.path  # written whole, then switched in by folder.commit
         tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
         common = dict(tags=tags, tile=TILE, progress=progress, title=settings.title)
         if engine.offloader() is not None:  # workers on this machine write every output
@@ -345,26 +356,22 @@ def build(settings: BuildSettings, *, progress: bool = True,
         # (small) are done here.
         r.record["inputs"] = [describe_file(p) for p in _side_inputs(settings)] + \
             r.reduced.inputs
-        files = list(sink.files)
-        if settings.overwrite:  # slices of an earlier build that this one does not replace
-            slices_dir = out / "slices"
-            for stale in sorted(set(slices_dir.glob("slice_*.tif")) - set(files)):
-                stale.unlink()
+        # read here, not through dask: a cluster's workers may not see this folder
+        first = read_slice(out / "cube.zarr", 0, name=str(template.name))
+        r.record["grid"]["empty_cells"] = int(np.isnan(first).sum())
+        r.record["warnings"] = [str(w.message) for w in caught
+                                if issubclass(w.category, SlicerWarning)]
+        r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
+        files = folder.commit([p.relative_to(out).as_posix() for p in sink.files], r.record,
+                              default=_jsonable)
     warned = [str(w.message) for w in caught if issubclass(w.category, SlicerWarning)]
     for w in caught:
         if not issubclass(w.category, SlicerWarning):
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    cube = open_cube_zarr(out / "cube.zarr")
-    r.record["grid"]["empty_cells"] = int(np.isnan(cube.isel({cube.dims[0]: 0}).values).sum())
-    r.record["warnings"] = warned
-    r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
-    r.record["outputs"] = [str(p.relative_to(out)) for p in files]
-    record_path = out / "record.json"
-    atomic_write_text(record_path, json.dumps(r.record, indent=2, default=_jsonable) + "\n")
     for message in warned:  # the caller sees them too
         warnings.warn(message, SlicerWarning, stacklevel=2)
-    return BuildResult(cube=cube, record=r.record, files=[*files, record_path],
-                       warnings=warned)
+    return BuildResult(cube=open_cube_zarr(folder.given / "cube.zarr"), record=r.record,
+                       files=files, warnings=warned)
 
 
 def _side_inputs(settings: BuildSettings) -> list[Path]:

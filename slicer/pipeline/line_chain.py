@@ -6,16 +6,9 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
-from slicer.core.errors import SettingsError
+from slicer.core.errors import SettingsError, warn
 from slicer.pipeline.settings import BuildSettings
-from slicer.processing.steps import (
-    apply_gain,
-    correct_time_zero,
-    dewow,
-    envelope,
-    process_chain,
-    remove_background,
-)
+from slicer.processing.steps import correct_time_zero, process_chain
 from slicer.velocity.models import ConstantVelocity
 
 
@@ -29,52 +22,85 @@ def dewow_window(settings: BuildSettings, dewow_ns: float | None) -> float | str
     return float(settings.dewow) if settings.dewow != "auto" else dewow_ns
 
 
+def migration_method(settings: BuildSettings) -> tuple[str, str | None]:
+    """The migration a build runs, ``"stolt"``, ``"phase-shift"`` or ``"off"``, and why it is
+    off when ``settings.migrate`` is ``"auto"`` but nothing can run (else None).
+
+    ``"auto"`` migrates depth slices: Stolt for one velocity (a layered model whose layers all
+    have one velocity counts as one), phase shift for layers. Time slices, a build without a
+    velocity and a lateral model are not migrated; the last is said, because its depth slices
+    then show each buried object's hyperbola flanks as well as the object itself.
+    """
+    from slicer.velocity.models import LayeredVelocity
+    if settings.migrate != "auto":
+        return settings.migrate, None
+    model = settings.resolved_model
+    if model is None or settings.times is not None:
+        return "off", None  # time slices: migration is asked for by name
+    if getattr(model, "lateral", False):
+        return "off", ("no migration: the velocity model changes sideways, and no 2-D "
+                       "migration here handles lateral change; give --migrate stolt to migrate "
+                       "with its median velocity, or --migrate off")
+    if isinstance(model, LayeredVelocity) and len(set(model.velocity)) > 1:
+        return "phase-shift", None
+    return "stolt", None
+
+
 def process_line(line: xr.DataArray, settings: BuildSettings, *,
                  dewow_ns: float | None = None) -> xr.DataArray:
     """Run the processing chain of ``settings`` on one placed line; returns its envelope.
 
     ``dewow_ns`` fixes the dewow window when ``settings.dewow`` is ``"auto"`` (the build
-    resolves it once, from the first line). Without migration the steps after time zero run
-    fused on one array (:func:`slicer.processing.steps.process_chain`, equal to the single steps);
-    migration sits between background removal and gain, so it runs them one by one.
+    resolves it once, from the first line). The steps after time zero run fused on one array
+    (:func:`slicer.processing.steps.process_chain`, equal to the single steps); migration
+    (:func:`migration_method`) sits between background removal and gain, so the chain runs in
+    two fused parts around it.
     """
     line = correct_time_zero(line, time_zero=settings.time_zero,
                              threshold=settings.time_zero_threshold)
     window = dewow_window(settings, dewow_ns)
     background = settings.background if settings.background != "off" else None
-    if settings.migrate == "off":
+    method, _ = migration_method(settings)
+    if method == "off":
         return process_chain(line, dewow_ns=window, background=background,
                              gain=settings.gain_curve)
-    if window != "off":
-        line = dewow(line, window_ns=window)
-    if background is not None:
-        line = remove_background(line, method=background)
-    line = migrate_line(line, settings)
-    if settings.gain_curve is not None:
-        kind, value = settings.gain_curve
-        line = apply_gain(line, kind=kind, value=value)
-    return envelope(line)
+    line = process_chain(line, dewow_ns=window, background=background, gain=None,
+                         take_envelope=False)
+    line = migrate_line(line, settings, method=method)
+    return process_chain(line, dewow_ns="off", background=None, gain=settings.gain_curve)
 
 
-def migrate_line(line: xr.DataArray, settings: BuildSettings) -> xr.DataArray:
+def migrate_line(line: xr.DataArray, settings: BuildSettings, *,
+                 method: str | None = None) -> xr.DataArray:
     """Migrate one line with the build's velocity: Stolt for one velocity, phase shift for
-    layers (a lateral model is migrated with its median velocity, which is said)."""
+    layers (a lateral model is migrated with its median velocity, which is said).
+
+    ``method`` defaults to the one :func:`migration_method` chooses from ``settings``.
+    """
     from slicer.processing.migration import migrate
     from slicer.velocity.models import LayeredVelocity
+    if method is None:
+        method, _ = migration_method(settings)
     model = settings.resolved_model
     if isinstance(model, LayeredVelocity):
-        if settings.migrate == "stolt":
+        if method == "stolt" and len(set(model.velocity)) == 1:
+            return migrate(line, velocity=float(model.velocity[0]), method="stolt")
+        if method == "stolt":
             raise SettingsError("Stolt migration needs one velocity; use phase-shift with a "
                                 "layered model", where="--migrate")
         return migrate(line, velocity=list(model.velocity), layer_tops=list(model.top_time),
                        tops="twt", method="phase-shift")
     velocity = (model.velocity if isinstance(model, ConstantVelocity)
                 else float(np.median(model.velocity)))
-    return migrate(line, velocity=velocity, method=settings.migrate)
+    return migrate(line, velocity=velocity, method=method)
 
 
 def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -> str:
-    """One line describing the processing chain, for file tags and the overview."""
+    """One line describing the processing chain, for file tags and the overview.
+
+    A build calls it once: when ``migrate = "auto"`` cannot migrate a lateral velocity model,
+    this is where the build says so (a :class:`~slicer.core.errors.SlicerWarning`).
+    """
     steps = [f"time zero {settings.time_zero} ns" if settings.time_zero != "auto"
              else "time zero auto (direct-wave pick per line)"]
     if settings.dewow != "off":
@@ -82,8 +108,11 @@ def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -
         steps.append(f"dewow {window:.2f} ns" if window else "dewow auto")
     if settings.background != "off":
         steps.append(f"background removal ({settings.background} trace)")
-    if settings.migrate != "off":
-        steps.append(f"{settings.migrate} migration")
+    method, why_off = migration_method(settings)
+    if method != "off":
+        steps.append(f"{method} migration")
+    if why_off is not None:
+        warn(why_off)
     steps.append(f"gain {settings.gain}" if settings.gain_curve else "no gain")
     steps.append("envelope (Hilbert)")
     if settings.level:

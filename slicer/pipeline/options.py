@@ -77,7 +77,11 @@ def _number(o, value, where):
                                 f"{value!r} (write it without quotes)", where=where)
         raise SettingsError(f"expected a number of {o.unit or 'units'}, got {value!r}",
                             where=where)
-    v = float(value)
+    try:
+        v = float(value)
+    except OverflowError:  # a TOML integer beyond any float
+        raise SettingsError(f"{str(value)[:12]}... is too large a number of {o.unit or 'units'}",
+                            where=where) from None
     if o.low is None:
         if not math.isfinite(v):
             raise SettingsError(f"expected a finite number of {o.unit}, got {v:g}", where=where)
@@ -178,7 +182,12 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
        "ns", 0, 100_000, open_low=True, words=("auto", "off")),
     _o("background", "choice", "background removal: 'mean', 'median' or 'off'",
        words=("mean", "median", "off")),
-    _o("gain", "text", "gain: 'power:P' (t^P), 'exp:DB_PER_NS' or 'none'"),
+    # Evidence for the default: benchmarks/README.md, "migration.py" (flank / apex table).
+    _o("gain", "text", "gain: 'power:P' (t^P), 'exp:DB_PER_NS' or 'none'. The default "
+       "power:1 undoes the 1/r spreading of an echo and no more, so a hyperbola's later flanks "
+       "stay fainter than its apex (on synthetic slices at most 0.7 of it unmigrated, 0.9 with "
+       "an antenna radiating evenly in all directions); power:1.5 and more let flanks outshine "
+       "apexes"),
     # The limits of a velocity (0 < v < c) are checked with the physics, whose message
     # names the speed of light (slicer.core.physics.check_velocity).
     _o("velocity", "number", "radar velocity (0 < v < 0.2998)", "m/ns"),
@@ -188,8 +197,9 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
        "(below the velocity)", "m/ns", 0, _C),
     _o("velocity_model", "path", "velocity-model TOML file (constant, layered or lateral; "
        "see README)"),
-    _o("migrate", "choice", "2-D migration before the envelope: 'stolt', 'phase-shift' or "
-       "'off'", words=("off", "stolt", "phase-shift")),
+    _o("migrate", "choice", "2-D migration before the envelope: 'auto' (depth slices: Stolt "
+       "for one velocity, phase shift for layers; not time slices nor a lateral model), "
+       "'stolt', 'phase-shift' or 'off'", words=("auto", "off", "stolt", "phase-shift")),
     _o("ties", "choice", "ties at line crossings: 'off', 'report' (measure and report the "
        "misfit) or 'apply' (also correct each line's time zero and gain)",
        words=("off", "report", "apply")),
@@ -197,8 +207,11 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
        "(true/false)"),
     _o("cell", "number", "grid cell (default: a round number near a quarter of the line "
        "spacing)", "m", 0.001, 1000),
-    _o("radius", "number", "search radius; cells farther from any trace stay nodata", "m",
-       0.001, 10_000),
+    _o("radius", "number", "search radius; cells farther from any trace stay nodata, unless "
+       "between two lines at most max_gap apart", "m", 0.001, 10_000),
+    _o("max_gap", "number", "widest gap between parallel lines that is bridged by "
+       "interpolation; a wider gap stays nodata beyond the search radius (default 2.5 x line "
+       "spacing)", "m", 0, 10_000),
     _o("depths", "text", "depth slices TOP:BOTTOM:STEP in m"),
     _o("thickness", "number", "slice thickness (m or ns), default the step", "m or ns",
        0, 100_000, open_low=True),

@@ -77,11 +77,12 @@ class BuildSettings:
     permittivity: float | None = None
     velocity_std: float | None = None
     velocity_model: Path | None = None
-    migrate: str = "off"
+    migrate: str = "auto"
     ties: str = "off"
     level: bool = False
     cell: float | None = None
     radius: float | None = None
+    max_gap: float | None = None
     depths: str | None = None
     thickness: float | None = None
     times: str | None = None
@@ -127,8 +128,8 @@ class BuildSettings:
                                 where="--dewow")
         if not isinstance(self.dewow, str):
             _positive(self.dewow, "--dewow", "ns")
-        if self.migrate not in ("off", "stolt", "phase-shift"):
-            raise SettingsError(f"expected 'stolt', 'phase-shift' or 'off', got "
+        if self.migrate not in ("auto", "off", "stolt", "phase-shift"):
+            raise SettingsError(f"expected 'auto', 'stolt', 'phase-shift' or 'off', got "
                                 f"{self.migrate!r}", where="--migrate")
         if self.ties not in ("off", "report", "apply"):
             raise SettingsError(f"expected 'off', 'report' or 'apply', got {self.ties!r}",
@@ -161,7 +162,7 @@ class BuildSettings:
                 raise SettingsError(f"the uncertainty {self.velocity_std:g} m/ns is not below "
                                     f"the velocity ({slowest:g} m/ns); give a one-sigma "
                                     "uncertainty in m/ns", where="--velocity-std")
-        if self.migrate != "off" and self.resolved_model is None:
+        if self.migrate not in ("off", "auto") and self.resolved_model is None:
             raise SettingsError("migration needs a velocity (--velocity, --permittivity or "
                                 "--velocity-model)", where="--migrate")
         from slicer.pipeline.budget import parse_bytes

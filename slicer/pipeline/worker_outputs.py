@@ -27,6 +27,7 @@ from pathlib import Path
 
 import numpy as np
 
+from slicer.core.atomic import GuardedFile, check_room, temp_file
 from slicer.gridding.grid import TileJob, grid_tile
 from slicer.outputs.geotiff import SliceFileJob, SliceTiffWriter, write_slice_file
 from slicer.outputs.netcdf_chunks import (
@@ -51,6 +52,8 @@ class StoredTile:
 def grid_and_store(item: StoredTile) -> tuple[int, int, np.ndarray]:
     """Grid one tile, write it into the store: ``(row0, col0, decimated tile)``."""
     row0, col0, block = grid_tile(item.job)
+    folder = Path(item.store).parent
+    check_room(folder, block.nbytes, where=folder)
     write_tile(item.store, row0, col0, block)
     return row0, col0, decimate(block, row0, col0, item.stride)
 
@@ -73,6 +76,7 @@ def write_slice_outputs(job: SliceOutputs) -> tuple[int, str, list[tuple[int, in
     taken from the workers. Returns ``(index, parts file, [(row0, col0, offset, size)])``.
     """
     values = read_slice(job.tiff.store, job.tiff.index)
+    check_room(Path(job.parts).parent, 2 * values.nbytes, where=job.tiff.final)
     write_slice_file(job.tiff, values)
     index, offset = [], 0
     with open(job.parts, "wb") as f:
@@ -119,10 +123,8 @@ class WorkerSink(CubeSink):
         try:
             # The empty NetCDF file needs only the template: a worker makes it among the
             # tiles (about 2 s for a 1 M-trace cube here).
-            fd, tmp = tempfile.mkstemp(prefix=f".{NETCDF_NAME}.", suffix=".tmp",
-                                       dir=self.out_dir)
-            os.close(fd)
-            self._early = Path(tmp).resolve()
+            self._early = temp_file(self.out_dir, prefix=f".{NETCDF_NAME}.",
+                                    suffix=".tmp").resolve()
             self._skeleton = self._offload(write_skeleton, self.template, str(self._early),
                                            tile=self.tile)
         except BaseException:
@@ -180,11 +182,14 @@ class WorkerSink(CubeSink):
         jobs = [SliceOutputs(self._tiffs.slice_job(i, store), layout,
                              str(parts / f"slice_{i}.bin")) for i in range(self.shape[0])]
         try:
-            with h5py.File(self._early, "r+") as f:
-                for index, path, where in self._engine.map(
-                        write_slice_outputs, jobs, desc="slices", unit="slice",
-                        progress=False):
-                    _stored_parts(f, layout, index, path, where)
+            # through a GuardedFile, as every NetCDF write (slicer.outputs.cube._write_netcdf)
+            with GuardedFile(self._early, "r+b") as raw:
+                with h5py.File(raw, "r+") as f:
+                    for index, path, where in self._engine.map(
+                            write_slice_outputs, jobs, desc="slices", unit="slice",
+                            progress=False):
+                        _stored_parts(f, layout, index, path, where)
+                raw.check()
         finally:
             shutil.rmtree(parts, ignore_errors=True)
         os.replace(self._early, target)

@@ -1,5 +1,7 @@
 """Tests of slicer.gridding.grid: the grid of a survey and the gridding of scattered traces."""
 
+import re
+
 import numpy as np
 import pytest
 import scipy.interpolate
@@ -7,7 +9,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from slicer.core.errors import SettingsError
-from slicer.gridding.grid import grid_for, line_spacings, neighbour_weights
+from slicer.gridding.grid import count_text, grid_for, line_spacings, neighbour_weights
 
 
 def parallel_lines(n_lines=9, spacing=0.5, length=6.0, step=0.05, x0=512000.0, y0=4650000.0,
@@ -142,3 +144,35 @@ def test_tiles_give_the_same_grid_as_one_pass():
         r, c, block = grid_tile(job)
         tiled[:, r:r + block.shape[1], c:c + block.shape[2]] = block
     np.testing.assert_allclose(tiled, whole, rtol=1e-6, atol=1e-7)
+
+
+# --- the grid's size is counted before it is laid out ------------------------------------------
+
+
+@pytest.mark.parametrize("far", [1e300, 1e308, 5120040.0])
+def test_huge_extent_is_refused_in_one_short_line(far):
+    with pytest.raises(SettingsError, match="--cell: a 0.1 m cell gives") as info:
+        grid_for(np.array([512000.0, far]), np.array([4650000.0, 4650002.0]), cell=0.1)
+    message = str(info.value)
+    assert "\n" not in message and not re.search(r"\d{13}", message)
+    assert f"extent of {far - 512000.0:.4g} x 2 m" in message
+
+
+def test_non_finite_positions_are_refused():
+    for bad in (np.nan, np.inf):
+        with pytest.raises(SettingsError, match="NaN or infinite"):
+            grid_for(np.array([0.0, bad]), np.array([0.0, 1.0]), cell=0.1)
+    with pytest.raises(SettingsError, match="no trace positions"):
+        grid_for(np.array([]), np.array([]), cell=0.1)
+
+
+def test_max_cells_is_exact():
+    x, y = np.array([0.0, 10.0]), np.array([0.0, 5.0])  # 100 x 50 cells of 0.1 m
+    assert grid_for(x, y, cell=0.1, max_cells=5000).size == 5000
+    with pytest.raises(SettingsError, match="100 x 50 cells .* more than 4999"):
+        grid_for(x, y, cell=0.1, max_cells=4999)
+
+
+def test_count_text():
+    assert count_text(4097) == "4097" and count_text(4096.2) == "4097"
+    assert count_text(1e301) == "1e+301" and count_text(float("inf")) == "countless"

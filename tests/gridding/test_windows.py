@@ -1,6 +1,8 @@
 """Tests of slicer.gridding.windows: slice windows in depth or time and the mean of a trace
 over each."""
 
+import re
+
 import numpy as np
 import pytest
 import xarray as xr
@@ -8,7 +10,13 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from slicer.core.errors import SettingsError
-from slicer.gridding.windows import Windows, make_windows, parse_range, reduce_to_windows
+from slicer.gridding.windows import (
+    MAX_WINDOWS,
+    Windows,
+    make_windows,
+    parse_range,
+    reduce_to_windows,
+)
 
 
 def linear_line(a, b, n=200, dt=0.1, t_start=-2.0, traces=3):
@@ -93,3 +101,48 @@ def test_reduce_runs_on_dask_and_keeps_coordinates():
     assert eager.dims == ("trace", "slice")
     np.testing.assert_allclose(eager["top"].values, w.top)
     assert "x" in eager.coords
+
+
+# --- the number of windows is bounded before any array is made ---------------------------------
+
+
+@pytest.mark.parametrize("top, bottom, step, thickness", [
+    (0.0, 1.0, 1e-9, None),      # a billion slices: 3 GB in 9 s before the bound
+    (0.0, 1e300, 0.1, None),     # 1e301 slices: numpy's "maximum allowed size exceeded"
+    (0.0, 1e300, 1e-300, None),  # a count that is not even a finite float
+    (0.0, 1.0, 1e-4, 0.5),       # thick windows every 0.1 mm
+])
+def test_too_many_windows_are_refused_with_a_step_that_works(top, bottom, step, thickness):
+    with pytest.raises(SettingsError, match="--depths: .* slices, more than the 4096") as info:
+        make_windows(top, bottom, step, thickness=thickness)
+    message = str(info.value)
+    assert "\n" not in message and not re.search(r"\d{13}", message)
+    least = float(re.search(r"a step of at least (\S+) m", message).group(1))
+    assert least > step
+    assert len(make_windows(top, bottom, least, thickness=thickness)) <= MAX_WINDOWS
+
+
+def test_window_count_limit_is_exact():
+    assert len(make_windows(0.0, 4.096, 0.001)) == MAX_WINDOWS
+    with pytest.raises(SettingsError, match="gives 4097 slices"):
+        make_windows(0.0, 4.097, 0.001)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.floats(0, 1e300), st.floats(1e-300, 1e300), st.floats(1e-300, 1e300),
+       st.one_of(st.none(), st.floats(1e-300, 1e300)))
+def test_any_range_gives_bounded_windows_or_a_settings_error(top, span, step, thickness):
+    try:
+        w = make_windows(top, top + span, step, thickness=thickness, axis="twt")
+    except SettingsError as exc:
+        assert "\n" not in str(exc) and not re.search(r"\d{13}", str(exc))
+        return
+    assert 1 <= len(w) <= MAX_WINDOWS
+    assert np.all(w.bottom <= top + span + 1e-9 * span + 1e-300)
+
+
+def test_thickness_a_rounding_error_above_the_range_gives_one_window():
+    # found by the property above: the range 2**53-ish long, the thickness 3 ns more (within
+    # the 1e-9 tolerance), which once gave no window at all
+    w = make_windows(0.0, 9007199200697795.0, 1.0, thickness=9007199200697798.0, axis="twt")
+    assert len(w) == 1 and w.top[0] == 0.0

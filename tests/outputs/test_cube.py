@@ -3,7 +3,12 @@ file."""
 
 from __future__ import annotations
 
+import builtins
+import errno
+import io
+import os
 import tracemalloc
+from pathlib import Path
 
 import dask.array as darray
 import numpy as np
@@ -252,8 +257,7 @@ def test_failed_write_leaves_existing_file_intact(tmp_path, monkeypatch):
     before = path.read_bytes()
 
     def broken(self, target, *args, **kwargs):
-        with open(target, "wb") as fh:
-            fh.write(b"\x89HDF\r\n partial")
+        target.write(b"\x89HDF\r\n partial")  # the open temporary file
         raise OSError("disk full")
 
     monkeypatch.setattr(xr.Dataset, "to_netcdf", broken)
@@ -265,6 +269,44 @@ def test_failed_write_leaves_existing_file_intact(tmp_path, monkeypatch):
     with pytest.raises(OutputError):
         write_cube_netcdf(make_cube(), tmp_path / "new.nc")
     assert not (tmp_path / "new.nc").exists()
+
+
+class _FillingDisk(io.FileIO):
+    """A file on a disk that fills after ``room`` bytes (errno 28, as the system says)."""
+
+    room = 20_000
+
+    def write(self, data):
+        if self.tell() + len(data) > self.room:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        return super().write(data)
+
+
+def test_a_full_disk_ends_in_one_error_and_leaves_the_file_as_it_was(tmp_path, monkeypatch):
+    import slicer.core.atomic
+    path = tmp_path / "cube.nc"
+    write_cube_netcdf(make_cube(seed=1), path)
+    before = path.read_bytes()
+    big = make_cube(6, 40, 50, seed=3)
+
+    def on_a_small_disk(file, mode="r", *args, **kwargs):
+        if "b" in mode and Path(file).parent == tmp_path:
+            return _FillingDisk(file, mode.replace("b", ""))
+        return builtins.open(file, mode, *args, **kwargs)
+
+    monkeypatch.setattr(slicer.core.atomic, "open", on_a_small_disk, raising=False)
+    with pytest.raises(OutputError, match="No space left on device") as info:
+        write_cube_netcdf(big, path)
+    assert info.value.where == str(path)
+    assert path.read_bytes() == before
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["cube.nc"]
+    # HDF5 saw no failed write: nothing of it is left open to be closed again (which crashed)
+    import h5py
+    assert [i for i in h5py.h5f.get_obj_ids(types=h5py.h5f.OBJ_FILE)
+            if str(tmp_path) in i.name.decode()] == []
+    monkeypatch.undo()
+    back = read_cube_netcdf(write_cube_netcdf(big, path))  # with room, the same call works
+    np.testing.assert_array_equal(back.values, big.values)
 
 
 def test_reading_a_non_netcdf_file_names_it(tmp_path):

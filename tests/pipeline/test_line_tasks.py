@@ -19,9 +19,11 @@ from slicer.processing.steps import (
 
 
 @pytest.mark.parametrize("options", [
-    {"depths": "0:2.4:0.1", "velocity": 0.1, "dewow": 1.5, "background": "median"},
+    {"depths": "0:2.4:0.1", "velocity": 0.1, "dewow": 1.5, "background": "median",
+     "migrate": "off"},
     {"times": "0:40:2.5", "dewow": "off", "background": "mean", "gain": "exp:0.2"},
-    {"depths": "0.05:1.9:0.15", "thickness": 0.07, "velocity": 0.09, "gain": "none", "dewow": 2.2}])
+    {"depths": "0.05:1.9:0.15", "thickness": 0.07, "velocity": 0.09, "gain": "none", "dewow": 2.2,
+     "migrate": "off"}])
 def test_line_task_equals_the_single_steps(small_survey, options):
     settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
                                     time_zero=3.0, **options)

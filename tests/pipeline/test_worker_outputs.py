@@ -3,8 +3,12 @@ sink."""
 
 from __future__ import annotations
 
+import builtins
 import concurrent.futures
+import errno
+import io
 import json
+import os
 
 import numpy as np
 import pytest
@@ -27,6 +31,12 @@ def threaded(small_survey, tmp_path_factory):
     return settings, out
 
 
+def modes(folder):
+    """The (kind, permission bits) of ``folder`` and everything in it."""
+    return {("dir" if p.is_dir() else "file", p.stat().st_mode & 0o777)
+            for p in [folder, *folder.rglob("*")]}
+
+
 def _tiffs(folder):
     return sorted((folder / "slices").glob("*.tif"))
 
@@ -35,7 +45,12 @@ def _tiffs(folder):
 def test_worker_written_outputs_equal_the_threaded_ones(threaded, tmp_path, scheduler):
     settings, reference = threaded
     out = tmp_path / "o"
-    result = slicer.build(settings.replace(scheduler=scheduler, out=out), progress=False)
+    umask = os.umask(0o027)  # the workers' files get the user's normal mode too
+    try:
+        result = slicer.build(settings.replace(scheduler=scheduler, out=out), progress=False)
+    finally:
+        os.umask(umask)
+    assert modes(out) == {("dir", 0o750), ("file", 0o640)}
     assert result.record["engine"].startswith(scheduler.split(":")[0])
     names = [p.name for p in _tiffs(out)]
     assert names == [p.name for p in _tiffs(reference)] and len(names) == 24
@@ -89,3 +104,44 @@ def test_a_failing_slice_leaves_nothing_behind(threaded, tmp_path, monkeypatch):
             sink.grid(layout_jobs, count=0)
             sink._store.write_tile(0, 0, cube.values)
     assert not out.exists() or not any(out.rglob("*"))
+
+
+class _FillingDisk(io.FileIO):
+    """A file on a disk that fills once it has grown by ``room`` bytes (errno 28)."""
+
+    room = 10_000
+
+    def __init__(self, *args):
+        super().__init__(*args)
+        self._full_at = os.fstat(self.fileno()).st_size + self.room
+
+    def write(self, data):
+        if self.tell() + len(data) > self._full_at:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        return super().write(data)
+
+
+def test_a_full_disk_while_the_chunks_are_stored_ends_in_one_error(threaded, tmp_path,
+                                                                    monkeypatch):
+    # The NetCDF file made by a worker is filled with the slices' chunks by this process
+    # (h5py): HDF5 must not meet the full disk, or it crashed closing the file again at exit.
+    import slicer.core.atomic
+    settings, reference = threaded
+    cube = open_cube_zarr(reference / "cube.zarr")
+
+    def on_a_small_disk(file, mode="r", *args, **kwargs):
+        if mode == "r+b":  # the chunks, stored into the file made whole beforehand
+            return _FillingDisk(file, "r+")
+        return builtins.open(file, mode, *args, **kwargs)
+
+    monkeypatch.setattr(slicer.core.atomic, "open", on_a_small_disk, raising=False)
+    out = tmp_path / "o"
+    with pytest.raises(OutputError, match="cannot write NetCDF.*No space left") as info:
+        with _worker_outputs.WorkerSink(out, cube, engine=_InThread(), progress=False) as sink:
+            sink.grid([], count=0)
+            sink._store.write_tile(0, 0, cube.values)
+    assert info.value.where == str(out / "cube.nc")
+    assert not out.exists() or not any(out.rglob("*"))
+    import h5py
+    assert [i for i in h5py.h5f.get_obj_ids(types=h5py.h5f.OBJ_FILE)
+            if str(tmp_path) in i.name.decode()] == []

@@ -4,6 +4,7 @@ import warnings
 
 import numpy as np
 import pytest
+import scipy.fft
 import scipy.optimize
 import xarray as xr
 
@@ -88,14 +89,62 @@ def test_a_wrong_velocity_defocuses(point_line, factor, depth):
     assert at_truth < 0.65
 
 
-def test_phase_shift_with_one_layer_equals_stolt(point_line):
+def test_gazdags_sample_steps_equal_stolt_for_one_velocity(point_line):
     # Gazdag (1978), Geophysics 43:1342-1351 and Stolt (1978) migrate a constant velocity
-    # exactly; they differ only by Stolt's interpolation in frequency.
+    # exactly; they differ only by Stolt's interpolation in frequency. A velocity that changes
+    # at every sample (by 1e-9 m/ns per ns: one velocity for any practical purpose) is stepped
+    # sample by sample, Gazdag's recursion with no interpolation.
     stolt = migrate(point_line, velocity=V).values.astype(float)
-    phase = migrate(point_line, velocity=V, method="phase-shift").values.astype(float)
-    assert np.sqrt(((phase - stolt) ** 2).sum() / (stolt ** 2).sum()) < 0.02
+    steps = migrate(point_line, velocity=lambda t: V + 1e-9 * t, method="phase-shift")
+    assert "(layered)" in steps.attrs["history"]  # many velocities, so not the layer path
+    difference = steps.values.astype(float) - stolt
+    assert np.sqrt((difference ** 2).sum() / (stolt ** 2).sum()) < 0.02
+    # one layer, or layers of one velocity, are migrated as one velocity
+    phase = migrate(point_line, velocity=V, method="phase-shift").values
     layered = migrate(point_line, velocity=[V, V], layer_tops=[0.0, 20.0], method="phase-shift")
     np.testing.assert_allclose(layered.values, phase, atol=1e-5 * np.abs(phase).max())
+
+
+def test_a_diffractor_near_the_end_of_the_record_focuses():
+    # The apex 4.8 m down lies at 96 ns of a 102 ns record, where Stolt's interpolation in
+    # frequency is least accurate (farthest from the middle of the record). Gazdag's (1978)
+    # phase-shift recursion interpolates nothing and is exact for one velocity (run here by a
+    # velocity that changes by 1e-9 m/ns per ns, so that every sample has its own): the two
+    # must agree, and the hyperbola must still collapse to its apex (check-values.md: peak
+    # within 1 trace and 2 samples, focused energy fraction > 0.9).
+    x = DX * np.arange(TRACES)
+    times, amplitudes = _forward.arrivals(x, np.zeros_like(x), (PointTarget(X0, 0.0, 4.8),),
+                                          velocity=V, pattern_exponent=0.0)
+    line = make_line(times, amplitudes)
+    stolt = migrate(line, velocity=V)
+    phase = migrate(line, velocity=lambda t: V + 1e-9 * t,
+                    method="phase-shift").values.astype(float)
+    difference = stolt.values.astype(float) - phase
+    assert np.sqrt((difference ** 2).sum() / (phase ** 2).sum()) < 0.03
+    x_peak, t_peak, fraction, _ = focus(stolt, x0=X0, t0=2 * 4.8 / V)
+    assert abs(x_peak - X0) <= DX + 1e-9 and abs(t_peak - 96.0) <= 2 * DT + 1e-9
+    assert fraction > 0.9
+
+
+@pytest.mark.parametrize("method", ["stolt", "phase-shift"])
+def test_frequencies_above_the_band_pass_through(point_line, method):
+    # A Hann-windowed 2.2 GHz burst (20 ns long, random phase on each trace) lies wholly above
+    # the migrated band, 4 x the 0.4 GHz dominant frequency (rounded up to 1.64 GHz here):
+    # migration is linear, so it must come out exactly as it went in. Migrating every
+    # frequency (band=None) moves it.
+    t = point_line["twt"].values
+    window = np.where(np.abs(t - 50.0) < 10.0, np.cos(np.pi * (t - 50.0) / 20.0) ** 2, 0.0)
+    phase = np.random.default_rng(3).uniform(0, 2 * np.pi, TRACES)[:, None]
+    burst = (0.02 * float(np.abs(point_line.values).max()) * window
+             * np.cos(2 * np.pi * 2.2 * t + phase)).astype(np.float32)
+    spectrum = np.abs(scipy.fft.rfft(burst, n=1024, axis=1)) ** 2  # scipy.fft: (next to) no
+    below = scipy.fft.rfftfreq(1024, DT) < 1.6  # energy below the band's top
+    assert spectrum[:, below].sum() < 1e-6 * spectrum.sum()
+    noisy = point_line.copy(data=point_line.values + burst)
+    for band, passed in ((4.0, True), (None, False)):
+        moved = (migrate(noisy, velocity=V, method=method, band=band).values
+                 - migrate(point_line, velocity=V, method=method, band=band).values - burst)
+        assert (np.abs(moved).max() < 2e-3 * np.abs(burst).max()) == passed
 
 
 # Two layers: 0.12 m/ns down to 0.96 m (16 ns two-way), then 0.08 m/ns; a diffractor 0.64 m
@@ -143,6 +192,14 @@ def test_phase_shift_focuses_under_an_interface(layered_line):
                           method="phase-shift")
     np.testing.assert_allclose(as_function.values, image.values, atol=1e-6)
     assert "layered" in image.attrs["history"] and "migration_velocity" not in image.attrs
+    # Each layer is crossed in one phase shift and imaged by Stolt's mapping within it; Gazdag's
+    # recursion, one phase shift per sample with the interface between two samples, gives the
+    # same image up to Stolt's interpolation (the first velocity is changed by 1e-9 m/ns per
+    # ns, so that every sample has its own velocity and the recursion runs).
+    steps = migrate(layered_line, method="phase-shift",
+                    velocity=lambda t: np.where(t < tops[1], V1 + 1e-9 * t, V2))
+    difference = steps.values.astype(float) - image.values
+    assert np.sqrt((difference ** 2).sum() / (image.values.astype(float) ** 2).sum()) < 0.02
 
 
 def test_interval_velocity_from_depth_tops():
@@ -200,6 +257,8 @@ def test_trace_spacing_is_the_median_step_and_uneven_lines_warn(point_line):
     (dict(velocity=lambda t: 0.5 + 0 * t, method="phase-shift"), "speed of light"),
     (dict(velocity=0.1, taper=1.5), "taper"),
     (dict(velocity=0.1, pad=1), "padding"),
+    (dict(velocity=0.1, band=0.5), "band"),
+    (dict(velocity=0.1, band=float("nan")), "band"),
 ])
 def test_bad_settings_are_refused(point_line, kwargs, match):
     with pytest.raises(SettingsError, match=match):

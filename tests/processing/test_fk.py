@@ -1,0 +1,71 @@
+"""Tests of slicer.processing.fk, the NumPy cores of migration (the migrated images themselves
+are checked through slicer.processing.migration.migrate in test_migration.py).
+
+Sources named beside the checks:
+- Lagrange interpolation through n nodes reproduces every polynomial of degree below n exactly
+  (any numerical-analysis text), checked against ``numpy.polynomial.polynomial.polyval``.
+- The zero-offset constant-velocity migration of one impulse at time t is a semicircle of
+  radius v t / 2 (Stolt 1978, Geophysics 43:23-48, the impulse response of the mapping): no
+  energy may land farther along the line, so none may wrap around the padded FFT either.
+"""
+
+import math
+
+import numpy as np
+import numpy.polynomial.polynomial as poly
+import pytest
+import scipy.fft
+
+from slicer.processing.fk import (
+    TAPS,
+    band_columns,
+    lagrange_weights,
+    stolt_core,
+    x_length,
+)
+
+
+@pytest.mark.parametrize("n", [2, 4, TAPS, 8])
+def test_lagrange_weights_reproduce_polynomials_below_their_order(n):
+    rng = np.random.default_rng(n)
+    coefficients = rng.normal(size=n)  # degree n - 1
+    u = rng.uniform(-0.5, n - 0.5, 200)
+    weights = lagrange_weights(u, n)
+    assert weights.shape == (200, n)
+    at_nodes = poly.polyval(np.arange(n), coefficients)
+    np.testing.assert_allclose(weights @ at_nodes, poly.polyval(u, coefficients),
+                               rtol=1e-10, atol=1e-10)
+    np.testing.assert_allclose(lagrange_weights(np.arange(n, dtype=float), n), np.eye(n),
+                               atol=1e-12)
+
+
+@pytest.mark.parametrize("frequency", [0.25, 0.4, 0.9])
+def test_the_band_reaches_four_times_the_dominant_frequency(frequency):
+    # a sinusoid of `frequency` GHz on every trace: its peak is at frequency * ntp * dt samples
+    dt, nt = 0.1, 500
+    ntp = scipy.fft.next_fast_len(2 * nt, real=True)
+    t = dt * np.arange(nt)
+    data = np.tile(np.sin(2 * np.pi * frequency * t), (8, 1))
+    spectrum = scipy.fft.rfft(data, n=ntp, axis=1)
+    peak = round(frequency * ntp * dt)
+    got = band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=4.0)
+    assert got == min(ntp // 2 + 1, 16 * math.ceil((4 * peak + 2) / 16))
+    assert band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=None) == ntp // 2 + 1
+    silent = np.zeros_like(spectrum)
+    assert band_columns(silent, nt=nt, ntp=ntp, dt=dt, band=4.0) == ntp // 2 + 1
+
+
+def test_an_impulse_migrates_onto_its_semicircle_without_wrapping_around():
+    # one spike at the first trace, 40 ns down, in ground of 0.1 m/ns: its image lies within
+    # v t / 2 = 2 m (40 traces) of that trace; the far end of a 201-trace line must stay dark
+    dx, dt, v, nx, nt = 0.05, 0.1, 0.1, 201, 512
+    data = np.zeros((nx, nt), dtype=np.float32)
+    t0 = 40.0
+    data[0, int(t0 / dt)] = 1.0
+    assert x_length(nx, dx, nt * dt, v) < 2 * nx  # less padding than the usual rule
+    image = stolt_core(data, dx=dx, dt=dt, t_first=0.0, velocity=v, taper=0.2, pad=2,
+                       band=None).astype(float)
+    energy = (image ** 2).sum(axis=1)
+    radius = int(round(v * t0 / 2 / dx))
+    assert energy[:radius + 5].sum() > 0.99 * energy.sum()
+    assert energy[nx // 2:].sum() < 1e-4 * energy.sum()
