@@ -47,6 +47,7 @@ import functools
 import itertools
 import multiprocessing
 import os
+import signal
 import threading
 import time
 import urllib.parse
@@ -420,6 +421,10 @@ def _exit_with_parent(parent: int) -> None:
     fires when the *thread* that started the worker ends (the pool may start workers from
     any thread that submits) and exists on Linux only; polling costs two wake-ups a second.
     """
+    # Ctrl-C reaches the whole process group: the calling process handles it (one line, the
+    # pool shut down), so a worker's own KeyboardInterrupt traceback would only be noise.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
     def watch() -> None:
         while os.getppid() == parent:
             time.sleep(PARENT_CHECK_INTERVAL)
