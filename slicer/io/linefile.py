@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from slicer.core.atomic import GuardedFile, atomic_path
+from slicer.core.atomic import atomic_path
 from slicer.core.conventions import TRACE, TWT, UNITS
 from slicer.core.errors import InputFileError
 from slicer.io.lines import (
@@ -99,10 +99,8 @@ def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray) -> Path:
     # Merge, never replace, a variable's encoding (stack-notes trap 6).
     encoding = {"amplitude": {**ds["amplitude"].encoding, "zlib": True, "complevel": 4,
                               "dtype": "float32"}}
-    # HDF5 must never see a failed write (full disk): closing its file again crashed at exit
-    with atomic_path(path) as tmp, GuardedFile(tmp) as f:
-        ds.to_netcdf(f, engine=_ENGINE, encoding=encoding)
-        f.check()
+    with atomic_path(path) as tmp:
+        ds.to_netcdf(tmp, engine=_ENGINE, encoding=encoding)
     return path
 
 
