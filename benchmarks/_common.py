@@ -12,6 +12,7 @@ import multiprocessing
 import os
 import resource
 import sys
+import tempfile
 from pathlib import Path
 
 # One BLAS thread unless the caller says otherwise, set before numpy loads. The pipeline and the
@@ -78,3 +79,14 @@ def square_patch(n_traces: int, *, line_spacing: float, trace_spacing: float, we
     return grid_lines(west=west, south=south, length=trace_spacing * (per_line - 1),
                       width=line_spacing * (n_lines - 1), line_spacing=line_spacing,
                       trace_spacing=trace_spacing, direction="x", zigzag=True)
+
+
+def work_root(keep: Path | None, prefix: str):
+    """The folder for a benchmark's surveys and outputs: ``keep`` (created, kept) or a temporary
+    one. Returns ``(root, cleanup)``; ``cleanup`` is None or a TemporaryDirectory to close."""
+    if keep is not None:
+        root = keep.resolve()
+        root.mkdir(parents=True, exist_ok=True)
+        return root, None
+    cleanup = tempfile.TemporaryDirectory(prefix=prefix)
+    return Path(cleanup.name), cleanup

@@ -39,14 +39,13 @@ import platform
 import re
 import statistics
 import sys
-import tempfile
 import time
 from pathlib import Path
 
 import _common  # noqa: F401 - first: one BLAS thread before numpy loads
 import numpy as np  # noqa: E402 - after the thread settings
 import scale  # noqa: E402 - the surveys and the measured build of benchmarks/scale.py
-from _common import _f, _table, in_fresh_process  # noqa: E402
+from _common import _f, _table, in_fresh_process, work_root  # noqa: E402
 
 import slicer  # noqa: E402 - after the thread settings
 import slicer.outputs.sink as _sink  # noqa: E402 - after the thread settings
@@ -237,13 +236,7 @@ def parse_args(argv=None):
 def main(argv=None) -> int:
     args = parse_args(argv)
     begun = time.perf_counter()
-    cleanup = None
-    if args.keep is not None:
-        root = args.keep.resolve()
-        root.mkdir(parents=True, exist_ok=True)
-    else:
-        cleanup = tempfile.TemporaryDirectory(prefix="slicer-netcdf-")
-        root = Path(cleanup.name)
+    root, cleanup = work_root(args.keep, "slicer-netcdf-")
     environment = {
         "slicer": slicer.__version__, "python": platform.python_version(),
         "numpy": np.__version__, "xarray": md.version("xarray"),

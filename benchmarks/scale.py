@@ -32,7 +32,6 @@ import math
 import os
 import platform
 import sys
-import tempfile
 import time
 import warnings
 from pathlib import Path
@@ -44,7 +43,7 @@ import scipy.fft  # noqa: E402 - after the thread settings
 import scipy.interpolate  # noqa: E402 - after the thread settings
 import scipy.signal  # noqa: E402 - after the thread settings
 import segyio  # noqa: E402 - after the thread settings
-from _common import _f, _memory_mib, _table, in_fresh_process, square_patch  # noqa: E402
+from _common import _f, _memory_mib, _table, in_fresh_process, square_patch, work_root  # noqa: E402
 
 import slicer  # noqa: E402 - after the thread settings
 import slicer.synthetic as syn  # noqa: E402 - after the thread settings
@@ -430,13 +429,7 @@ def report(rows: list[dict], summary: dict) -> None:
 def main(argv=None) -> int:
     args = parse_args(argv)
     begun = time.perf_counter()
-    cleanup = None
-    if args.keep is not None:
-        root = args.keep.resolve()
-        root.mkdir(parents=True, exist_ok=True)
-    else:
-        cleanup = tempfile.TemporaryDirectory(prefix="slicer-scale-")
-        root = Path(cleanup.name)
+    root, cleanup = work_root(args.keep, "slicer-scale-")
     environment = {
         "slicer": slicer.__version__, "python": platform.python_version(),
         "numpy": np.__version__, "scipy": scipy.__version__, "segyio": md.version("segyio"),
