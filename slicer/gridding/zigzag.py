@@ -32,8 +32,8 @@ Estimate (:func:`estimate_zigzag_shift`), on the trace x slice table before grid
 Limits: the estimate needs features that vary along the lines (a uniform slice has no lag to
 find) and a shift under :data:`MAX_SHIFT`. A feature crossing the lines at less than about 27
 degrees moves between neighbouring lines by more than the search reaches (twice the line
-spacing beyond the lag) and biases the pairs it dominates; the median over lines limits that. A real feature that zigzags with the line spacing
-cannot be told from a lag.
+spacing beyond the lag) and biases the pairs it dominates; the median over lines limits that.
+A real feature that zigzags with the line spacing cannot be told from a lag.
 """
 
 from __future__ import annotations
@@ -260,4 +260,5 @@ def shift_along_lines(table: xr.DataArray, *, shift: float) -> xr.DataArray:
                                 Y: (TRACE, y + dy, table[Y].attrs)})
 
 
-__all__ = ["MAX_SHIFT", "MAX_SHIFT_TRACES", "ZigzagEstimate", "estimate_zigzag_shift", "shift_along_lines"]
+__all__ = ["MAX_SHIFT", "MAX_SHIFT_TRACES", "ZigzagEstimate", "estimate_zigzag_shift",
+           "shift_along_lines"]
