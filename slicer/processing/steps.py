@@ -18,6 +18,12 @@ import xarray as xr
 
 from slicer.core.conventions import TRACE, TWT
 from slicer.core.errors import SettingsError
+from slicer.processing.background import (
+    Background,
+    background_core,
+    parse_background,
+    window_samples,
+)
 
 
 def _per_trace(core, line: xr.DataArray, step: str, **kwargs) -> xr.DataArray:
@@ -203,79 +209,47 @@ def dewow(line: xr.DataArray, *, window_ns: float | None = None) -> xr.DataArray
 
 # ---------------------------------------------------------------------------- background removal
 
-def _transposed(samples: np.ndarray) -> np.ndarray:
-    """A C-contiguous float32 copy of ``samples`` with its last two axes swapped.
+def remove_background(line: xr.DataArray, *, method: str | Background = "scaled"
+                      ) -> xr.DataArray:
+    """Subtract the line's background: what is the same on every trace (direct wave, ringing).
 
-    Copied in bands of 32 traces, which stay in the CPU cache: a plain strided copy of a
-    line took seven times longer, more than the median itself.
-    """
-    if samples.ndim != 2:
-        return np.ascontiguousarray(np.swapaxes(samples, -1, -2), dtype=np.float32)
-    out = np.empty(samples.shape[::-1], dtype=np.float32)
-    for i in range(0, samples.shape[0], 32):
-        out[:, i:i + 32] = samples[i:i + 32].T
-    return out
-
-
-def _median_trace(samples: np.ndarray) -> np.ndarray:
-    """Median over the trace axis (-2) of ``(..., trace, twt)`` samples: ``(..., twt)``.
-
-    One partition of a contiguous ``(twt, trace)`` copy: NumPy's median along the strided
-    trace axis is about a third slower. A column holding NaN gives NaN, as ``np.median``.
-    """
-    t = _transposed(samples)
-    n = t.shape[-1]
-    k = n // 2
-    t.partition(k, axis=-1)
-    median = t[..., k].copy()
-    if n % 2 == 0:  # the mean of the two middle values; the lower one leads the left part
-        median += t[..., :k].max(axis=-1)
-        median *= np.float32(0.5)
-    median[np.isnan(t).any(axis=-1)] = np.nan
-    return median
-
-
-def _background_core(samples: np.ndarray, *, method: str) -> np.ndarray:
-    """Samples ``(..., trace, twt)`` minus their mean or median trace, float32."""
-    if method == "mean":  # accumulated in double: thousands of traces per line
-        background = samples.mean(axis=-2, dtype=np.float64).astype(np.float32)
-    else:
-        background = _median_trace(samples)
-    return np.subtract(samples, background[..., None, :], dtype=np.float32)
-
-
-def _check_background(method: str) -> str:
-    if method not in ("mean", "median"):
-        raise SettingsError(f"background method must be 'mean' or 'median', got {method!r}",
-                            where="--background")
-    return method
-
-
-def remove_background(line: xr.DataArray, *, method: str = "mean") -> xr.DataArray:
-    """Subtract the line's mean (or median) trace, removing horizontal banding.
-
-    Antenna ringing and the direct wave are the same on every trace; subtracting the average
-    trace removes them (and any truly flat reflector along the whole line, which is the usual
-    price of this step).
+    See :mod:`slicer.processing.background` for the methods and what each removes.
 
     Parameters
     ----------
     line : xarray.DataArray
-        Dims ``(trace, twt)``.
-    method : {"mean", "median"}
-        The median resists strong local reflections better; the mean is faster.
+        Dims ``(trace, twt)``; ``twt`` in ns.
+    method : str or Background
+        ``"scaled"`` (the median trace fitted to each trace in a sliding window: no ghosts
+        under strong reflectors), ``"median"`` or ``"mean"`` (subtracted as they are), each
+        optionally limited to a time window, ``"median:0-12"`` (ns).
     """
     # Not NaN-aware: readers have set non-finite samples to 0, and NaN-aware medians loop in
     # Python over every sample (a third of a build's time when it was used)
-    method = _check_background(method)
+    spec = _check_background(method)
     data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
     out = xr.apply_ufunc(
-        _background_core, data, kwargs={"method": method},
+        background_core, data, kwargs=_background_kwargs(spec, line),
         input_core_dims=[[TRACE, TWT]], output_core_dims=[[TRACE, TWT]],
         dask="parallelized", output_dtypes=[np.float32], keep_attrs=True)
     out = out.transpose(*line.dims)
     out.attrs = dict(line.attrs)
-    return _add_history(out, f"background removal ({method} trace)")
+    return _add_history(out, spec.describe())
+
+
+def _check_background(method) -> Background:
+    spec = parse_background(method)
+    if spec is None:
+        raise SettingsError("no background method given ('off' means: do not call this)",
+                            where="--background")
+    return spec
+
+
+def _background_kwargs(spec: Background, line: xr.DataArray) -> dict:
+    twt = line[TWT].values
+    dt = sample_interval(line)
+    return {"method": spec.method,
+            "window": window_samples(spec.window, dt=dt, twt0=float(twt[0]))}
 
 
 # ----------------------------------------------------------------------------------------- gain
@@ -371,7 +345,7 @@ def envelope(line: xr.DataArray) -> xr.DataArray:
 
 # ------------------------------------------------------------------------------- the fused chain
 
-def _chain_core(samples: np.ndarray, *, size: int | None, background: str | None,
+def _chain_core(samples: np.ndarray, *, size: int | None, background: dict | None,
                 factor: np.ndarray | None, take_envelope: bool) -> np.ndarray:
     """Dewow, background removal, gain and envelope of ``(..., trace, twt)`` samples.
 
@@ -382,7 +356,7 @@ def _chain_core(samples: np.ndarray, *, size: int | None, background: str | None
     if size is not None:
         out = _dewow_core(out, size=size)
     if background is not None:
-        out = _background_core(out, method=background)
+        out = background_core(out, **background)
     if factor is not None:
         out = _gain_core(out, factor=factor)
     if take_envelope:
@@ -391,7 +365,7 @@ def _chain_core(samples: np.ndarray, *, size: int | None, background: str | None
 
 
 def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
-                  background: str | None = "median",
+                  background: str | Background | None = "scaled",
                   gain: tuple[str, float] | None = ("power", 1.0),
                   take_envelope: bool = True) -> xr.DataArray:
     """Dewow, background removal, gain and envelope in one pass: the result of
@@ -407,8 +381,8 @@ def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
         Dims ``(trace, twt)``, time-zero corrected.
     dewow_ns : float, None or "off"
         Dewow window (ns); None for the default of :func:`dewow`; ``"off"`` for no dewow.
-    background : {"median", "mean"} or None
-        Background removal method, None for none.
+    background : str, Background or None
+        Background removal (see :func:`remove_background`), None or ``"off"`` for none.
     gain : (kind, value) or None
         Gain curve (see :func:`apply_gain`), None for none.
     take_envelope : bool
@@ -419,8 +393,9 @@ def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
     if dewow_ns != "off":
         size = _wow_window(line, dt, dewow_ns)
         steps.append(f"dewow {size * dt:.2f} ns")
-    if background is not None:
-        steps.append(f"background removal ({_check_background(background)} trace)")
+    spec = parse_background(background)
+    if spec is not None:
+        steps.append(spec.describe())
     if gain is not None:
         kind, value = gain
         if not math.isfinite(value) or value < 0:
@@ -430,7 +405,8 @@ def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
         steps.append(f"gain {kind} {value:g}")
     if take_envelope:
         steps.append("envelope")
-    core = {"size": size, "background": background, "factor": factor,
+    core = {"size": size, "factor": factor,
+            "background": None if spec is None else _background_kwargs(spec, line),
             "take_envelope": take_envelope}
     if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array
         out = line.copy(data=_chain_core(line.values, **core))

@@ -215,7 +215,7 @@ def test_envelope_equals_scipy_hilbert_on_the_padded_trace(n):
 def test_median_background_equals_numpy_median(n_traces):
     # Reference: numpy.median over the traces (the middle value, or the mean of the two middle
     # values for an even count), subtracted from every trace.
-    from slicer.processing.steps import _median_trace
+    from slicer.processing.background import median_trace as _median_trace
     x = np.random.default_rng(n_traces).normal(size=(n_traces, 97)).astype(np.float32)
     np.testing.assert_allclose(_median_trace(x), np.median(x, axis=0), rtol=1e-6, atol=1e-7)
     out = remove_background(make_line(x), method="median").values
