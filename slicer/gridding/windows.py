@@ -254,6 +254,19 @@ def _reduce_along(line: xr.DataArray, dim: str, lo: np.ndarray, hi: np.ndarray,
         bottom=(SLICE, windows.bottom, {"units": u, "axis": windows.axis}))
 
 
+def window_signs(line: xr.DataArray, windows: Windows, *,
+                 velocity: float | None = None) -> np.ndarray:
+    """Sign of the strongest sample of each trace in every window: a ``(trace, slice)`` array.
+
+    ``line`` is the processed trace before the envelope (dims ``(trace, twt)`` or
+    ``(trace, depth)``); see :func:`slicer.processing.polarity.window_signs_core`.
+    """
+    from slicer.processing.polarity import window_signs_core
+    dim, lo, hi = _limits_along(line, windows, velocity)
+    samples = np.asarray(line.transpose(..., dim).values)
+    return window_signs_core(samples, axis_values=line[dim].values, top=lo, bottom=hi)
+
+
 def record_reach(twt_end: float, windows: Windows, *, velocity: float | None) -> np.ndarray:
     """Boolean mask of the windows whose bottom lies within a record ending at ``twt_end`` ns."""
     _, t_bottom = windows.times(velocity)
