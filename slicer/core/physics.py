@@ -62,19 +62,44 @@ def permittivity_from_velocity(velocity: float) -> float:
     return (C_M_PER_NS / v) ** 2
 
 
-def depth_from_time(twt_ns, *, velocity: float):
+def check_separation(separation: float, *, where: str = "--antenna-separation") -> float:
+    """A transmitter-receiver separation (m), checked: finite, 0 or more, under 10 m."""
+    try:
+        s = float(separation)
+    except (TypeError, ValueError):
+        raise SettingsError(f"must be a number of metres, got {separation!r}",
+                            where=where) from None
+    if not (math.isfinite(s) and 0.0 <= s < 10.0):
+        raise SettingsError(f"must be between 0 and 10 m, got {separation!r}", where=where)
+    return s
+
+
+def depth_from_time(twt_ns, *, velocity: float, separation: float = 0.0):
     """Depth (m, positive down) of a reflector at two-way time ``twt_ns`` below time zero.
 
-    ``d = v * t / 2``: the wave travels down and back up.
+    ``d = v t / 2`` with the antennas together; with transmitter and receiver ``s`` apart on
+    the surface, the wave runs down to the reflector below their midpoint and up again, and
+    ``d = sqrt((v t / 2)^2 - (s / 2)^2)`` (straight rays in a uniform ground; the usual
+    common-offset geometry). Times before the direct ground wave (``t < s / v``) are at
+    depth 0.
     """
     v = check_velocity(velocity)
-    return np.asarray(twt_ns, dtype=float) * v / 2.0
+    half_path = np.asarray(twt_ns, dtype=float) * v / 2.0
+    s = check_separation(separation)
+    if s == 0.0:
+        return half_path
+    return np.sqrt(np.maximum(half_path ** 2 - (s / 2.0) ** 2, 0.0)) * np.sign(half_path)
 
 
-def time_from_depth(depth_m, *, velocity: float):
-    """Two-way time (ns) below time zero of a reflector at ``depth_m`` (m), ``t = 2 d / v``."""
+def time_from_depth(depth_m, *, velocity: float, separation: float = 0.0):
+    """Two-way time (ns) below time zero of a reflector at ``depth_m`` (m):
+    ``t = 2 sqrt(d^2 + (s / 2)^2) / v`` (``2 d / v`` with the antennas together)."""
     v = check_velocity(velocity)
-    return 2.0 * np.asarray(depth_m, dtype=float) / v
+    d = np.asarray(depth_m, dtype=float)
+    s = check_separation(separation)
+    if s == 0.0:
+        return 2.0 * d / v
+    return 2.0 * np.sqrt(d ** 2 + (s / 2.0) ** 2) / v
 
 
 def to_depth(line: xr.DataArray, *, velocity: float) -> xr.DataArray:

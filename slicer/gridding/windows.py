@@ -46,8 +46,10 @@ class Windows:
         """The windows where boolean ``keep`` is true."""
         return Windows(self.axis, self.top[keep], self.bottom[keep])
 
-    def times(self, velocity: float | None) -> tuple[np.ndarray, np.ndarray]:
-        """Window limits as two-way times below time zero (ns)."""
+    def times(self, velocity: float | None, *, separation: float = 0.0
+              ) -> tuple[np.ndarray, np.ndarray]:
+        """Window limits as two-way times below time zero (ns); ``separation`` (m) is the
+        transmitter-receiver distance (see :func:`slicer.core.physics.time_from_depth`)."""
         if self.axis == TWT:
             return self.top, self.bottom
         if velocity is None:
@@ -56,8 +58,8 @@ class Windows:
                                 where="--velocity")
         if hasattr(velocity, "profile"):  # a velocity model: the slowest place is the latest
             return _model_times(velocity, self.top), _model_times(velocity, self.bottom)
-        return time_from_depth(self.top, velocity=velocity), time_from_depth(
-            self.bottom, velocity=velocity)
+        return (time_from_depth(self.top, velocity=velocity, separation=separation),
+                time_from_depth(self.bottom, velocity=velocity, separation=separation))
 
     def describe(self) -> str:
         u = self.units
@@ -190,32 +192,33 @@ def _window_means_core(samples: np.ndarray, *, twt: np.ndarray, t_top: np.ndarra
     return means.astype(np.float32)
 
 
-def _limits_along(line: xr.DataArray, windows: Windows, velocity) -> tuple[str, np.ndarray,
-                                                                           np.ndarray]:
+def _limits_along(line: xr.DataArray, windows: Windows, velocity, separation: float = 0.0
+                  ) -> tuple[str, np.ndarray, np.ndarray]:
     """The dimension windows are cut along, and the window limits on it."""
     if DEPTH in line.dims:  # already resampled to depth (a layered or lateral model)
         return DEPTH, windows.top, windows.bottom
     if velocity is not None and not hasattr(velocity, "profile"):
         velocity = check_velocity(velocity)
-    t_top, t_bottom = windows.times(velocity)
+    t_top, t_bottom = windows.times(velocity, separation=separation)
     return TWT, t_top, t_bottom
 
 
 def window_values(line: xr.DataArray, windows: Windows, *,
-                  velocity: float | None = None) -> np.ndarray:
+                  velocity: float | None = None, separation: float = 0.0) -> np.ndarray:
     """The values of :func:`reduce_to_windows` as a plain ``(trace, slice)`` float32 array.
 
     For one in-memory line (a build's line task): the same core, without building the
     labelled result.
     """
-    dim, lo, hi = _limits_along(line, windows, velocity)
+    dim, lo, hi = _limits_along(line, windows, velocity, separation)
     if line.chunks is not None or line.dims[-1] != dim:
-        return np.asarray(reduce_to_windows(line, windows, velocity=velocity).values)
+        return np.asarray(reduce_to_windows(line, windows, velocity=velocity,
+                                            separation=separation).values)
     return _window_means_core(line.values, twt=line[dim].values, t_top=lo, t_bottom=hi)
 
 
 def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
-                      velocity: float | None = None) -> xr.DataArray:
+                      velocity: float | None = None, separation: float = 0.0) -> xr.DataArray:
     """Mean of each trace over every window: a ``(trace, slice)`` table.
 
     Parameters
@@ -227,13 +230,15 @@ def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
         Depth windows (then ``velocity`` is required) or time windows.
     velocity : float, optional
         Constant radar velocity (m/ns) converting depth windows to time windows.
+    separation : float, optional
+        Transmitter-receiver separation (m) in that conversion.
 
     Returns
     -------
     xarray.DataArray
         Dims ``(trace, slice)``, NaN for windows the record does not reach.
     """
-    dim, lo, hi = _limits_along(line, windows, velocity)
+    dim, lo, hi = _limits_along(line, windows, velocity, separation)
     return _reduce_along(line, dim, lo, hi, windows)
 
 
@@ -255,14 +260,14 @@ def _reduce_along(line: xr.DataArray, dim: str, lo: np.ndarray, hi: np.ndarray,
 
 
 def window_signs(line: xr.DataArray, windows: Windows, *,
-                 velocity: float | None = None) -> np.ndarray:
+                 velocity: float | None = None, separation: float = 0.0) -> np.ndarray:
     """Sign of the strongest sample of each trace in every window: a ``(trace, slice)`` array.
 
     ``line`` is the processed trace before the envelope (dims ``(trace, twt)`` or
     ``(trace, depth)``); see :func:`slicer.processing.polarity.window_signs_core`.
     """
     from slicer.processing.polarity import window_signs_core
-    dim, lo, hi = _limits_along(line, windows, velocity)
+    dim, lo, hi = _limits_along(line, windows, velocity, separation)
     samples = np.asarray(line.transpose(..., dim).values)
     return window_signs_core(samples, axis_values=line[dim].values, top=lo, bottom=hi)
 

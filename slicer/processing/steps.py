@@ -16,8 +16,9 @@ import scipy.ndimage
 import scipy.signal
 import xarray as xr
 
-from slicer.core.conventions import TRACE, TWT
+from slicer.core.conventions import C_M_PER_NS, TRACE, TWT
 from slicer.core.errors import SettingsError
+from slicer.core.physics import check_separation
 from slicer.processing.background import (
     Background,
     background_core,
@@ -137,11 +138,16 @@ def pick_time_zero(line: xr.DataArray, *, threshold: float = 0.5) -> float:
 
 
 def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",
-                      threshold: float = 0.5) -> xr.DataArray:
+                      threshold: float = 0.5, separation: float = 0.0) -> xr.DataArray:
     """Shift the time axis so that ``twt = 0`` at time zero.
 
     Only the ``twt`` coordinate changes (no resampling); samples before time zero keep negative
     times. ``attrs["time_zero_ns"]`` accumulates the shift applied.
+
+    Time zero is the moment the transmitter fires. With the antennas ``s`` metres apart the
+    direct air wave reaches the receiver ``s / c`` later, so a picked time zero is the direct
+    wave's main peak minus ``s / c`` (``c`` = 0.2998 m/ns; a 0.1 m separation moves it
+    0.33 ns). A time zero given in ns is taken as the firing time, as it is.
 
     Parameters
     ----------
@@ -152,13 +158,17 @@ def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",
         :func:`pick_time_zero`.
     threshold : float
         Passed to :func:`pick_time_zero` when ``time_zero="auto"``.
+    separation : float
+        Transmitter-receiver separation (m), for a picked time zero.
     """
+    s = check_separation(separation)
     if isinstance(time_zero, str):
         if time_zero != "auto":
             raise SettingsError(f"time zero must be a number of ns or 'auto', got {time_zero!r}",
                                 where="--time-zero")
-        t0 = pick_time_zero(line, threshold=threshold)
-        how = f"time zero {t0:.3f} ns (picked)"
+        t0 = pick_time_zero(line, threshold=threshold) - s / C_M_PER_NS
+        how = (f"time zero {t0:.3f} ns (picked" +
+               (f", direct wave minus {s:g} m / c)" if s else ")"))
     else:
         t0 = float(time_zero)
         if not math.isfinite(t0):

@@ -78,3 +78,58 @@ def test_to_depth_relabels_axis():
     np.testing.assert_allclose(out["depth"].values, np.arange(5) * 0.1)
     assert out["depth"].attrs["positive"] == "down"
     assert out.attrs["velocity"] == 0.1 and out.attrs["line"] == "a"
+
+
+# --- antenna separation: straight rays below the antennas' midpoint (Pythagoras; the usual
+# common-offset geometry, e.g. Annan 2009 in Jol (ed.), "Ground Penetrating Radar: Theory and
+# Applications", ch. 1 - cited from memory). Check values computed here by hand.
+
+def test_bistatic_time_hand_value():
+    from slicer.core.physics import time_from_depth
+    # d = 1.0 m, s = 0.5 m, v = 0.1 m/ns: t = 2 sqrt(1 + 0.25^2) / 0.1 = 20.615528 ns
+    assert float(time_from_depth(1.0, velocity=0.1, separation=0.5)) == pytest.approx(
+        20.615528, abs=1e-6)
+    # the direct ground wave, d = 0: t = s / v = 5 ns
+    assert float(time_from_depth(0.0, velocity=0.1, separation=0.5)) == pytest.approx(5.0)
+
+
+def test_bistatic_depth_hand_value():
+    from slicer.core.physics import depth_from_time
+    # t = 20 ns, v = 0.1 m/ns, s = 0.5 m: d = sqrt(1.0^2 - 0.25^2) = 0.968246 m (not 1.0)
+    assert float(depth_from_time(20.0, velocity=0.1, separation=0.5)) == pytest.approx(
+        0.968246, abs=1e-6)
+    # before the ground wave: depth 0
+    assert float(depth_from_time(3.0, velocity=0.1, separation=0.5)) == 0.0
+
+
+@given(d=st.floats(0, 20), s=st.floats(0, 2), v=st.floats(0.03, 0.299))
+def test_bistatic_round_trip(d, s, v):
+    from slicer.core.physics import depth_from_time, time_from_depth
+    t = time_from_depth(d, velocity=v, separation=s)
+    assert float(depth_from_time(t, velocity=v, separation=s)) == pytest.approx(d, abs=1e-9)
+
+
+@pytest.mark.parametrize("bad", [-0.1, math.inf, math.nan, 12.0, "wide"])
+def test_bad_separation_refused(bad):
+    from slicer.core.physics import check_separation
+    with pytest.raises(SettingsError) as info:
+        check_separation(bad)
+    assert info.value.where == "--antenna-separation"
+
+
+def test_picked_time_zero_is_the_direct_wave_minus_separation_over_c():
+    import xarray as xr
+
+    from slicer.core.conventions import C_M_PER_NS
+    from slicer.processing.steps import correct_time_zero
+    t = 0.05 * np.arange(400)
+    a = (math.pi * 0.5 * (t - 5.0)) ** 2  # a Ricker wavelet peaking at 5.0 ns
+    line = xr.DataArray(np.tile((1 - 2 * a) * np.exp(-a), (4, 1)), dims=("trace", "twt"),
+                        coords={"twt": t})
+    together = correct_time_zero(line)
+    apart = correct_time_zero(line, separation=0.3)
+    assert together.attrs["time_zero_ns"] == pytest.approx(5.0, abs=0.01)
+    # 0.3 m / 0.2998 m/ns = 1.0007 ns earlier
+    assert apart.attrs["time_zero_ns"] == pytest.approx(5.0 - 0.3 / C_M_PER_NS, abs=0.01)
+    assert together.attrs["time_zero_ns"] - apart.attrs["time_zero_ns"] == pytest.approx(
+        1.000692, abs=1e-6)
