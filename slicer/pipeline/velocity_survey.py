@@ -2,12 +2,14 @@
 
 Each line is read, placed and time-zero corrected, its hyperbolas are found and fitted
 (:func:`slicer.velocity.diffraction.find_diffractions`), and the fits of all lines are combined by
-:func:`slicer.velocity.diffraction.survey_velocity` (the slowest consistent group, since hyperbolas
-of linear targets crossed obliquely look too fast). Depths are given with the survey velocity.
+:func:`slicer.velocity.combine.survey_velocity` (secondary events set aside, linear targets
+crossed obliquely corrected, groups weighed by quality, a bootstrap over lines for the error;
+the rule is in that module's docstring). Depths are given with the survey velocity.
 """
 
 from __future__ import annotations
 
+import math
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -21,7 +23,8 @@ from slicer.core.progress import bar_for
 from slicer.geometry.survey import load_line, survey_info
 from slicer.pipeline.settings import BuildSettings
 from slicer.processing.steps import correct_time_zero
-from slicer.velocity.diffraction import find_diffractions, survey_velocity
+from slicer.velocity.combine import survey_velocity
+from slicer.velocity.diffraction import find_diffractions
 from slicer.velocity.model_file import write_velocity_model
 from slicer.velocity.models import ConstantVelocity
 
@@ -34,16 +37,37 @@ class VelocityAnalysis:
     velocity_std: float
     fits: list
     kept: list
+    fit_std: float = math.nan
+    groups: tuple = ()
+    assessed: tuple = ()
 
     def to_json(self) -> dict:
-        """``velocity``, ``velocity_std`` (m/ns) and ``fits`` with position, time and depth."""
+        """``velocity``, ``velocity_std`` (m/ns; bootstrap over lines), ``velocity_std_fits``
+        (from the fits' own errors), ``groups`` and ``fits`` with position, time, depth, shape
+        (radius, m) and what the combination made of each (``reason``, ``corrected_velocity``
+        for a linear target crossed at ``crossing_angle`` degrees)."""
         kept = {id(f) for f in self.kept}
+        notes = {id(a.fit): a for a in self.assessed}
+
+        def number(value):
+            return None if value is None or not math.isfinite(value) else float(value)
+
+        def row(f):
+            note = notes.get(id(f))
+            return {"line": f.line, "velocity": f.velocity, "velocity_std": f.velocity_std,
+                    "x": f.x, "y": f.y, "time": f.time, "depth": self.velocity * f.time / 2,
+                    "score": f.score, "kept": id(f) in kept, "shape": f.fit.shape,
+                    "radius": f.fit.radius, "radius_std": f.fit.radius_std,
+                    "reason": note.reason if note else None,
+                    "corrected_velocity": number(note.velocity) if note else None,
+                    "crossing_angle": number(note.angle) if note else None}
+
         return {"velocity": self.velocity, "velocity_std": self.velocity_std,
-                "units": {"velocity": "m/ns", "x": "m", "y": "m", "time": "ns", "depth": "m"},
-                "fits": [{"line": f.line, "velocity": f.velocity,
-                          "velocity_std": f.velocity_std, "x": f.x, "y": f.y, "time": f.time,
-                          "depth": self.velocity * f.time / 2, "score": f.score,
-                          "kept": id(f) in kept} for f in self.fits]}
+                "velocity_std_fits": number(self.fit_std),
+                "units": {"velocity": "m/ns", "x": "m", "y": "m", "time": "ns", "depth": "m",
+                          "radius": "m", "crossing_angle": "degree"},
+                "groups": [g._asdict() for g in self.groups],
+                "fits": [row(f) for f in self.fits]}
 
     def model(self) -> ConstantVelocity:
         """The estimate as a velocity model for ``slicer build --velocity-model``."""
@@ -82,7 +106,8 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
             bar.update(line.sizes["trace"])
     estimate = survey_velocity(fits)
     return VelocityAnalysis(float(estimate.velocity), float(estimate.std), fits,
-                            list(estimate.kept))
+                            list(estimate.kept), float(estimate.fit_std), estimate.groups,
+                            estimate.assessed)
 
 
 def plot_line_fits(line, fits, path: Path) -> Path:

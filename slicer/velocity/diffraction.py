@@ -10,17 +10,16 @@ time, velocity) are then refined: picks are taken at the envelope peak nearest t
 time on every trace within the aperture and fitted with
 :func:`~slicer.velocity.hyperbola.fit_hyperbola`; poor fits are rejected.
 
-:func:`survey_velocity` combines the fits of a whole survey. A linear target (pipe, wall,
-drain) crossed at an angle ``a`` to the line gives a hyperbola whose apparent velocity is
-``v / sin(a)``, faster than the ground's, so the estimate favours the slowest cluster of
-mutually consistent fits that has enough members.
+By default each set of picks is fitted both as a point and as a round target and the round
+form kept only when the picks demand it (:func:`~slicer.velocity.hyperbola.fit_target`).
+:func:`survey_velocity` (defined in :mod:`slicer.velocity.combine`, re-exported here) combines
+the fits of a whole survey.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass, fields
-from typing import NamedTuple
 
 import numpy as np
 import scipy.fft
@@ -32,7 +31,8 @@ from slicer.core.errors import SettingsError
 from slicer.core.physics import check_velocity
 from slicer.processing.migration import trace_spacing
 from slicer.processing.steps import dominant_frequency, sample_interval
-from slicer.velocity.hyperbola import HyperbolaFit, fit_hyperbola, hyperbola_time
+from slicer.velocity.combine import SurveyVelocity, survey_velocity
+from slicer.velocity.hyperbola import HyperbolaFit, fit_hyperbola, fit_target, hyperbola_time
 
 __all__ = ["Diffraction", "SurveyVelocity", "diffraction_table", "find_diffractions",
            "survey_velocity"]
@@ -65,6 +65,13 @@ class Diffraction:
         Semblance (0-1) of the scan at the detection.
     fit : HyperbolaFit
         The full least-squares fit.
+    heading : float
+        Direction of the line at the apex, degrees anticlockwise from the CRS x axis (NaN
+        without positions).
+    period : float
+        Dominant period of the line, ns.
+    strength : float
+        Coherent amplitude along the hyperbola (root of the stack power), in the data's units.
     """
 
     line: str
@@ -78,14 +85,9 @@ class Diffraction:
     velocity_std: float
     score: float
     fit: HyperbolaFit
-
-
-class SurveyVelocity(NamedTuple):
-    """Result of :func:`survey_velocity`: ``velocity, std, kept`` (m/ns, m/ns, list)."""
-
-    velocity: float
-    std: float
-    kept: list
+    heading: float = math.nan
+    period: float = math.nan
+    strength: float = math.nan
 
 
 def _analytic(samples: np.ndarray, dt: float, f_dom: float) -> np.ndarray:
@@ -195,6 +197,12 @@ def _pick(env: np.ndarray, distance: np.ndarray, t_axis: np.ndarray, *, x0: floa
     return distance[near][interior], t[interior], y1[interior]
 
 
+def _fit(x, t, w, radius, period):
+    if radius == "auto":  # picks are good to about a fiftieth of a period (common practice)
+        return fit_target(x, t, weights=w, precision=period / 50)
+    return fit_hyperbola(x, t, radius=bool(radius), weights=w)
+
+
 def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, min_picks):
     """Pick, fit, drop outlying picks and fit again; ``None`` when the picks fit badly."""
     fit = None
@@ -211,11 +219,11 @@ def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, m
         if xs.size < min_picks:
             return None
         try:
-            fit = fit_hyperbola(xs, ts, radius=radius, weights=amp ** 2)
+            fit = _fit(xs, ts, amp ** 2, radius, period)
             residual = np.abs(fit.travel_time(xs) - ts)
             good = residual <= max(3.0 * 1.4826 * np.median(residual), 0.05 * period)
             if good.sum() >= min_picks and not good.all():
-                fit = fit_hyperbola(xs[good], ts[good], radius=radius, weights=amp[good] ** 2)
+                fit = _fit(xs[good], ts[good], amp[good] ** 2, radius, period)
         except SettingsError:
             return None
     return fit
@@ -224,7 +232,7 @@ def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, m
 def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 1.5,
                       max_angle: float = 50.0, threshold: float = 0.5,
                       min_time: float | None = None, frequency_ghz: float | None = None,
-                      radius: bool = False, max_relative_std: float = 0.1,
+                      radius: bool | str = "auto", max_relative_std: float = 0.1,
                       min_picks: int = 8) -> list[Diffraction]:
     """Find diffraction hyperbolas on a line and fit each one, without picks.
 
@@ -258,8 +266,10 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
     frequency_ghz : float, optional
         Dominant frequency of the record, GHz; default
         :func:`~slicer.processing.steps.dominant_frequency` of the line.
-    radius : bool
-        Fit the round-target form (radius as well).
+    radius : bool or "auto"
+        ``False``: fit points; ``True``: fit the round-target form (radius as well);
+        ``"auto"``: fit both and keep the round one only when the F-test and the radius's
+        standard error call for it (:func:`~slicer.velocity.hyperbola.fit_target`).
     max_relative_std : float
         Largest relative standard error of the velocity of a kept fit.
     min_picks : int
@@ -287,8 +297,11 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
                               ("max_relative_std", max_relative_std, max_relative_std > 0)):
         if not (math.isfinite(value) and ok):
             raise SettingsError(f"out of range: {value!r}", where=option)
-    if not (isinstance(min_picks, int | np.integer) and min_picks >= (5 if radius else 4)):
-        raise SettingsError(f"must be an integer >= {5 if radius else 4}, got {min_picks!r}",
+    if radius not in (True, False, "auto"):
+        raise SettingsError(f"must be True, False or 'auto', got {radius!r}", where="radius")
+    least = 5 if radius is True else 4
+    if not (isinstance(min_picks, int | np.integer) and min_picks >= least):
+        raise SettingsError(f"must be an integer >= {least}, got {min_picks!r}",
                             where="min_picks")
     dx = trace_spacing(line)
     dt = sample_interval(line)
@@ -370,95 +383,18 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
                for d in found):
             continue  # the same hyperbola reached from a side peak
         trace = int(np.argmin(np.abs(distance - fit.x0)))
+        # the line's direction over the hyperbola's reach (zigzag lines run both ways)
+        ends = fit.x0 + np.array([-reach, reach])
+        ex, ey = (np.interp(ends, distance[order], c[order]) for c in (xs, ys))
         found.append(Diffraction(
             line=name, trace=trace, distance=fit.x0,
             x=float(np.interp(fit.x0, distance[order], xs[order])),
             y=float(np.interp(fit.x0, distance[order], ys[order])),
             time=fit.t0, depth=fit.depth, velocity=fit.velocity,
-            velocity_std=fit.velocity_std, score=score, fit=fit))
+            velocity_std=fit.velocity_std, score=score, fit=fit,
+            heading=math.degrees(math.atan2(ey[1] - ey[0], ex[1] - ex[0])), period=period,
+            strength=math.sqrt(float(power[i, j]))))
     return found
-
-
-def _weighted_median(values: np.ndarray, weights: np.ndarray) -> float:
-    order = np.argsort(values)
-    cum = np.cumsum(weights[order])
-    return float(values[order][np.searchsorted(cum, 0.5 * cum[-1])])
-
-
-def survey_velocity(fits, *, tolerance: float = 0.05, min_count: int = 3) -> SurveyVelocity:
-    """A robust survey-wide velocity from many hyperbola fits.
-
-    Fits are grouped by velocity: the modes of a kernel density of ``log(v)`` (Gaussian,
-    bandwidth ``tolerance / 2``) each gather the fits within ``tolerance`` (relative) of them.
-    The slowest mode with at least ``min_count`` fits is taken, because a linear target
-    crossed at an angle ``a`` to the line appears faster (``v / sin(a)``) while point targets
-    show the true velocity; fits slower than every supported mode are isolated outliers. The
-    estimate is the median of that group weighted by ``1 / velocity_std^2``.
-
-    Parameters
-    ----------
-    fits : sequence
-        :class:`Diffraction` or :class:`~slicer.velocity.hyperbola.HyperbolaFit` records
-        (anything with ``velocity`` and ``velocity_std``, m/ns).
-    tolerance : float
-        Relative half-width of a group of consistent velocities.
-    min_count : int
-        Fewest fits a group needs to be believed.
-
-    Returns
-    -------
-    SurveyVelocity
-        ``velocity`` (m/ns); ``std``, its standard error (m/ns): the larger of the group's
-        robust scatter (1.4826 MAD) times ``1.2533 / sqrt(n)`` and the standard error of the
-        weighted mean of the fits; ``kept``, the fits used.
-
-    Raises
-    ------
-    SettingsError
-        No fits, bad options, or no group of ``min_count`` consistent fits.
-    """
-    if not 0 < tolerance < 1:
-        raise SettingsError(f"must be in (0, 1), got {tolerance!r}", where="tolerance")
-    if not (isinstance(min_count, int) and min_count >= 1):
-        raise SettingsError(f"must be a positive integer, got {min_count!r}", where="min_count")
-    fits = [f for f in fits if math.isfinite(f.velocity) and f.velocity > 0]
-    if len(fits) < min_count:
-        raise SettingsError(f"{len(fits)} usable hyperbola fits; at least {min_count} are "
-                            "needed for a survey velocity", where="fits")
-    vel = np.array([f.velocity for f in fits])
-    std = np.array([f.velocity_std for f in fits])
-    std = np.where(np.isfinite(std) & (std > 0), std, max(1e-6, 1e-3 * float(np.median(vel))))
-    u = np.log(vel)
-    grid = np.arange(u.min() - tolerance, u.max() + tolerance, tolerance / 20)
-    density = np.exp(-0.5 * ((grid[:, None] - u[None, :]) / (tolerance / 2)) ** 2).sum(axis=1)
-    modes = [m for m in range(grid.size)
-             if density[m] >= density[max(m - 1, 0)] and density[m] >= density[
-                 min(m + 1, grid.size - 1)]]
-    w_all = 1.0 / std ** 2
-    chosen = None
-    for m in modes:  # ascending velocity
-        members = np.abs(u - grid[m]) <= tolerance
-        if members.sum() < min_count:
-            continue
-        # re-centre the group on its own weighted median until it settles, so that a mode on
-        # the shoulder of a larger group does not cut that group in two
-        for _ in range(10):
-            centre = math.log(_weighted_median(vel[members], w_all[members]))
-            moved = np.abs(u - centre) <= tolerance
-            if (moved == members).all() or moved.sum() < min_count:
-                break
-            members = moved
-        chosen = members
-        break
-    if chosen is None:
-        raise SettingsError(f"no {min_count} fits agree within {tolerance:.0%}; velocities "
-                            f"range {vel.min():.3g}-{vel.max():.3g} m/ns", where="fits")
-    kept = [f for f, k in zip(fits, chosen, strict=True) if k]
-    vk, w = vel[chosen], w_all[chosen]
-    estimate = _weighted_median(vk, w)
-    mad = 1.4826 * float(np.median(np.abs(vk - estimate)))
-    error = max(1.2533 * mad / math.sqrt(vk.size), 1.0 / math.sqrt(float(w.sum())))
-    return SurveyVelocity(float(estimate), float(error), kept)
 
 
 def diffraction_table(found) -> xr.Dataset:
@@ -478,7 +414,7 @@ def diffraction_table(found) -> xr.Dataset:
     found = list(found)
     units = {"trace": "1", "distance": UNITS[DISTANCE], "x": UNITS[X], "y": UNITS[Y],
              "time": UNITS[TWT], "depth": "m", "velocity": "m/ns", "velocity_std": "m/ns",
-             "score": "1"}
+             "score": "1", "heading": "degree", "period": UNITS[TWT], "strength": "1"}
     data = {}
     for f in fields(Diffraction):
         if f.name == "fit":

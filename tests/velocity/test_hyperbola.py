@@ -131,3 +131,36 @@ def test_fit_refuses_bad_weights():
     for w in (np.zeros(9), np.ones(8), -np.ones(9)):
         with pytest.raises(SettingsError, match="weights"):
             fit_hyperbola(x, t, weights=w)
+
+
+def test_round_fit_of_noisy_picks_recovers_velocity_and_radius():
+    # Shihab & Al-Nuaimy (2005) form; a radius half the depth, picks 2 m either side, 0.01 ns
+    # noise: fit_target must keep the round form and its radius and velocity must be within
+    # 2.5 standard errors of the truth in most draws (normal theory: 98.8 %)
+    from slicer.velocity.hyperbola import fit_target
+    rng = np.random.default_rng(8)
+    x = np.arange(-2.0, 2.01, 0.05)
+    clean = hyperbola_time(x, x0=0.1, t0=20.0, velocity=0.1, radius=0.5)
+    fits = [fit_target(x, clean + rng.normal(0.0, 0.01, x.size)) for _ in range(60)]
+    assert sum(f.shape == "round" for f in fits) >= 57
+    good_r = sum(abs(f.radius - 0.5) <= 2.5 * f.radius_std for f in fits if f.radius > 0)
+    good_v = sum(abs(f.velocity - 0.1) <= 2.5 * f.velocity_std for f in fits if f.radius > 0)
+    assert good_r >= 54 and good_v >= 54
+    assert all(f.round_p < 0.01 for f in fits if f.shape == "round")
+
+
+def test_point_target_stays_a_point_and_the_radius_is_bounded():
+    from slicer.velocity.hyperbola import fit_target
+    rng = np.random.default_rng(9)
+    x = np.arange(-1.2, 1.21, 0.05)
+    clean = hyperbola_time(x, x0=0.0, t0=24.0, velocity=0.1)
+    fits = [fit_target(x, clean + rng.normal(0.0, 0.1, x.size)) for _ in range(100)]
+    # an F-test at 1 %: about one false round fit in a hundred (binomial, 5 or more: 0.06 %)
+    assert sum(f.shape == "round" for f in fits) <= 4
+    assert all(0 <= f.round_p <= 1 for f in fits)
+    # the round form alone never runs past its bound (the apex depth by default, 1.2 m)
+    for _ in range(20):
+        r = fit_hyperbola(x, clean + rng.normal(0.0, 0.1, x.size), radius=True)
+        assert 0 <= r.radius <= 1.25
+    with pytest.raises(SettingsError, match="alpha|precision"):
+        fit_target(x, clean, alpha=2.0)
