@@ -5,6 +5,8 @@ The cube follows the data model in DEVELOPERS.md: an ``envelope`` DataArray with
 coordinates, window bounds on the slice dim, and a scalar ``spatial_ref`` coordinate laid out
 the way rioxarray and GDAL read it.  The grid corner and cell size live in attrs so that every
 writer builds the affine transform exactly instead of re-deriving it from float coordinates.
+The CF attributes are made in :mod:`slicer.outputs.cf`; the slice dim's index, which selects
+by window, in :mod:`slicer.outputs.cube_index`.
 """
 
 from __future__ import annotations
@@ -12,7 +14,6 @@ from __future__ import annotations
 import math
 import os
 from collections.abc import Mapping, Sequence
-from datetime import UTC, datetime
 from pathlib import Path
 
 import dask
@@ -25,17 +26,15 @@ from affine import Affine
 from slicer.core.atomic import GuardedFile, atomic_path
 from slicer.core.conventions import C_M_PER_NS, DEPTH, TWT, UNITS, X, Y
 from slicer.core.errors import InputFileError, OutputError, SettingsError
-
-#: Name of the scalar grid-mapping coordinate (the name rioxarray and GDAL expect).
-GRID_MAPPING = "spatial_ref"
+from slicer.outputs import cf
+from slicer.outputs.cf import GRID_MAPPING
+from slicer.outputs.cube_index import index_windows
 
 #: Encoding keys the h5netcdf backend accepts; anything else left over from a read is dropped.
 _NC_ENCODING_KEYS = frozenset({
     "zlib", "complevel", "shuffle", "fletcher32", "contiguous", "chunksizes", "_FillValue",
     "dtype", "compression", "compression_opts", "endian",
 })
-
-_AXIS_LONG_NAME = {DEPTH: "depth below the ground surface", TWT: "two-way travel time"}
 
 #: Default tile edge, cells: the unit in which large cubes are produced and written.
 TILE = 256
@@ -96,7 +95,10 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
     Returns
     -------
     xarray.DataArray
-        Dims ``(axis, y, x)``, float32.
+        Dims ``(axis, y, x)``, float32, NaN as nodata (``encoding["_FillValue"]``, which
+        rioxarray reads as ``cube.rio.nodata``); the ``.rio`` accessor of rioxarray is
+        registered. The slice dim carries a :class:`slicer.outputs.cube_index.WindowIndex`:
+        ``cube.sel(depth=v)`` picks the slice whose window ``[top, bottom)`` holds ``v``.
 
     Raises
     ------
@@ -149,13 +151,12 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
             raise SettingsError(f"unknown CRS {crs!r} ({exc})", where="crs") from None
 
     unit = UNITS[axis]
-    projected = pcrs is not None
     xs = west + cell * (np.arange(nx) + 0.5)
     ys = north - cell * (np.arange(ny) + 0.5)
     coords: dict[str, object] = {
-        X: (X, xs, _plan_attrs(X, projected)),
-        Y: (Y, ys, _plan_attrs(Y, projected)),
-        axis: (axis, centres, _axis_attrs(axis)),
+        X: (X, xs, cf.plan_attrs(X)),
+        Y: (Y, ys, cf.plan_attrs(Y)),
+        axis: (axis, centres, cf.axis_attrs(axis)),
         f"{axis}_top": (axis, tops, {"long_name": f"top of the slice window ({axis})",
                                      "units": unit}),
         f"{axis}_bottom": (axis, bottoms, {"long_name": f"bottom of the slice window ({axis})",
@@ -172,9 +173,28 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
     }
     if pcrs is not None:
         transform = Affine(cell, 0.0, west, 0.0, -cell, north)
-        coords[GRID_MAPPING] = ((), 0, _grid_mapping_attrs(pcrs, transform))
+        coords[GRID_MAPPING] = cf.grid_mapping_variable(pcrs, transform)
         attrs["grid_mapping"] = GRID_MAPPING
-    return xr.DataArray(values, dims=(axis, Y, X), coords=coords, attrs=attrs, name=name)
+    cube = xr.DataArray(values, dims=(axis, Y, X), coords=coords, attrs=attrs, name=name)
+    return for_python(cube)
+
+
+def for_python(cube: xr.DataArray) -> xr.DataArray:
+    """Return ``cube`` ready for use in Python: the window index, NaN nodata, ``.rio``.
+
+    The cube every public function hands out (from :func:`new_cube` and the readers) goes
+    through here, so ``cube.rio.crs``, ``cube.rio.to_raster(...)`` and ``cube.rio.nodata``
+    work without the caller importing rioxarray, and selection by depth follows the windows.
+    """
+    # rioxarray loads rasterio: imported here, not at module level, so that nothing on the
+    # quick commands' path pays for it (tests/test_architecture.py).
+    import rioxarray  # noqa: F401  (registers the .rio accessor)
+
+    cube = index_windows(cube)
+    # NaN marks empty cells (DEVELOPERS.md); as an encoded fill value rioxarray reports it as
+    # both encoded_nodata and nodata, and every writer stores it as _FillValue.
+    cube.encoding["_FillValue"] = np.float32(np.nan)
+    return cube
 
 
 def empty_cube(shape: tuple[int, int, int], *, tile: int = TILE, **kwargs) -> xr.DataArray:
@@ -243,38 +263,6 @@ def check_tile(block, shape: tuple[int, ...], row0: int, col0: int) -> np.ndarra
     return values
 
 
-def _plan_attrs(dim: str, projected: bool) -> dict[str, str]:
-    word = "easting" if dim == X else "northing"
-    attrs = {"long_name": f"{word} of the cell centre", "units": "m",
-             "axis": dim.upper()}
-    if projected:
-        # CF 1.8 section 5.6: projected coordinates carry these standard names.
-        attrs["standard_name"] = f"projection_{dim}_coordinate"
-    return attrs
-
-
-def _axis_attrs(axis: str) -> dict[str, str]:
-    attrs = {"long_name": f"{_AXIS_LONG_NAME[axis]}, window centre", "units": UNITS[axis]}
-    if axis == DEPTH:
-        # CF 1.8 section 4.3: a vertical coordinate in length units needs ``positive``.
-        attrs.update(standard_name="depth", positive="down", axis="Z")
-    return attrs
-
-
-def _grid_mapping_attrs(pcrs: pyproj.CRS, transform: Affine) -> dict[str, object]:
-    # The same attributes rioxarray's write_crs/write_transform produce: the CF grid-mapping
-    # parameters, WKT under both names (CF and GDAL), and GDAL's GeoTransform string.
-    try:
-        attrs: dict[str, object] = dict(pcrs.to_cf())
-    except (KeyError, pyproj.exceptions.CRSError):
-        attrs = {}
-    wkt = pcrs.to_wkt()
-    attrs["spatial_ref"] = wkt
-    attrs["crs_wkt"] = wkt
-    attrs["GeoTransform"] = " ".join(str(v) for v in transform.to_gdal())
-    return attrs
-
-
 def _grid_attr(cube: xr.DataArray, key: str) -> float:
     try:
         value = float(cube.attrs[key])
@@ -337,17 +325,9 @@ def prepared_for_writing(cube: xr.DataArray) -> xr.DataArray:
 def global_attrs(cube: xr.DataArray, *, title: str | None = None, source: str | None = None,
                  history: str | None = None) -> dict[str, str]:
     """Return the CF-1.8 global attributes of a file holding ``cube``."""
-    axis = slice_axis(cube)
-    name = str(cube.name or "envelope")
-    now = datetime.now(UTC).strftime("%Y-%m-%dT%H:%M:%SZ")
-    steps = cube.attrs.get("processing", "")
-    return {
-        "Conventions": "CF-1.8",
-        "title": title or f"Ground-penetrating radar {axis} slices ({name})",
-        "history": history or f"{now}: cube written by slicer"
-                              + (f" after: {steps}" if steps else ""),
-        "source": source or "ground-penetrating radar grid survey, gridded by slicer",
-    }
+    return cf.global_attrs(str(cube.name or "envelope"), slice_axis(cube),
+                           processing=str(cube.attrs.get("processing", "")), title=title,
+                           source=source, history=history)
 
 
 def _netcdf_chunks(cube: xr.DataArray) -> tuple[int, ...] | None:
@@ -378,13 +358,7 @@ def _write_netcdf(cube: xr.DataArray, target: Path, *, title: str | None,
     encoding.update(zlib=True, complevel=int(complevel), shuffle=True, dtype="float32",
                     _FillValue=np.float32(np.nan))
     ds = data.to_dataset()
-    bnds = f"{axis}_bnds"
-    ds[bnds] = xr.Variable(
-        (axis, "bnds"), np.stack([np.asarray(cube[f"{axis}_top"].values),
-                                  np.asarray(cube[f"{axis}_bottom"].values)],
-                                 axis=1).astype(np.float64),
-        attrs={"units": UNITS[axis]})
-    ds[axis].attrs["bounds"] = bnds
+    bnds = cf.add_axis_bounds(ds, axis)
     ds.attrs = global_attrs(cube, title=title, source=source, history=history)
     encodings: dict[str, Mapping[str, object]] = {name: encoding}
     for var in (X, Y, axis, f"{axis}_top", f"{axis}_bottom", bnds):
@@ -469,8 +443,9 @@ def cube_from_dataset(ds: xr.Dataset, *, name: str | None = None,
     """Return the cube held in ``ds`` (as written by slicer), following the data model.
 
     The CF ``bounds`` link (the bounds themselves are the ``<axis>_top``/``<axis>_bottom``
-    coordinates) and GDAL's ``_CRS`` attribute are dropped, and ``grid_mapping`` goes back
-    to attrs. Lazy data stays lazy.
+    coordinates) and GDAL's ``_CRS`` attribute are dropped, ``grid_mapping`` goes back
+    to attrs, and the cube is made ready for Python (:func:`for_python`: the window index,
+    NaN nodata, ``.rio``). Lazy data stays lazy.
 
     Raises
     ------
@@ -496,4 +471,4 @@ def cube_from_dataset(ds: xr.Dataset, *, name: str | None = None,
             raise InputFileError(f"cube has no {key!r} coordinate", where=where)
     if "grid_mapping" in cube.encoding and "grid_mapping" not in cube.attrs:
         cube.attrs["grid_mapping"] = cube.encoding.pop("grid_mapping")
-    return cube
+    return for_python(cube)

@@ -4,12 +4,23 @@ The store holds the same dataset as the CF NetCDF file (the cube, its cell-centr
 window bounds as ``<axis>_top``/``<axis>_bottom`` and the ``spatial_ref`` grid mapping) chunked
 one slice by ``tile x tile`` cells, so a tile of the output grid fills whole chunks. It is read
 back lazily by :func:`open_cube_zarr`, by plain ``xarray.open_zarr`` and by GDAL's Zarr driver
-(which also reads GDAL's own ``_CRS`` attribute, written on the cube array).
+(which also reads GDAL's own ``_CRS`` attribute, written on the cube array). As in the NetCDF
+file, the windows are also given as CF cell bounds, ``<axis>_bnds`` (CF 1.8 section 7.1).
+
+The metadata is consolidated (one ``.zmetadata`` document, zarr-python's
+``consolidate_metadata``) as soon as it is complete, when the store is created: writing tiles
+adds chunks only, never metadata, so the consolidated copy stays exact while workers fill the
+store, and readers (``xarray.open_zarr`` by default, GDAL) open it without listing the folder.
 
 A store is built in a hidden folder beside its final name and renamed into place by
 :meth:`CubeStore.finalize`; an earlier store of that name is replaced only then.
 
-Format: Zarr v2 by default. GDAL 3.10 (the one bundled with rasterio 1.4) predates the final
+GDAL names the cube ``ZARR:"cube.zarr":/envelope``: the folder alone holds two arrays of two
+or more dimensions (the cube and ``<axis>_bnds``), which GDAL lists as subdatasets. Measured
+with rasterio's wheels: GDAL 3.10.3 reads values, CRS and grid right; GDAL 3.6.4 to 3.9.3 read
+the values but put 1 m cells at (0, 0), thousands of km off (and those wheels lack blosc).
+
+Format: Zarr v2 by default. GDAL 3.10 (the one bundled with rasterio 1.4.4) predates the final
 Zarr v3 codec names and refuses zarr-python's v3 arrays ("Unsupported codec: bytes"; the
 rename came with GDAL 3.11, OSGeo/gdal#11787), while it reads v2 stores. ``zarr_format=3``
 writes v3 for readers that support it.
@@ -21,6 +32,7 @@ import json
 import os
 import shutil
 import uuid
+import warnings
 from pathlib import Path
 
 import dask.array as darray
@@ -31,6 +43,7 @@ from numcodecs import Blosc
 
 from slicer.core.atomic import temp_folder
 from slicer.core.errors import InputFileError, OutputError
+from slicer.outputs.cf import add_axis_bounds
 from slicer.outputs.cube import (
     TILE,
     _check_tile_size,
@@ -211,17 +224,20 @@ def create_cube_store(path: str | os.PathLike, template: xr.DataArray, *, tile: 
         data = data.copy(data=darray.full(data.shape, np.nan, dtype=np.float32,
                                           chunks=chunks))
         ds = data.to_dataset()
+        bnds = add_axis_bounds(ds, slice_axis(template))
         ds.attrs = global_attrs(template)
         encoding = {name: {"chunks": chunks, "_FillValue": np.float32(np.nan),
                            "dtype": "float32", **_compressor(zarr_format)}}
-        for var in ds.coords:
+        for var in (*ds.coords, bnds):
             if var != data.attrs.get("grid_mapping"):
+                # Coordinates and bounds never hold missing values (CF 1.8 section 5).
                 encoding[str(var)] = {"_FillValue": None}
         ds.to_zarr(tmp, mode="w", compute=False, consolidated=False, zarr_format=zarr_format,
                    encoding=encoding)
         crs = _gdal_crs(template)
         if crs is not None:
             zarr.open_array(store=str(tmp), path=name, mode="r+").attrs["_CRS"] = crs
+        _consolidate(tmp, zarr_format)
         return CubeStore(target, tmp, (n_slices, ny, nx), name)
     except OSError as exc:
         shutil.rmtree(tmp, ignore_errors=True)
@@ -229,6 +245,16 @@ def create_cube_store(path: str | os.PathLike, template: xr.DataArray, *, tile: 
     except BaseException:
         shutil.rmtree(tmp, ignore_errors=True)
         raise
+
+
+def _consolidate(path: Path, zarr_format: int) -> None:
+    """Consolidate the metadata of the store at ``path`` (complete: every array exists)."""
+    with warnings.catch_warnings():
+        # zarr-python warns that consolidated metadata is not yet part of the Zarr v3
+        # specification; it is its own documented extension, and xarray reads it.
+        warnings.filterwarnings("ignore", message=".*[Cc]onsolidated metadata",
+                                category=UserWarning)
+        zarr.consolidate_metadata(str(path), zarr_format=zarr_format)
 
 
 def write_tile(path: str | os.PathLike, row0: int, col0: int, block, *,
@@ -285,6 +311,9 @@ def open_cube_zarr(path: str | os.PathLike, *, name: str | None = None) -> xr.Da
     -------
     xarray.DataArray
         The cube, dask-backed (one dask chunk per Zarr chunk); nothing is read until used.
+        As from :func:`slicer.outputs.cube.new_cube`: ``.rio`` works, NaN is the nodata and
+        ``cube.sel(depth=v)`` picks the window holding ``v`` (the index is rebuilt from the
+        stored window bounds).
 
     Raises
     ------
@@ -295,9 +324,20 @@ def open_cube_zarr(path: str | os.PathLike, *, name: str | None = None) -> xr.Da
     if not _is_store(path):
         raise InputFileError("not a Zarr store", where=str(path))
     try:
-        # "ns" units must not turn the twt coordinate into timedeltas.
-        ds = xr.open_zarr(path, consolidated=False, decode_timedelta=False)
+        # "ns" units must not turn the twt coordinate into timedeltas. Stores written before
+        # slicer consolidated their metadata are read without it, quietly.
+        ds = xr.open_zarr(path, consolidated=_is_consolidated(path), decode_timedelta=False)
     except (OSError, ValueError, KeyError, zarr.errors.BaseZarrError) as exc:
         raise InputFileError(f"cannot open as Zarr ({exc})", where=str(path)) from None
     return cube_from_dataset(ds, name=name, where=str(path))
+
+
+def _is_consolidated(path: Path) -> bool:
+    if (path / ".zmetadata").is_file():  # Zarr v2
+        return True
+    try:  # Zarr v3: zarr-python keeps it in the group's zarr.json
+        meta = json.loads((path / "zarr.json").read_text())
+    except (OSError, ValueError):
+        return False
+    return isinstance(meta, dict) and meta.get("consolidated_metadata") is not None
 

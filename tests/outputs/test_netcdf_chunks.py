@@ -71,3 +71,13 @@ def test_unknown_filters_are_refused(tmp_path):
     for name in ("envelope", "plain"):
         with pytest.raises(OutputError, match="only chunked shuffle\\+deflate"):
             chunk_layout(tmp_path / "f.nc", name)
+
+
+def test_direct_file_passes_the_cf_1_8_compliance_checker(tmp_path, cf_failures):
+    # The NetCDF of a build with workers is made this way: IOOS compliance-checker, cf:1.8,
+    # finds no failure at any priority.
+    _by_hand(_cube(), tmp_path / "direct.nc", 16)
+    assert cf_failures(tmp_path / "direct.nc") == []
+    with netCDF4.Dataset(tmp_path / "direct.nc") as nc:  # netCDF-C's view
+        assert nc["spatial_ref"].dtype == np.int32
+        assert nc["depth"].bounds == "depth_bnds"  # CF 1.8 section 7.1

@@ -64,7 +64,10 @@ def test_round_trip_through_open_cube_zarr_is_identical(tmp_path):
 
 def test_plain_xarray_and_rioxarray_read_crs_and_bounds(tmp_path):
     path, cube = build_store(tmp_path / "cube.zarr", values())
-    with xr.open_zarr(path, consolidated=False) as ds:
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")  # consolidated: xarray's default open does not warn
+        ds = xr.open_zarr(path)
+    with ds:
         da = ds["envelope"]
         np.testing.assert_array_equal(da.values, cube.values)
         assert da.dtype == np.float32
@@ -78,17 +81,46 @@ def test_plain_xarray_and_rioxarray_read_crs_and_bounds(tmp_path):
         assert pyproj.CRS.from_wkt(gm["crs_wkt"]) == pyproj.CRS.from_epsg(EPSG)
         assert ds.x.attrs["standard_name"] == "projection_x_coordinate"
         assert ds.depth.attrs["positive"] == "down"
-    with xr.open_zarr(path, consolidated=False, decode_coords="all") as ds:
+        assert ds.spatial_ref.dtype == np.int32 and ds.spatial_ref.attrs["long_name"]
+        # CF 1.8 section 7.1: cell bounds in a (depth, 2) variable named by `bounds`.
+        bnds = ds[ds.depth.attrs["bounds"]]
+        assert bnds.dims == ("depth", "bnds")
+        np.testing.assert_array_equal(bnds.values[:, 0], cube.depth_top.values)
+        np.testing.assert_array_equal(bnds.values[:, 1], cube.depth_bottom.values)
+    with xr.open_zarr(path, decode_coords="all") as ds:
         assert ds["envelope"].rio.crs.to_epsg() == EPSG
         assert ds["envelope"].rio.transform() == cube_transform(cube)
 
 
+def gdal_name(path, name="envelope"):
+    """GDAL Zarr driver's name of one array of a store (https://gdal.org/drivers/raster/zarr.html).
+
+    The folder alone opens the one array of 2 or more dimensions; the store holds two (the
+    cube and the CF bounds ``depth_bnds``), so GDAL lists both as subdatasets.
+    """
+    return f'ZARR:"{path}":/{name}'
+
+
+def test_gdal_lists_the_cube_among_the_subdatasets(tmp_path):
+    path, _ = build_store(tmp_path / "cube.zarr", values())
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", rasterio.errors.NotGeoreferencedWarning)
+        with rasterio.open(path) as src:  # GDAL's Zarr driver, the store's folder as name
+            assert src.count == 0
+            assert {s.split(":")[-1] for s in src.subdatasets} >= {"/envelope", "/depth_bnds"}
+
+
+# Measured (see the report of issue 11): GDAL 3.10.3 (rasterio 1.4.4 wheel) reads the cube in
+# place; GDAL 3.6.4, 3.8.4, 3.9.2 and 3.9.3 (rasterio 1.3.9-1.4.3 wheels) give 1 m cells at
+# (0, 0) -- thousands of km off -- and those wheels lack blosc altogether.
+@pytest.mark.skipif(tuple(int(v) for v in rasterio.__gdal_version__.split(".")[:2]) < (3, 10),
+                    reason="GDAL < 3.10 does not georeference the Zarr cube")
 def test_gdal_reads_values_crs_and_transform(tmp_path):
     data = values()
     path, cube = build_store(tmp_path / "cube.zarr", data)
     with warnings.catch_warnings():
         warnings.simplefilter("error")  # no NotGeoreferencedWarning
-        with rasterio.open(path) as src:  # GDAL's Zarr driver, the store's folder as name
+        with rasterio.open(gdal_name(path)) as src:  # GDAL's Zarr driver
             assert src.driver == "Zarr"
             assert src.count == 3 and src.shape == (40, 50)
             assert src.crs.to_epsg() == EPSG
@@ -113,10 +145,12 @@ def test_gdal_finds_the_crs_from_the_crs_attribute_alone(tmp_path):
     # a "_CRS" dictionary on the array with "wkt" (WKT2:2019) and/or "projjson" keys.
     assert set(attrs["_CRS"]) == {"wkt", "projjson"}
     assert pyproj.CRS.from_json_dict(attrs["_CRS"]["projjson"]) == custom
-    # Without the CF link, GDAL can only have the CRS from "_CRS".
+    # Without the CF link, GDAL can only have the CRS from "_CRS" (GDAL reads the
+    # consolidated copy, so that is made again).
     del attrs["grid_mapping"]
     meta_path.write_text(json.dumps(attrs))
-    with rasterio.open(path) as src:
+    zarr.consolidate_metadata(str(path), zarr_format=2)
+    with rasterio.open(gdal_name(path)) as src:
         assert pyproj.CRS.from_wkt(src.crs.to_wkt()).equals(custom, ignore_axis_order=True)
 
 
@@ -218,7 +252,7 @@ def test_gdal_reads_a_zarr_v3_store(tmp_path):
     with create_cube_store(tmp_path / "cube.zarr", empty_cube(data.shape, **grid()),
                            zarr_format=3) as store:
         store.write_tile(0, 0, data)
-    with rasterio.open(tmp_path / "cube.zarr") as src:
+    with rasterio.open(gdal_name(tmp_path / "cube.zarr")) as src:
         assert src.crs.to_epsg() == EPSG
         np.testing.assert_array_equal(src.read(), data)
 
@@ -227,3 +261,61 @@ def test_opening_what_is_not_a_store_names_it(tmp_path):
     with pytest.raises(InputFileError) as info:
         open_cube_zarr(tmp_path)
     assert info.value.where == str(tmp_path)
+
+
+@pytest.mark.parametrize("zarr_format", [2, 3])
+def test_metadata_is_consolidated_and_stays_exact_as_tiles_arrive(tmp_path, zarr_format):
+    data = values()
+    target = tmp_path / "cube.zarr"
+    store = create_cube_store(target, empty_cube(data.shape, tile=TILE, **grid()), tile=TILE,
+                              zarr_format=zarr_format)
+    for row0 in range(0, 40, TILE):  # workers write tiles by path, as a build's do
+        write_tile(store.path, row0, 0, data[:, row0:row0 + TILE])
+    store.finalize()
+    meta = target / (".zmetadata" if zarr_format == 2 else "zarr.json")
+    written = json.loads(meta.read_text())
+    # zarr-python's own consolidation of the finished store gives the same document.
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # v3: not yet in the specification
+        zarr.consolidate_metadata(str(target), zarr_format=zarr_format)
+    assert json.loads(meta.read_text()) == written
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with xr.open_zarr(target, consolidated=True) as ds:  # xarray reads the consolidated copy
+            np.testing.assert_array_equal(ds["envelope"].values, data)
+            assert "depth_bnds" in ds
+
+
+def test_a_store_without_consolidated_metadata_still_opens_quietly(tmp_path):
+    # Stores written before slicer consolidated their metadata.
+    path, cube = build_store(tmp_path / "cube.zarr", values())
+    (path / ".zmetadata").unlink()
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        xr.testing.assert_identical(open_cube_zarr(path), cube)
+
+
+def test_cf_xarray_finds_axes_bounds_and_grid_mapping(tmp_path):
+    import cf_xarray  # noqa: F401  (registers the .cf accessor)
+
+    path, _ = build_store(tmp_path / "cube.zarr", values())
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        with xr.open_zarr(path) as ds:
+            # cf_xarray, from the CF attributes (CF 1.8 sections 4, 5.6 and 7.1)
+            assert ds.cf.axes == {"X": ["x"], "Y": ["y"], "Z": ["depth"]}
+            assert ds.cf.bounds["depth"] == ["depth_bnds"]
+            assert ds.cf.grid_mapping_names == {"transverse_mercator": ["spatial_ref"]}
+
+
+def test_the_opened_cube_has_rio_nodata_and_the_window_index(tmp_path):
+    from slicer.outputs.cube_index import WindowIndex
+
+    path, cube = build_store(tmp_path / "cube.zarr", values())
+    back = open_cube_zarr(path)
+    assert isinstance(back.xindexes["depth"], WindowIndex)
+    assert float(back.sel(depth=0.1).depth_top) == 0.1  # [top, bottom): common practice
+    # rioxarray: CRS, exact transform (from spatial_ref's GeoTransform) and NaN nodata
+    assert back.rio.crs.to_epsg() == EPSG
+    assert back.rio.transform() == cube_transform(cube)
+    assert np.isnan(back.rio.nodata) and np.isnan(back.rio.encoded_nodata)
