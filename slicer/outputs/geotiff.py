@@ -1,9 +1,12 @@
 """One single-band GeoTIFF per slice, written with rasterio.
 
-Each file holds one slice as float32 with NaN nodata, the cube's CRS and its exact transform
-(from the grid corner and cell size, never from coordinates), tiled and DEFLATE-compressed with
-the floating-point predictor.  The window bounds travel in GDAL metadata tags and in the band
-description, because a GeoTIFF has no place for a depth coordinate.
+Each file is a Cloud Optimized GeoTIFF (:mod:`slicer.outputs.cog`) holding one slice as float32
+with NaN nodata, the cube's CRS and its exact transform (from the grid corner and cell size,
+never from coordinates), tiled and DEFLATE-compressed with the floating-point predictor, with
+averaged overviews when the slice is larger than one block. The window bounds travel in GDAL
+metadata tags and in the band description, because a GeoTIFF has no place for a depth
+coordinate. Tags, description and unit are set before any pixel is written: set afterwards, they
+made GDAL rewrite the header at the end of the file, which no longer was a COG.
 """
 
 from __future__ import annotations
@@ -11,7 +14,6 @@ from __future__ import annotations
 import contextlib
 import ctypes
 import errno
-import math
 import os
 import shutil
 import threading
@@ -22,6 +24,7 @@ from pathlib import Path
 import numpy as np
 import rasterio
 import xarray as xr
+from rasterio._err import CPLE_BaseError  # what a failed GDAL copy raises (rasterio 1.4)
 from rasterio.crs import CRS as RasterioCRS
 from rasterio.windows import Window
 
@@ -29,12 +32,8 @@ from slicer.core.atomic import temp_file
 from slicer.core.conventions import DEPTH, TWT, UNITS
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
+from slicer.outputs.cog import TILE, cog_env, cog_profile, copy_to_cog, staging_profile
 from slicer.outputs.cube import check_tile, cube_crs, cube_transform, slice_axis
-
-#: Default TIFF block edge, pixels; TIFF tiles must be multiples of 16.
-_TILE = 256
-#: Largest TIFF block edge chosen for a large output tile, pixels.
-_MAX_BLOCK = 512
 
 #: Decimals of the window bounds in file names and band descriptions (mm, hundredths of ns).
 _DECIMALS = {DEPTH: 3, TWT: 2}
@@ -66,22 +65,6 @@ def slice_file_name(index: int, top: float, bottom: float, axis: str = DEPTH, *,
     dec = _DECIMALS[axis]
     return (f"slice_{int(index):0{int(digits)}d}_{float(top):.{dec}f}-{float(bottom):.{dec}f}"
             f"{UNITS[axis]}.tif")
-
-
-def _tile_block(tile: int) -> int:
-    # The largest multiple of 16 (TIFF 6.0: tile edges are multiples of 16), at most 512,
-    # that divides the tile: every tile written then fills whole TIFF blocks, so GDAL never
-    # compresses a half-filled block and has to rewrite it later.
-    for size in range(min(_MAX_BLOCK, tile) // 16 * 16, 15, -16):
-        if tile % size == 0:
-            return size
-    return _TILE
-
-
-def _block(n: int, tile: int = _TILE) -> int:
-    # Whole blocks for large rasters; one block (rounded up to 16) for small ones, so a
-    # small slice is not padded out to a mostly empty 256 x 256 block.
-    return min(_tile_block(tile), 16 * math.ceil(n / 16))
 
 
 def _number(value: float) -> str:
@@ -152,14 +135,17 @@ def _quiet_libtiff():
 
 
 class SliceTiffWriter:
-    """One temporary GeoTIFF per slice, filled window by window, renamed into place at the end.
+    """One temporary COG per slice, filled window by window, renamed into place at the end.
 
-    Each file is a tiled float32 GeoTIFF with NaN nodata, the cube's CRS and exact transform,
-    DEFLATE with the floating-point predictor, and the tags and band description described in
-    :func:`write_slice_geotiffs`. Files are written under hidden temporary names beside their
-    final names (:func:`slice_file_name`); :meth:`commit` renames them all. Leaving the
-    ``with`` block on an exception removes every temporary file and leaves the final names
-    as they were.
+    Each file is a Cloud Optimized GeoTIFF, float32 with NaN nodata, the cube's CRS and exact
+    transform, DEFLATE with the floating-point predictor, averaged overviews when the slice is
+    larger than one block, and the tags and band description described in
+    :func:`write_slice_geotiffs`. Windows go to an uncompressed tiled GeoTIFF per slice first
+    (a COG cannot be written piecemeal); :meth:`close` copies each into the COG layout with
+    :func:`slicer.outputs.cog.copy_to_cog`, one at a time, and removes it. Files are written
+    under hidden temporary names beside their final names (:func:`slice_file_name`);
+    :meth:`commit` renames them all. Leaving the ``with`` block on an exception removes every
+    temporary file and leaves the final names as they were.
 
     Parameters
     ----------
@@ -174,12 +160,12 @@ class SliceTiffWriter:
         it (multiples of 16, at most 512).
     deferred : bool
         Only reserve the temporary names: each file is then written whole, by
-        :func:`write_slice_file` with a job from :meth:`slice_job` (in any process), and
-        :meth:`commit` renames them as usual.
+        :meth:`write_slice` or by :func:`write_slice_file` with a job from :meth:`slice_job`
+        (in any process), and :meth:`commit` renames them as usual.
     """
 
     def __init__(self, cube: xr.DataArray, folder: str | os.PathLike, *,
-                 tags: Mapping[str, object] | None = None, tile: int = _TILE,
+                 tags: Mapping[str, object] | None = None, tile: int = TILE,
                  deferred: bool = False):
         axis = slice_axis(cube)
         tile = int(tile)
@@ -208,16 +194,10 @@ class SliceTiffWriter:
         if axis == DEPTH and cube.attrs.get("velocity") is not None:
             common["VELOCITY_M_PER_NS"] = _number(cube.attrs["velocity"])
         extra = {str(k): _tag_text(v) for k, v in (tags or {}).items()}
-        self._profile = {
-            "driver": "GTiff", "width": nx, "height": ny, "count": 1, "dtype": "float32",
-            "crs": _rasterio_crs(cube), "transform": cube_transform(cube), "nodata": np.nan,
-            "tiled": True, "blockxsize": _block(nx, tile), "blockysize": _block(ny, tile),
-            # zlib level 1: envelope slices compress no better at the default level 6 (the
-            # floating-point predictor does the work), which took a fifth longer to write
-            "compress": "deflate", "predictor": 3, "zlevel": 1,
-            # Key directory version 1.1 as in OGC 19-008r4 (GeoTIFF 1.1).
-            "geotiff_version": "1.1",
-        }
+        base = {"width": nx, "height": ny, "count": 1, "dtype": "float32",
+                "crs": _rasterio_crs(cube), "transform": cube_transform(cube), "nodata": np.nan}
+        self._profile = cog_profile(base, tile=tile)
+        self._staging = staging_profile(base, tile=tile)
         self.paths: list[Path] = []
         self._tags: list[dict[str, str]] = []
         self._descriptions: list[str] = []
@@ -232,26 +212,29 @@ class SliceTiffWriter:
             self._descriptions.append(f"{axis} {top:.{dec}f}-{bottom:.{dec}f} {unit}")
         self._units = common["UNITS"]
         self._temps: list[Path] = []
+        self._staged: list[Path] = []  # the uncompressed GeoTIFFs windows are written to
         self._datasets: list = []
-        self._stack = contextlib.ExitStack()
         self._state = "open"
         try:
-            for path in self.paths:
+            for path, tags, description in zip(self.paths, self._tags, self._descriptions,
+                                               strict=True):
                 tmp = temp_file(self.folder, prefix=f".{path.stem}.", suffix=f".tmp{path.suffix}")
                 self._temps.append(tmp)
                 if deferred:
                     continue
+                self._staged.append(temp_file(self.folder, prefix=f".{path.stem}.",
+                                              suffix=f".part{path.suffix}"))
                 with self._naming(path):
-                    dst = rasterio.open(tmp, "w", **self._profile)
-                self._datasets.append(self._stack.enter_context(dst))
+                    self._datasets.append(rasterio.open(self._staged[-1], "w", **self._staging))
+                    _label(self._datasets[-1], tags, description, self._units)
         except BaseException:
             self.abort()
             raise
 
     @property
     def block_shape(self) -> tuple[int, int]:
-        """(rows, columns) of the TIFF blocks."""
-        return self._profile["blockysize"], self._profile["blockxsize"]
+        """(rows, columns) of the TIFF blocks of the files."""
+        return self._profile["blocksize"], self._profile["blocksize"]
 
     def __enter__(self) -> SliceTiffWriter:
         return self
@@ -270,7 +253,7 @@ class SliceTiffWriter:
         try:
             with _quiet_libtiff():
                 yield
-        except (OSError, rasterio.errors.RasterioIOError) as exc:
+        except (OSError, rasterio.errors.RasterioError, CPLE_BaseError) as exc:
             reason = str(exc)
             with contextlib.suppress(OSError):  # libtiff's own words were muted: say them
                 if shutil.disk_usage(path if path.is_dir() else path.parent).free == 0:
@@ -300,6 +283,17 @@ class SliceTiffWriter:
         for i in range(self.shape[0]):
             self.write_band(i, row0, col0, values[i])
 
+    def write_slice(self, index: int, values) -> None:
+        """Write slice ``index`` whole from ``values`` (ny, nx) (a ``deferred`` writer only)."""
+        self._check_open()
+        if self._datasets:
+            raise OutputError("whole slices go to a deferred writer", where=str(self.folder))
+        values = np.asarray(values, dtype=np.float32)
+        if values.shape != self.shape[1:]:
+            raise SettingsError(f"a slice has shape {self.shape[1:]}, got {values.shape}",
+                                where="slice")
+        write_slice_file(self.slice_job(index, self.folder), values)
+
     def slice_job(self, index: int, store: str | os.PathLike) -> SliceFileJob:
         """What :func:`write_slice_file` needs to write slice ``index`` from a Zarr store."""
         return SliceFileJob(str(Path(store).resolve()), index,
@@ -308,22 +302,18 @@ class SliceTiffWriter:
                             self._units)
 
     def close(self) -> None:
-        """Finish the temporary files (tags, band descriptions, flush) without renaming them."""
+        """Finish the temporary files (COG layout, overviews) without renaming them."""
         if self._state == "closed":
             return
         self._check_open()
-        if not self._datasets:  # deferred: the files were written whole, by slice jobs
-            self._state = "closed"
-            return
         try:
-            for path, dst, tags, description in zip(self.paths, self._datasets, self._tags,
-                                                    self._descriptions, strict=True):
+            # deferred: no datasets, the files were written whole by slice jobs
+            for i, (path, dst) in enumerate(zip(self.paths, self._datasets, strict=False)):
                 with self._naming(path):
-                    dst.update_tags(**tags)
-                    dst.set_band_description(1, description)
-                    dst.set_band_unit(1, self._units)
-            with self._naming(self.folder):
-                self._stack.close()  # flushes the last blocks
+                    with rasterio.Env():  # GDAL's errors to rasterio, not printed on stderr
+                        dst.close()  # flushes the last blocks
+                    copy_to_cog(self._staged[i], self._temps[i], self._profile)
+                self._staged[i].unlink()
         except BaseException:
             self.abort()
             raise
@@ -350,9 +340,12 @@ class SliceTiffWriter:
         if self._state in ("committed", "aborted"):
             return
         self._state = "aborted"
-        with contextlib.suppress(Exception), _quiet_libtiff():
-            self._stack.close()
-        self._remove(self._temps)
+        # Under an Env, GDAL's errors (a full disk: one per file) go to rasterio, not stderr.
+        with _quiet_libtiff(), rasterio.Env():
+            for dst in self._datasets:
+                with contextlib.suppress(Exception):
+                    dst.close()
+        self._remove([*self._temps, *self._staged])
         for folder in self._created:  # innermost first; only folders this writer made
             with contextlib.suppress(OSError):
                 folder.rmdir()
@@ -362,6 +355,17 @@ class SliceTiffWriter:
         for tmp in paths:
             with contextlib.suppress(FileNotFoundError):
                 tmp.unlink()
+
+
+def _label(dst, tags: Mapping[str, str], description: str, units: str) -> None:
+    """Set the tags, band description and unit of a dataset just opened for writing.
+
+    Before any pixel: set afterwards, they made GDAL rewrite the header at the end of the file
+    (stack-notes trap 14), and ``rio cogeo validate`` refused it.
+    """
+    dst.update_tags(**tags)
+    dst.set_band_description(1, description)
+    dst.set_band_unit(1, units)
 
 
 @dataclass(frozen=True)
@@ -382,17 +386,18 @@ def write_slice_file(job: SliceFileJob, values: np.ndarray | None = None) -> str
     """Write one whole slice GeoTIFF (under its temporary name) from a Zarr cube store.
 
     ``values`` (ny, nx), if given, are the slice already read from the store. Returns the
-    temporary path. Errors name the final file, which is what the user knows of.
+    temporary path. Errors name the final file, which is what the user knows of. Memory: the
+    slice and GDAL's copy of it.
     """
     if values is None:
         from slicer.outputs.zarr_store import read_slice
         values = read_slice(job.store, job.index)
-    with SliceTiffWriter._naming(Path(job.final)), rasterio.open(job.temp, "w",
-                                                                 **job.profile) as dst:
+    # rasterio buffers the slice in a GDAL MEM dataset and copies it into the COG on close
+    # (the COG driver only copies): one slice in memory, twice at most.
+    with SliceTiffWriter._naming(Path(job.final)), cog_env(), rasterio.open(
+            job.temp, "w", **job.profile) as dst:
+        _label(dst, job.tags, job.description, job.units)
         dst.write(values, 1)
-        dst.update_tags(**job.tags)
-        dst.set_band_description(1, job.description)
-        dst.set_band_unit(1, job.units)
     return job.temp
 
 
@@ -422,7 +427,7 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
     ----------
     cube : xarray.DataArray
         A cube as built by :func:`slicer.outputs.cube.new_cube`; a dask-backed cube is read one
-        tile at a time.
+        slice at a time.
     folder : path-like
         Output folder; created if missing.
     tags : mapping, optional
@@ -443,9 +448,8 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
     """
     axis = slice_axis(cube)
     data = cube.data
-    with SliceTiffWriter(cube, folder, tags=tags, tile=_TILE) as writer:
+    with SliceTiffWriter(cube, folder, tags=tags, tile=TILE, deferred=True) as writer:
         for i in progress_bar(range(cube.shape[0]), desc=f"GeoTIFF {axis} slices",
                               unit="slice", enabled=progress):
-            for row0, col0, h, w in tile_windows(cube.shape, _TILE):
-                writer.write_band(i, row0, col0, data[i, row0:row0 + h, col0:col0 + w])
+            writer.write_slice(i, np.asarray(data[i]))  # one slice in memory at a time
         return writer.commit()

@@ -69,6 +69,7 @@ def test_georeferencing_read_back_with_tifffile(tmp_path):
             assert page.predictor == tifffile.PREDICTOR.FLOATINGPOINT
             # Small rasters get one tile rounded up to 16 pixels (TIFF 6.0: multiples of 16).
             assert (page.tilelength, page.tilewidth) == (32, 32)
+            assert len(tif.pages) == 1  # one block: no overviews (see test_overviews_...)
             assert np.isnan(float(page.tags["GDAL_NODATA"].value))
 
 
@@ -148,11 +149,18 @@ def test_large_slices_use_256_tiles(tmp_path):
         assert (tif.pages[0].tilelength, tif.pages[0].tilewidth) == (256, 256)
 
 
-def test_writing_emits_no_warning(tmp_path):
-    # stack-notes trap 3: no affine deprecation (or any other) warning from our writer.
-    with warnings.catch_warnings():
+def test_writing_emits_no_warning(tmp_path, caplog):
+    # stack-notes trap 3: no affine deprecation (or any other) warning from our writer, nor
+    # any GDAL warning (rasterio logs those), streamed or whole, with blocks under 128.
+    cube = make_cube(ny=70, nx=90)
+    with warnings.catch_warnings(), caplog.at_level("WARNING"):
         warnings.simplefilter("error")
-        write_slice_geotiffs(make_cube(), tmp_path, progress=False)
+        write_slice_geotiffs(cube, tmp_path / "whole", progress=False)
+        with SliceTiffWriter(cube, tmp_path / "streamed", tile=32) as writer:
+            writer.write(0, 0, cube.values)
+    assert caplog.records == []
+    with rasterio.open(writer.paths[0]) as src:
+        assert src.block_shapes == [(32, 32)] and src.overviews(1) == [2, 4]
 
 
 def test_progress_bar_can_be_silenced(tmp_path, capsys, monkeypatch):
@@ -206,6 +214,9 @@ def test_failed_write_keeps_existing_file(tmp_path, monkeypatch):
         def __exit__(self, *exc):
             self.dst.close()
 
+        def __getattr__(self, name):  # tags, description, unit: as rasterio's writer
+            return getattr(self.dst, name)
+
         def write(self, *args, **kwargs):
             self.dst.write(*args, **kwargs)
             raise OSError("No space left on device")
@@ -250,7 +261,8 @@ def test_streaming_writer_matches_the_whole_cube_writer(tmp_path):
     values = cube.values
     with SliceTiffWriter(cube, tmp_path / "tiled", tags={"SURVEY": "x"}, tile=48) as writer:
         # 48 is a multiple of 16 that divides itself: blocks of 48 x 48 (TIFF 6.0 tiles are
-        # multiples of 16), so each window written fills whole blocks.
+        # multiples of 16), so each window written fills whole blocks of the staged file.
+        assert writer._staging["blockxsize"] == writer._staging["blockysize"] == 48
         assert writer.block_shape == (48, 48)
         for row0 in (96, 48, 0):
             for col0 in (0, 48, 96):
@@ -267,17 +279,6 @@ def test_streaming_writer_matches_the_whole_cube_writer(tmp_path):
             assert a.crs == b.crs and a.transform == b.transform == cube_transform(cube)
             assert a.block_shapes == [(48, 48)]
             assert a.profile["compress"] == b.profile["compress"] == "deflate"
-
-
-@settings(max_examples=60, deadline=None)
-@given(sixteens=st.integers(1, 256))
-def test_blocks_divide_the_tile(sixteens):
-    tile = 16 * sixteens
-    block = _geotiff._tile_block(tile)
-    # TIFF 6.0 section 15: TileWidth and TileLength must be multiples of 16; ours also divide
-    # the tile, and are the largest such edge up to 512.
-    assert block % 16 == 0 and tile % block == 0 and block <= 512
-    assert not any(tile % b == 0 for b in range(block + 16, 513, 16))
 
 
 def test_an_error_inside_the_writer_leaves_earlier_files(tmp_path):
@@ -301,7 +302,7 @@ def test_streaming_writer_refuses_tiles_outside_the_grid(tmp_path):
     assert not (tmp_path / "out").exists()  # the folder it made is removed too
 
 
-def test_dask_backed_cube_is_written_tile_by_tile(tmp_path):
+def test_dask_backed_cube_is_written_slice_by_slice(tmp_path):
     import dask.array as darray
 
     cube = make_cube(ny=300, nx=270)
@@ -309,3 +310,175 @@ def test_dask_backed_cube_is_written_tile_by_tile(tmp_path):
     paths = write_slice_geotiffs(lazy, tmp_path, progress=False)
     with rasterio.open(paths[2]) as src:
         np.testing.assert_array_equal(src.read(1), cube.values[2])
+
+
+# --- Cloud Optimized GeoTIFFs ------------------------------------------------------------------
+
+def cog_cube(ny, nx, n=2):
+    """Slices with NaN holes that cut 2 x 2 blocks partly and wholly (overviews see both)."""
+    cube = make_cube(n=n, ny=ny, nx=nx)
+    values = cube.values.copy()
+    values[:, :3, :5] = np.nan  # rows 0-2, columns 0-4: whole and partial 2 x 2 blocks
+    if ny > 64 and nx > 160:
+        values[:, 41:63, 101:157] = np.nan  # a gap with odd edges: partial blocks at 2x and 4x
+    return cube.copy(data=values)
+
+
+def streamed(cube, folder):
+    """SliceTiffWriter fed window by window, as CubeSink feeds it."""
+    with SliceTiffWriter(cube, folder, tags={"SURVEY": "north field"}, tile=256) as writer:
+        for row0, col0, h, w in _geotiff.tile_windows(cube.shape, 256):
+            writer.write(row0, col0, cube.values[:, row0:row0 + h, col0:col0 + w])
+        return writer.commit()
+
+
+def from_store(cube, folder):
+    """write_slice_file reading each slice from a Zarr cube store, as the worker processes do."""
+    from slicer.outputs.zarr_store import create_cube_store
+
+    with create_cube_store(folder / "cube.zarr", cube, tile=256) as store:
+        store.write_tile(0, 0, cube.values)
+        with SliceTiffWriter(cube, folder / "slices", tags={"SURVEY": "north field"},
+                             tile=256, deferred=True) as writer:
+            for i in range(cube.shape[0]):
+                _geotiff.write_slice_file(writer.slice_job(i, store.path))
+            return writer.commit()
+
+
+WRITERS = {"streamed": streamed, "write_slice_file": from_store}
+# (ny, nx): one block; and larger than a 256 block, even down to the 256 block, so each
+# overview level is exactly 2 x 2 blocks of the one before.
+SIZES = {"tiny": (20, 30), "large": (1024, 768)}
+
+
+def expected_factors(ny, nx, block):
+    # Common practice, and the rule GDAL's COG driver documents for OVERVIEWS=AUTO (from
+    # memory): levels 2, 4, 8, ... until the smallest fits in one block; none if the image does.
+    factors, f = [], 1
+    while max(-(-ny // f), -(-nx // f)) > block:
+        f *= 2
+        factors.append(f)
+    return factors
+
+
+@pytest.fixture(scope="module", params=[(w, s) for w in WRITERS for s in SIZES],
+                ids=lambda p: f"{p[0]}-{p[1]}")
+def written(request, tmp_path_factory):
+    way, size = request.param
+    cube = cog_cube(*SIZES[size])
+    folder = tmp_path_factory.mktemp(f"{way}-{size}")
+    return size, cube, WRITERS[way](cube, folder)
+
+
+def test_slices_are_valid_cogs_without_warnings(written):
+    from rio_cogeo.cogeo import cog_validate
+
+    _size, _cube, paths = written
+    for path in paths:
+        # rio-cogeo's validator (IFD at the start, overviews before the full resolution,
+        # tiled, overviews present when larger than 512 px): valid, no errors, no warnings.
+        assert cog_validate(str(path)) == (True, [], [])
+        with rasterio.open(path) as src:  # GDAL's own account of the layout
+            assert src.tags(ns="IMAGE_STRUCTURE").get("LAYOUT") == "COG"
+
+
+def test_overviews_for_large_slices_only(written):
+    size, cube, paths = written
+    ny, nx = cube.shape[1:]
+    with rasterio.open(paths[0]) as src:
+        block = src.block_shapes[0][0]
+        overviews = src.overviews(1)
+    assert overviews == expected_factors(ny, nx, block)
+    assert (overviews == []) == (size == "tiny")
+    if size == "large":
+        assert overviews == [2, 4]  # 1024 -> 512 -> 256, one 256 block
+
+
+def test_pixels_are_bit_identical_and_nodata_is_nan(written):
+    _size, cube, paths = written
+    for k, path in enumerate(paths):
+        with rasterio.open(path) as src:
+            band = src.read(1)
+            assert np.isnan(src.nodata)
+        # bit for bit, NaN payloads included (DEFLATE and the float predictor are lossless)
+        np.testing.assert_array_equal(band.view(np.uint32), cube.values[k].view(np.uint32))
+        with tifffile.TiffFile(path) as tif:  # tifffile reads the tag without GDAL
+            assert np.isnan(float(tif.pages[0].tags["GDAL_NODATA"].value))
+
+
+def _mean_of_2x2(values):
+    """Independent reduction (numpy): the mean of the valid cells of each 2 x 2 block."""
+    ny, nx = values.shape
+    blocks = values.astype(np.float64).reshape(ny // 2, 2, nx // 2, 2)
+    valid = ~np.isnan(blocks)
+    total = np.where(valid, blocks, 0).sum(axis=(1, 3))
+    count = valid.sum(axis=(1, 3))
+    return np.where(count > 0, total / np.maximum(count, 1), np.nan).astype(np.float32)
+
+
+def test_overviews_are_means_of_valid_cells(written):
+    size, cube, paths = written
+    if size == "tiny":
+        pytest.skip("a one-block slice has no overviews")
+    for k, path in enumerate(paths):
+        finer = cube.values[k]
+        with rasterio.open(path) as src:
+            levels = len(src.overviews(1))
+        with rasterio.open(path, overview_level=0) as ovr:
+            half = ovr.read(1)
+        # by hand: rows 0-1, columns 0-1 are all NaN; rows 2-3, columns 0-1 are half NaN
+        assert np.isnan(half[0, 0])
+        assert half[1, 0] == pytest.approx(np.mean(finer[3, 0:2], dtype=np.float64), rel=1e-6)
+        for level in range(levels):
+            # rasterio opens one overview level as a dataset of its own (overview_level)
+            with rasterio.open(path, overview_level=level) as ovr:
+                coarse = ovr.read(1)
+            # GDAL builds each level from the one before (seen here): compare with 2 x 2
+            # means of that level, NaN where all four cells are NaN, else the valid ones' mean.
+            reference = _mean_of_2x2(finer)
+            np.testing.assert_array_equal(np.isnan(coarse), np.isnan(reference))
+            np.testing.assert_allclose(coarse, reference, rtol=1e-6, atol=0)
+            finer = coarse
+
+
+def _gdal_metadata(page) -> dict:
+    """Items of the GDAL_METADATA TIFF tag (42112, GDAL's XML), read with tifffile + ElementTree."""
+    import xml.etree.ElementTree as ET
+
+    root = ET.fromstring(page.tags[42112].value)
+    return {(item.get("name"), item.get("role")): item.text for item in root.iter("Item")}
+
+
+def test_tags_description_and_units_through_gdal_and_tifffile(written):
+    _size, cube, paths = written
+    for k, path in enumerate(paths):
+        top, bottom = float(cube.depth_top[k]), float(cube.depth_bottom[k])
+        description = f"depth {top:.3f}-{bottom:.3f} m"
+        with rasterio.open(path) as src:  # GDAL
+            tags = src.tags()
+            assert float(tags["DEPTH_TOP"]) == top and float(tags["DEPTH_BOTTOM"]) == bottom
+            assert tags["SURVEY"] == "north field"
+            assert tags["UNITS"] == cube.attrs["units"]
+            assert src.descriptions == (description,)
+            assert src.units == (cube.attrs["units"],)
+        with tifffile.TiffFile(path) as tif:  # tifffile, independent of GDAL
+            items = _gdal_metadata(tif.pages[0])
+            assert float(items[("DEPTH_TOP", None)]) == top
+            assert items[("SURVEY", None)] == "north field"
+            assert items[("DESCRIPTION", "description")] == description
+            assert items[("UNITTYPE", "unittype")] == cube.attrs["units"]
+            # the main IFD is at the start (rio-cogeo's bound; the header is not rewritten)
+            assert tif.pages[0].offset < 300
+
+
+def test_whole_slices_go_to_a_deferred_writer_only(tmp_path):
+    cube = make_cube()
+    with SliceTiffWriter(cube, tmp_path / "a") as writer:
+        with pytest.raises(OutputError):
+            writer.write_slice(0, cube.values[0])
+        writer.write(0, 0, cube.values)
+    with pytest.raises(SettingsError) as info, SliceTiffWriter(cube, tmp_path / "b",
+                                                               deferred=True) as writer:
+        writer.write_slice(0, cube.values[0, :10])
+    assert info.value.where == "slice"
+    assert not (tmp_path / "b").exists()
