@@ -163,11 +163,17 @@ def make_parser() -> argparse.ArgumentParser:
                        description="Read the lines of a survey, process them, grid them and "
                        "write depth (or time) slices as GeoTIFFs, a CF NetCDF cube, an overview "
                        "sheet and a record of the build. Options override a TOML survey file.")
-    b.add_argument("survey", metavar="LINES.csv|SURVEY.toml",
+    b.add_argument("survey", metavar="LINES.csv|SURVEY.toml", nargs="?",
                    help="line table (file,start_x,start_y,end_x,end_y) or TOML survey file")
+    b.add_argument("--repeat", metavar="RECORD",
+                   help="build again from an earlier build's record.json (instead of a survey "
+                        "file): its settings, with its inputs checked unchanged; options given "
+                        "override the recorded ones. Writes to a new folder beside the earlier "
+                        "build unless --out is given")
     _add_build_options(b)
     b.add_argument("--out", metavar="DIR", help="output folder (must be empty or new, unless "
-                   "--overwrite); required unless the survey file sets it")
+                   "--overwrite); required unless the survey file sets it (with --repeat: "
+                   "default a new DIR-repeat-N beside the repeated build)")
     b.add_argument("-q", "--quiet", action="store_true", help="no progress bars or summary")
 
     ve = sub.add_parser("velocity", help="ground velocity from diffraction hyperbolas",
@@ -254,13 +260,22 @@ def _run_build(args, argv) -> int:
     from slicer.pipeline.build import build
     from slicer.pipeline.settings import load_settings
 
-    settings = load_settings(args.survey, **_settings_from_args(args))
-    if settings.out is None:
-        raise SlicerError("no output folder: give --out DIR", where="--out")
     started = time.perf_counter()
-    result = build(settings, progress=not args.quiet, command=["slicer", *argv])
+    command = ["slicer", *argv]
+    if args.repeat is not None:
+        from slicer.pipeline.repeat import repeat_build
+
+        result = repeat_build(args.repeat, progress=not args.quiet, command=command,
+                              **_settings_from_args(args))
+        out = result.files[-1].parent
+    else:
+        settings = load_settings(args.survey, **_settings_from_args(args))
+        if settings.out is None:
+            raise SlicerError("no output folder: give --out DIR", where="--out")
+        result = build(settings, progress=not args.quiet, command=command)
+        out = settings.out
     if not args.quiet:
-        print(f"{_summary(result, time.perf_counter() - started)}; wrote {settings.out}")
+        print(f"{_summary(result, time.perf_counter() - started)}; wrote {out}")
     return 0
 
 
@@ -340,8 +355,12 @@ _default_showwarning = warnings.showwarning
 def main(argv: list[str] | None = None) -> int:
     """Entry point of the ``slicer`` command; returns the exit code."""
     argv = sys.argv[1:] if argv is None else list(argv)
+    parser = make_parser()
     try:
-        args = make_parser().parse_args(argv)
+        args = parser.parse_args(argv)
+        if args.command == "build" and (args.survey is None) == (args.repeat is None):
+            parser.error("slicer build: the following arguments are required: "
+                         "LINES.csv|SURVEY.toml, or --repeat RECORD (not both)")
     except KeyboardInterrupt:
         print("slicer: interrupted before it started; nothing was written", file=sys.stderr)
         return 130

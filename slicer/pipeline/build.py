@@ -8,8 +8,6 @@ from __future__ import annotations
 
 import datetime as _dt
 import math
-import platform
-import sys
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -43,6 +41,7 @@ from slicer.pipeline.budget import DEFAULT_LIMIT, Estimate, estimate, human, par
 from slicer.pipeline.engine import Engine, parse_scheduler
 from slicer.pipeline.line_chain import processing_summary
 from slicer.pipeline.line_tasks import nice_number, reduce_survey
+from slicer.pipeline.record import environment, tidy_record
 from slicer.pipeline.settings import BuildSettings
 from slicer.pipeline.worker_outputs import WorkerSink
 from slicer.velocity.models import depth_error
@@ -211,7 +210,7 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
         "lines": reduced.lines,
         "ties": reduced.ties,
         "seconds": {"read_and_process": round(read_s, 3)},
-        "environment": _environment(),
+        "environment": environment(),
     }
     return _Reduction(reduced, layout, kwargs, record, started)
 
@@ -231,7 +230,7 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
     cube = with_depth_error(new_cube(values, **r.kwargs), settings, r.reduced.table)
     r.record["grid"]["empty_cells"] = int(np.isnan(values[0]).sum())
     r.record["seconds"]["grid"] = round(time.perf_counter() - gridding, 3)
-    return BuildResult(cube=cube, record=r.record)
+    return BuildResult(cube=cube, record=tidy_record(r.record))
 
 
 def with_depth_error(cube: xr.DataArray, settings: BuildSettings,
@@ -297,8 +296,8 @@ def open_engine(settings: BuildSettings) -> Engine:
     return Engine(parse_scheduler(settings.scheduler, traces=traces))
 
 
-def build(settings: BuildSettings, *, progress: bool = True,
-          command: list[str] | None = None) -> BuildResult:
+def build(settings: BuildSettings, *, progress: bool = True, command: list[str] | None = None,
+          repeat_of: dict | None = None) -> BuildResult:
     """Build the slices of a survey and write them to ``settings.out``.
 
     Writes ``slices/`` (one GeoTIFF per slice), ``cube.zarr`` and ``cube.nc`` (the cube as
@@ -317,6 +316,12 @@ def build(settings: BuildSettings, *, progress: bool = True,
         Show progress bars (on a terminal).
     command : list of str, optional
         The command line, kept in the record.
+    repeat_of : dict, optional
+        The record this build repeats (:func:`slicer.pipeline.repeat.repeat_build`), kept in
+        the record; its ``record`` path is written relative to the output folder.
+
+    The record's paths are relative to the output folder and its floats free of binary noise
+    (:mod:`slicer.pipeline.record`).
 
     Raises
     ------
@@ -326,13 +331,15 @@ def build(settings: BuildSettings, *, progress: bool = True,
     if settings.out is None:
         raise SettingsError("no output folder given", where="--out")
     folder = OutputFolder(settings.out, overwrite=bool(settings.overwrite), names=OUTPUT_NAMES,
-                          inputs=[*(e.file for e in settings.lines), *_side_inputs(settings)])
+                          inputs=input_files(settings))
     with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine, folder:
         warnings.simplefilter("always", SlicerWarning)
         r = _reduce(settings, engine, progress=progress, cube_in_memory=False)
         r.record["inputs"] = None  # filled in below, in this place of the record
         if command is not None:
             r.record["command"] = command
+        if repeat_of is not None:
+            r.record["repeat_of"] = repeat_of
         gridding = time.perf_counter()
         table = r.reduced.table
         template = with_depth_error(
@@ -362,6 +369,7 @@ def build(settings: BuildSettings, *, progress: bool = True,
         r.record["warnings"] = [str(w.message) for w in caught
                                 if issubclass(w.category, SlicerWarning)]
         r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
+        r.record = tidy_record(r.record, folder=folder.target)
         files = folder.commit([p.relative_to(out).as_posix() for p in sink.files], r.record,
                               default=_jsonable)
     warned = [str(w.message) for w in caught if issubclass(w.category, SlicerWarning)]
@@ -374,9 +382,15 @@ def build(settings: BuildSettings, *, progress: bool = True,
                        files=files, warnings=warned)
 
 
+def input_files(settings: BuildSettings) -> list[Path]:
+    """Every file a build of ``settings`` reads: the line files, then the others."""
+    return list(dict.fromkeys([*(Path(e.file) for e in settings.lines),
+                               *_side_inputs(settings)]))
+
+
 def _side_inputs(settings: BuildSettings) -> list[Path]:
     """The build's input files other than the line files, each once, in a stable order."""
-    files = [settings.source]
+    files = [settings.source, *settings.extras.get("tables", [])]
     for f in (settings.velocity_model, settings.control_points):
         if f is not None:
             files.append(Path(f))
@@ -392,18 +406,6 @@ def _version() -> str:
     return __version__
 
 
-def _environment() -> dict:
-    import importlib.metadata as md
-    versions = {}
-    for name in ("numpy", "scipy", "xarray", "pyproj", "rasterio", "segyio", "matplotlib",
-                 "h5netcdf", "dask"):
-        try:
-            versions[name] = md.version(name)
-        except md.PackageNotFoundError:
-            versions[name] = None
-    return {"python": sys.version.split()[0], "platform": platform.platform(), **versions}
-
-
 def _jsonable(value):
     if isinstance(value, np.generic):
         return value.item()
@@ -414,4 +416,4 @@ def _jsonable(value):
     raise TypeError(f"cannot record {type(value).__name__}")
 
 
-__all__ = ["BuildResult", "build", "build_cube", "grid_slices"]
+__all__ = ["BuildResult", "build", "build_cube", "grid_slices", "input_files"]

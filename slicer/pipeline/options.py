@@ -192,7 +192,9 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
     # names the speed of light (slicer.core.physics.check_velocity).
     _o("velocity", "number", "radar velocity (0 < v < 0.2998)", "m/ns"),
     # Air is 1; water, about 80 at radar frequencies, is the most of any common ground.
-    _o("permittivity", "number", "relative permittivity (instead of velocity)", "", 1, 100),
+    # 1 itself (air) is refused by the physics: no ground is as fast as light.
+    _o("permittivity", "number", "relative permittivity (instead of velocity)", "", 1, 100,
+       open_low=True),
     _o("velocity_std", "number", "one-sigma uncertainty of the velocity, for the depth error "
        "(below the velocity)", "m/ns", 0, _C),
     _o("velocity_model", "path", "velocity-model TOML file (constant, layered or lateral; "

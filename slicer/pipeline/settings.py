@@ -323,6 +323,8 @@ class _Group:
 
     entries: list[LineEntry]
     options: dict = field(default_factory=dict)
+    #: The line tables the entries came from (inputs of the build).
+    tables: list[Path] = field(default_factory=list)
 
 
 def _entries_of(spec: dict, folder: Path, where: str, ends: bool) -> list[LineEntry]:
@@ -349,6 +351,11 @@ def _entries_of(spec: dict, folder: Path, where: str, ends: bool) -> list[LineEn
     return entries
 
 
+def _tables_of(spec: dict, folder: Path) -> list[Path]:
+    lines = spec.get("lines")
+    return [folder / t for t in ([lines] if isinstance(lines, str) else lines or [])]
+
+
 def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
     data = read_toml(path, what="survey file")
     specs = {k: data.pop(k) for k in ("lines", "line", "block") if k in data}
@@ -364,7 +371,8 @@ def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
             data[key] = path.parent / data[key]
     blocks = specs.pop("block", None)
     if blocks is None:
-        return [_Group(_entries_of(specs, path.parent, str(path), positions == "table"))], data
+        return [_Group(_entries_of(specs, path.parent, str(path), positions == "table"),
+                       tables=_tables_of(specs, path.parent))], data
     if specs:
         raise LineTableError("give the lines inside the [[block]] tables, not beside them",
                              where=str(path))
@@ -392,7 +400,7 @@ def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
                    if k in block}
         if "control_points" in options:
             options["control_points"] = path.parent / options["control_points"]
-        groups.append(_Group(entries, options))
+        groups.append(_Group(entries, options, _tables_of(block, path.parent)))
     return groups, data
 
 
@@ -455,5 +463,6 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
             options[key] = Path(options[key])
     entries, fits = _to_crs(groups, options)
     check_unique(entries)
-    return BuildSettings(lines=tuple(entries), source=path, extras={"control_fits": fits},
-                         **options)
+    tables = [t for g in groups for t in g.tables]
+    return BuildSettings(lines=tuple(entries), source=path,
+                         extras={"control_fits": fits, "tables": tables}, **options)

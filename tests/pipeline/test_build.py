@@ -3,6 +3,7 @@ against its synthetic truth."""
 
 import json
 import shutil
+from decimal import Decimal
 
 import numpy as np
 import pytest
@@ -86,6 +87,34 @@ def test_record_lists_every_input_and_setting(contract_build):
     assert record["command"][:3] == ["slicer", "build", "lines.csv"]
     assert set(record["outputs"]) >= {"cube.nc", "overview.png"}
     assert (contract_build / "out" / "overview.png").stat().st_size > 10_000
+
+
+def _numbers(value):
+    if isinstance(value, dict):
+        for v in value.values():
+            yield from _numbers(v)
+    elif isinstance(value, list):
+        for v in value:
+            yield from _numbers(v)
+    elif isinstance(value, Decimal):
+        yield value
+
+
+def test_record_numbers_carry_no_binary_noise(contract_build):
+    text = (contract_build / "out" / "record.json").read_text()
+    # each number exactly as written (Python's decimal module), strict JSON (RFC 8259: no NaN)
+    record = json.loads(text, parse_float=Decimal, parse_constant=pytest.fail)
+    assert "0.30000000000000004" not in text and "0.9999999999999999" not in text
+    numbers = list(_numbers(record))
+    assert len(numbers) > 50  # slice bounds, grid, per-line time zero...
+    for n in numbers:  # 12 significant digits at most (slicer.pipeline.record.SIGNIFICANT)
+        assert n == 0 or len(n.normalize().as_tuple().digits) <= 12, n
+    # the 24 slices of 0:2.4:0.1, as decimal arithmetic counts them
+    assert record["slices"]["top"] == [Decimal(k) / 10 for k in range(24)]
+    # paths relative to the record's folder; the libraries below each format
+    assert record["settings"]["source"] == "../lines.csv"
+    assert {"gdal", "proj", "hdf5", "zarr", "numcodecs", "rioxarray"} <= set(
+        record["environment"])
 
 
 def test_time_slices_without_velocity(small_survey, tmp_path):
