@@ -19,6 +19,7 @@ from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.figure import Figure
 
 from slicer.core.atomic import atomic_path, prepare_output_dir
+from slicer.core.physics import check_separation, depth_from_time
 from slicer.core.progress import bar_for
 from slicer.geometry.survey import load_line, survey_info
 from slicer.pipeline.settings import BuildSettings
@@ -40,12 +41,16 @@ class VelocityAnalysis:
     fit_std: float = math.nan
     groups: tuple = ()
     assessed: tuple = ()
+    separation: float = 0.0
 
     def to_json(self) -> dict:
         """``velocity``, ``velocity_std`` (m/ns; bootstrap over lines), ``velocity_std_fits``
-        (from the fits' own errors), ``groups`` and ``fits`` with position, time, depth, shape
-        (radius, m) and what the combination made of each (``reason``, ``corrected_velocity``
-        for a linear target crossed at ``crossing_angle`` degrees)."""
+        (from the fits' own errors), ``groups`` and ``fits`` with position, time, depth (at the
+        survey velocity, bistatic with the antenna separation), shape (``"point"``, ``"offset"``
+        or ``"round"``; ``delay``, ns, the fitted time offset and ``radius``, m, the fitted or
+        equivalent radius ``-delay v / 2``) and what the combination made of each
+        (``reason``, ``corrected_velocity`` for a linear target crossed at ``crossing_angle``
+        degrees)."""
         kept = {id(f) for f in self.kept}
         notes = {id(a.fit): a for a in self.assessed}
 
@@ -55,17 +60,22 @@ class VelocityAnalysis:
         def row(f):
             note = notes.get(id(f))
             return {"line": f.line, "velocity": f.velocity, "velocity_std": f.velocity_std,
-                    "x": f.x, "y": f.y, "time": f.time, "depth": self.velocity * f.time / 2,
+                    "x": f.x, "y": f.y, "time": f.time,
+                    "depth": float(depth_from_time(f.time, velocity=self.velocity,
+                                                   separation=self.separation)),
                     "score": f.score, "kept": id(f) in kept, "shape": f.fit.shape,
-                    "radius": f.fit.radius, "radius_std": f.fit.radius_std,
+                    "radius": f.fit.equivalent_radius, "radius_std": f.fit.radius_std,
+                    "delay": f.fit.delay, "delay_std": f.fit.delay_std,
                     "reason": note.reason if note else None,
                     "corrected_velocity": number(note.velocity) if note else None,
                     "crossing_angle": number(note.angle) if note else None}
 
         return {"velocity": self.velocity, "velocity_std": self.velocity_std,
                 "velocity_std_fits": number(self.fit_std),
+                "antenna_separation": self.separation,
                 "units": {"velocity": "m/ns", "x": "m", "y": "m", "time": "ns", "depth": "m",
-                          "radius": "m", "crossing_angle": "degree"},
+                          "radius": "m", "delay": "ns", "crossing_angle": "degree",
+                          "antenna_separation": "m"},
                 "groups": [g._asdict() for g in self.groups],
                 "fits": [row(f) for f in self.fits]}
 
@@ -77,7 +87,8 @@ class VelocityAnalysis:
 
 
 def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
-                     figures: str | os.PathLike | None = None) -> VelocityAnalysis:
+                     figures: str | os.PathLike | None = None,
+                     separation: float = 0.0) -> VelocityAnalysis:
     """Find and fit the diffraction hyperbolas of every line; combine them.
 
     Parameters
@@ -88,8 +99,12 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
         Show a progress bar (on a terminal).
     figures : path-like, optional
         Folder for one PNG per line: the radargram with each fitted hyperbola drawn on it.
+    separation : float
+        Transmitter-receiver separation, m: a picked time zero is the direct wave less
+        ``separation / c`` and the hyperbolas are fitted with the bistatic travel time.
     """
     from slicer.geometry.positioning import prepare_survey
+    separation = check_separation(separation, where="separation")
     settings = prepare_survey(settings)
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     fits = []
@@ -98,8 +113,9 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
         for entry in settings.lines:
             line = load_line(entry, settings, sample_interval_ns=info.sample_interval_ns)
             line = correct_time_zero(line, time_zero=settings.time_zero,
-                                     threshold=settings.time_zero_threshold)
-            found = find_diffractions(line)
+                                     threshold=settings.time_zero_threshold,
+                                     separation=separation)
+            found = find_diffractions(line, separation=separation)
             fits.extend(found)
             if figures is not None:
                 plot_line_fits(line, found, Path(figures) / f"{line.attrs['line']}.png")
@@ -107,7 +123,7 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     estimate = survey_velocity(fits)
     return VelocityAnalysis(float(estimate.velocity), float(estimate.std), fits,
                             list(estimate.kept), float(estimate.fit_std), estimate.groups,
-                            estimate.assessed)
+                            estimate.assessed, separation)
 
 
 def plot_line_fits(line, fits, path: Path) -> Path:

@@ -39,7 +39,7 @@ find_diffractions` (records without a line, position or strength skip the steps 
    the quality, ``s`` the fit's standard error and ``tau^2`` the scatter between fits beyond
    their own errors (random-effects weights, DerSimonian & Laird 1986, Controlled Clinical
    Trials 7:177-188). A median, because round targets fitted as points read a few per cent
-   fast (see :func:`~slicer.velocity.hyperbola.fit_target`) and should not pull it.
+   fast (see :mod:`~slicer.velocity.offset_fit`) and should not pull it.
 6. **Uncertainty.** The fits' own standard errors understate it (neighbouring picks share
    noise; the ground varies). Lines are resampled with replacement (the bootstrap, Efron &
    Tibshirani 1993, An Introduction to the Bootstrap, ch. 6) within the chosen group and

@@ -10,8 +10,11 @@ time, velocity) are then refined: picks are taken at the envelope peak nearest t
 time on every trace within the aperture and fitted with
 :func:`~slicer.velocity.hyperbola.fit_hyperbola`; poor fits are rejected.
 
-By default each set of picks is fitted both as a point and as a round target and the round
-form kept only when the picks demand it (:func:`~slicer.velocity.hyperbola.fit_target`).
+By default each set of picks is fitted both as a point and with a free time offset (which
+absorbs a round target's radius, a time-zero error and a pick delay; the offset fit is tried
+again on picks reaching further down the flanks) and the offset form kept only when the picks
+carry it (:func:`~slicer.velocity.offset_fit.fit_apex`). With ``separation`` the fits use the
+travel time of antennas that far apart.
 :func:`survey_velocity` (defined in :mod:`slicer.velocity.combine`, re-exported here) combines
 the fits of a whole survey.
 """
@@ -28,11 +31,12 @@ import xarray as xr
 
 from slicer.core.conventions import DISTANCE, TRACE, TWT, UNITS, X, Y
 from slicer.core.errors import SettingsError
-from slicer.core.physics import check_velocity
+from slicer.core.physics import check_separation, check_velocity
 from slicer.processing.migration import trace_spacing
 from slicer.processing.steps import dominant_frequency, sample_interval
 from slicer.velocity.combine import SurveyVelocity, survey_velocity
-from slicer.velocity.hyperbola import HyperbolaFit, fit_hyperbola, fit_target, hyperbola_time
+from slicer.velocity.hyperbola import HyperbolaFit, fit_hyperbola, hyperbola_time
+from slicer.velocity.offset_fit import fit_apex, fit_offset_hyperbola
 
 __all__ = ["Diffraction", "SurveyVelocity", "diffraction_table", "find_diffractions",
            "survey_velocity"]
@@ -197,35 +201,57 @@ def _pick(env: np.ndarray, distance: np.ndarray, t_axis: np.ndarray, *, x0: floa
     return distance[near][interior], t[interior], y1[interior]
 
 
-def _fit(x, t, w, radius, period):
+def _fit(x, t, w, radius, period, separation):
     if radius == "auto":  # picks are good to about a fiftieth of a period (common practice)
-        return fit_target(x, t, weights=w, precision=period / 50)
+        return fit_apex(x, t, weights=w, precision=period / 50, separation=separation)
+    if radius is False and separation > 0:
+        return fit_offset_hyperbola(x, t, weights=w, separation=separation, delay=False)
     return fit_hyperbola(x, t, radius=bool(radius), weights=w)
 
 
-def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, min_picks):
-    """Pick, fit, drop outlying picks and fit again; ``None`` when the picks fit badly."""
+#: Widest angle from vertical of the picks offered to the time-offset fit, degrees: the offset
+#: is told from the velocity only by picks well down the flanks (beyond about 1.5 depths,
+#: :mod:`slicer.velocity.offset_fit`); tan(70 degrees) = 2.7 depths.
+OFFSET_ANGLE = 70.0
+
+
+def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, min_picks,
+            separation, aperture):
+    """Pick, fit, drop outlying picks and fit again; ``None`` when the picks fit badly.
+
+    With ``radius="auto"`` a point fit is tried once more on picks over a wider reach (to
+    :data:`OFFSET_ANGLE`), and the result kept only if the time-offset form wins there."""
     fit = None
-    for half_window in (0.5 * period, 0.3 * period):
+    passes = [(0.5 * period, reach), (0.3 * period, reach)]
+    for half_window, wide in passes:
         if fit is None:
             def predict(x, x0=x0):
                 return hyperbola_time(x, x0=x0, t0=t0, velocity=velocity)
         else:  # the fitted curve, with its radius when fitted
             x0, predict = fit.x0, fit.travel_time
-        xs, ts, amp = _pick(env, distance, t_axis, x0=x0, predict=predict, reach=reach,
+        xs, ts, amp = _pick(env, distance, t_axis, x0=x0, predict=predict, reach=wide,
                             half_window=half_window)
         strong = amp >= 0.2 * amp.max() if amp.size else amp.astype(bool)
         xs, ts, amp = xs[strong], ts[strong], amp[strong]
         if xs.size < min_picks:
-            return None
+            return fit if wide > reach else None
         try:
-            fit = _fit(xs, ts, amp ** 2, radius, period)
-            residual = np.abs(fit.travel_time(xs) - ts)
+            tried = _fit(xs, ts, amp ** 2, radius, period, separation)
+            residual = np.abs(tried.travel_time(xs) - ts)
             good = residual <= max(3.0 * 1.4826 * np.median(residual), 0.05 * period)
             if good.sum() >= min_picks and not good.all():
-                fit = _fit(xs[good], ts[good], amp[good] ** 2, radius, period)
+                tried = _fit(xs[good], ts[good], amp[good] ** 2, radius, period, separation)
         except SettingsError:
+            if wide > reach:
+                return fit
             return None
+        if wide > reach and tried.shape != "offset":
+            return fit
+        fit = tried
+        if len(passes) == 2 and radius == "auto" and fit.shape == "point":
+            wider = min(aperture, fit.depth * math.tan(math.radians(OFFSET_ANGLE)))
+            if wider > reach:
+                passes.append((0.3 * period, wider))
     return fit
 
 
@@ -233,7 +259,7 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
                       max_angle: float = 50.0, threshold: float = 0.5,
                       min_time: float | None = None, frequency_ghz: float | None = None,
                       radius: bool | str = "auto", max_relative_std: float = 0.1,
-                      min_picks: int = 8) -> list[Diffraction]:
+                      min_picks: int = 8, separation: float = 0.0) -> list[Diffraction]:
     """Find diffraction hyperbolas on a line and fit each one, without picks.
 
     The line (time-zero corrected; samples before time zero are ignored) has its median trace
@@ -267,13 +293,17 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
         Dominant frequency of the record, GHz; default
         :func:`~slicer.processing.steps.dominant_frequency` of the line.
     radius : bool or "auto"
-        ``False``: fit points; ``True``: fit the round-target form (radius as well);
-        ``"auto"``: fit both and keep the round one only when the F-test and the radius's
-        standard error call for it (:func:`~slicer.velocity.hyperbola.fit_target`).
+        ``False``: fit points; ``True``: fit the round-target form (radius as well; antennas
+        together); ``"auto"``: fit the point form and the form with a free time offset (which
+        absorbs a round target's radius, a time-zero error and a pick delay) and keep the
+        latter only when the picks carry it (:func:`~slicer.velocity.offset_fit.fit_apex`).
     max_relative_std : float
         Largest relative standard error of the velocity of a kept fit.
     min_picks : int
         Fewest picks a kept fit must have.
+    separation : float
+        Transmitter-receiver separation, m: the fits use the bistatic travel time and depths
+        ``sqrt((v t / 2)^2 - (s / 2)^2)`` (not with ``radius=True``).
 
     Returns
     -------
@@ -297,6 +327,7 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
                               ("max_relative_std", max_relative_std, max_relative_std > 0)):
         if not (math.isfinite(value) and ok):
             raise SettingsError(f"out of range: {value!r}", where=option)
+    separation = check_separation(separation, where="separation")
     if radius not in (True, False, "auto"):
         raise SettingsError(f"must be True, False or 'auto', got {radius!r}", where="radius")
     least = 5 if radius is True else 4
@@ -347,7 +378,9 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
     # a stack must stand well above the typical power of the section (mostly noise), or faint
     # coherent residues would count
     floor = 10.0 * float(np.median(np.abs(scan) ** 2))
-    size = (max(3, 2 * int(round(0.5 * aperture / dx)) + 1),
+    # a peak must top its neighbourhood of about a wavelength along the line (and a period in
+    # time); half the aperture let a strong target's shoulder hide a weaker apex 0.9 m away
+    size = (max(3, 2 * int(round(min(0.5 * aperture, lam) / dx)) + 1),
             max(3, 2 * int(round(period / dts)) + 1))
     peaks = (power == scipy.ndimage.maximum_filter(power, size=size, mode="nearest"))
     peaks &= power > floor
@@ -373,7 +406,8 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
         x0, t0 = distance[i], t0s[j]
         reach = min(aperture, max(2 * dxs, vk * t0 / 2 * math.tan(math.radians(max_angle))))
         fit = _refine(env, distance, t_axis, x0=x0, t0=t0, velocity=vk, reach=reach,
-                      period=period, radius=radius, min_picks=min_picks)
+                      period=period, radius=radius, min_picks=min_picks,
+                      separation=separation, aperture=aperture)
         if (fit is None or fit.velocity_std > max_relative_std * fit.velocity
                 or fit.rms_ns > 0.25 * period or abs(fit.x0 - x0) > 0.5 * reach
                 or abs(fit.t0 - t0) > period or fit.t0 < earliest
@@ -408,7 +442,8 @@ def diffraction_table(found) -> xr.Dataset:
     -------
     xarray.Dataset
         Variables ``line``, ``trace``, ``distance``, ``x``, ``y`` (m), ``time`` (ns),
-        ``depth`` (m), ``velocity``, ``velocity_std`` (m/ns), ``radius`` (m), ``rms`` (ns),
+        ``depth`` (m), ``velocity``, ``velocity_std`` (m/ns), ``radius`` (m; the equivalent
+        radius of a fitted time offset), ``delay`` (ns), ``rms`` (ns),
         ``picks`` and ``score``.
     """
     found = list(found)
@@ -427,8 +462,10 @@ def diffraction_table(found) -> xr.Dataset:
             values = values.astype(np.int64)
         data[f.name] = ("diffraction", values, {"units": units[f.name]} if f.name in units
                         else {})
-    data["radius"] = ("diffraction", np.array([d.fit.radius for d in found], float),
+    data["radius"] = ("diffraction", np.array([d.fit.equivalent_radius for d in found], float),
                       {"units": "m"})
+    data["delay"] = ("diffraction", np.array([d.fit.delay for d in found], float),
+                     {"units": "ns"})
     data["rms"] = ("diffraction", np.array([d.fit.rms_ns for d in found], float),
                    {"units": "ns"})
     data["picks"] = ("diffraction", np.array([d.fit.n_points for d in found], np.int64),

@@ -33,17 +33,22 @@ MAX_RELATIVE_VELOCITY_STD = 0.5
 _WHERE = "hyperbola picks"
 
 
-def hyperbola_time(x_m, *, x0: float, t0: float, velocity: float, radius: float = 0.0):
+def hyperbola_time(x_m, *, x0: float, t0: float, velocity: float, radius: float = 0.0,
+                   delay: float = 0.0, separation: float = 0.0):
     """Two-way time (ns) of a point (``radius = 0``) or round diffractor seen at ``x_m``.
 
     ``t = (2 / v) [sqrt((z0 + R)^2 + (x - x0)^2) - R]`` with ``z0 = v t0 / 2`` the depth of the
     target's top (Shihab & Al-Nuaimy 2005); ``R = 0`` gives the diffraction hyperbola
-    ``t = sqrt(t0^2 + (2 (x - x0) / v)^2)`` (Yilmaz 2001, ch. 4).
+    ``t = sqrt(t0^2 + (2 (x - x0) / v)^2)`` (Yilmaz 2001, ch. 4). A round target is a point at
+    its centre depth ``c`` seen ``2 R / v`` early, so the general form is
+    ``t = d + [sqrt((x - x0 - s/2)^2 + c^2) + sqrt((x - x0 + s/2)^2 + c^2)] / v`` with the
+    time offset ``d = delay - 2 R / v`` and antennas ``s`` apart (common-offset geometry, from
+    memory), ``c`` following from the apex time ``t0 = d + 2 sqrt(c^2 + s^2/4) / v``.
 
     Parameters
     ----------
     x_m : array_like
-        Antenna positions along the line, m.
+        Antenna positions (the midpoint of the pair) along the line, m.
     x0 : float
         Position of the apex along the line, m.
     t0 : float
@@ -52,6 +57,10 @@ def hyperbola_time(x_m, *, x0: float, t0: float, velocity: float, radius: float 
         Radar velocity above the target, m/ns.
     radius : float
         Target radius, m.
+    delay : float
+        Constant time offset of the whole curve, ns (a time-zero error or pick delay).
+    separation : float
+        Transmitter-receiver separation, m.
 
     Returns
     -------
@@ -59,8 +68,11 @@ def hyperbola_time(x_m, *, x0: float, t0: float, velocity: float, radius: float 
         Two-way times, ns, shaped like ``x_m``.
     """
     d = np.asarray(x_m, dtype=float) - x0
-    z0 = velocity * t0 / 2.0
-    return (2.0 / velocity) * (np.sqrt((z0 + radius) ** 2 + d * d) - radius)
+    offset = delay - 2.0 * radius / velocity
+    h = separation / 2.0
+    centre = np.sqrt(max((velocity * (t0 - offset) / 2.0) ** 2 - h * h, 0.0))
+    return offset + (np.sqrt((d - h) ** 2 + centre ** 2) + np.sqrt((d + h) ** 2 + centre ** 2)
+                     ) / velocity
 
 
 @dataclass(frozen=True)
@@ -84,8 +96,14 @@ class HyperbolaFit:
     n_points : int
         Number of picks fitted.
     round_p : float
-        p-value of the F-test of the round form against the point form
-        (:func:`fit_target`); NaN when the two were not compared.
+        p-value of the F-test of the round form (or of the free time offset) against the point
+        form (:func:`fit_target`, :func:`~slicer.velocity.offset_fit.fit_apex`); NaN when the
+        two were not compared.
+    delay, delay_std : float
+        Fitted constant time offset of the curve and its standard error, ns (0 and 0 when not
+        fitted; :mod:`slicer.velocity.offset_fit`).
+    separation : float
+        Transmitter-receiver separation the curve was fitted with, m.
     """
 
     velocity: float
@@ -101,16 +119,26 @@ class HyperbolaFit:
     rms_ns: float
     n_points: int
     round_p: float = math.nan
+    delay: float = 0.0
+    delay_std: float = 0.0
+    separation: float = 0.0
 
     @property
     def shape(self) -> str:
-        """``"round"`` when a radius was fitted and kept, else ``"point"``."""
-        return "round" if self.radius > 0 else "point"
+        """``"round"`` when a radius was fitted and kept, ``"offset"`` when a time offset was,
+        else ``"point"``."""
+        return "round" if self.radius > 0 else "offset" if self.delay != 0 else "point"
+
+    @property
+    def equivalent_radius(self) -> float:
+        """Radius (m) of the round target that an early curve (``delay < 0``) would be:
+        ``-delay v / 2``; the fitted radius for a round fit; 0 otherwise."""
+        return self.radius if self.radius > 0 else max(0.0, -self.delay * self.velocity / 2)
 
     def travel_time(self, x_m) -> np.ndarray:
         """Two-way time (ns) of the fitted curve at positions ``x_m`` (m)."""
         return hyperbola_time(x_m, x0=self.x0, t0=self.t0, velocity=self.velocity,
-                              radius=self.radius)
+                              radius=self.radius, delay=self.delay, separation=self.separation)
 
 
 def _model(p: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -131,7 +159,7 @@ def _model(p: np.ndarray, x: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     return t, jac
 
 
-def _check_picks(x_m, t_ns, weights, n_min: int, radius: bool):
+def _check_picks(x_m, t_ns, weights, n_min: int, radius: bool, form: str | None = None):
     try:
         x = np.asarray(x_m, dtype=float).ravel()
         t = np.asarray(t_ns, dtype=float).ravel()
@@ -143,7 +171,7 @@ def _check_picks(x_m, t_ns, weights, n_min: int, radius: bool):
         raise SettingsError("positions and times must be finite", where=_WHERE)
     if (t <= 0).any():
         raise SettingsError("two-way times must be positive (ns below time zero)", where=_WHERE)
-    form = "a round-target fit (radius=True)" if radius else "a hyperbola fit"
+    form = form or ("a round-target fit (radius=True)" if radius else "a hyperbola fit")
     if x.size < n_min:
         raise SettingsError(f"{form} needs at least {n_min} picks, got {x.size}", where=_WHERE)
     distinct = np.unique(np.round(x, 9)).size
@@ -181,19 +209,85 @@ def _initial_guess(x, t, w):
     return velocity, x0, t0
 
 
-def _solve(p0, x, t, w, lower, upper):
+def _solve(p0, x, t, w, lower, upper, model=_model):
+    """Bounded weighted least squares of ``model(p, x) -> (times, Jacobian)`` against ``t``."""
     sw = np.sqrt(w)
 
     def residuals(p):
-        return sw * (_model(p, x)[0] - t)
+        return sw * (model(p, x)[0] - t)
 
     def jacobian(p):
-        return sw[:, None] * _model(p, x)[1]
+        return sw[:, None] * model(p, x)[1]
 
     p0 = np.clip(p0, lower + 1e-9 * (1 + np.abs(lower)), upper)
     return scipy.optimize.least_squares(residuals, p0, jac=jacobian, bounds=(lower, upper),
                                         x_scale="jac", method="trf", xtol=1e-12, ftol=1e-12,
                                         gtol=1e-12, max_nfev=500)
+
+
+def _covariance(result, n: int) -> np.ndarray:
+    """Parameter covariance ``(J^T J)^-1 s^2`` of a least-squares result over ``n`` picks."""
+    k = result.x.size
+    s2 = 2.0 * result.cost / (n - k)
+    try:
+        cov = np.linalg.inv(result.jac.T @ result.jac) * s2
+    except np.linalg.LinAlgError:
+        cov = np.full((k, k), np.inf)
+    if not np.isfinite(cov).all():
+        raise SettingsError("the picks do not constrain the hyperbola (singular fit)",
+                            where=_WHERE)
+    return cov
+
+
+def _validate(v, v_std, x0, t0, depth, x, t) -> None:
+    """Refuse a fitted curve that is not a diffraction below the surface (see
+    :func:`fit_hyperbola`, Raises)."""
+    span = np.ptp(x)
+    if not 0 < v < C_M_PER_NS:
+        raise SettingsError(f"the fitted velocity {v:.4g} m/ns is not between 0 and the speed of "
+                            f"light ({C_M_PER_NS:.4f} m/ns): the picks are not a diffraction "
+                            "from below the surface", where=_WHERE)
+    outside = max(x.min() - x0, x0 - x.max())
+    if outside > 0.01 * span and span < 0.5 * depth:
+        raise SettingsError(f"the picks lie on one side of the apex and span only {span:.3g} m "
+                            f"(less than half the apex depth, {depth:.3g} m): their curvature "
+                            "cannot fix a velocity", where=_WHERE)
+    if not t0 > 1e-3 * t.min():
+        raise SettingsError("the fitted apex lies at the surface (t0 = 0): a straight event, "
+                            "not a diffraction", where=_WHERE)
+    if v_std > MAX_RELATIVE_VELOCITY_STD * v:
+        raise SettingsError(f"the velocity is not constrained: {v:.4g} +- {v_std:.2g} m/ns "
+                            f"(more than {MAX_RELATIVE_VELOCITY_STD:.0%})", where=_WHERE)
+
+
+def extra_term_test(x, t, w, small, big, *, k_big: int, precision: float):
+    """Extra-sum-of-squares F-test of a fit with one parameter more (``big``, ``k_big``
+    parameters) against ``small``, with picks counted as independent ones and a floor on the
+    residual variance (as in :func:`fit_target`). Returns ``(p, widen)``: the p-value and the
+    factor by which the extra parameter's standard error is to be widened."""
+    s_small = float(np.sum(w * (small.travel_time(x) - t) ** 2))
+    residual = (big.travel_time(x) - t)[np.argsort(x)]
+    s_big = float(np.sum(w * (big.travel_time(x) - t) ** 2))
+    # neighbouring picks share errors (the wavelet spans several traces): count them as
+    # n (1 - r1) / (1 + r1) independent ones, r1 the lag-one autocorrelation of the residuals
+    # along the line (AR(1) effective sample size; Bretherton et al. 1999, J. Climate
+    # 12:1990-2009, eq. 31), and widen the F statistic's degrees of freedom and the extra
+    # parameter's standard error to match
+    r1 = 0.0
+    if residual.std() > 0:
+        r1 = float(np.clip(np.nan_to_num(np.corrcoef(residual[:-1], residual[1:])[0, 1]),
+                           0.0, 0.95))
+    n_eff = max(k_big + 1.0, x.size * (1.0 - r1) / (1.0 + r1))
+    dof = n_eff - k_big
+    variance = max(s_big / (x.size - k_big), precision ** 2 * float(w.mean()))
+    if variance <= 0:
+        p = 0.0 if s_small > 0 else 1.0
+    else:
+        f = (s_small - s_big) / variance * (n_eff / x.size)
+        p = float(scipy.stats.f.sf(max(f, 0.0), 1, dof))
+    widen = math.sqrt(x.size / n_eff * max(
+        1.0, variance / (s_big / (x.size - k_big)) if s_big > 0 else 1.0))
+    return p, widen
 
 
 def fit_hyperbola(x_m, t_ns, *, radius: bool = False, weights=None,
@@ -264,32 +358,10 @@ def fit_hyperbola(x_m, t_ns, *, radius: bool = False, weights=None,
     v, x0, t0 = p[:3]
     r = float(p[3]) if radius else 0.0
     n, k = x.size, p.size
-    s2 = 2.0 * result.cost / (n - k)
-    jtj = result.jac.T @ result.jac
-    try:
-        cov = np.linalg.inv(jtj) * s2
-    except np.linalg.LinAlgError:
-        cov = np.full((k, k), np.inf)
-    if not np.isfinite(cov).all():
-        raise SettingsError("the picks do not constrain the hyperbola (singular fit)",
-                            where=_WHERE)
+    cov = _covariance(result, n)
     std = np.sqrt(np.clip(np.diag(cov), 0.0, None))
-    if not 0 < v < C_M_PER_NS:
-        raise SettingsError(f"the fitted velocity {v:.4g} m/ns is not between 0 and the speed of "
-                            f"light ({C_M_PER_NS:.4f} m/ns): the picks are not a diffraction "
-                            "from below the surface", where=_WHERE)
     depth = v * t0 / 2.0
-    outside = max(x.min() - x0, x0 - x.max())
-    if outside > 0.01 * span and span < 0.5 * depth:
-        raise SettingsError(f"the picks lie on one side of the apex and span only {span:.3g} m "
-                            f"(less than half the apex depth, {depth:.3g} m): their curvature "
-                            "cannot fix a velocity", where=_WHERE)
-    if not t0 > 1e-3 * t.min():
-        raise SettingsError("the fitted apex lies at the surface (t0 = 0): a straight event, "
-                            "not a diffraction", where=_WHERE)
-    if std[0] > MAX_RELATIVE_VELOCITY_STD * v:
-        raise SettingsError(f"the velocity is not constrained: {v:.4g} +- {std[0]:.2g} m/ns "
-                            f"(more than {MAX_RELATIVE_VELOCITY_STD:.0%})", where=_WHERE)
+    _validate(v, std[0], x0, t0, depth, x, t)
     grad = np.zeros(k)
     grad[0], grad[2] = t0 / 2.0, v / 2.0
     depth_std = math.sqrt(max(float(grad @ cov @ grad), 0.0))
@@ -356,28 +428,8 @@ def fit_target(x_m, t_ns, *, weights=None, alpha: float = 0.01,
         round_ = fit_hyperbola(x, t, radius=True, weights=w, max_radius=bound)
     except SettingsError:
         return point
-    s_point = float(np.sum(w * (point.travel_time(x) - t) ** 2))
-    residual = (round_.travel_time(x) - t)[np.argsort(x)]
-    s_round = float(np.sum(w * (round_.travel_time(x) - t) ** 2))
-    # neighbouring picks share errors (the wavelet spans several traces): count them as
-    # n (1 - r1) / (1 + r1) independent ones, r1 the lag-one autocorrelation of the residuals
-    # along the line (AR(1) effective sample size; Bretherton et al. 1999, J. Climate
-    # 12:1990-2009, eq. 31), and widen the F statistic's degrees of freedom and the radius's
-    # standard error to match
-    r1 = 0.0
-    if residual.std() > 0:
-        r1 = float(np.clip(np.nan_to_num(np.corrcoef(residual[:-1], residual[1:])[0, 1]),
-                           0.0, 0.95))
-    n_eff = max(5.0, x.size * (1.0 - r1) / (1.0 + r1))
-    dof = n_eff - 4.0
-    variance = max(s_round / (x.size - 4), precision ** 2 * float(w.mean()))
-    if variance <= 0:
-        p = 0.0 if s_point > 0 else 1.0
-    else:
-        f = (s_point - s_round) / variance * (n_eff / x.size)
-        p = float(scipy.stats.f.sf(max(f, 0.0), 1, dof))
-    radius_std = round_.radius_std * math.sqrt(x.size / n_eff * max(
-        1.0, variance / (s_round / (x.size - 4)) if s_round > 0 else 1.0))
+    p, widen = extra_term_test(x, t, w, point, round_, k_big=4, precision=precision)
+    radius_std = round_.radius_std * widen
     round_ = dataclasses.replace(round_, radius_std=radius_std)
     resolved = 2.0 * radius_std < round_.radius < 0.98 * bound
     chosen = round_ if (p < alpha and resolved) else point

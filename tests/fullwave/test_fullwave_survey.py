@@ -41,7 +41,8 @@ def _miss(figure: str):
 @pytest.fixture(scope="module")
 def velocity_analysis():
     settings = slicer.load_settings(DATA / "survey.toml")
-    return analyse_velocity(settings, progress=False)
+    return analyse_velocity(settings, progress=False,
+                            separation=TRUTH["antenna_separation"])
 
 
 @pytest.fixture(scope="module")
@@ -125,8 +126,9 @@ def test_velocity_error_is_within_its_stated_uncertainty(velocity_analysis):
     assert abs(v - TRUTH["velocity"]) < 3 * std, (v, std, TRUTH["velocity"])
 
 
-@_miss("no fit at the air-filled pipe's apex (9.3 ns below time zero); the fits at its x "
-       "sit at 17.8 ns, on the interface echo it disturbs")
+# passes since the peak search's neighbourhood is a wavelength, not half the aperture (measured:
+# both pipes on all 8 lines; air-filled apex x 1.644-1.651 m, 10.13 ns below the bistatic
+# time zero; steel x 0.750 m, 7.47 ns)
 def test_every_pipe_gets_a_hyperbola(velocity_analysis, lines):
     """Each pipe's hyperbola is found on every line: a fit within two trace spacings of the
     pipe's x and within one period of its apex time (truth.json apex_time, less the picked
