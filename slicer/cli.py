@@ -75,9 +75,25 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
                    help="fraction of the largest amplitude the direct wave reaches (default 0.5)")
     g.add_argument("--dewow", type=_number_or_auto, metavar="NS|auto|off",
                    help="running-mean window removing wow (default auto: 1.5 dominant periods)")
-    g.add_argument("--background", choices=("mean", "median", "off"),
-                   help="subtract each line's median or mean trace (default median, which a "
-                        "strong local reflection does not leak into)")
+    g.add_argument("--background", metavar="scaled|median|mean[:TOP-BOTTOM]|off",
+                   help="background removal (default scaled: each line's median trace fitted "
+                        "to every trace, so no ghost appears under a strong reflector); median "
+                        "or mean subtract it whole (flat layers go too); ':TOP-BOTTOM' limits "
+                        "it to that time window in ns, e.g. median:0-12 removes ringing and "
+                        "keeps the layers below")
+    g.add_argument("--antenna-separation", type=_float, metavar="M",
+                   help="transmitter-receiver distance in m: a picked time zero is the direct "
+                        "wave minus separation / c, and depths follow the bistatic path "
+                        "(default 0)")
+    g.add_argument("--attribute", choices=("envelope", "signed"),
+                   help="slice values: envelope (default) or signed, the envelope with the "
+                        "sign of each window's strongest reflection relative to the direct "
+                        "wave (metal and wetter ground one way, voids and drier fill the "
+                        "other)")
+    g.add_argument("--zigzag-shift", type=_number_or_auto, metavar="auto|M|off",
+                   help="along-line lag of lines walked both ways: auto estimates it from "
+                        "neighbouring lines walked the other way; a number moves every trace "
+                        "that far (m) along its line's direction of travel (default off)")
     g.add_argument("--migrate", choices=("auto", "off", "stolt", "phase-shift"),
                    help="2-D migration of each line before the envelope: stolt (f-k, one "
                         "velocity; Stolt 1978) or phase-shift (layered velocity; Gazdag 1978); "
@@ -191,6 +207,10 @@ def make_parser() -> argparse.ArgumentParser:
                     help="trace positions from the line table (default), the trace headers or "
                          "each row's GNSS track (see slicer build --help)")
     ve.add_argument("--crs", help="CRS of the line coordinates")
+    ve.add_argument("--antenna-separation", type=_float, metavar="M",
+                    help="transmitter-receiver distance in m: time zero is the direct wave "
+                         "minus separation / c and the hyperbolas are fitted with the "
+                         "bistatic path (default 0)")
     ve.add_argument("--out", metavar="DIR", help="write velocity.toml and figures/ here")
     ve.add_argument("--overwrite", action="store_true", help="allow a non-empty --out")
     ve.add_argument("--json", action="store_true", help="print one JSON object on stdout")
@@ -248,6 +268,11 @@ def _summary(result, elapsed: float) -> str:
     text = (f"{rec['survey']['lines']} lines, {rec['survey']['traces']} traces -> "
             f"{len(sl['top'])} {sl['axis']} slices on {grid['nx']} x {grid['ny']} cells of "
             f"{grid['cell']:g} m in {elapsed:.1f} s")
+    zigzag = rec.get("zigzag")
+    if zigzag:
+        how = (f"estimated from {zigzag['lines']} lines, +-{zigzag['spread_m']} m"
+               if zigzag["estimated"] else "as given")
+        text += f"; zigzag shift {zigzag['shift_m']:.3f} m ({how})"
     ties = rec.get("ties")
     if ties and ties.get("ties_used"):
         after = "corrected" if ties["applied"] else "if corrected"
@@ -300,7 +325,8 @@ def _run_velocity(args) -> int:
     from slicer.pipeline.velocity_survey import analyse_velocity, write_velocity_outputs
 
     settings = load_settings(args.survey, sample_interval=args.sample_interval,
-                             time_zero=args.time_zero, positions=args.positions, crs=args.crs)
+                             time_zero=args.time_zero, positions=args.positions, crs=args.crs,
+                             antenna_separation=args.antenna_separation)
     figures = None
     if args.out:
         prepare_output_dir(args.out, overwrite=args.overwrite, create=False)

@@ -1,6 +1,7 @@
 """Tests of slicer.cli, the command line: the contract, bad input (one line, exit 2, nothing
 written), safety."""
 
+import json
 import os
 import shutil
 import subprocess
@@ -372,3 +373,33 @@ def test_bad_velocity_model_files(survey, capsys, text, match):
     argv[i:i + 2] = ["--velocity-model", str(model)]
     assert_refused(capsys, survey / "out", "build", survey / "lines.csv", *argv, "--out",
                    survey / "out", match=match)
+
+
+def test_zigzag_auto_without_opposite_lines_is_refused_in_one_line(survey, capsys):
+    # every line tabled west to east: no neighbour walked the other way to compare with
+    table = survey / "lines.csv"
+    rows = table.read_text().splitlines()
+    fixed = [rows[0]]
+    for row in rows[1:]:
+        f, x0, y0, x1, y1 = row.split(",")
+        if float(x0) > float(x1):
+            x0, y0, x1, y1 = x1, y1, x0, y0
+        fixed.append(",".join((f, x0, y0, x1, y1)))
+    table.write_text("\n".join(fixed) + "\n")
+    line = assert_refused(capsys, survey / "out", "build", table, *GOOD, "--zigzag-shift",
+                          "auto", "--out", survey / "out", match="--zigzag-shift")
+    assert "walked the other way" in line
+
+
+def test_new_processing_options_reach_the_record(survey, capsys):
+    code, stdout, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--out",
+                            survey / "o", "--zigzag-shift", "0.02", "--attribute", "signed",
+                            "--antenna-separation", "0.1", "--background", "median:0-8")
+    assert code == 0, err
+    record = json.loads((survey / "o" / "record.json").read_text())
+    s = record["settings"]
+    assert (s["zigzag_shift"], s["attribute"], s["antenna_separation"], s["background"]) == (
+        0.02, "signed", 0.1, "median:0-8")
+    assert record["zigzag"] == {"estimated": False, "shift_m": 0.02}
+    assert "zigzag shift 0.020 m (as given)" in stdout
+    assert "background removal (median trace, 0-8 ns)" in record["processing"]

@@ -259,17 +259,19 @@ def _reduce_along(line: xr.DataArray, dim: str, lo: np.ndarray, hi: np.ndarray,
         bottom=(SLICE, windows.bottom, {"units": u, "axis": windows.axis}))
 
 
-def window_signs(line: xr.DataArray, windows: Windows, *,
+def window_signs(line: xr.DataArray, envelope: xr.DataArray, windows: Windows, *,
                  velocity: float | None = None, separation: float = 0.0) -> np.ndarray:
-    """Sign of the strongest sample of each trace in every window: a ``(trace, slice)`` array.
+    """Sign of the leading lobe of the strongest event in every window: ``(trace, slice)``.
 
-    ``line`` is the processed trace before the envelope (dims ``(trace, twt)`` or
-    ``(trace, depth)``); see :func:`slicer.processing.polarity.window_signs_core`.
+    ``line`` is the processed trace before the envelope and ``envelope`` its envelope, on the
+    same axis (dims ``(trace, twt)`` or ``(trace, depth)``); see
+    :func:`slicer.processing.polarity.leading_lobe_signs_core`.
     """
-    from slicer.processing.polarity import window_signs_core
+    from slicer.processing.polarity import leading_lobe_signs_core
     dim, lo, hi = _limits_along(line, windows, velocity, separation)
-    samples = np.asarray(line.transpose(..., dim).values)
-    return window_signs_core(samples, axis_values=line[dim].values, top=lo, bottom=hi)
+    return leading_lobe_signs_core(np.asarray(line.transpose(..., dim).values),
+                                   np.asarray(envelope.transpose(..., dim).values),
+                                   axis_values=line[dim].values, top=lo, bottom=hi)
 
 
 def record_reach(twt_end: float, windows: Windows, *, velocity: float | None) -> np.ndarray:

@@ -57,7 +57,7 @@ MAX_SHIFT_TRACES = 10
 #: A pair's lag search reaches this many times the lines' offset beyond ``2 * max_shift``: a
 #: feature crossing the lines at ``atan(1 / OBLIQUE_REACH)`` (27 degrees) or more stays in reach.
 OBLIQUE_REACH = 2.0
-#: Least overlap (m) of two lines, and least number of resampled points, for a pair to count.
+#: Least length (m) two lines share at the largest lag looked for, for a pair to count.
 MIN_OVERLAP = 2.0
 
 
@@ -117,7 +117,7 @@ def _pair_lag(along_a, values_a, along_b, values_b, step: float, reach: float) -
     """
     lo = max(along_a.min(), along_b.min())
     hi = min(along_a.max(), along_b.max())
-    if hi - lo < max(MIN_OVERLAP, 3 * reach):
+    if hi - lo < reach + MIN_OVERLAP:  # at the largest lag in reach, MIN_OVERLAP in common
         return math.nan
     s = np.arange(lo, hi, step)
     fa = _standardise(np.column_stack([np.interp(s, along_a, c) for c in values_a.T]))

@@ -250,7 +250,7 @@ def _quantity(cube: xr.DataArray) -> str:
 
 
 def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
-                  title: str | None = None, cmap: str | Colormap = "viridis",
+                  title: str | None = None, cmap: str | Colormap | None = None,
                   percentile: tuple[float, float] = (2, 98),
                   max_columns: int | None = None, dpi: float = 150,
                   panels: list[np.ndarray] | None = None) -> Figure:
@@ -277,11 +277,13 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
         Save the figure here, atomically (format from the suffix; PNG by default).
     title : str, optional
         First line of the sheet title; the CRS, cell size and velocity follow.
-    cmap : str or Colormap
-        Colour map of the values.
+    cmap : str or Colormap, optional
+        Colour map of the values; default viridis (perceptually uniform), or for a signed
+        cube (named ``signed_...``) the diverging PuOr_r, centred on zero.
     percentile : (float, float)
         Percentiles (0-100) of the finite values (all of them, or the subsample of
-        :func:`sample_stride` for large cubes) setting the colour limits.
+        :func:`sample_stride` for large cubes) setting the colour limits; a signed cube's
+        limits are then made symmetric about zero (the larger of the two).
     max_columns : int, optional
         Upper bound on the number of panel columns.
     dpi : float
@@ -313,7 +315,8 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
         ncols = min(ncols, int(max_columns))
     nrows = math.ceil(n_slices / ncols)
     frame = _Frame(cube)
-    colours = _colormap(cmap)
+    signed = str(cube.name or "").startswith("signed")
+    colours = _colormap(cmap if cmap is not None else ("PuOr_r" if signed else "viridis"))
     _check_percentile(percentile)
     if not (math.isfinite(float(dpi)) and float(dpi) > 0):
         raise SettingsError(f"dpi must be a positive number, got {dpi}", where="dpi")
@@ -330,6 +333,9 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
                                 f"(every {stride}th cell)", where="panels")
     k = sample_stride(cube, dpi=dpi) // stride
     vmin, vmax = _limits([p[::k, ::k] for p in drawn], percentile)
+    if signed:  # zero, the sign change, sits at the middle of the diverging map
+        vmax = max(abs(vmin), abs(vmax))
+        vmin = -vmax
     norm = Normalize(vmin=vmin, vmax=vmax)
     aspect = frame.height / frame.width
     panel_w = _PANEL_INCHES if aspect <= 1 else _PANEL_INCHES / aspect

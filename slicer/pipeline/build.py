@@ -184,6 +184,7 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=cube_in_memory)
     reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)
+    zigzag = correct_zigzag(reduced, settings)
     if settings.level:  # per line and slice, against its neighbouring lines
         reduced.table = level_lines(reduced.table)
     read_s = time.perf_counter() - started
@@ -193,6 +194,8 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
                            max_gap=settings.max_gap)
     kwargs = layout.cube_kwargs(reduced.table, crs=settings.crs, velocity=velocity,
                                 processing=summary)
+    if settings.attribute == "signed":  # a name that says the values carry a sign
+        kwargs["name"] = "signed_envelope"
     record = {
         "slicer": _version(),
         "created_utc": _dt.datetime.now(_dt.UTC).isoformat(timespec="seconds"),
@@ -209,10 +212,26 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
         "grid": layout.details(),
         "lines": reduced.lines,
         "ties": reduced.ties,
+        "zigzag": zigzag,
         "seconds": {"read_and_process": round(read_s, 3)},
         "environment": environment(),
     }
     return _Reduction(reduced, layout, kwargs, record, started)
+
+
+def correct_zigzag(reduced, settings: BuildSettings) -> dict | None:
+    """Estimate (``zigzag_shift = "auto"``) and remove the along-line lag of lines walked both
+    ways, on the reduced table in place; what was done, for the record (None when off)."""
+    if settings.zigzag_shift == "off":
+        return None
+    from slicer.gridding.zigzag import estimate_zigzag_shift, shift_along_lines
+    if settings.zigzag_shift == "auto":
+        found = estimate_zigzag_shift(reduced.table).to_record()
+        record = {"estimated": True, **found}
+    else:
+        record = {"estimated": False, "shift_m": float(settings.zigzag_shift)}
+    reduced.table = shift_along_lines(reduced.table, shift=record["shift_m"])
+    return record
 
 
 def build_cube(settings: BuildSettings, *, progress: bool = True,

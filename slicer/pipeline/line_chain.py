@@ -6,9 +6,11 @@ from __future__ import annotations
 import numpy as np
 import xarray as xr
 
+from slicer.core.conventions import C_M_PER_NS
 from slicer.core.errors import SettingsError, warn
 from slicer.pipeline.settings import BuildSettings
-from slicer.processing.steps import correct_time_zero, process_chain
+from slicer.processing.background import parse_background
+from slicer.processing.steps import correct_time_zero, envelope, process_chain
 from slicer.velocity.models import ConstantVelocity
 
 
@@ -47,7 +49,7 @@ def migration_method(settings: BuildSettings) -> tuple[str, str | None]:
 
 
 def process_line(line: xr.DataArray, settings: BuildSettings, *,
-                 dewow_ns: float | None = None) -> xr.DataArray:
+                 dewow_ns: float | None = None, keep_trace: bool = False):
     """Run the processing chain of ``settings`` on one placed line; returns its envelope.
 
     ``dewow_ns`` fixes the dewow window when ``settings.dewow`` is ``"auto"`` (the build
@@ -55,19 +57,36 @@ def process_line(line: xr.DataArray, settings: BuildSettings, *,
     (:func:`slicer.processing.steps.process_chain`, equal to the single steps); migration
     (:func:`migration_method`) sits between background removal and gain, so the chain runs in
     two fused parts around it.
+
+    With ``keep_trace`` it returns ``(envelope, trace, polarity)``: also the processed trace
+    before the envelope and the direct wave's polarity (+1 or -1, read before background
+    removal; :func:`slicer.processing.polarity.direct_wave_polarity`), for signed slices.
     """
+    separation = settings.antenna_separation or 0.0
     line = correct_time_zero(line, time_zero=settings.time_zero,
-                             threshold=settings.time_zero_threshold)
+                             threshold=settings.time_zero_threshold, separation=separation)
+    polarity = None
+    if keep_trace:
+        from slicer.processing.polarity import direct_wave_polarity
+        from slicer.processing.steps import dominant_frequency
+        # time zero sits before the direct wave's peak by the separation's air time
+        reach = 1.0 / dominant_frequency(line) + separation / C_M_PER_NS
+        polarity = direct_wave_polarity(line, period_ns=reach)
     window = dewow_window(settings, dewow_ns)
-    background = settings.background if settings.background != "off" else None
     method, _ = migration_method(settings)
-    if method == "off":
-        return process_chain(line, dewow_ns=window, background=background,
-                             gain=settings.gain_curve)
-    line = process_chain(line, dewow_ns=window, background=background, gain=None,
+    gain = settings.gain_curve
+    if method == "off" and not keep_trace:
+        return process_chain(line, dewow_ns=window, background=settings.background,
+                             gain=gain)
+    line = process_chain(line, dewow_ns=window, background=settings.background, gain=None,
                          take_envelope=False)
-    line = migrate_line(line, settings, method=method)
-    return process_chain(line, dewow_ns="off", background=None, gain=settings.gain_curve)
+    if method != "off":
+        line = migrate_line(line, settings, method=method)
+    if not keep_trace:
+        return process_chain(line, dewow_ns="off", background=None, gain=gain)
+    trace = process_chain(line, dewow_ns="off", background=None, gain=gain,
+                          take_envelope=False)
+    return envelope(trace), trace, polarity
 
 
 def migrate_line(line: xr.DataArray, settings: BuildSettings, *,
@@ -106,8 +125,9 @@ def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -
     if settings.dewow != "off":
         window = dewow_ns if settings.dewow == "auto" else float(settings.dewow)
         steps.append(f"dewow {window:.2f} ns" if window else "dewow auto")
-    if settings.background != "off":
-        steps.append(f"background removal ({settings.background} trace)")
+    background = parse_background(settings.background)
+    if background is not None:
+        steps.append(background.describe())
     method, why_off = migration_method(settings)
     if method != "off":
         steps.append(f"{method} migration")
@@ -115,6 +135,10 @@ def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -
         warn(why_off)
     steps.append(f"gain {settings.gain}" if settings.gain_curve else "no gain")
     steps.append("envelope (Hilbert)")
+    if settings.attribute == "signed":
+        steps.append("signed by each window's strongest reflection against the direct wave")
+    if settings.antenna_separation:
+        steps.append(f"antenna separation {settings.antenna_separation:g} m")
     if settings.level:
         steps.append("line levelling")
     return "; ".join(steps)

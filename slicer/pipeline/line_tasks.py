@@ -19,7 +19,13 @@ import xarray as xr
 from slicer.core.conventions import TRACE, TWT
 from slicer.core.errors import SettingsError, SlicerWarning
 from slicer.geometry.survey import SurveyInfo, load_line, survey_info
-from slicer.gridding.windows import Windows, make_windows, record_reach, window_values
+from slicer.gridding.windows import (
+    Windows,
+    make_windows,
+    record_reach,
+    window_signs,
+    window_values,
+)
 from slicer.io.linetable import LineEntry
 from slicer.io.reading import describe_file
 from slicer.pipeline.engine import Engine, parse_scheduler
@@ -110,12 +116,25 @@ def reduce_line(job: LineJob) -> dict:
         reads the survey a second time; None for the second and later channels of a swath).
     """
     line = load_line(job.entry, job.settings, sample_interval_ns=job.interval_ns)
-    env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
+    signed = job.settings.attribute == "signed"
+    trace = None
+    if signed:
+        env, trace, polarity = process_line(line, job.settings, dewow_ns=job.dewow_ns,
+                                            keep_trace=True)
+    else:
+        env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
     if job.correction is not None:
         from slicer.pipeline.survey_ties import correct_line
         env = correct_line(env, *job.correction)
+        trace = correct_line(trace, *job.correction) if signed else None
+    separation = job.settings.antenna_separation or 0.0
     values = window_values(depth_axis_for(env, job.windows, job.velocity), job.windows,
-                           velocity=job.velocity)
+                           velocity=job.velocity, separation=separation)
+    if signed:
+        signs = window_signs(depth_axis_for(trace, job.windows, job.velocity),
+                             depth_axis_for(env, job.windows, job.velocity), job.windows,
+                             velocity=job.velocity, separation=separation)
+        values = values * signs * polarity
     return {"values": np.asarray(values, dtype=np.float32),
             "x": line["x"].values, "y": line["y"].values, "line": job.number,
             "file": str(job.entry.file), "traces": line.sizes[TRACE],

@@ -36,7 +36,8 @@ class Option:
         The key (TOML) and, with ``-`` for ``_``, the flag.
     kind : str
         ``number``, ``flag`` (true/false), ``text``, ``choice``, ``path``, ``number|word``
-        (a number or one of ``words``) or ``size`` (bytes, a number or text such as 1GB).
+        (a number or one of ``words``), ``size`` (bytes, a number or text such as 1GB) or
+        ``background`` (text in :func:`slicer.processing.background.parse_background`'s form).
     help : str
         Meaning, for the docs and ``--help``.
     unit : str
@@ -140,6 +141,12 @@ def check_option(name: str, value, *, where: str | None = None):
         return value
     if not isinstance(value, str):
         raise SettingsError(f"expected text, got {value!r}", where=where)
+    if o.kind == "background":  # its grammar lives with the step (imported only here)
+        from slicer.processing.background import parse_background
+        try:
+            parse_background(value)
+        except SettingsError as exc:
+            raise SettingsError(exc.message, where=where) from None
     if o.kind == "choice" and value not in o.words:
         raise SettingsError(f"expected one of {', '.join(o.words)}, got {value!r}",
                             where=where)
@@ -176,12 +183,17 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
        0.001, 20),
     _o("time_zero", "number|word", "time zero on the raw record, or 'auto' (direct-wave "
        "pick)", "ns", 0, 100_000, words=("auto",)),
+    # Ground-coupled antenna pairs sit centimetres to a metre apart; 10 m covers wide-angle rigs.
+    _o("antenna_separation", "number", "transmitter-receiver distance: a picked time zero is "
+       "the direct wave minus separation / c, and depths use the bistatic path", "m", 0, 10),
     _o("time_zero_threshold", "number", "fraction of the peak the direct wave must reach for "
        "'auto'", "", 0, 1, open_low=True),
     _o("dewow", "number|word", "running-mean window, 'auto' (1.5 dominant periods) or 'off'",
        "ns", 0, 100_000, open_low=True, words=("auto", "off")),
-    _o("background", "choice", "background removal: 'mean', 'median' or 'off'",
-       words=("mean", "median", "off")),
+    _o("background", "background", "background removal: 'scaled' (the median trace fitted to "
+       "each trace: no ghost under strong reflectors), 'median' or 'mean' (subtracted whole: "
+       "flat layers go too), each optionally limited to a time window ':TOP-BOTTOM' in ns "
+       "('median:0-12' removes ringing and keeps layers below), or 'off'"),
     # Evidence for the default: benchmarks/README.md, "migration.py" (flank / apex table).
     _o("gain", "text", "gain: 'power:P' (t^P), 'exp:DB_PER_NS' or 'none'. The default "
        "power:1 undoes the 1/r spreading of an echo and no more, so a hyperbola's later flanks "
@@ -202,6 +214,13 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
     _o("migrate", "choice", "2-D migration before the envelope: 'auto' (depth slices: Stolt "
        "for one velocity, phase shift for layers; not time slices nor a lateral model), "
        "'stolt', 'phase-shift' or 'off'", words=("auto", "off", "stolt", "phase-shift")),
+    _o("attribute", "choice", "slice values: 'envelope' (strength) or 'signed' (the "
+       "envelope with the sign of the window's strongest reflection relative to the direct "
+       "wave: metal and wet ground against voids and dry fill)", words=("envelope", "signed")),
+    # A wheel or trigger lag is a few traces (common practice); 5 m bounds any cart survey.
+    _o("zigzag_shift", "number|word", "along-line lag of lines walked both ways: 'auto' "
+       "(estimated from neighbouring lines walked the other way), a shift in m along each "
+       "line's direction of travel, or 'off'", "m", -5, 5, words=("auto", "off")),
     _o("ties", "choice", "ties at line crossings: 'off', 'report' (measure and report the "
        "misfit) or 'apply' (also correct each line's time zero and gain)",
        words=("off", "report", "apply")),

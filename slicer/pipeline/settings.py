@@ -69,15 +69,18 @@ class BuildSettings:
     control_tolerance: float = 0.05
     sample_interval: float | None = None
     time_zero: float | str = "auto"
+    antenna_separation: float | None = None
     time_zero_threshold: float = 0.5
     dewow: float | str = "auto"
-    background: str = "median"
+    background: str = "scaled"
     gain: str = "power:1"
     velocity: float | None = None
     permittivity: float | None = None
     velocity_std: float | None = None
     velocity_model: Path | None = None
     migrate: str = "auto"
+    attribute: str = "envelope"
+    zigzag_shift: float | str = "off"
     ties: str = "off"
     level: bool = False
     cell: float | None = None
@@ -134,9 +137,6 @@ class BuildSettings:
         if self.ties not in ("off", "report", "apply"):
             raise SettingsError(f"expected 'off', 'report' or 'apply', got {self.ties!r}",
                                 where="--ties")
-        if self.background not in ("mean", "median", "off"):
-            raise SettingsError(f"expected 'mean', 'median' or 'off', got {self.background!r}",
-                                where="--background")
         self.gain_curve  # noqa: B018 - validates
         if self.depths is not None and self.times is not None:
             raise SettingsError("give depth slices or time slices, not both", where="--times")

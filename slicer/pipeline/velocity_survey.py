@@ -88,7 +88,7 @@ class VelocityAnalysis:
 
 def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
                      figures: str | os.PathLike | None = None,
-                     separation: float = 0.0) -> VelocityAnalysis:
+                     separation: float | None = None) -> VelocityAnalysis:
     """Find and fit the diffraction hyperbolas of every line; combine them.
 
     Parameters
@@ -99,11 +99,14 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
         Show a progress bar (on a terminal).
     figures : path-like, optional
         Folder for one PNG per line: the radargram with each fitted hyperbola drawn on it.
-    separation : float
-        Transmitter-receiver separation, m: a picked time zero is the direct wave less
-        ``separation / c`` and the hyperbolas are fitted with the bistatic travel time.
+    separation : float, optional
+        Transmitter-receiver separation, m (default: the survey's ``antenna_separation``, or
+        0): a picked time zero is the direct wave less ``separation / c`` and the hyperbolas
+        are fitted with the bistatic travel time.
     """
     from slicer.geometry.positioning import prepare_survey
+    if separation is None:
+        separation = settings.antenna_separation or 0.0
     separation = check_separation(separation, where="separation")
     settings = prepare_survey(settings)
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)

@@ -100,8 +100,9 @@ def test_dewow_window_follows_the_settings(base, dewow_setting, survey_ns, expec
 
 
 @pytest.mark.parametrize(("changes", "dewow_ns", "expected"), [
-    ({}, 3.75, ["time zero 3.0 ns", "dewow 3.75 ns", "background removal (median trace)",
-                "stolt migration", "gain power:1", "envelope (Hilbert)"]),
+    ({}, 3.75, ["time zero 3.0 ns", "dewow 3.75 ns",
+                "background removal (median trace fitted per trace)", "stolt migration",
+                "gain power:1", "envelope (Hilbert)"]),
     ({"time_zero": "auto", "dewow": "off", "background": "off", "gain": "none",
       "migrate": "off"}, None,
      ["time zero auto (direct-wave pick per line)", "no gain", "envelope (Hilbert)"]),
@@ -110,8 +111,8 @@ def test_dewow_window_follows_the_settings(base, dewow_setting, survey_ns, expec
      ["time zero 3.0 ns", "dewow 2.00 ns", "background removal (mean trace)",
       "stolt migration", "gain exp:0.2", "envelope (Hilbert)", "line levelling"]),
     ({"dewow": "auto", "depths": None, "times": "0:40:5"}, None,
-     ["time zero 3.0 ns", "dewow auto", "background removal (median trace)", "gain power:1",
-      "envelope (Hilbert)"]),
+     ["time zero 3.0 ns", "dewow auto", "background removal (median trace fitted per trace)",
+      "gain power:1", "envelope (Hilbert)"]),
 ])
 def test_processing_summary_names_each_step_in_chain_order(base, changes, dewow_ns, expected):
     with warnings.catch_warnings():

@@ -45,7 +45,7 @@ def test_the_table_covers_every_option():
     ('cell = "0.1"\n', "cell", "got the text '0.1'"),
     ("out = 5\n", "out", "expected a file or folder name"),
     ("scheduler = 4\n", "scheduler", "expected text"),
-    ('background = "mode"\n', "background", "expected one of mean, median, off"),
+    ('background = "mode"\n', "background", "must be one of scaled, median, mean"),
     ("sample_interval = 1e300\n", "sample_interval", "outside 0.001 <= value <= 20 ns"),
     ("dewow = 1e300\n", "dewow", "outside 0 < value <= 100000 ns"),
     ("antenna_along = 1e300\n", "antenna_along", "outside -50 <= value <= 50 m"),
