@@ -106,9 +106,18 @@ def test_time_zero_pick_is_on_the_direct_wave(lines):
     assert np.all((picks > lo) & (picks < hi)), (picks, lo, hi)
 
 
+# Diagnosis (2026; slicer/velocity/diffraction.py docstring): the antennas' coupling through the
+# air-ground interface. Envelope picks of a one-cell steel target 0.4 m deep (FDTD, same set-up)
+# drift early with angle from the apex by 0.15 ns at 27 deg and 0.42 ns at 42 deg (a
+# plane-wave-spectrum model of the coupling: 0.13 and 0.32 ns); antennas on the ground 0.23 ns
+# at 45 deg (round pipe); no interface 0.06 ns (round pipe, FDTD), 0.002 ns (point, model).
+# Line FW03's picks corrected by that model (true v and h) read +6 % (steel) and +6 to +10 %
+# (air-filled) as points (the radius), and -3 to +5 % (+-2 %) with a free offset on the steel
+# pipe to 40-50 deg; the air-filled pipe's offset fits stay unusable (+-40 %).
 @_miss("0.1128 +- 0.0003 m/ns found with the 0.14 m separation, truth 0.0999 (+12.9 %; "
-       "+17.4 % before the bistatic fits): the picks shift with angle (apex 0.28 ns late, "
-       "flanks at 0.45 m 0.2 ns early), which no constant offset absorbs")
+       "+17.4 % before the bistatic fits): beyond the air-ground critical angle (19.5 deg) "
+       "the picks arrive early (0.2 ns at 0.45 m) and the 2 cm air gap flattens the apex "
+       "(0.11 ns inside it), which no constant offset absorbs")
 def test_velocity_within_two_percent(velocity_analysis):
     """Issue 13 target: the survey velocity within 2 % of c / sqrt(9) = 0.0999 m/ns. The Yee
     grid's own phase velocity at 400 MHz (0.0997-0.0998 m/ns, truth.json grid_velocity) is
@@ -119,7 +128,8 @@ def test_velocity_within_two_percent(velocity_analysis):
     assert abs(v / TRUTH["velocity"] - 1) < 0.02, (v, velocity_analysis.velocity_std)
 
 
-@_miss("stated one-sigma 0.0003 m/ns, error 0.0129 m/ns (about 40 sigma)")
+@_miss("stated one-sigma 0.0003 m/ns, error 0.0129 m/ns (about 40 sigma): the bootstrap "
+       "over lines sees only the noise, not the interface's systematic pick error")
 def test_velocity_error_is_within_its_stated_uncertainty(velocity_analysis):
     """The stated one-sigma uncertainty of the survey velocity should cover its error (within
     three sigma; a normal error is outside 3 sigma 0.3 % of the time)."""
