@@ -1,0 +1,238 @@
+"""slicer against its peers on the same synthetic surveys, in one run.
+
+For each size (default 65 k, 400 k and 1 M traces; zigzag west-east lines 0.5 m apart, traces
+0.05 m apart, 512 samples of 0.1 ns, eight point targets and a drain, as build_throughput.py)
+this script measures, each in a fresh process, on the same files:
+
+* **slicer**: ``slicer.build`` with the contract settings (0.1 m cells, 24 depth slices of
+  0.1 m, velocity 0.1 m/ns, time zero 3 ns) and everything else at its defaults;
+* **tuned floor**: every trace read once through a memory map (``segyio``'s ``f.mmap()``) and
+  its envelope taken in float32 (one complex FFT and inverse per line, ``scipy.fft``, into
+  buffers reused between lines): the least work any envelope build does;
+* **griddata script**: what a practitioner writes in 30 lines: segyio, dewow (running mean),
+  mean-trace background removal, ``scipy.signal.hilbert``, window means, ONE
+  ``scipy.interpolate.griddata`` call for all slices, cells farther than 0.75 line spacings
+  from any trace masked, one GeoTIFF per slice with rasterio;
+* **verde k-NN**: the same per-trace values gridded with ``verde.KNeighbors`` (k = 4, mean)
+  slice by slice and masked with ``verde.distance_mask`` (skipped when verde is not installed:
+  ``pip install verde``).
+
+Target placement: for each point target, the distance (m) from its true position to the
+brightest cell within 1 m of it in the slice holding its depth; the median and largest over
+the targets are printed beside each time, so no method is faster by placing things worse.
+
+Run ``python benchmarks/peers.py [--sizes 65000,400000] [--keep DIR]``; see benchmarks/README.md.
+"""
+
+from __future__ import annotations
+
+import argparse
+import math
+import sys
+import time
+from pathlib import Path
+
+import _common  # noqa: F401 - first: one BLAS thread before numpy loads
+import numpy as np  # noqa: E402
+from _common import _f, _table, in_fresh_process, work_root  # noqa: E402
+
+SETTINGS = dict(crs="EPSG:32633", sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.1,
+                depths="0:2.4:0.1")
+CELL, VELOCITY, T0, DT = 0.1, 0.1, 3.0, 0.1
+TOPS = np.round(np.arange(0.0, 2.4, 0.1), 6)
+LINE_SPACING = 0.5
+
+
+# --- the peers (each runs in a fresh process) --------------------------------------------------
+
+def _lines(table: Path):
+    import csv
+    with table.open() as f:
+        return [(table.parent / r["file"], float(r["start_x"]), float(r["start_y"]),
+                 float(r["end_x"]), float(r["end_y"])) for r in csv.DictReader(f)]
+
+
+def run_slicer(table: str, out: str) -> dict:
+    import slicer
+    settings = slicer.load_settings(table, **SETTINGS, out=out, overwrite=True)
+    started = time.perf_counter()
+    slicer.build(settings, progress=False)
+    seconds = time.perf_counter() - started
+    cube = slicer.build_cube(settings, progress=False).cube  # for placement, not timed
+    return {"seconds": seconds, "cube": _plain(cube.values, cube["x"].values,
+                                              cube["y"].values)}
+
+
+def run_floor(table: str) -> dict:
+    import scipy.fft
+    import segyio
+    started = time.perf_counter()
+    buffer = None
+    for path, *_ in _lines(Path(table)):
+        with segyio.open(str(path), "r", ignore_geometry=True) as f:
+            f.mmap()
+            data = f.trace.raw[:]
+        n = data.shape[-1]
+        nfft = scipy.fft.next_fast_len(2 * n)
+        if buffer is None or buffer.shape != (data.shape[0], nfft):
+            buffer = np.empty((data.shape[0], nfft), dtype=np.complex64)
+            h = np.zeros(nfft, dtype=np.float32)  # the analytic signal's one-sided weights
+            h[0] = 1
+            h[1:(nfft + 1) // 2] = 2
+            if nfft % 2 == 0:
+                h[nfft // 2] = 1
+        buffer[:, :n] = data
+        buffer[:, n:] = 0
+        scipy.fft.fft(buffer, axis=-1, overwrite_x=True, workers=1)
+        buffer *= h
+        analytic = scipy.fft.ifft(buffer, axis=-1, overwrite_x=True, workers=1)
+        np.abs(analytic[:, :n])
+    return {"seconds": time.perf_counter() - started}
+
+
+def _values_per_trace(table: Path):
+    """The script's per-trace window values: dewow, mean background, hilbert, window means."""
+    import scipy.ndimage
+    import scipy.signal
+    import segyio
+    xs, ys, rows = [], [], []
+    for path, x0, y0, x1, y1 in _lines(table):
+        with segyio.open(str(path), "r", ignore_geometry=True) as f:
+            data = f.trace.raw[:].astype(np.float32)
+        data -= scipy.ndimage.uniform_filter1d(data, 37, axis=-1)  # 1.5 periods at 400 MHz
+        data -= data.mean(axis=0)
+        env = np.abs(scipy.signal.hilbert(data, axis=-1))
+        start = int(round(T0 / DT))
+        per = int(round(2 * 0.1 / VELOCITY / DT))  # samples per 0.1 m window
+        usable = env[:, start:start + per * len(TOPS)]
+        rows.append(usable.reshape(len(data), len(TOPS), per).mean(axis=-1))
+        xs.append(np.linspace(x0, x1, len(data)))
+        ys.append(np.linspace(y0, y1, len(data)))
+    return np.concatenate(xs), np.concatenate(ys), np.concatenate(rows)
+
+
+def _cells(x, y):
+    west, south = math.floor(x.min() / CELL) * CELL, math.floor(y.min() / CELL) * CELL
+    gx = west + CELL * (np.arange(int(math.ceil((x.max() - west) / CELL)) + 1) + 0.5)
+    gy = south + CELL * (np.arange(int(math.ceil((y.max() - south) / CELL)) + 1) + 0.5)
+    return gx, gy[::-1]
+
+
+def _write_tifs(cube, gx, gy, folder: Path) -> None:
+    import rasterio
+    from rasterio.transform import from_origin
+    folder.mkdir(parents=True, exist_ok=True)
+    transform = from_origin(gx[0] - CELL / 2, gy[0] + CELL / 2, CELL, CELL)
+    for k, band in enumerate(cube):
+        with rasterio.open(folder / f"slice_{k:03d}.tif", "w", driver="GTiff",
+                           height=band.shape[0], width=band.shape[1], count=1,
+                           dtype="float32", crs=SETTINGS["crs"], transform=transform,
+                           nodata=np.nan, tiled=True, compress="deflate") as dst:
+            dst.write(band.astype(np.float32), 1)
+
+
+def run_griddata(table: str, out: str) -> dict:
+    import scipy.interpolate
+    import scipy.spatial
+    started = time.perf_counter()
+    x, y, values = _values_per_trace(Path(table))
+    gx, gy = _cells(x, y)
+    mx, my = np.meshgrid(gx, gy)
+    grid = scipy.interpolate.griddata((x - gx[0], y - gy[-1]), values,
+                                      (mx - gx[0], my - gy[-1]), method="linear")
+    far = scipy.spatial.cKDTree(np.column_stack([x, y])).query(
+        np.column_stack([mx.ravel(), my.ravel()]))[0].reshape(mx.shape) > 0.75 * LINE_SPACING
+    cube = np.moveaxis(grid, -1, 0)
+    cube[:, far] = np.nan
+    _write_tifs(cube, gx, gy, Path(out))
+    return {"seconds": time.perf_counter() - started, "cube": _plain(cube, gx, gy)}
+
+
+def run_verde(table: str, out: str) -> dict:
+    import verde as vd
+    started = time.perf_counter()
+    x, y, values = _values_per_trace(Path(table))
+    gx, gy = _cells(x, y)
+    mx, my = np.meshgrid(gx, gy)
+    mask = vd.distance_mask((x, y), maxdist=0.75 * LINE_SPACING, coordinates=(mx, my))
+    cube = np.empty((values.shape[1], *mx.shape), dtype=np.float32)
+    for k in range(values.shape[1]):
+        gridder = vd.KNeighbors(k=4).fit((x, y), values[:, k])
+        cube[k] = np.where(mask, gridder.predict((mx, my)), np.nan)
+    _write_tifs(cube, gx, gy, Path(out))
+    return {"seconds": time.perf_counter() - started, "cube": _plain(cube, gx, gy)}
+
+
+def _plain(values, x, y) -> dict:
+    return {"values": np.asarray(values, dtype=np.float32), "x": np.asarray(x),
+            "y": np.asarray(y)}
+
+
+# --- placement ---------------------------------------------------------------------------------
+
+def placement(cube: dict, targets: list[tuple[float, float, float]]) -> tuple[float, float]:
+    """Median and largest distance (m) from each point target to the brightest cell within 1 m
+    of it, in the slice holding its depth."""
+    x, y = cube["x"], cube["y"]
+    mx, my = np.meshgrid(x, y)
+    errors = []
+    for tx, ty, depth in targets:
+        k = min(int(depth / 0.1), cube["values"].shape[0] - 1)
+        near = np.hypot(mx - tx, my - ty) <= 1.0
+        band = np.where(near, cube["values"][k], -np.inf)
+        i = np.unravel_index(int(np.nanargmax(band)), band.shape)
+        errors.append(float(np.hypot(mx[i] - tx, my[i] - ty)))
+    return float(np.median(errors)), float(max(errors))
+
+
+# --- the run -----------------------------------------------------------------------------------
+
+def measure_size(root: Path, n: int, use_verde: bool) -> list[list[str]]:
+    import build_throughput as bt
+    folder = root / f"traces_{n}"
+    table, files, made, reused = bt.make_survey(folder / "survey", n)
+    lines = bt.plan(n)
+    targets = [(t.x, t.y, t.depth) for t in bt.ground_for(lines).targets
+               if t.kind == "point"]
+    traces = n
+    rows = []
+    floor = in_fresh_process(run_floor, str(table))["seconds"]
+    rows.append([f"{traces}", "tuned floor", _f(floor), "1.00", "-", "-"])
+    peers = [("slicer build", run_slicer), ("griddata script", run_griddata)]
+    if use_verde:
+        peers.append(("verde k-NN", run_verde))
+    for name, run in peers:
+        result = in_fresh_process(run, str(table), str(folder / name.split()[0]))
+        med, worst = placement(result["cube"], targets)
+        rows.append([f"{traces}", name, _f(result["seconds"]), _f(result["seconds"] / floor),
+                     _f(med, 3), _f(worst, 3)])
+    return rows
+
+
+def main(argv=None) -> int:
+    p = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    p.add_argument("--sizes", default="65000,400000,1000000",
+                   help="approximate trace counts, comma separated")
+    p.add_argument("--keep", type=Path, help="write (and reuse) surveys and outputs here")
+    args = p.parse_args(argv)
+    try:
+        import verde  # noqa: F401
+        use_verde = True
+    except ModuleNotFoundError:
+        print("verde not installed: its column is skipped (pip install verde)", file=sys.stderr)
+        use_verde = False
+    root, cleanup = work_root(args.keep, "slicer-peers-")
+    try:
+        rows = []
+        for n in (int(s) for s in args.sizes.split(",")):
+            rows += measure_size(root, n, use_verde)
+            print(_table(["traces", "method", "s", "x floor", "median miss m", "worst miss m"],
+                         rows), flush=True)
+    finally:
+        if cleanup is not None:
+            cleanup.cleanup()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
