@@ -90,3 +90,41 @@ def work_root(keep: Path | None, prefix: str):
         return root, None
     cleanup = tempfile.TemporaryDirectory(prefix=prefix)
     return Path(cleanup.name), cleanup
+
+
+class TunedFloor:
+    """The least work any envelope build does, done well: each line read once through a
+    memory map (segyio's ``f.mmap()``) and its envelope taken in float32, one complex FFT and
+    its inverse per line (``scipy.fft``, zero-padded to ``next_fast_len(2 n)`` as slicer pads),
+    into buffers reused from line to line. One instance per thread."""
+
+    def __init__(self):
+        self._buffer = None
+        self._weights = None
+
+    def __call__(self, path) -> int:
+        """Read and envelope one line file; returns its trace count."""
+        import numpy as np
+        import scipy.fft
+        import segyio
+        with segyio.open(str(path), "r", ignore_geometry=True) as f:
+            f.mmap()
+            data = f.trace.raw[:]
+        n = data.shape[-1]
+        nfft = scipy.fft.next_fast_len(2 * n)
+        if self._buffer is None or self._buffer.shape != (data.shape[0], nfft):
+            self._buffer = np.empty((data.shape[0], nfft), dtype=np.complex64)
+            h = np.zeros(nfft, dtype=np.float32)  # the analytic signal's one-sided weights
+            h[0] = 1
+            h[1:(nfft + 1) // 2] = 2
+            if nfft % 2 == 0:
+                h[nfft // 2] = 1
+            self._weights = h
+        buffer = self._buffer
+        buffer[:, :n] = data
+        buffer[:, n:] = 0
+        scipy.fft.fft(buffer, axis=-1, overwrite_x=True, workers=1)
+        buffer *= self._weights
+        analytic = scipy.fft.ifft(buffer, axis=-1, overwrite_x=True, workers=1)
+        np.abs(analytic[:, :n])
+        return data.shape[0]

@@ -6,8 +6,8 @@ apart, not part of the build), then measures on the same files in the same run:
 * ``slicer.build_cube`` (in memory) and ``slicer.build`` (all outputs written), each in a fresh
   process so that its peak resident memory (``VmHWM`` from /proc, not ``ru_maxrss``, which a
   spawned child inherits from its parent) belongs to that build alone;
-* the floor: every trace read once with segyio (``f.trace.raw[:]``) and its envelope computed
-  with :func:`scipy.signal.hilbert` (scipy.fft), zero-padded as the pipeline pads;
+* the floor: every trace read once through a memory map (segyio) and its envelope computed in
+  float32 with reused buffers (``_common.TunedFloor``), zero-padded as the pipeline pads;
 * gridding alone: ``slicer.grid_slices`` on the survey's trace x slice table against
   :func:`scipy.interpolate.griddata` (``method="linear"``) looped over the slices, onto the same
   cell centres.
@@ -31,6 +31,7 @@ import pstats
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 import tracemalloc
 import warnings
@@ -41,8 +42,14 @@ import numpy as np  # noqa: E402 - after the thread settings
 import scipy.fft  # noqa: E402 - after the thread settings
 import scipy.interpolate  # noqa: E402 - after the thread settings
 import scipy.signal  # noqa: E402 - after the thread settings
-import segyio  # noqa: E402 - after the thread settings
-from _common import _f, _memory_mib, _table, in_fresh_process, square_patch  # noqa: E402
+from _common import (  # noqa: E402
+    TunedFloor,
+    _f,
+    _memory_mib,
+    _table,
+    in_fresh_process,
+    square_patch,
+)
 
 import slicer  # noqa: E402 - after the thread settings
 import slicer.synthetic as syn  # noqa: E402 - after the thread settings
@@ -123,29 +130,27 @@ def measure_build(table: str, out: str | None) -> dict:
             "warnings": sorted({f"{w.category.__name__}: {w.message}" for w in caught})}
 
 
-def _floor_one(path: Path) -> int:
-    with segyio.open(str(path), "r", ignore_geometry=True) as f:
-        data = f.trace.raw[:]
-    n = data.shape[-1]
-    # The same zero padding and precision as the pipeline's envelope, so the floor does the
-    # work any correct envelope must do and no more.
-    nfft = scipy.fft.next_fast_len(2 * n)
-    env = np.abs(scipy.signal.hilbert(data.astype(np.float64), N=nfft, axis=-1)[..., :n])
-    return env.shape[0]
-
-
 def measure_floor(files: list[Path], *, workers: int = 1) -> tuple[float, int]:
-    """Seconds to read every trace once (segyio) and take its envelope (scipy.signal.hilbert).
+    """Seconds to read every trace once and take its envelope, done well (:class:`TunedFloor`:
+    memory-mapped reads, float32 FFTs into reused buffers).
 
-    With ``workers > 1`` the files are shared out over that many threads, for comparison with
-    a build that uses several cores.
+    With ``workers > 1`` the files are shared out over that many threads (a floor each), for
+    comparison with a build that uses several cores.
     """
     started = time.perf_counter()
     if workers == 1:
-        count = sum(_floor_one(path) for path in files)
+        floor = TunedFloor()
+        count = sum(floor(path) for path in files)
     else:
+        local = threading.local()
+
+        def one(path):
+            if not hasattr(local, "floor"):
+                local.floor = TunedFloor()
+            return local.floor(path)
+
         with concurrent.futures.ThreadPoolExecutor(max_workers=workers) as pool:
-            count = sum(pool.map(_floor_one, files))
+            count = sum(pool.map(one, files))
     return time.perf_counter() - started, count
 
 

@@ -34,7 +34,7 @@ from pathlib import Path
 
 import _common  # noqa: F401 - first: one BLAS thread before numpy loads
 import numpy as np  # noqa: E402
-from _common import _f, _table, in_fresh_process, work_root  # noqa: E402
+from _common import TunedFloor, _f, _table, in_fresh_process, work_root  # noqa: E402
 
 SETTINGS = dict(crs="EPSG:32633", sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.1,
                 depths="0:2.4:0.1")
@@ -64,29 +64,10 @@ def run_slicer(table: str, out: str) -> dict:
 
 
 def run_floor(table: str) -> dict:
-    import scipy.fft
-    import segyio
+    floor = TunedFloor()
     started = time.perf_counter()
-    buffer = None
     for path, *_ in _lines(Path(table)):
-        with segyio.open(str(path), "r", ignore_geometry=True) as f:
-            f.mmap()
-            data = f.trace.raw[:]
-        n = data.shape[-1]
-        nfft = scipy.fft.next_fast_len(2 * n)
-        if buffer is None or buffer.shape != (data.shape[0], nfft):
-            buffer = np.empty((data.shape[0], nfft), dtype=np.complex64)
-            h = np.zeros(nfft, dtype=np.float32)  # the analytic signal's one-sided weights
-            h[0] = 1
-            h[1:(nfft + 1) // 2] = 2
-            if nfft % 2 == 0:
-                h[nfft // 2] = 1
-        buffer[:, :n] = data
-        buffer[:, n:] = 0
-        scipy.fft.fft(buffer, axis=-1, overwrite_x=True, workers=1)
-        buffer *= h
-        analytic = scipy.fft.ifft(buffer, axis=-1, overwrite_x=True, workers=1)
-        np.abs(analytic[:, :n])
+        floor(path)
     return {"seconds": time.perf_counter() - started}
 
 
