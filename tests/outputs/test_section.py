@@ -1,0 +1,97 @@
+"""Vertical sections through a synthetic cube holding a known dipping plane.
+
+The cube is written here from a formula (a plane dipping east at a known slope, its echo a
+Gaussian in depth), not by slicer's pipeline; values between cells are checked against
+scipy.interpolate.RegularGridInterpolator, the reference bilinear interpolator.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+import scipy.interpolate
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from slicer.core.errors import SettingsError
+from slicer.outputs.cube import new_cube
+from slicer.outputs.section import section
+
+WEST, NORTH, CELL = 500000.0, 4200010.0, 0.1
+NX, NY = 80, 100  # 8 m east, 10 m north
+TOPS = np.round(np.arange(0.0, 2.0, 0.05), 6)
+SLOPE, DEPTH0 = 0.15, 0.4  # the plane: depth = 0.4 + 0.15 * (x - WEST)
+
+
+def plane_cube(holes=False):
+    x = WEST + CELL * (np.arange(NX) + 0.5)
+    y = NORTH - CELL * (np.arange(NY) + 0.5)
+    mid = TOPS + 0.025
+    depth = DEPTH0 + SLOPE * (x - WEST)
+    data = np.exp(-((mid[:, None, None] - depth[None, None, :]) / 0.05) ** 2)
+    data = np.broadcast_to(data, (len(TOPS), NY, NX)).copy()
+    if holes:
+        data[:, 40:60, 30:50] = np.nan  # a tree: no traces
+    return new_cube(data, west=WEST, north=NORTH, cell=CELL, crs="EPSG:32633", top=TOPS,
+                    bottom=TOPS + 0.05)
+
+
+def test_a_section_across_the_dip_follows_the_plane():
+    cube = plane_cube()
+    s = section(cube, [(WEST + 0.5, NORTH - 5), (WEST + 7.5, NORTH - 5)], spacing=0.1)
+    assert s.dims == ("distance", "depth")
+    peak = s["depth"].values[np.argmax(s.values, axis=1)]
+    truth = DEPTH0 + SLOPE * (s["x"].values - WEST)
+    assert np.abs(peak - truth).max() <= 0.025 + 1e-9  # half a slice
+    np.testing.assert_allclose(s["distance"].values[-1], 7.0)
+    assert s["distance"].attrs["units"] == "m"
+
+
+def test_a_section_along_the_strike_stays_at_one_depth():
+    cube = plane_cube()
+    x = WEST + 4.05
+    s = section(cube, [(x, NORTH - 0.5), (x, NORTH - 9.5)])
+    peak = s["depth"].values[np.argmax(s.values, axis=1)]
+    assert np.ptp(peak) == 0 and abs(peak[0] - (DEPTH0 + SLOPE * 4.05)) <= 0.025
+
+
+@settings(max_examples=30, deadline=None)
+@given(st.lists(st.tuples(st.floats(0.1, 7.9), st.floats(0.1, 9.9)), min_size=2, max_size=4,
+                unique=True))
+def test_values_equal_the_reference_bilinear_interpolator(vertices):
+    cube = plane_cube()
+    pts = [(WEST + u, NORTH - v) for u, v in vertices]
+    if any(math.hypot(a[0] - b[0], a[1] - b[1]) < 1e-6 for a, b in zip(pts, pts[1:])):
+        return
+    s = section(cube, pts, spacing=0.37)
+    ref = scipy.interpolate.RegularGridInterpolator(
+        (cube["y"].values[::-1], cube["x"].values), np.moveaxis(cube.values[:, ::-1, :], 0, -1),
+        method="linear", bounds_error=False, fill_value=np.nan)
+    expected = ref(np.column_stack([s["y"].values, s["x"].values]))
+    np.testing.assert_allclose(s.values, expected, rtol=1e-5, atol=1e-6)
+    # every vertex is a sample
+    for px, py in pts:
+        assert np.isclose(np.hypot(s["x"].values - px, s["y"].values - py), 0).any()
+
+
+def test_gaps_stay_gaps():
+    cube = plane_cube(holes=True)
+    s = section(cube, [(WEST + 0.5, NORTH - 5), (WEST + 7.5, NORTH - 5)])
+    inside_hole = (s["x"].values > WEST + 3.1) & (s["x"].values < WEST + 4.9)
+    assert np.isnan(s.values[inside_hole]).all()
+    assert np.isfinite(s.values[~inside_hole & (s["x"].values < WEST + 2.5)]).all()
+
+
+@pytest.mark.parametrize("points, spacing, match", [
+    ([(WEST, NORTH)], None, "two or more"),
+    ([(WEST + 1, NORTH - 1), (WEST + 1, NORTH - 1)], None, "the same"),
+    ([(WEST + 1, NORTH - 1), (math.nan, NORTH - 1)], None, "finite"),
+    ([(WEST + 1, NORTH - 1), (WEST + 2, NORTH - 1)], 0.0, "positive"),
+    ([(0.0, 0.0), (1.0, 1.0)], None, "misses"),
+    ("abc", None, "points"),
+])
+def test_bad_paths_are_refused(points, spacing, match):
+    with pytest.raises(SettingsError, match=match):
+        section(plane_cube(), points, spacing=spacing)
