@@ -1,0 +1,184 @@
+"""Processed radargrams: one picture per line, to judge the slices beside the profiles.
+
+A radargram shows a processed line (usually its envelope, or the signed trace) against distance
+along the line (m) and two-way time (ns), with a depth axis (m) beside the time axis when a
+velocity is known, a colour bar with units, the slice windows marked as brackets on the right
+edge (so a bright band in a slice can be found on the profile), and a title with the line's name,
+its direction of travel (bearing, degrees clockwise from grid north) and the CRS coordinates of
+its ends. Labels sit outside the data area.
+
+Lines are drawn from a decimated image (:func:`display_image`): block means over traces and
+samples down to at most :data:`MAX_TRACES` x :data:`MAX_SAMPLES` cells, which a page shows
+without loss, so a radargram costs the same for a 200-trace and a 20 000-trace line.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+from matplotlib import colormaps
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.colors import Normalize
+from matplotlib.figure import Figure
+
+from slicer.core.atomic import atomic_path
+from slicer.core.conventions import TRACE, TWT, X, Y
+from slicer.core.errors import OutputError, SettingsError
+from slicer.core.physics import depth_from_time, time_from_depth
+
+#: Largest decimated image drawn: traces (columns) and samples (rows).
+MAX_TRACES, MAX_SAMPLES = 1200, 600
+
+
+def _block_mean(values: np.ndarray, axis: int, most: int) -> np.ndarray:
+    n = values.shape[axis]
+    k = max(1, math.ceil(n / most))
+    if k == 1:
+        return values
+    m = (n // k) * k
+    head = np.moveaxis(values, axis, 0)
+    blocks = head[:m].reshape(m // k, k, *head.shape[1:])
+    return np.moveaxis(np.nanmean(blocks, axis=1), 0, axis)
+
+
+def display_image(line: xr.DataArray) -> xr.DataArray:
+    """The line decimated for display: block means down to at most ``MAX_TRACES`` traces and
+    ``MAX_SAMPLES`` samples, with ``distance`` (m along the line), ``x``, ``y`` and ``twt``
+    kept for the block centres.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``; coordinates ``x``, ``y`` (m) per trace and ``twt`` (ns).
+    """
+    if set(line.dims) != {TRACE, TWT}:
+        raise SettingsError("expected a line with dims (trace, twt)", where="line")
+    values = np.asarray(line.transpose(TRACE, TWT).values, dtype=np.float32)
+    x = np.asarray(line[X].values, dtype=float) if X in line.coords else np.arange(
+        line.sizes[TRACE], dtype=float)
+    y = np.asarray(line[Y].values, dtype=float) if Y in line.coords else np.zeros_like(x)
+    step = np.hypot(np.diff(x), np.diff(y))
+    distance = np.concatenate([[0.0], np.cumsum(step)])
+    twt = np.asarray(line[TWT].values, dtype=float)
+    image = _block_mean(_block_mean(values, 0, MAX_TRACES), 1, MAX_SAMPLES)
+    nt = image.shape[0]
+    k_t = max(1, math.ceil(values.shape[0] / MAX_TRACES))
+    k_s = max(1, math.ceil(values.shape[1] / MAX_SAMPLES))
+
+    def centres(a, k, n):
+        return a[: n * k].reshape(n, k).mean(axis=1) if k > 1 else a[:n]
+
+    out = xr.DataArray(image, dims=("distance", TWT), name=line.name,
+                       coords={"distance": ("distance", centres(distance, k_t, nt),
+                                            {"units": "m"}),
+                               X: ("distance", centres(x, k_t, nt), {"units": "m"}),
+                               Y: ("distance", centres(y, k_t, nt), {"units": "m"}),
+                               TWT: (TWT, centres(twt, k_s, image.shape[1]), {"units": "ns"})})
+    out.attrs = {**line.attrs, "line_start": [float(x[0]), float(y[0])],
+                 "line_end": [float(x[-1]), float(y[-1])]}
+    return out
+
+
+def bearing(x0: float, y0: float, x1: float, y1: float) -> float:
+    """Grid bearing (degrees clockwise from +y, 0-360) of travel from the first point to the
+    second."""
+    return math.degrees(math.atan2(x1 - x0, y1 - y0)) % 360.0
+
+
+def plot_radargram(image: xr.DataArray, path: str | os.PathLike | None = None, *,
+                   velocity: float | None = None, windows: tuple | None = None,
+                   title: str | None = None, cmap: str = "magma", units: str = "",
+                   percentile: tuple[float, float] = (1, 99.5), dpi: float = 110) -> Figure:
+    """Draw one processed line.
+
+    Parameters
+    ----------
+    image : xarray.DataArray
+        A line from :func:`display_image` (dims ``(distance, twt)``).
+    path : path-like, optional
+        Save here, atomically (PNG unless the suffix says otherwise).
+    velocity : float, optional, keyword-only
+        Ground velocity (m/ns): adds a depth axis (m) on the right, ``d = v t / 2``.
+    windows : (top, bottom), optional, keyword-only
+        The slice windows as two arrays of two-way times (ns), bracketed on the right edge.
+    title : str, optional, keyword-only
+        The first title line (default: the line's name); the direction and the ends follow.
+    cmap : str, keyword-only
+        A matplotlib colour map; a signed image (values of both signs) is drawn on a diverging
+        map centred on zero when ``cmap`` is left at its default.
+    units : str, keyword-only
+        Units of the values, for the colour bar.
+    percentile : (float, float), keyword-only
+        Percentiles of the finite values setting the colour limits.
+    dpi : float, keyword-only
+        Resolution of the saved image.
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+    """
+    if set(image.dims) != {"distance", TWT}:
+        raise SettingsError("expected an image from display_image, dims (distance, twt)",
+                            where="image")
+    values = np.asarray(image.transpose(TWT, "distance").values, dtype=np.float32)
+    finite = values[np.isfinite(values)]
+    if not finite.size:
+        raise SettingsError("the line holds no finite value to draw", where="image")
+    lo, hi = np.percentile(finite, percentile)
+    signed = finite.min() < 0 < finite.max() and abs(finite.min()) > 0.05 * finite.max()
+    if signed and cmap == "magma":
+        cmap = "PuOr_r"
+    if signed:
+        hi = max(abs(lo), abs(hi))
+        lo = -hi
+    try:
+        colours = colormaps[cmap]
+    except KeyError:
+        raise SettingsError(f"unknown colormap {cmap!r}", where="cmap") from None
+    d = image["distance"].values
+    t = image[TWT].values
+    figure = Figure(figsize=(9.0, 4.6), dpi=dpi)
+    FigureCanvasAgg(figure)
+    ax = figure.add_axes((0.08, 0.13, 0.72, 0.70))
+    shown = ax.imshow(values, aspect="auto", cmap=colours, norm=Normalize(lo, hi),
+                      extent=(d[0], d[-1], t[-1], t[0]), interpolation="nearest")
+    ax.set_xlabel("distance along the line (m)")
+    ax.set_ylabel("two-way time (ns)")
+    if velocity is not None:
+        depth_ax = ax.secondary_yaxis(  # set off the edge: the window brackets go between
+            1.05, functions=(lambda tt: depth_from_time(tt, velocity=velocity),
+                            lambda dd: time_from_depth(dd, velocity=velocity)))
+        depth_ax.set_ylabel(f"depth (m) at {velocity:g} m/ns")
+    if windows is not None:
+        top, bottom = (np.asarray(w, dtype=float) for w in windows)
+        for k, (a, b) in enumerate(zip(top, bottom, strict=True)):
+            if b < t[0] or a > t[-1]:
+                continue
+            xk = 1.0 + (0.026 if k % 2 else 0.012)  # alternate so neighbours stay apart
+            ax.plot([xk, xk], [a, b], transform=ax.get_yaxis_transform(), clip_on=False,
+                    color="0.25", linewidth=1.2)
+    bar = figure.colorbar(shown, cax=figure.add_axes((0.925, 0.13, 0.015, 0.70)))
+    bar.set_label(units or "amplitude")
+    x, y = image[X].values, image[Y].values
+    (x0, y0) = image.attrs.get("line_start", (x[0], y[0]))
+    (x1, y1) = image.attrs.get("line_end", (x[-1], y[-1]))
+    name = title or str(image.attrs.get("line", image.name or "line"))
+    figure.text(0.08, 0.955, name, fontsize=11, weight="bold", va="top")
+    figure.text(0.08, 0.905, f"travel bearing {bearing(x0, y0, x1, y1):.0f} deg from grid "
+                f"north, ({x0:.2f}, {y0:.2f}) to ({x1:.2f}, {y1:.2f}) m", fontsize=8.5,
+                va="top")
+    if path is not None:
+        path = Path(path)
+        try:
+            with atomic_path(path) as tmp:
+                figure.savefig(tmp, format=path.suffix.lstrip(".").lower() or "png", dpi=dpi)
+        except OSError as exc:
+            raise OutputError(f"cannot save figure ({exc})", where=str(path)) from None
+    return figure
+
+
+__all__ = ["MAX_SAMPLES", "MAX_TRACES", "bearing", "display_image", "plot_radargram"]
