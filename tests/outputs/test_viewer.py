@@ -1,0 +1,122 @@
+"""The viewer page, driven in a real headless browser (Debian's chromium through selenium).
+
+What a user does is checked, not the page's source: the page loads without console errors, the
+slider and the arrow keys change the slice and its depth label and the drawn pixels, the cursor
+reads out CRS coordinates and a value, and a click shows the nearest line's radargram with the
+marker at the clicked place along it.
+"""
+
+from __future__ import annotations
+
+import io
+import os
+import shutil
+
+import numpy as np
+import pytest
+
+from slicer.outputs.cube import new_cube
+from slicer.outputs.viewer import MAX_SIDE, LineImage, viewer_data, write_viewer
+
+WEST, NORTH, CELL = 500000.0, 4200010.0, 0.1
+
+
+def small_cube(nx=60, ny=40, n=5):
+    data = np.zeros((n, ny, nx), dtype=np.float32)
+    for k in range(n):
+        data[k, :, 10 * k:10 * k + 5] = 1.0 + k  # a bright band moving east with depth
+    data[:, :5, :5] = np.nan
+    tops = 0.1 * np.arange(n)
+    return new_cube(data, west=WEST, north=NORTH, cell=CELL, crs="EPSG:32633", top=tops,
+                    bottom=tops + 0.1)
+
+
+def png(colour):
+    import matplotlib.image
+    buf = io.BytesIO()
+    matplotlib.image.imsave(buf, np.full((40, 100, 3), colour, dtype=np.uint8), format="png")
+    return buf.getvalue()
+
+
+def test_data_bytes_quantise_and_decimate():
+    cube = small_cube()
+    data = viewer_data(cube)
+    assert data["width"] == 60 and data["height"] == 40 and len(data["slices"]) == 5
+    import base64
+    q = np.frombuffer(base64.b64decode(data["slices"][2]["bytes"]), np.uint8).reshape(40, 60)
+    assert (q[:5, :5] == 0).all()  # no data
+    s = data["slices"][2]
+    # the bright band reads back within half a step of the display range
+    value = s["lo"] + (q[20, 22] - 1) / 254 * (s["hi"] - s["lo"])
+    assert abs(value - 3.0) <= (s["hi"] - s["lo"]) / 254
+    big = viewer_data(small_cube(nx=1500, ny=300, n=1))
+    assert big["width"] == 500 and big["height"] == 100 and big["cell"] == pytest.approx(0.3)
+    assert max(big["width"], big["height"]) <= MAX_SIDE
+
+
+@pytest.fixture(scope="module")
+def browser():
+    chromium = shutil.which("chromium") or shutil.which("chromium-browser")
+    driver_path = shutil.which("chromedriver")
+    if chromium is None or driver_path is None:
+        why = "no chromium/chromedriver (Debian: apt-get install chromium chromium-driver)"
+        if os.environ.get("SLICER_REQUIRE_BROWSER"):  # CI (.ci/run) installs them: fail there
+            pytest.fail(why)
+        pytest.skip(why)
+    from selenium import webdriver
+    from selenium.webdriver.chrome.service import Service
+    options = webdriver.ChromeOptions()
+    options.binary_location = chromium
+    for arg in ("--headless=new", "--no-sandbox", "--disable-gpu", "--window-size=1400,1000"):
+        options.add_argument(arg)
+    options.set_capability("goog:loggingPrefs", {"browser": "ALL"})
+    driver = webdriver.Chrome(service=Service(driver_path), options=options)
+    yield driver
+    driver.quit()
+
+
+def test_the_page_works_in_a_browser(tmp_path, browser):
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.by import By
+    from selenium.webdriver.common.keys import Keys
+    cube = small_cube()
+    lines = [LineImage("L000", png((200, 0, 0)), (WEST, NORTH - 1.0), (WEST + 6.0, NORTH - 1.0)),
+             LineImage("L001", png((0, 0, 200)), (WEST, NORTH - 3.0), (WEST + 6.0, NORTH - 3.0))]
+    page = write_viewer(cube, tmp_path / "viewer.html", lines=lines, title="test survey")
+    browser.get(page.as_uri())
+    errors = [e for e in browser.get_log("browser") if e["level"] == "SEVERE"]
+    assert errors == []
+    label = browser.find_element(By.ID, "window")
+    assert label.text == "0-0.1 m"
+
+    def pixels():
+        return browser.execute_script(
+            "const c=document.getElementById('plan');"
+            "return Array.from(c.getContext('2d').getImageData(0,0,c.width,c.height).data"
+            ".filter((v,i)=>i%4===0)).join(',')")
+
+    first = pixels()
+    slider = browser.find_element(By.ID, "slider")
+    browser.execute_script("arguments[0].value=3;arguments[0].dispatchEvent(new Event('input'))",
+                           slider)
+    assert label.text == "0.3-0.4 m" and pixels() != first
+    browser.find_element(By.TAG_NAME, "body").send_keys(Keys.ARROW_RIGHT)
+    assert label.text == "0.4-0.5 m"
+    plan = browser.find_element(By.ID, "plan")
+    size = plan.size
+    # the cell at column 42, row 10 (the band of slice 4 spans columns 40-44)
+    dx = (42.5 / 60 - 0.5) * size["width"]
+    dy = (10.5 / 40 - 0.5) * size["height"]
+    ActionChains(browser).move_to_element_with_offset(plan, dx, dy).perform()
+    readout = browser.find_element(By.ID, "readout").text
+    assert f"x {WEST + 4.25:.2f}" in readout and f"y {NORTH - 1.05:.2f}" in readout
+    assert "value 5" in readout  # slice 4 holds 1 + 4 on the band
+    ActionChains(browser).move_to_element_with_offset(plan, dx, dy).click().perform()
+    assert browser.find_element(By.ID, "linename").text.startswith("L000")
+    marker = browser.find_element(By.ID, "marker")
+    assert marker.is_displayed()
+    # 4.25 m along a 6 m line
+    assert float(marker.get_attribute("data-fraction")) == pytest.approx(4.25 / 6, abs=0.02)
+    assert browser.find_element(By.ID, "radarimg").get_attribute("src").startswith(
+        "data:image/png;base64,")
+    assert [e for e in browser.get_log("browser") if e["level"] == "SEVERE"] == []
