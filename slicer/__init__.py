@@ -53,6 +53,7 @@ _PUBLIC: dict[str, tuple[str, ...]] = {
         "write_cube_netcdf"),
     "slicer.outputs.figures": ("plot_overview", "plot_slice"),
     "slicer.outputs.geotiff": ("slice_file_name", "write_slice_geotiffs"),
+    "slicer.outputs.outlines": ("outline", "write_outlines"),
     "slicer.outputs.section": ("section",),
     "slicer.pipeline.build": ("BuildResult", "build", "build_cube", "grid_slices"),
     "slicer.pipeline.demo": ("run_demo",),

@@ -1,0 +1,100 @@
+"""Anomaly outlines on a cube with known anomalies, read back through GDAL/OGR (pyogrio).
+
+The cube is written here: seeded noise around 1.0 with a rectangle (a "cellar floor") in
+slices 3-6, a ring (a "well") with a hole in slices 8-9, and a one-cell speck. Footprints are
+compared with shapely (the reference geometry library) as intersection over union.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import shapely.geometry
+
+from slicer.core.errors import SettingsError
+from slicer.outputs.cube import new_cube
+from slicer.outputs.outlines import anomaly_mask, outline, write_outlines
+
+WEST, NORTH, CELL = 500000.0, 4200010.0, 0.1
+TOPS = np.round(0.1 * np.arange(12), 6)
+
+
+def cube_with_anomalies():
+    rng = np.random.default_rng(3)
+    data = rng.normal(1.0, 0.1, (12, 100, 80)).astype(np.float32)
+    data[3:7, 20:40, 10:30] = 3.0  # 2 m x 2 m from x 1-3 m, y 2-4 m below the north edge
+    yy, xx = np.mgrid[0:100, 0:80]
+    r = np.hypot(yy - 70, xx - 55)
+    ring = (r >= 6) & (r <= 10)
+    data[8:10][:, ring] = 3.0
+    data[5, 90, 5] = 5.0  # a speck: one cell
+    data[:, :3, :3] = np.nan
+    return new_cube(data, west=WEST, north=NORTH, cell=CELL, crs="EPSG:32633", top=TOPS,
+                    bottom=TOPS + 0.1)
+
+
+def box(col0, col1, row0, row1):
+    return shapely.geometry.box(WEST + CELL * col0, NORTH - CELL * row1,
+                                WEST + CELL * col1, NORTH - CELL * row0)
+
+
+def iou(a, b):
+    return a.intersection(b).area / a.union(b).area
+
+
+def test_the_rectangle_is_outlined_in_its_slices_and_as_one_body():
+    out = outline(cube_with_anomalies())
+    rect = box(10, 30, 20, 40)
+    in_slices = [p for p in out.patches if iou(p["geometry"], rect) > 0.95]
+    assert sorted(p["slice"] for p in in_slices) == [3, 4, 5, 6]
+    assert all(p["area_m2"] == pytest.approx(4.0) for p in in_slices)
+    body = [b for b in out.bodies if iou(b["geometry"], rect) > 0.95]
+    assert len(body) == 1
+    assert (body[0]["top"], body[0]["bottom"], body[0]["slices"]) == (0.3, 0.7, 4)
+    assert body[0]["volume_m3"] == pytest.approx(4.0 * 0.4)
+
+
+def test_holes_are_filled_and_specks_dropped():
+    out = outline(cube_with_anomalies())
+    disc = shapely.geometry.Point(WEST + CELL * 55.5, NORTH - CELL * 70.5).buffer(10 * CELL)
+    ring = [p for p in out.patches if p["slice"] == 8 and iou(p["geometry"], disc) > 0.85]
+    assert len(ring) == 1 and len(ring[0]["geometry"].geoms if hasattr(
+        ring[0]["geometry"], "geoms") else [ring[0]["geometry"]]) == 1
+    assert not list(ring[0]["geometry"].interiors)  # the hole is filled
+    speck = shapely.geometry.Point(WEST + CELL * 5.5, NORTH - CELL * 90.5)
+    assert not any(p["geometry"].contains(speck) for p in out.patches)
+    kept = outline(cube_with_anomalies(), min_area=0.0)
+    assert any(p["geometry"].contains(speck) for p in kept.patches)
+
+
+def test_noise_alone_makes_few_outlines():
+    rng = np.random.default_rng(9)
+    noise = new_cube(rng.normal(1.0, 0.1, (4, 100, 100)).astype(np.float32), west=WEST,
+                     north=NORTH, cell=CELL, crs="EPSG:32633", top=TOPS[:4],
+                     bottom=TOPS[:4] + 0.1)
+    # 3 robust deviations: 0.13 % of normal cells, and four touching cells are needed
+    assert len(outline(noise).patches) == 0
+    assert anomaly_mask(noise).mean() < 0.003
+
+
+def test_the_geopackage_opens_in_gdal_with_crs_and_types(tmp_path):
+    import pyogrio
+    import pyproj
+    path = write_outlines(outline(cube_with_anomalies()), tmp_path / "outlines.gpkg")
+    layers = {name for name, _ in pyogrio.list_layers(path)}
+    assert layers == {"outlines", "bodies"}
+    for layer, ints in (("outlines", {"slice"}), ("bodies", {"body", "slices"})):
+        info = pyogrio.read_info(path, layer=layer)
+        assert pyproj.CRS.from_user_input(info["crs"]).to_epsg() == 32633
+        assert info["geometry_type"] == "MultiPolygon" and info["features"] > 0
+        types = dict(zip(info["fields"], info["dtypes"], strict=True))
+        assert all(types[f] == "int32" for f in ints)
+        assert all(t == "float64" for f, t in types.items() if f not in ints)
+
+
+def test_bad_options():
+    cube = cube_with_anomalies()
+    with pytest.raises(SettingsError):
+        outline(cube, threshold=0)
+    with pytest.raises(SettingsError):
+        outline(cube, min_area=-1.0)
