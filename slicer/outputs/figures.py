@@ -2,7 +2,7 @@
 
 Figures are built on :class:`matplotlib.figure.Figure` with an Agg canvas and never touch
 pyplot, so the library neither changes the user's backend nor keeps figures alive in pyplot's
-registry.
+registry. The overview is drawn by :mod:`slicer.outputs.sheet` as one picture.
 """
 
 from __future__ import annotations
@@ -24,12 +24,10 @@ from slicer.core.atomic import atomic_path
 from slicer.core.conventions import DEPTH, UNITS
 from slicer.core.errors import OutputError, SettingsError
 from slicer.outputs.cube import cube_crs, cube_transform, slice_axis
+from slicer.outputs.sheet import PANEL_INCHES, _decimals, _length_label, _nice_length, draw_sheet
 
 #: Colour of cells without data: a neutral grey that none of the usual sequential maps use.
 NODATA_COLOUR = "#d4d4d4"
-
-#: Panel edge, inches, along the longer side of the grid.
-_PANEL_INCHES = 3.0
 
 #: Coordinates at least this large (m) are plotted relative to the grid corner.
 _RELATIVE_FROM = 10_000.0
@@ -75,7 +73,7 @@ def panel_stride(cube: xr.DataArray, *, dpi: float | None = None) -> int:
     n, ny, nx = cube.shape
     longest = min(MAX_PANEL_CELLS, math.isqrt(MAX_SHEET_CELLS // max(n, 1)))
     if dpi is not None:
-        longest = min(longest, math.ceil(_CELLS_PER_PIXEL * _PANEL_INCHES * float(dpi)))
+        longest = min(longest, math.ceil(_CELLS_PER_PIXEL * PANEL_INCHES * float(dpi)))
     return max(1, math.ceil(max(ny, nx) / max(longest, 1)))
 
 
@@ -130,14 +128,6 @@ def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
                    percentile)
 
 
-def _decimals(values: np.ndarray, low: int, high: int) -> int:
-    # Fewest decimals (within [low, high]) that show every window bound exactly.
-    for d in range(low, high + 1):
-        if np.allclose(np.round(values, d), values, rtol=0, atol=1e-9):
-            return d
-    return high
-
-
 def range_labels(cube: xr.DataArray) -> list[str]:
     """Return one label per slice with its window, e.g. ``"0.30-0.40 m"`` or ``"10.0-12.5 ns"``."""
     axis = slice_axis(cube)
@@ -146,21 +136,6 @@ def range_labels(cube: xr.DataArray) -> list[str]:
     low, high = (2, 4) if axis == DEPTH else (1, 3)
     d = _decimals(np.concatenate([tops, bottoms]), low, high)
     return [f"{t:.{d}f}-{b:.{d}f} {UNITS[axis]}" for t, b in zip(tops, bottoms, strict=True)]
-
-
-def _nice_length(width: float) -> float:
-    # A 1-2-5 round length close to a fifth of the panel width, for the scale bar.
-    target = width / 5
-    exponent = math.floor(math.log10(target))
-    for step in (5, 2, 1):
-        length = step * 10.0**exponent
-        if length <= target * 1.25:
-            return length
-    return 10.0**exponent
-
-
-def _length_label(length: float) -> str:
-    return f"{length * 100:g} cm" if length < 1 else f"{length:g} m"
 
 
 class _Frame:
@@ -172,7 +147,7 @@ class _Frame:
 
     def __init__(self, cube: xr.DataArray):
         t = cube_transform(cube)
-        ny, nx = cube.shape[1:]
+        self.ny, self.nx = ny, nx = cube.shape[1:]
         self.cell = t.a
         self.width = nx * self.cell
         self.height = ny * self.cell
@@ -263,6 +238,12 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
     the arrow points to grid north (+y), which for a projected CRS differs from true north by
     the meridian convergence (up to a few degrees away from the central meridian).
 
+    The panels are colour-mapped into one picture laid out in whole pixels of the sheet at
+    ``dpi`` (:mod:`slicer.outputs.sheet`), each pixel showing its nearest drawn cell; tick
+    labels are written beside the panels on the sheet's left and bottom edges. The returned
+    figure may be saved at another resolution (the picture is then resampled to the nearest
+    pixel); one Axes holds the colour bar (label ``"<colorbar>"``).
+
     A dask-backed cube (e.g. from :func:`slicer.outputs.zarr_store.open_cube_zarr`) is never loaded
     whole: large slices are drawn decimated (every k-th row and column, :func:`panel_stride`:
     at most :data:`MAX_PANEL_CELLS` cells and two cells per saved pixel along a side), one
@@ -313,7 +294,6 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
             raise SettingsError(f"max_columns must be >= 1, got {max_columns}",
                                 where="max_columns")
         ncols = min(ncols, int(max_columns))
-    nrows = math.ceil(n_slices / ncols)
     frame = _Frame(cube)
     signed = str(cube.name or "").startswith("signed")
     colours = _colormap(cmap if cmap is not None else ("PuOr_r" if signed else "viridis"))
@@ -337,48 +317,18 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
         vmax = max(abs(vmin), abs(vmax))
         vmin = -vmax
     norm = Normalize(vmin=vmin, vmax=vmax)
-    aspect = frame.height / frame.width
-    panel_w = _PANEL_INCHES if aspect <= 1 else _PANEL_INCHES / aspect
-    panel_h = panel_w * aspect
-    # A fixed layout, in inches: every panel gets room for its title above, its ticks and
-    # axis labels beside and below; the colorbar and the two-line sheet title get their own
-    # margins. Constrained layout found about the same positions by measuring every text on
-    # every draw, which cost more than drawing the sheet.
-    left, gap_x, top, gap_top, below, bar_room = 0.6, 0.15, 0.8, 0.25, 0.5, 1.3
-    width = ncols * (left + panel_w + gap_x) + bar_room
-    height = top + nrows * (gap_top + panel_h + below)
-    figure = Figure(figsize=(width, height), dpi=dpi)
-    FigureCanvasAgg(figure)
-    grid_right = width - bar_room - gap_x
-    grid = figure.add_gridspec(
-        nrows, ncols, left=left / width, right=grid_right / width,
-        top=1 - (top + gap_top) / height, bottom=below / height,
-        wspace=(left + gap_x) / panel_w, hspace=(below + gap_top) / panel_h)
-    panels = []
-    image = None
-    for i, label in enumerate(range_labels(cube)):
-        row, col = divmod(i, ncols)
-        ax = figure.add_subplot(grid[row, col])
-        image = _draw(ax, drawn[i], stride, frame, colours, norm, label)
-        if col == 0:
-            ax.set_ylabel(frame.ylabel(), fontsize=8)
-        if row == nrows - 1 or i + ncols >= n_slices:
-            ax.set_xlabel(frame.xlabel(), fontsize=8)
-        panels.append(ax)
-    _decorate(panels[0], frame)
-    # The colorbar beside the grid, 0.8 of its height, as figure.colorbar(shrink=0.8) did.
-    grid_h = height - top - gap_top - below
-    cax = figure.add_axes(((grid_right + 0.3) / width, (below + 0.1 * grid_h) / height,
-                           0.18 / width, 0.8 * grid_h / height), label="<colorbar>")
-    bar = figure.colorbar(image, cax=cax, extend="both")
-    bar.set_label(_quantity(cube))
-    figure.suptitle(_sheet_title(cube, title), fontsize=11, y=1 - 0.1 / height, va="top")
+    figure = draw_sheet(drawn, stride=stride, frame=frame, labels=range_labels(cube),
+                        ncols=ncols, colours=colours, norm=norm, dpi=dpi,
+                        title=_sheet_title(cube, title), quantity=_quantity(cube))
     if path is not None:
         path = Path(path)
         fmt = path.suffix.lstrip(".").lower() or "png"
         try:
             with atomic_path(path) as tmp:
-                figure.savefig(tmp, format=fmt, dpi=dpi)
+                # zlib level 1 for PNG: a sheet of noisy slices hardly compresses further,
+                # and the default level took longer than drawing it
+                extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
+                figure.savefig(tmp, format=fmt, dpi=dpi, **extra)
         except OSError as exc:
             raise OutputError(f"cannot save figure ({exc})", where=str(path)) from None
     return figure

@@ -1,0 +1,249 @@
+"""Drawing of the overview sheet as one picture: the panels colour-mapped into one RGBA mosaic.
+
+A sheet of two dozen slices used to be two dozen Axes, each resampling its own image and laying
+out its own ticks; drawing them took seconds. Here the panels are resampled to their size on
+the page and colour-mapped with numpy, placed into one mosaic drawn as a single image, and the
+titles, ticks, colour bar, scale bar and north arrow are added once over it. Everything is laid
+out in whole pixels of the sheet, so each mosaic pixel lands on one pixel of the saved image.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from matplotlib.artist import Artist
+from matplotlib.backends.backend_agg import FigureCanvasAgg
+from matplotlib.cm import ScalarMappable
+from matplotlib.collections import LineCollection
+from matplotlib.colors import Colormap, Normalize
+from matplotlib.figure import Figure
+from matplotlib.patches import Rectangle
+from matplotlib.text import Annotation
+from matplotlib.ticker import MaxNLocator
+
+#: Panel edge, inches, along the longer side of the grid.
+PANEL_INCHES = 3.0
+
+#: Margins around each panel, inches: room for the y tick labels and axis label on its left,
+#: a gap on its right, its title above and the x tick labels and axis label below; the sheet
+#: title above the grid and the colour bar beside it.
+_LEFT, _GAP_X, _TOP, _GAP_TOP, _BELOW, _BAR_ROOM = 0.6, 0.15, 0.8, 0.25, 0.5, 1.3
+
+_TICK_POINTS, _TICK_FONT, _LABEL_FONT, _TITLE_FONT = 3.5, 7, 8, 9
+
+
+def _nice_length(width: float) -> float:
+    # A 1-2-5 round length close to a fifth of the panel width, for the scale bar.
+    target = width / 5
+    exponent = math.floor(math.log10(target))
+    for step in (5, 2, 1):
+        length = step * 10.0**exponent
+        if length <= target * 1.25:
+            return length
+    return 10.0**exponent
+
+
+def _length_label(length: float) -> str:
+    return f"{length * 100:g} cm" if length < 1 else f"{length:g} m"
+
+
+def _decimals(values: np.ndarray, low: int, high: int) -> int:
+    # Fewest decimals (within [low, high]) that show every value exactly.
+    for d in range(low, high + 1):
+        if np.allclose(np.round(values, d), values, rtol=0, atol=1e-9):
+            return d
+    return high
+
+
+class Layout:
+    """Where everything of a sheet of ``nrows`` x ``ncols`` panels goes, in whole pixels.
+
+    Pixel rows count down from the top of the sheet, as in the saved image.
+    """
+
+    def __init__(self, nrows: int, ncols: int, aspect: float, dpi: float):
+        self.nrows, self.ncols, self.dpi = nrows, ncols, float(dpi)
+        panel_w = PANEL_INCHES if aspect <= 1 else PANEL_INCHES / aspect
+        px = self.px
+        self.pw, self.ph = max(1, px(panel_w)), max(1, px(panel_w * aspect))
+        self.step_x = px(_LEFT + _GAP_X) + self.pw
+        self.step_y = px(_BELOW + _GAP_TOP) + self.ph
+        self.left, self.top = px(_LEFT), px(_TOP + _GAP_TOP)
+        self.grid_w = (ncols - 1) * self.step_x + self.pw
+        self.grid_h = (nrows - 1) * self.step_y + self.ph
+        self.width = self.left + self.grid_w + px(_GAP_X + _BAR_ROOM)
+        self.height = self.top + self.grid_h + px(_BELOW)
+
+    def px(self, inches: float) -> int:
+        """Whole pixels of ``inches`` on the sheet."""
+        return round(inches * self.dpi)
+
+    def box(self, i: int) -> tuple[int, int]:
+        """Pixel column and row of the top-left corner of panel ``i``."""
+        row, col = divmod(i, self.ncols)
+        return self.left + col * self.step_x, self.top + row * self.step_y
+
+    def fx(self, column: float) -> float:
+        """Figure fraction of a pixel column."""
+        return column / self.width
+
+    def fy(self, row: float) -> float:
+        """Figure fraction of a pixel row (counted from the top)."""
+        return 1 - row / self.height
+
+
+def _mosaic(drawn: list[np.ndarray], stride: int, cells: tuple[int, int], layout: Layout,
+            colours: Colormap, norm: Normalize) -> np.ndarray:
+    """The panels resampled to their pixels (nearest cell) and colour-mapped, on a clear
+    background: an RGBA ``uint8`` array of the grid's pixels."""
+    ny, nx = cells
+    # The grid spans ny x nx cells over ph x pw pixels; a pixel shows the drawn cell (every
+    # stride-th of the grid) nearest below its centre, as imshow's 'nearest' did.
+    rows = np.minimum(((np.arange(layout.ph) + 0.5) * ny / layout.ph) // stride,
+                      drawn[0].shape[0] - 1).astype(np.intp)
+    cols = np.minimum(((np.arange(layout.pw) + 0.5) * nx / layout.pw) // stride,
+                      drawn[0].shape[1] - 1).astype(np.intp)
+    mosaic = np.zeros((layout.grid_h, layout.grid_w, 4), dtype=np.uint8)
+    for i, panel in enumerate(drawn):
+        c, r = layout.box(i)
+        r, c = r - layout.top, c - layout.left
+        mosaic[r:r + layout.ph, c:c + layout.pw] = colours(norm(panel[np.ix_(rows, cols)]),
+                                                             bytes=True)
+    return mosaic
+
+
+class _Picture(Artist):
+    """An RGBA ``uint8`` picture filling a box of the figure (fractions ``x0, y0, x1, y1``).
+
+    Drawn as it is when its pixels match the output's (the sheet saved at its own dpi), else
+    resampled to the nearest pixel; unlike an Axes image it is neither normalised nor masked
+    again, which took most of the drawing time of a large sheet.
+    """
+
+    def __init__(self, rgba: np.ndarray, box: tuple[float, float, float, float]):
+        super().__init__()
+        self.rgba, self.box = rgba, box
+        self.set_label("<panels>")
+
+    def draw(self, renderer) -> None:
+        if not self.get_visible():
+            return
+        (x0, y0), (x1, y1) = self.get_figure(root=True).transFigure.transform(
+            np.reshape(self.box, (2, 2)))
+        magnification = renderer.get_image_magnification()
+        h, w = round((y1 - y0) * magnification), round((x1 - x0) * magnification)
+        picture = self.rgba
+        if picture.shape[:2] != (h, w) and h > 0 and w > 0:
+            rows = ((np.arange(h) + 0.5) * picture.shape[0] / h).astype(np.intp)
+            cols = ((np.arange(w) + 0.5) * picture.shape[1] / w).astype(np.intp)
+            picture = picture[np.ix_(rows, cols)]
+        gc = renderer.new_gc()
+        gc.set_gid(self.get_gid())
+        renderer.draw_image(gc, round(x0), round(y0), picture[::-1])  # rows from the bottom
+        gc.restore()
+
+
+def _ticks(low: float, high: float) -> tuple[np.ndarray, list[str]]:
+    # Round positions (metres from the panel's low edge) and their labels.
+    values = MaxNLocator(nbins=4, steps=[1, 2, 2.5, 5, 10]).tick_values(low, high)
+    values = values[(values >= low - 1e-9 * abs(high - low)) & (values <= high)]
+    d = _decimals(values, 0, 4)
+    return values, [f"{v:.{d}f}" for v in values]
+
+
+def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str],
+               ncols: int, colours: Colormap, norm: Normalize, dpi: float, title: str,
+               quantity: str) -> Figure:
+    """Draw the overview sheet of the decimated panels ``drawn`` (see
+    :func:`slicer.outputs.figures.plot_overview`, which checks the arguments).
+
+    ``frame`` is the cube's plot extent (``figures._Frame``); ``labels`` the panel titles,
+    ``title`` the sheet title and ``quantity`` the colour bar's label.
+    """
+    n = len(drawn)
+    nrows = math.ceil(n / ncols)
+    lay = Layout(nrows, ncols, frame.height / frame.width, dpi)
+    figure = Figure(figsize=(lay.width / lay.dpi, lay.height / lay.dpi), dpi=lay.dpi)
+    FigureCanvasAgg(figure)
+    figure.add_artist(_Picture(_mosaic(drawn, stride, (frame.ny, frame.nx), lay, colours, norm),
+                               (lay.fx(lay.left), lay.fy(lay.top + lay.grid_h),
+                                lay.fx(lay.left + lay.grid_w), lay.fy(lay.top))))
+
+    (west, east, south, north) = frame.extent
+    xt, xlabels = _ticks(west, east)
+    yt, ylabels = _ticks(south, north)
+    tick = lay.px(_TICK_POINTS / 72)
+    pad = lay.px(2 / 72)
+    segments = []
+    for i, label in enumerate(labels):
+        c, r = lay.box(i)
+        row, col = divmod(i, ncols)
+        figure.add_artist(Rectangle((lay.fx(c), lay.fy(r + lay.ph)), lay.pw / lay.width,
+                                    lay.ph / lay.height, transform=figure.transFigure,
+                                    fill=False, lw=0.8, ec="black", label=f"panel {label}"))
+        figure.text(lay.fx(c + lay.pw / 2), lay.fy(r - pad * 2), label, ha="center",
+                    va="bottom", fontsize=_TITLE_FONT)
+        xs = c + (xt - west) / (east - west) * lay.pw
+        ys = r + lay.ph - (yt - south) / (north - south) * lay.ph
+        bottom = r + lay.ph
+        segments += [[(lay.fx(x), lay.fy(bottom)), (lay.fx(x), lay.fy(bottom + tick))]
+                     for x in xs]
+        segments += [[(lay.fx(c), lay.fy(y)), (lay.fx(c - tick), lay.fy(y))] for y in ys]
+        if row == nrows - 1 or i + ncols >= n:  # nothing below: label the easting
+            for x, text in zip(xs, xlabels, strict=True):
+                figure.text(lay.fx(x), lay.fy(bottom + tick + pad), text, ha="center",
+                            va="top", fontsize=_TICK_FONT)
+            figure.text(lay.fx(c + lay.pw / 2), lay.fy(r + lay.ph + lay.px(_BELOW) - pad),
+                        frame.xlabel(), ha="center", va="bottom", fontsize=_LABEL_FONT)
+        if col == 0:
+            for y, text in zip(ys, ylabels, strict=True):
+                figure.text(lay.fx(c - tick - pad), lay.fy(y), text, ha="right",
+                            va="center", fontsize=_TICK_FONT)
+            figure.text(lay.fx(pad), lay.fy(r + lay.ph / 2), frame.ylabel(), ha="left",
+                        va="center", rotation=90, fontsize=_LABEL_FONT)
+    figure.add_artist(LineCollection(segments, colors="black", linewidths=0.8,
+                                     transform=figure.transFigure))
+    _scale_bar(figure, lay, frame)
+    _north_arrow(figure, lay)
+    # The colour bar beside the grid, 0.8 of its height.
+    cax = figure.add_axes((lay.fx(lay.left + lay.grid_w + lay.px(_GAP_X + 0.3)),
+                           lay.fy(lay.top + 0.9 * lay.grid_h), lay.px(0.18) / lay.width,
+                           0.8 * lay.grid_h / lay.height), label="<colorbar>")
+    bar = figure.colorbar(ScalarMappable(norm=norm, cmap=colours), cax=cax, extend="both")
+    bar.set_label(quantity)
+    figure.suptitle(title, fontsize=11, y=lay.fy(lay.px(0.1)), va="top")
+    return figure
+
+
+def _scale_bar(figure: Figure, lay: Layout, frame) -> None:
+    """A round length on the first panel's lower-left corner, labelled below, on a pale box."""
+    length = _nice_length(frame.width)
+    c, r = lay.box(0)
+    bar_w = length / frame.width * lay.pw
+    bar_h = max(2, lay.ph // 80)
+    pad, sep, text_h = lay.px(4 / 72), lay.px(3 / 72), lay.px(_TICK_FONT / 72)
+    box_w = max(bar_w, lay.px(0.4)) + 2 * pad
+    box_h = bar_h + sep + text_h + 2 * pad
+    x0, y1 = c + pad, r + lay.ph - pad  # the box's left and bottom pixel
+    trans = figure.transFigure
+    figure.add_artist(Rectangle((lay.fx(x0), lay.fy(y1)), box_w / lay.width,
+                                box_h / lay.height, transform=trans, fc="white",
+                                ec="none", alpha=0.7, label="scale bar"))
+    figure.add_artist(Rectangle((lay.fx(x0 + pad), lay.fy(y1 - pad - text_h - sep)),
+                                bar_w / lay.width, bar_h / lay.height, transform=trans,
+                                fc="black", ec="none"))
+    figure.text(lay.fx(x0 + pad + bar_w / 2), lay.fy(y1 - pad), _length_label(length),
+                ha="center", va="bottom", fontsize=_TICK_FONT)
+
+
+def _north_arrow(figure: Figure, lay: Layout) -> None:
+    # Arrow towards +y: grid north, which is what a north-up raster shows.
+    c, r = lay.box(0)
+    arrow = Annotation("N", xy=(lay.fx(c + 0.92 * lay.pw), lay.fy(r + 0.05 * lay.ph)),
+                       xycoords="figure fraction", xytext=(0, -26), textcoords="offset points",
+                       ha="center", va="center", fontsize=8, fontweight="bold",
+                       arrowprops={"arrowstyle": "-|>", "color": "black", "lw": 1.2},
+                       bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
+                             "alpha": 0.7})
+    figure.add_artist(arrow)
