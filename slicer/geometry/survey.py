@@ -10,7 +10,7 @@ import xarray as xr
 
 from slicer.core.errors import InputFileError, SettingsError
 from slicer.geometry.placement import place_line
-from slicer.geometry.positioning import channel_traces, positioned
+from slicer.geometry.positioning import channel_traces, positioned, source_of
 from slicer.io.linetable import LineEntry
 from slicer.io.reading import LineInfo, line_info, read_line
 
@@ -94,8 +94,8 @@ def _entry_info(entry: LineEntry) -> LineInfo:
 def iter_lines(entries: Sequence[LineEntry], *, sample_interval_ns: float | None = None
                ) -> Iterator[xr.DataArray]:
     """Read and place each line in turn (one line in memory at a time)."""
-    for entry in entries:
-        line = read_line(entry.file, sample_interval_ns=sample_interval_ns)
+    for entry in entries:  # placed from the table: no trace-header coordinates are read
+        line = read_line(entry.file, sample_interval_ns=sample_interval_ns, coordinates=False)
         yield place_line(line, entry)
 
 
@@ -113,7 +113,10 @@ def load_line(entry: LineEntry, settings, *, sample_interval_ns: float | None = 
     """Read one line of a survey and give every trace its ground position.
 
     Positions come from where ``settings`` and the entry say (see
-    :mod:`slicer.geometry.positioning`).
+    :mod:`slicer.geometry.positioning`). The file's trace-header coordinates are read only
+    for a line placed from them (``headers``): table and track positions need none, and on
+    SEG-Y that pass over every trace header was half of a line's reading time.
     """
-    line = read_line(entry.file, sample_interval_ns=sample_interval_ns)
+    line = read_line(entry.file, sample_interval_ns=sample_interval_ns,
+                     coordinates=source_of(entry, settings) == "headers")
     return positioned(line, entry, settings)

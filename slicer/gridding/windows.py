@@ -197,10 +197,18 @@ def _limits_along(line: xr.DataArray, windows: Windows, velocity, separation: fl
     """The dimension windows are cut along, and the window limits on it."""
     if DEPTH in line.dims:  # already resampled to depth (a layered or lateral model)
         return DEPTH, windows.top, windows.bottom
+    return (TWT, *window_limits(windows, velocity, separation=separation))
+
+
+def window_limits(windows: Windows, velocity, *, separation: float = 0.0,
+                  in_depth: bool = False) -> tuple[np.ndarray, np.ndarray]:
+    """Window limits on the axis a line is cut along: two-way time (ns), or depth (m) for a
+    line ``in_depth`` (resampled to depth already)."""
+    if in_depth:
+        return windows.top, windows.bottom
     if velocity is not None and not hasattr(velocity, "profile"):
         velocity = check_velocity(velocity)
-    t_top, t_bottom = windows.times(velocity, separation=separation)
-    return TWT, t_top, t_bottom
+    return windows.times(velocity, separation=separation)
 
 
 def window_values(line: xr.DataArray, windows: Windows, *,

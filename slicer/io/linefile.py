@@ -243,7 +243,7 @@ def netcdf_header_positions(path: str | os.PathLike) -> tuple[np.ndarray, np.nda
 
 
 def read_line_netcdf(path: str | os.PathLike, *, sample_interval_ns: float | None = None,
-                     name: str | None = None) -> xr.DataArray:
+                     name: str | None = None, coordinates: bool = True) -> xr.DataArray:
     """Read a slicer NetCDF line file into the Line data model (see DEVELOPERS.md).
 
     Parameters
@@ -256,6 +256,8 @@ def read_line_netcdf(path: str | os.PathLike, *, sample_interval_ns: float | Non
     name : str, optional
         The line name; the file stem by default, as for every format (the stored ``line``
         attribute is informative only).
+    coordinates : bool
+        Attach the stored ``x``/``y``; False leaves them out (a line placed from elsewhere).
 
     Returns
     -------
@@ -280,7 +282,8 @@ def read_line_netcdf(path: str | os.PathLike, *, sample_interval_ns: float | Non
         units = str(found.amplitude.attrs.get("units", AMPLITUDE_UNITS))
     return _make_line(
         _zero_nonfinite(data, path), interval_ns=interval, path=path, name=name,
-        header_xy=found.xy, twt_ns=_time_axis(found, interval, data.shape[1]),
+        header_xy=found.xy if coordinates else None,
+        twt_ns=_time_axis(found, interval, data.shape[1]),
         time_zero_ns=float(attrs.get("time_zero_ns", 0.0)),
         history=str(attrs.get("history", "")), units=units)
 

@@ -80,7 +80,7 @@ def describe_file(path: str | os.PathLike) -> dict:
 
 
 def read_line(path: str | os.PathLike, *, sample_interval_ns: float | None = None,
-              name: str | None = None) -> xr.DataArray:
+              name: str | None = None, coordinates: bool = True) -> xr.DataArray:
     """Read one radar line into the Line data model (see DEVELOPERS.md).
 
     Parameters
@@ -92,12 +92,16 @@ def read_line(path: str | os.PathLike, *, sample_interval_ns: float | None = Non
         required when the file holds no usable interval.
     name : str, optional
         The line name (``attrs["line"]``); the file stem by default.
+    coordinates : bool
+        Attach the file's per-trace coordinates (``header_x`` / ``header_y``). False skips
+        reading them, for a line placed from elsewhere (SEG-Y: one pass over every trace
+        header saved).
 
     Returns
     -------
     xarray.DataArray
         ``amplitude``, dims ``(trace, twt)``, float32, ``twt`` in ns; per-trace ``header_x`` /
-        ``header_y`` (m) when the file holds coordinates.
+        ``header_y`` (m) when the file holds coordinates and ``coordinates`` is true.
 
     Raises
     ------
@@ -108,6 +112,8 @@ def read_line(path: str | os.PathLike, *, sample_interval_ns: float | None = Non
     """
     path = Path(path)
     if _kind(path) == "segy":
-        return segy.read_segy_line(path, sample_interval_ns=sample_interval_ns, name=name)
-    return linefile.read_line_netcdf(path, sample_interval_ns=sample_interval_ns, name=name)
+        return segy.read_segy_line(path, sample_interval_ns=sample_interval_ns, name=name,
+                                   coordinates=coordinates)
+    return linefile.read_line_netcdf(path, sample_interval_ns=sample_interval_ns, name=name,
+                                     coordinates=coordinates)
 

@@ -3,6 +3,8 @@ removal, migration, gain and envelope, each as the build's settings say."""
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 import xarray as xr
 
@@ -58,6 +60,8 @@ def process_line(line: xr.DataArray, settings: BuildSettings, *,
     (:func:`migration_method`) sits between background removal and gain, so the chain runs in
     two fused parts around it.
 
+    A build's line task runs the same chain on plain arrays (:func:`process_samples`).
+
     With ``keep_trace`` it returns ``(envelope, trace, polarity)``: also the processed trace
     before the envelope and the direct wave's polarity (+1 or -1, read before background
     removal; :func:`slicer.processing.polarity.direct_wave_polarity`), for signed slices.
@@ -97,21 +101,109 @@ def migrate_line(line: xr.DataArray, settings: BuildSettings, *,
     ``method`` defaults to the one :func:`migration_method` chooses from ``settings``.
     """
     from slicer.processing.migration import migrate
+    return migrate(line, **migration_arguments(settings, method=method))
+
+
+def migration_arguments(settings: BuildSettings, *, method: str | None = None) -> dict:
+    """The keywords of :func:`slicer.processing.migration.migrate` (velocity, layer tops,
+    method) that :func:`migrate_line` migrates a line of ``settings`` with."""
     from slicer.velocity.models import LayeredVelocity
     if method is None:
         method, _ = migration_method(settings)
     model = settings.resolved_model
     if isinstance(model, LayeredVelocity):
         if method == "stolt" and len(set(model.velocity)) == 1:
-            return migrate(line, velocity=float(model.velocity[0]), method="stolt")
+            return {"velocity": float(model.velocity[0]), "method": "stolt"}
         if method == "stolt":
             raise SettingsError("Stolt migration needs one velocity; use phase-shift with a "
                                 "layered model", where="--migrate")
-        return migrate(line, velocity=list(model.velocity), layer_tops=list(model.top_time),
-                       tops="twt", method="phase-shift")
+        return {"velocity": list(model.velocity), "layer_tops": list(model.top_time),
+                "tops": "twt", "method": "phase-shift"}
     velocity = (model.velocity if isinstance(model, ConstantVelocity)
                 else float(np.median(model.velocity)))
-    return migrate(line, velocity=velocity, method=method)
+    return {"velocity": velocity, "method": method}
+
+
+@dataclass
+class ProcessedSamples:
+    """One line processed as plain arrays (:func:`process_samples`)."""
+
+    #: Envelope, ``(trace, twt)`` float32.
+    envelope: np.ndarray
+    #: Two-way time (ns) since time zero of every sample.
+    twt: np.ndarray
+    #: The processed trace before the envelope (with ``keep_trace``), else None.
+    trace: np.ndarray | None
+    #: The direct wave's polarity, +1 or -1 (with ``keep_trace``), else None.
+    polarity: int | None
+    #: Time zero (ns) on the file's time axis, as ``attrs["time_zero_ns"]``.
+    time_zero_ns: float
+    #: The steps, as ``attrs["history"]`` of :func:`process_line`'s envelope.
+    history: str
+
+
+def process_samples(samples: np.ndarray, twt: np.ndarray, settings: BuildSettings, *,
+                    distance: np.ndarray | None = None, dewow_ns: float | None = None,
+                    keep_trace: bool = False, time_zero_ns: float = 0.0, history: str = "",
+                    where: str = "line") -> ProcessedSamples:
+    """:func:`process_line` on plain ``(trace, twt)`` samples: the same cores in the same
+    order, without a DataArray per step (a build's line task; the labelled steps cost more
+    than the floor of reading and taking envelopes).
+
+    ``twt`` (ns) is the samples' time axis, ``distance`` (m) their places along the line (for
+    migration), ``time_zero_ns`` and ``history`` what the line carried in.
+    """
+    from slicer.processing.steps import (
+        _chain_core,
+        _envelope_core,
+        chain_plan,
+        dominant_frequency_of,
+        time_zero_of,
+    )
+    steps = [history] if history else []
+    separation = settings.antenna_separation or 0.0
+    window = dewow_window(settings, dewow_ns)
+    frequency = None  # taken once, for whichever of time zero, polarity and dewow need it
+    if settings.time_zero == "auto" or keep_trace or window is None:
+        if twt.size < 2:
+            raise SettingsError("a line needs at least two samples per trace", where=where)
+        frequency = dominant_frequency_of(samples, dt=float(twt[1] - twt[0]), where=where)
+        window = 1.5 / frequency if window is None else window
+    t0, how = time_zero_of(samples, twt, time_zero=settings.time_zero,
+                           threshold=settings.time_zero_threshold, separation=separation,
+                           frequency=frequency, where=where)
+    twt, polarity = twt - t0, None
+    steps.append(how)
+    if keep_trace:
+        from slicer.processing.polarity import direct_wave_polarity_of
+        reach = 1.0 / frequency + separation / C_M_PER_NS
+        polarity = direct_wave_polarity_of(samples, twt, period_ns=reach, where=where)
+    method, _ = migration_method(settings)
+    last = method == "off" and not keep_trace  # one fused part does it all
+    core, done = chain_plan(samples, twt, dewow_ns=window,
+                            background=settings.background,
+                            gain=settings.gain_curve if last else None, take_envelope=last)
+    out = _chain_core(samples, **core)
+    steps += done
+    if method != "off":
+        from slicer.processing.migration import migration_plan, spacing_of
+        if distance is None:
+            raise SettingsError("the line has no 'distance' coordinate to take a trace "
+                                "spacing from", where=where)
+        migrated, how, _ = migration_plan(twt, dx=spacing_of(distance, where=where),
+                                          **migration_arguments(settings, method=method),
+                                          where=where)
+        out = migrated(out)
+        steps.append(how)
+    trace = None
+    if not last:
+        core, done = chain_plan(out, twt, dewow_ns="off", background=None,
+                                gain=settings.gain_curve, take_envelope=False)
+        trace = _chain_core(out, **core)
+        steps += [*done, "envelope"]
+        out = _envelope_core(trace)
+    return ProcessedSamples(out, twt, trace if keep_trace else None, polarity,
+                            time_zero_ns + t0, "; ".join(steps))
 
 
 def processing_summary(settings: BuildSettings, dewow_ns: float | None = None) -> str:

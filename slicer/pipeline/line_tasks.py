@@ -5,6 +5,11 @@ numbers per trace out, so lines run concurrently on any engine (:mod:`slicer.pip
 only one line per worker is ever in memory. The first line runs first, alone: its record decides
 which slice windows fit, and with ``dewow = "auto"`` its dominant frequency sets the dewow
 window of every line (one filter for the whole survey).
+
+Inside a task the line is one DataArray as read and placed; from there on it is plain arrays
+(:func:`slicer.pipeline.line_chain.process_samples`, then the window core): the same NumPy
+cores as the labelled steps, which the tests hold it equal to, without building a DataArray
+for every step (that glue had cost more than the floor of reading and taking envelopes).
 """
 
 from __future__ import annotations
@@ -16,20 +21,20 @@ from dataclasses import dataclass, field
 import numpy as np
 import xarray as xr
 
-from slicer.core.conventions import TRACE, TWT
+from slicer.core.conventions import DISTANCE, TRACE, TWT
 from slicer.core.errors import SettingsError, SlicerWarning
 from slicer.geometry.survey import SurveyInfo, load_line, survey_info
 from slicer.gridding.windows import (
     Windows,
+    _window_means_core,
     make_windows,
     record_reach,
-    window_signs,
-    window_values,
+    window_limits,
 )
 from slicer.io.linetable import LineEntry
 from slicer.io.reading import describe_file
 from slicer.pipeline.engine import Engine, parse_scheduler
-from slicer.pipeline.line_chain import process_line
+from slicer.pipeline.line_chain import process_line, process_samples
 from slicer.pipeline.settings import BuildSettings
 from slicer.processing.steps import (
     correct_time_zero,
@@ -116,31 +121,65 @@ def reduce_line(job: LineJob) -> dict:
         reads the survey a second time; None for the second and later channels of a swath).
     """
     line = load_line(job.entry, job.settings, sample_interval_ns=job.interval_ns)
-    signed = job.settings.attribute == "signed"
-    trace = None
+    settings = job.settings
+    signed = settings.attribute == "signed"
+    # from here on plain arrays: the same cores as the labelled steps, one DataArray per line
+    done = process_samples(
+        line.values, line[TWT].values, settings, dewow_ns=job.dewow_ns, keep_trace=signed,
+        distance=line[DISTANCE].values if DISTANCE in line.coords else None,
+        time_zero_ns=float(line.attrs.get("time_zero_ns", 0.0)),
+        history=line.attrs.get("history", ""),
+        where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
+    env, trace, twt, history = done.envelope, done.trace, done.twt, done.history
+    time_zero_ns = done.time_zero_ns
+    if job.correction is not None:  # as slicer.processing.ties.correct_line
+        from slicer.processing.ties import tie_step
+        shift, gain = job.correction
+        env = (env * np.float32(gain)).astype(np.float32)
+        trace = (trace * np.float32(gain)).astype(np.float32) if signed else None
+        twt, time_zero_ns = twt - shift, time_zero_ns + shift
+        history = f"{history}; {tie_step(shift, gain)}" if history else tie_step(shift, gain)
+    separation = settings.antenna_separation or 0.0
+    model = _resampling_model(job.windows, job.velocity)
+    axis = twt
+    if model is not None:  # as depth_axis_for: onto a depth axis before cutting windows
+        env, axis = _to_depth(env, twt, job.windows, model, line)
+        trace = _to_depth(trace, twt, job.windows, model, line)[0] if signed else None
+    lo, hi = window_limits(job.windows, job.velocity, separation=separation,
+                           in_depth=model is not None)
+    values = _window_means_core(env, twt=axis, t_top=lo, t_bottom=hi)
     if signed:
-        env, trace, polarity = process_line(line, job.settings, dewow_ns=job.dewow_ns,
-                                            keep_trace=True)
-    else:
-        env = process_line(line, job.settings, dewow_ns=job.dewow_ns)
-    if job.correction is not None:
-        from slicer.pipeline.survey_ties import correct_line
-        env = correct_line(env, *job.correction)
-        trace = correct_line(trace, *job.correction) if signed else None
-    separation = job.settings.antenna_separation or 0.0
-    values = window_values(depth_axis_for(env, job.windows, job.velocity), job.windows,
-                           velocity=job.velocity, separation=separation)
-    if signed:
-        signs = window_signs(depth_axis_for(trace, job.windows, job.velocity),
-                             depth_axis_for(env, job.windows, job.velocity), job.windows,
-                             velocity=job.velocity, separation=separation)
-        values = values * signs * polarity
+        from slicer.processing.polarity import leading_lobe_signs_core
+        signs = leading_lobe_signs_core(trace, env, axis_values=axis, top=lo, bottom=hi)
+        values = values * signs * done.polarity
     return {"values": np.asarray(values, dtype=np.float32),
             "x": line["x"].values, "y": line["y"].values, "line": job.number,
             "file": str(job.entry.file), "traces": line.sizes[TRACE],
-            "time_zero_ns": float(env.attrs.get("time_zero_ns", 0.0)),
-            "history": env.attrs.get("history", ""),
+            "time_zero_ns": time_zero_ns, "history": history,
             "input": describe_file(job.entry.file) if job.entry.channel_index == 0 else None}
+
+
+def _resampling_model(windows: Windows, model):
+    """The velocity model a line must be resampled to depth with before its windows are cut
+    (depth windows and a layered or lateral model), else None (see :func:`depth_axis_for`)."""
+    if windows.axis != "depth" or model is None or not hasattr(model, "profile"):
+        return None
+    return None if isinstance(model, ConstantVelocity) else model
+
+
+def _to_depth(samples: np.ndarray, twt: np.ndarray, windows: Windows, model, line
+              ) -> tuple[np.ndarray, np.ndarray]:
+    """``samples`` resampled to the depth axis of :func:`depth_axis_for`, and that axis (m)."""
+    from slicer.velocity.models import _to_depth_core
+    step = float(np.min(model.velocity)) * float(twt[1] - twt[0]) / 2
+    depths = np.arange(0.0, float(windows.bottom.max()) + 2 * step, step)
+    if getattr(model, "lateral", False):
+        tops, v, _ = model.profile(line["x"].values, line["y"].values)
+    else:
+        tops, v, _ = model.profile()
+        v = np.broadcast_to(v, (samples.shape[0], v.size))
+    return (_to_depth_core(samples, np.ascontiguousarray(v), twt=np.asarray(twt, dtype=float),
+                           top_time=tops, depths=depths), depths)
 
 
 def depth_axis_for(env: xr.DataArray, windows: Windows, model) -> xr.DataArray:

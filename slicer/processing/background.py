@@ -189,8 +189,12 @@ def background_core(samples: np.ndarray, *, method: str,
     xb = scipy.ndimage.uniform_filter1d(samples * b, size, axis=-1, mode="nearest")
     bb = scipy.ndimage.uniform_filter1d(b * b, size, axis=-1, mode="nearest")
     floor = np.float32(1e-6) * np.nanmax(bb, axis=-1, keepdims=True) + np.float32(1e-30)
-    scale = np.clip(xb / (bb + floor), 0.0, MAX_SCALE).astype(np.float32)
-    return np.subtract(samples, scale * b, dtype=np.float32)
+    # in place on xb (float32, as the samples): the scale, then the fitted background
+    scale = xb.astype(np.float32, copy=False)
+    scale /= bb + floor
+    np.clip(scale, 0.0, MAX_SCALE, out=scale)
+    scale *= b
+    return np.subtract(samples, scale, dtype=np.float32)
 
 
 def window_samples(window: tuple[float, float] | None, *, dt: float, twt0: float

@@ -36,9 +36,9 @@ from slicer.core.conventions import DISTANCE, TRACE, TWT
 from slicer.core.errors import SettingsError, warn
 from slicer.core.physics import check_velocity
 from slicer.processing.fk import phase_shift_core, stolt_core
-from slicer.processing.steps import _add_history, sample_interval
+from slicer.processing.steps import _add_history
 
-__all__ = ["interval_velocity", "migrate", "trace_spacing"]
+__all__ = ["interval_velocity", "migrate", "migration_plan", "spacing_of", "trace_spacing"]
 
 #: Migration methods understood by :func:`migrate`.
 METHODS = ("stolt", "phase-shift")
@@ -64,15 +64,20 @@ def trace_spacing(line: xr.DataArray) -> float:
     if DISTANCE not in line.coords:
         raise SettingsError("the line has no 'distance' coordinate to take a trace spacing from",
                             where=name)
-    if line.sizes[TRACE] < 2:
-        raise SettingsError("migration needs at least two traces", where=name)
-    steps = np.abs(np.diff(np.asarray(line[DISTANCE].values, dtype=float)))
+    return spacing_of(line[DISTANCE].values, where=name)
+
+
+def spacing_of(distance: np.ndarray, *, where: str = "line") -> float:
+    """:func:`trace_spacing` of the traces at ``distance`` (m) along a line."""
+    if len(distance) < 2:
+        raise SettingsError("migration needs at least two traces", where=where)
+    steps = np.abs(np.diff(np.asarray(distance, dtype=float)))
     dx = float(np.median(steps))
     if not (math.isfinite(dx) and dx > 0):
-        raise SettingsError("traces are not spaced along the line (median step 0 m)", where=name)
+        raise SettingsError("traces are not spaced along the line (median step 0 m)", where=where)
     spread = float(np.max(np.abs(steps - dx))) / dx
     if spread > UNEVEN_TOLERANCE:
-        warn(f"{name}: trace steps vary by up to {spread:.0%} of the median "
+        warn(f"{where}: trace steps vary by up to {spread:.0%} of the median "
              f"{dx:.4g} m; migration assumes even spacing")
     return dx
 
@@ -199,26 +204,54 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
         Unknown method, velocity not between 0 and c, layered velocity with ``stolt``, a line
         without ``distance`` or with no sample at or after time zero, or a bad taper or pad.
     """
-    where = "--migration"
+    dx = trace_spacing(line)
+    apply, how, v_const = migration_plan(
+        np.asarray(line[TWT].values, dtype=float), dx=dx, velocity=velocity, method=method,
+        layer_tops=layer_tops, tops=tops, taper=taper, pad=pad, band=band,
+        where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
+    if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array
+        out = line.copy(deep=False, data=apply(line.values))
+    else:
+        data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
+        out = xr.apply_ufunc(apply, data, input_core_dims=[[TRACE, TWT]],
+                             output_core_dims=[[TRACE, TWT]], dask="parallelized",
+                             output_dtypes=[np.float32], keep_attrs=True)
+        out = out.transpose(*line.dims)
+    attrs = dict(line.attrs)
+    if v_const is not None:
+        attrs["migration_velocity"] = v_const
+    out.attrs = attrs
+    return _add_history(out, how)
+
+
+def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt",
+                   layer_tops=None, tops: str = "twt", taper: float = 0.2, pad: int = 2,
+                   band: float | None = 4.0, where: str = "line"
+                   ) -> tuple[Callable[[np.ndarray], np.ndarray], str, float | None]:
+    """The migration of :func:`migrate` for ``(..., trace, twt)`` samples on the axis ``twt``
+    (ns), traces ``dx`` m apart: a function from samples to migrated float32 samples, the
+    words for the history, and the velocity (m/ns) when it is one constant (else None)."""
     if method not in METHODS:
         raise SettingsError(f"migration method must be one of {', '.join(METHODS)}, got "
-                            f"{method!r}", where=where)
+                            f"{method!r}", where="--migration")
     if not 0 <= taper < 1:
-        raise SettingsError(f"wavenumber taper must be in [0, 1), got {taper!r}", where=where)
+        raise SettingsError(f"wavenumber taper must be in [0, 1), got {taper!r}",
+                            where="--migration")
     if not (isinstance(pad, int | np.integer) and pad >= 2):
-        raise SettingsError(f"time padding must be an integer >= 2, got {pad!r}", where=where)
+        raise SettingsError(f"time padding must be an integer >= 2, got {pad!r}",
+                            where="--migration")
     if band is not None and not (isinstance(band, int | float) and math.isfinite(band)
                                  and band >= 1):
         raise SettingsError(f"the migrated band must be at least 1 dominant frequency (or "
-                            f"None for all), got {band!r}", where=where)
-    dx = trace_spacing(line)
-    dt = sample_interval(line)
-    twt = np.asarray(line[TWT].values, dtype=float)
+                            f"None for all), got {band!r}", where="--migration")
+    if twt.size < 2:
+        raise SettingsError("a line needs at least two samples per trace")
+    dt = float(twt[1] - twt[0])
     # the first sample not above the surface (tolerating rounding in the time-zero shift)
     start = int(np.searchsorted(twt, -1e-6 * dt))
     if start >= twt.size - 1:
         raise SettingsError("no samples after time zero to migrate; correct time zero first",
-                            where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
+                            where=where)
     t_first = float(twt[start])
     constant = not callable(velocity) and layer_tops is None and np.ndim(velocity) == 0
     speed = interval_velocity(velocity, layer_tops=layer_tops, tops=tops,
@@ -242,16 +275,5 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
                                 taper=taper, pad=int(pad), band=band, **kwargs)
         return out
 
-    if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array
-        out = line.copy(deep=False, data=apply(line.values))
-    else:
-        data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
-        out = xr.apply_ufunc(apply, data, input_core_dims=[[TRACE, TWT]],
-                             output_core_dims=[[TRACE, TWT]], dask="parallelized",
-                             output_dtypes=[np.float32], keep_attrs=True)
-        out = out.transpose(*line.dims)
-    attrs = dict(line.attrs)
-    if constant:
-        attrs["migration_velocity"] = float(speed(np.zeros(1))[0])
-    out.attrs = attrs
-    return _add_history(out, f"{how}, trace spacing {dx:.4g} m")
+    v_const = float(speed(np.zeros(1))[0]) if constant else None
+    return apply, f"{how}, trace spacing {dx:.4g} m", v_const

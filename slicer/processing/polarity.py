@@ -81,22 +81,29 @@ def direct_wave_polarity(line: xr.DataArray, *, period_ns: float) -> int:
     SettingsError
         If the record holds no sample within reach of time zero, or only zeros there.
     """
+    samples = np.asarray(line.transpose(..., TRACE, TWT).values, dtype=np.float32)
+    return direct_wave_polarity_of(samples.reshape(-1, samples.shape[-2], samples.shape[-1]),
+                                   line[TWT].values, period_ns=period_ns,
+                                   where=str(line.attrs.get("line", "line")))
+
+
+def direct_wave_polarity_of(samples: np.ndarray, twt: np.ndarray, *, period_ns: float,
+                            where: str = "line") -> int:
+    """:func:`direct_wave_polarity` of plain ``(trace, twt)`` samples on the axis ``twt`` (ns)."""
     import scipy.signal
-    twt = line[TWT].values
     near = np.flatnonzero(np.abs(twt) <= period_ns)
     if not near.size:
         raise SettingsError("the record holds nothing near time zero to read the direct wave's "
-                            "polarity from", where=str(line.attrs.get("line", "line")))
-    samples = np.asarray(line.transpose(..., TRACE, TWT).values, dtype=np.float32)
-    trace = median_trace(samples.reshape(-1, samples.shape[-2], samples.shape[-1]))[0]
+                            "polarity from", where=where)
+    trace = median_trace(samples)
+    trace = trace.reshape(-1, trace.shape[-1])[0]
     trace = np.nan_to_num(trace[near[0]:near[-1] + 1]).astype(np.float64)
     sign = leading_lobe_signs_core(trace[None, :], np.abs(scipy.signal.hilbert(trace))[None, :],
                                    axis_values=twt[near], top=np.array([twt[near[0]]]),
                                    bottom=np.array([twt[near[-1]]]))[0, 0]
     if not np.isfinite(sign) or sign == 0:
-        raise SettingsError("the direct wave is silent: no polarity to read",
-                            where=str(line.attrs.get("line", "line")))
+        raise SettingsError("the direct wave is silent: no polarity to read", where=where)
     return int(sign)
 
 
-__all__ = ["direct_wave_polarity", "leading_lobe_signs_core"]
+__all__ = ["direct_wave_polarity", "direct_wave_polarity_of", "leading_lobe_signs_core"]

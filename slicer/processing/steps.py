@@ -56,9 +56,20 @@ def sample_interval(line: xr.DataArray) -> float:
 # ---------------------------------------------------------------------------- dominant frequency
 
 def _remove_baseline(samples: np.ndarray) -> np.ndarray:
-    """Subtract a Gaussian running mean, sigma a twentieth of the record (last axis)."""
+    """Subtract a Gaussian running mean, sigma a twentieth of the record (last axis).
+
+    As :func:`scipy.ndimage.gaussian_filter1d` (``mode="nearest"``, 4 sigma each side), but
+    as an FFT convolution of the edge-padded traces: the kernel spans two fifths of the
+    record, and sliding it was the largest step of a line whose time zero is picked.
+    """
     sigma = max(1.0, samples.shape[-1] / 20)
-    return samples - scipy.ndimage.gaussian_filter1d(samples, sigma, axis=-1, mode="nearest")
+    if samples.ndim == 1 or samples.shape[-1] < 64:
+        return samples - scipy.ndimage.gaussian_filter1d(samples, sigma, axis=-1, mode="nearest")
+    r = int(4.0 * sigma + 0.5)
+    kernel = scipy.signal.windows.gaussian(2 * r + 1, sigma)
+    kernel = (kernel / kernel.sum()).reshape((1,) * (samples.ndim - 1) + (-1,))
+    padded = np.pad(samples, [(0, 0)] * (samples.ndim - 1) + [(r, r)], mode="edge")
+    return samples - scipy.signal.fftconvolve(padded, kernel, mode="valid", axes=-1)
 
 
 def dominant_frequency(line: xr.DataArray) -> float:
@@ -68,18 +79,25 @@ def dominant_frequency(line: xr.DataArray) -> float:
     running mean (sigma a twentieth of the record), and frequencies below four cycles per
     record are ignored, so that the drift cannot be taken for the signal.
     """
-    dt = sample_interval(line)
-    samples = np.asarray(line.values, dtype=np.float64)
+    return dominant_frequency_of(line.values, dt=sample_interval(line), where=_name(line))
+
+
+def _name(line: xr.DataArray) -> str:
+    return str(line.attrs.get("source", line.attrs.get("line", "line")))
+
+
+def dominant_frequency_of(samples: np.ndarray, *, dt: float, where: str = "line") -> float:
+    """:func:`dominant_frequency` of plain samples (last axis twt, ``dt`` ns apart)."""
     # a first running mean (sigma a twentieth of the record) takes out most of the wow, which would
     # otherwise dominate the low end of the spectrum
     # (a Gaussian, whose response has no side lobes to shift the peak)
-    samples = _remove_baseline(samples)
+    samples = _remove_baseline(np.asarray(samples, dtype=np.float64))
     spectrum = np.abs(scipy.fft.rfft(samples, axis=-1)).mean(axis=tuple(range(samples.ndim - 1)))
     freqs = scipy.fft.rfftfreq(samples.shape[-1], d=dt)
     usable = freqs >= 4.0 / (samples.shape[-1] * dt)
     if not usable.any() or not np.isfinite(spectrum[usable]).any() or spectrum[usable].max() == 0:
         raise SettingsError("cannot find a dominant frequency in a silent or too short record",
-                            where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
+                            where=where)
     return float(freqs[usable][np.argmax(spectrum[usable])])
 
 
@@ -121,20 +139,35 @@ def pick_time_zero(line: xr.DataArray, *, threshold: float = 0.5) -> float:
     threshold : float
         Fraction (0-1] of the largest absolute amplitude that the direct wave must reach.
     """
+    return pick_time_zero_of(line.data, line[TWT].values, mean=line.mean(TRACE).values,
+                             threshold=threshold, where=_name(line))
+
+
+def pick_time_zero_of(samples: np.ndarray, twt: np.ndarray, *, mean: np.ndarray | None = None,
+                      threshold: float = 0.5, frequency: float | None = None,
+                      where: str = "line") -> float:
+    """:func:`pick_time_zero` of plain ``(trace, twt)`` samples on the axis ``twt`` (ns);
+    ``mean`` is their mean trace and ``frequency`` their :func:`dominant_frequency_of`, if
+    already known."""
     if not 0 < threshold <= 1:
         raise SettingsError(f"time-zero threshold must be in (0, 1], got {threshold:g}")
-    dt = sample_interval(line)
-    mean = np.asarray(line.mean(TRACE).values, dtype=np.float64)
-    mean = _remove_baseline(mean)
+    if twt.size < 2:
+        raise SettingsError("a line needs at least two samples per trace")
+    dt = float(twt[1] - twt[0])
+    if mean is None:  # as xarray's mean: NaN skipped
+        mean = np.nanmean(samples, axis=0)
+    mean = _remove_baseline(np.asarray(mean, dtype=np.float64))
     if not np.any(mean):
         index = math.nan
     else:
-        period = int(round(1.0 / (dominant_frequency(line) * dt)))
+        if frequency is None:
+            frequency = dominant_frequency_of(samples, dt=dt, where=where)
+        period = int(round(1.0 / (frequency * dt)))
         index = _first_peak(mean, threshold, period)
     if not math.isfinite(index):
         raise SettingsError("cannot pick time zero on a silent line; give --time-zero NS",
-                            where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
-    return float(line[TWT].values[0] + index * dt)
+                            where=where)
+    return float(twt[0] + index * dt)
 
 
 def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",
@@ -161,12 +194,29 @@ def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",
     separation : float
         Transmitter-receiver separation (m), for a picked time zero.
     """
+    twt = line[TWT].values
+    t0, how = time_zero_of(line.data, twt, time_zero=time_zero, threshold=threshold,
+                           separation=separation,
+                           mean=line.mean(TRACE).values if time_zero == "auto" else None,
+                           where=_name(line))
+    out = line.assign_coords({TWT: (TWT, twt - t0, line[TWT].attrs)})
+    out.attrs = {**line.attrs, "time_zero_ns": float(line.attrs.get("time_zero_ns", 0.0)) + t0}
+    return _add_history(out, how)
+
+
+def time_zero_of(samples: np.ndarray, twt: np.ndarray, *, time_zero: float | str = "auto",
+                 threshold: float = 0.5, separation: float = 0.0,
+                 mean: np.ndarray | None = None, frequency: float | None = None,
+                 where: str = "line") -> tuple[float, str]:
+    """Time zero (ns on ``twt``) of plain ``(trace, twt)`` samples as
+    :func:`correct_time_zero` finds it, and the words for the history."""
     s = check_separation(separation)
     if isinstance(time_zero, str):
         if time_zero != "auto":
             raise SettingsError(f"time zero must be a number of ns or 'auto', got {time_zero!r}",
                                 where="--time-zero")
-        t0 = pick_time_zero(line, threshold=threshold) - s / C_M_PER_NS
+        t0 = pick_time_zero_of(samples, twt, mean=mean, threshold=threshold,
+                               frequency=frequency, where=where) - s / C_M_PER_NS
         how = (f"time zero {t0:.3f} ns (picked" +
                (f", direct wave minus {s:g} m / c)" if s else ")"))
     else:
@@ -174,21 +224,21 @@ def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",
         if not math.isfinite(t0):
             raise SettingsError("time zero must be finite", where="--time-zero")
         how = f"time zero {t0:.3f} ns"
-    twt = line[TWT].values
     if not twt[0] <= t0 < twt[-1]:
         raise SettingsError(
             f"time zero {t0:g} ns lies outside the record ({twt[0]:g} to {twt[-1]:g} ns)",
             where="--time-zero")
-    out = line.assign_coords({TWT: (TWT, twt - t0, line[TWT].attrs)})
-    out.attrs = {**line.attrs, "time_zero_ns": float(line.attrs.get("time_zero_ns", 0.0)) + t0}
-    return _add_history(out, how)
+    return t0, how
 
 
 # ---------------------------------------------------------------------------------------- dewow
 
-def _wow_window(line: xr.DataArray, dt: float, window_ns: float | None = None) -> int:
+def _wow_window(line, dt: float, window_ns: float | None = None) -> int:
+    """Samples (odd) of the dewow window: ``window_ns``, else 1.5 periods of the dominant
+    frequency of ``line`` (a DataArray or plain samples)."""
     if window_ns is None:
-        window_ns = 1.5 / dominant_frequency(line)
+        window_ns = 1.5 / (dominant_frequency(line) if isinstance(line, xr.DataArray)
+                           else dominant_frequency_of(line, dt=dt))
     if not math.isfinite(window_ns) or window_ns <= 0:
         raise SettingsError(f"dewow window must be positive, got {window_ns:g} ns",
                             where="--dewow")
@@ -238,8 +288,9 @@ def remove_background(line: xr.DataArray, *, method: str | Background = "scaled"
     # Python over every sample (a third of a build's time when it was used)
     spec = _check_background(method)
     data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
+    sample_interval(line)  # at least two samples
     out = xr.apply_ufunc(
-        background_core, data, kwargs=_background_kwargs(spec, line),
+        background_core, data, kwargs=_background_kwargs(spec, line[TWT].values),
         input_core_dims=[[TRACE, TWT]], output_core_dims=[[TRACE, TWT]],
         dask="parallelized", output_dtypes=[np.float32], keep_attrs=True)
     out = out.transpose(*line.dims)
@@ -255,9 +306,8 @@ def _check_background(method) -> Background:
     return spec
 
 
-def _background_kwargs(spec: Background, line: xr.DataArray) -> dict:
-    twt = line[TWT].values
-    dt = sample_interval(line)
+def _background_kwargs(spec: Background, twt: np.ndarray) -> dict:
+    dt = float(twt[1] - twt[0])
     return {"method": spec.method,
             "window": window_samples(spec.window, dt=dt, twt0=float(twt[0]))}
 
@@ -355,6 +405,37 @@ def envelope(line: xr.DataArray) -> xr.DataArray:
 
 # ------------------------------------------------------------------------------- the fused chain
 
+def chain_plan(samples, twt: np.ndarray, *, dewow_ns: float | None | str = None,
+               background: str | Background | None = "scaled",
+               gain: tuple[str, float] | None = ("power", 1.0),
+               take_envelope: bool = True) -> tuple[dict, list[str]]:
+    """The keywords of :func:`_chain_core` for samples on the time axis ``twt`` (ns), and the
+    history of each step (see :func:`process_chain` for the options). ``samples`` are read
+    only when the dewow window defaults to the line's dominant frequency."""
+    if twt.size < 2:
+        raise SettingsError("a line needs at least two samples per trace")
+    dt = float(twt[1] - twt[0])
+    steps, size, factor = [], None, None
+    if dewow_ns != "off":
+        size = _wow_window(samples, dt, dewow_ns)
+        steps.append(f"dewow {size * dt:.2f} ns")
+    spec = parse_background(background)
+    if spec is not None:
+        steps.append(spec.describe())
+    if gain is not None:
+        kind, value = gain
+        if not math.isfinite(value) or value < 0:
+            raise SettingsError(f"gain value must be finite and >= 0, got {value:g}",
+                                where="--gain")
+        factor = gain_curve(twt, kind=kind, value=value)
+        steps.append(f"gain {kind} {value:g}")
+    if take_envelope:
+        steps.append("envelope")
+    core = {"size": size, "factor": factor, "take_envelope": take_envelope,
+            "background": None if spec is None else _background_kwargs(spec, twt)}
+    return core, steps
+
+
 def _chain_core(samples: np.ndarray, *, size: int | None, background: dict | None,
                 factor: np.ndarray | None, take_envelope: bool) -> np.ndarray:
     """Dewow, background removal, gain and envelope of ``(..., trace, twt)`` samples.
@@ -398,26 +479,8 @@ def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
     take_envelope : bool
         End with the envelope (named ``envelope``).
     """
-    dt = sample_interval(line)
-    steps, size, factor = [], None, None
-    if dewow_ns != "off":
-        size = _wow_window(line, dt, dewow_ns)
-        steps.append(f"dewow {size * dt:.2f} ns")
-    spec = parse_background(background)
-    if spec is not None:
-        steps.append(spec.describe())
-    if gain is not None:
-        kind, value = gain
-        if not math.isfinite(value) or value < 0:
-            raise SettingsError(f"gain value must be finite and >= 0, got {value:g}",
-                                where="--gain")
-        factor = gain_curve(line[TWT].values, kind=kind, value=value)
-        steps.append(f"gain {kind} {value:g}")
-    if take_envelope:
-        steps.append("envelope")
-    core = {"size": size, "factor": factor,
-            "background": None if spec is None else _background_kwargs(spec, line),
-            "take_envelope": take_envelope}
+    core, steps = chain_plan(line.data, line[TWT].values, dewow_ns=dewow_ns,
+                             background=background, gain=gain, take_envelope=take_envelope)
     if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array
         out = line.copy(data=_chain_core(line.values, **core))
     else:

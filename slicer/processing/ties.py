@@ -380,10 +380,15 @@ def correct_line(line: xr.DataArray, time_zero_ns: float, gain: float) -> xr.Dat
     twt = line[TWT]
     corrected = (line * np.float32(gain)).astype(np.float32)
     corrected = corrected.assign_coords({TWT: (TWT, twt.values - time_zero_ns, twt.attrs)})
-    step = f"tie correction: time zero {time_zero_ns:+.3f} ns, gain {gain:.4g}"
+    step = tie_step(time_zero_ns, gain)
     history = line.attrs.get("history", "")
     corrected.attrs = {**line.attrs,
                        "time_zero_ns": float(line.attrs.get("time_zero_ns", 0.0)) + time_zero_ns,
                        "history": f"{history}; {step}" if history else step}
     corrected.name = line.name
     return corrected
+
+
+def tie_step(time_zero_ns: float, gain: float) -> str:
+    """The history words of a tie correction (:func:`correct_line`)."""
+    return f"tie correction: time zero {time_zero_ns:+.3f} ns, gain {gain:.4g}"

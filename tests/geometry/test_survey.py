@@ -182,3 +182,24 @@ def test_load_line_follows_the_settings_positions(small_survey):
     np.testing.assert_array_equal(line["y"].values, line["header_y"].values)
     np.testing.assert_allclose(line["x"].values, np.linspace(entry.start[0], entry.end[0], n),
                                atol=0.005)
+
+
+def test_load_line_reads_header_coordinates_only_for_header_positions(small_survey,
+                                                                      monkeypatch):
+    # table positions need none of the file's trace-header coordinates, so that pass over
+    # every trace header is skipped; header positions still read (and use) them
+    import slicer.io.segy as segy
+    calls = []
+    original = segy._header_coordinates
+    monkeypatch.setattr(segy, "_header_coordinates",
+                        lambda f, path: calls.append(path) or original(f, path))
+    entry = slicer.load_settings(small_survey.line_table).lines[0]
+    table = load_line(entry, types.SimpleNamespace(positions="table", trace_spacing=None),
+                      sample_interval_ns=0.1)
+    assert calls == [] and "header_x" not in table.coords
+    headers = load_line(entry, types.SimpleNamespace(positions="headers", trace_spacing=None),
+                        sample_interval_ns=0.1)
+    assert calls == [entry.file]
+    np.testing.assert_array_equal(headers.values, table.values)
+    # the synthetic file's header positions lie on the table's line, to half a centimetre
+    np.testing.assert_allclose(headers["x"].values, table["x"].values, atol=0.005)

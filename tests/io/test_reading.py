@@ -82,3 +82,26 @@ def test_missing_files_raise_input_file_error(tmp_path):
     for name in ("gone.sgy", "gone.nc"):
         with pytest.raises(InputFileError, match="not found"):
             read_line(tmp_path / name)
+
+
+@pytest.mark.parametrize("kind", ["segy", "netcdf"])
+def test_coordinates_are_read_only_when_asked(files, kind):
+    # a line placed from its table needs no trace-header coordinates; leaving them out must
+    # not touch the samples or the time axis
+    full = read_line(files[kind])
+    bare = read_line(files[kind], coordinates=False)
+    assert "header_x" in full.coords and "header_y" in full.coords
+    assert "header_x" not in bare.coords and "header_y" not in bare.coords
+    xr.testing.assert_identical(bare, full.drop_vars(["header_x", "header_y"]))
+    np.testing.assert_allclose(full["header_x"].values, _line()["x"].values, atol=0.005)
+
+
+def test_memory_mapped_segy_reads_what_segyio_reads_plainly(files):
+    # reference: segyio without memory mapping, trace by trace (segyio's own reader)
+    import segyio
+    with segyio.open(str(files["segy"]), "r", ignore_geometry=True) as f:
+        plain = np.stack([np.asarray(f.trace[i]) for i in range(f.tracecount)])
+        xs = np.asarray(f.attributes(segyio.TraceField.CDP_X)[:], dtype=float) / 100
+    line = read_line(files["segy"])
+    np.testing.assert_array_equal(line.values, plain)
+    np.testing.assert_array_equal(line["header_x"].values, xs)  # scalar -100: centimetres

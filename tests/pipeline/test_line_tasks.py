@@ -59,3 +59,85 @@ def test_window_values_equal_the_labelled_table():
     w = make_windows(0.0, 1.2, 0.1, axis="depth")
     np.testing.assert_array_equal(window_values(line, w, velocity=0.1),
                                   reduce_to_windows(line, w, velocity=0.1).values)
+
+
+# --- the plain-array line task against the public labelled steps ------------------------------
+# The line task runs the cores on plain arrays; here every case is written out with the public
+# step-by-step functions (each checked against its own reference in tests/processing and
+# tests/velocity) and must agree to float32 rounding.
+
+LAYERED = ('kind = "layered"\n[[layer]]\ntop_depth = 0.0\nvelocity = 0.1\nvelocity_std = 0.0\n'
+           '[[layer]]\ntop_depth = 1.0\nvelocity = 0.08\nvelocity_std = 0.0\n')
+
+
+def _labelled(settings, entry, windows, model, *, dewow_ns=None, correction=None):
+    """reduce_line written with the public labelled functions, one step each."""
+    from slicer.gridding.windows import window_signs
+    from slicer.pipeline.line_chain import migration_arguments, migration_method
+    from slicer.pipeline.line_tasks import depth_axis_for
+    from slicer.processing.migration import migrate
+    from slicer.processing.polarity import direct_wave_polarity
+    from slicer.processing.steps import dominant_frequency
+    from slicer.processing.ties import correct_line
+    s = settings.antenna_separation or 0.0
+    line = correct_time_zero(load_line(entry, settings, sample_interval_ns=0.1),
+                             time_zero=settings.time_zero, separation=s)
+    # the direct wave is looked for one dominant period plus the antennas' air time from t0
+    # (line_chain.process_line); 0.29979 m/ns is c (CODATA)
+    polarity = direct_wave_polarity(line, period_ns=1 / dominant_frequency(line) + s / 0.299792458)
+    window = dewow_ns if settings.dewow == "auto" else settings.dewow
+    if window != "off":
+        line = dewow(line, window_ns=None if window is None else float(window))
+    if settings.background != "off":
+        line = remove_background(line, method=settings.background)
+    method, _ = migration_method(settings)
+    if method != "off":
+        line = migrate(line, **migration_arguments(settings))
+    if settings.gain_curve is not None:
+        line = apply_gain(line, kind=settings.gain_curve[0], value=settings.gain_curve[1])
+    env = envelope(line)
+    if correction is not None:
+        env, line = correct_line(env, *correction), correct_line(line, *correction)
+    values = reduce_to_windows(depth_axis_for(env, windows, model), windows, velocity=model,
+                               separation=s).values
+    signs = window_signs(depth_axis_for(line, windows, model), depth_axis_for(env, windows, model),
+                         windows, velocity=model, separation=s) * polarity
+    return values, signs, env
+
+
+@pytest.mark.parametrize("case", [
+    # Stolt migration (auto: one velocity, depth slices), default scaled background, picked t0
+    {"options": {"depths": "0:2.4:0.1", "velocity": 0.1, "time_zero": "auto"}},
+    # signed slices, antenna separation (picked t0), tie correction, exp gain, phase shift
+    {"options": {"depths": "0:2:0.2", "velocity": 0.1, "attribute": "signed",
+                 "antenna_separation": 0.1, "time_zero": "auto", "migrate": "phase-shift",
+                 "gain": "exp:0.1", "background": "median:0-12"},
+     "correction": (0.25, 1.3)},
+    # a layered velocity model: phase-shift migration and a depth axis before the windows
+    {"options": {"depths": "0:2:0.1", "attribute": "signed"}, "model": LAYERED},
+    # time slices, dewow from the dominant frequency (no survey window), mean background
+    {"options": {"times": "0:40:2.5", "background": "mean", "dewow": "auto"}, "dewow_ns": None},
+])
+def test_plain_line_task_equals_the_labelled_steps(small_survey, tmp_path, case):
+    options = {"time_zero": 3.0, **case["options"]}
+    if "model" in case:
+        path = tmp_path / "model.toml"
+        path.write_text(case["model"])
+        options["velocity_model"] = path
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1, **options)
+    windows = settings.requested_windows
+    model = settings.resolved_velocity or settings.resolved_model
+    dewow_ns = case.get("dewow_ns", 3.75)
+    for number in (0, 3):
+        job = LineJob(number, settings.lines[number], settings, windows, model, 0.1, dewow_ns,
+                      case.get("correction"))
+        got = reduce_line(job)
+        values, signs, env = _labelled(settings, settings.lines[number], windows, model,
+                                       dewow_ns=dewow_ns, correction=case.get("correction"))
+        if settings.attribute == "signed":
+            values = values * signs
+            assert (np.sign(got["values"]) != 0).any()
+        scale = float(np.nanmax(np.abs(values)))
+        np.testing.assert_allclose(got["values"], values, rtol=1e-5, atol=1e-6 * scale)
+        assert got["history"] == env.attrs["history"]
+        assert got["time_zero_ns"] == pytest.approx(env.attrs["time_zero_ns"], abs=1e-12)
