@@ -3,8 +3,9 @@
 Each line is read, placed and time-zero corrected, its hyperbolas are found and fitted
 (:func:`slicer.velocity.diffraction.find_diffractions`), and the fits of all lines are combined by
 :func:`slicer.velocity.combine.survey_velocity` (secondary events set aside, linear targets
-crossed obliquely corrected, groups weighed by quality, a bootstrap over lines for the error;
-the rule is in that module's docstring). Depths are given with the survey velocity.
+crossed obliquely corrected, groups weighed by quality, a bootstrap over lines for the random
+error and refits over narrower apertures for the systematic one; the rule is in that module's
+docstring). Depths are given with the survey velocity.
 """
 
 from __future__ import annotations
@@ -42,13 +43,18 @@ class VelocityAnalysis:
     groups: tuple = ()
     assessed: tuple = ()
     separation: float = 0.0
+    velocity_std_lines: float = math.nan
+    velocity_std_aperture: float = 0.0
 
     def to_json(self) -> dict:
-        """``velocity``, ``velocity_std`` (m/ns; bootstrap over lines), ``velocity_std_fits``
-        (from the fits' own errors), ``groups`` and ``fits`` with position, time, depth (at the
+        """``velocity``, ``velocity_std`` (m/ns; the standard uncertainty: in quadrature
+        ``velocity_std_lines``, the bootstrap over lines, and ``velocity_std_aperture``, the
+        systematic part from refits over narrower apertures), ``velocity_std_fits`` (from the
+        fits' own errors), ``groups`` and ``fits`` with position, time, depth (at the
         survey velocity, bistatic with the antenna separation), shape (``"point"``, ``"offset"``
         or ``"round"``; ``delay``, ns, the fitted time offset and ``radius``, m, the fitted or
-        equivalent radius ``-delay v / 2``) and what the combination made of each
+        equivalent radius ``-delay v / 2``), ``velocity_std_aperture`` and what the
+        combination made of each
         (``reason``, ``corrected_velocity`` for a linear target crossed at ``crossing_angle``
         degrees)."""
         kept = {id(f) for f in self.kept}
@@ -60,6 +66,7 @@ class VelocityAnalysis:
         def row(f):
             note = notes.get(id(f))
             return {"line": f.line, "velocity": f.velocity, "velocity_std": f.velocity_std,
+                    "velocity_std_aperture": getattr(f, "velocity_std_aperture", 0.0),
                     "x": f.x, "y": f.y, "time": f.time,
                     "depth": float(depth_from_time(f.time, velocity=self.velocity,
                                                    separation=self.separation)),
@@ -72,9 +79,12 @@ class VelocityAnalysis:
 
         return {"velocity": self.velocity, "velocity_std": self.velocity_std,
                 "velocity_std_fits": number(self.fit_std),
+                "velocity_std_lines": number(self.velocity_std_lines),
+                "velocity_std_aperture": number(self.velocity_std_aperture),
                 "antenna_separation": self.separation,
                 "units": {"velocity": "m/ns", "x": "m", "y": "m", "time": "ns", "depth": "m",
                           "radius": "m", "delay": "ns", "crossing_angle": "degree",
+                          "velocity_std": "m/ns",
                           "antenna_separation": "m"},
                 "groups": [g._asdict() for g in self.groups],
                 "fits": [row(f) for f in self.fits]}
@@ -126,7 +136,8 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     estimate = survey_velocity(fits)
     return VelocityAnalysis(float(estimate.velocity), float(estimate.std), fits,
                             list(estimate.kept), float(estimate.fit_std), estimate.groups,
-                            estimate.assessed, separation)
+                            estimate.assessed, separation, float(estimate.std_lines),
+                            float(estimate.std_aperture))
 
 
 def plot_line_fits(line, fits, path: Path) -> Path:

@@ -43,9 +43,14 @@ find_diffractions` (records without a line, position or strength skip the steps 
 6. **Uncertainty.** The fits' own standard errors understate it (neighbouring picks share
    noise; the ground varies). Lines are resampled with replacement (the bootstrap, Efron &
    Tibshirani 1993, An Introduction to the Bootstrap, ch. 6) within the chosen group and
-   step 5 repeated; ``std`` is the larger of the bootstrap standard deviation and the
+   step 5 repeated; ``std_lines`` is the larger of the bootstrap standard deviation and the
    random-effects standard error. With fewer than five lines in the group its fits are
-   resampled instead.
+   resampled instead. Neither sees an error that every line shares, such as picks that
+   arrive early by an amount growing with the angle from the apex (ground-coupled antennas
+   beyond the critical angle): ``std_aperture`` is half the change of the step-5 estimate when
+   every fit moves up, then down, by its own aperture uncertainty (``velocity_std_aperture``,
+   :func:`~slicer.velocity.aperture.aperture_spread`; 0 for fits without one), and ``std`` is
+   the two combined in quadrature, as independent errors.
 7. **Disagreement.** Another group with ``min_count`` fits, a quarter of the chosen group's
    quality and a velocity more than 5 % away raises a :class:`~slicer.core.errors.SlicerWarning`.
 """
@@ -93,10 +98,11 @@ class FitAssessment(NamedTuple):
 class SurveyVelocity(NamedTuple):
     """Result of :func:`survey_velocity`.
 
-    ``velocity`` and ``std`` (m/ns): the estimate and its standard error (bootstrap over
-    lines); ``kept``: the fits used; ``fit_std``: the standard error from the fits' own errors
-    and their scatter (random effects); ``groups``: every group, slowest first; ``assessed``:
-    one :class:`FitAssessment` per fit given.
+    ``velocity`` and ``std`` (m/ns): the estimate and its standard uncertainty, ``std_lines``
+    (bootstrap over lines) and ``std_aperture`` (systematic, from narrower apertures) in
+    quadrature; ``kept``: the fits used; ``fit_std``: the standard error from the fits' own
+    errors and their scatter (random effects); ``groups``: every group, slowest first;
+    ``assessed``: one :class:`FitAssessment` per fit given.
     """
 
     velocity: float
@@ -105,6 +111,8 @@ class SurveyVelocity(NamedTuple):
     fit_std: float = math.nan
     groups: tuple = ()
     assessed: tuple = ()
+    std_lines: float = math.nan
+    std_aperture: float = 0.0
 
 
 def _attr(fits, name: str, default=math.nan) -> np.ndarray:
@@ -208,8 +216,9 @@ def _weighted_median(values: np.ndarray, weights: np.ndarray) -> float:
     return float(values[order][np.searchsorted(cum, 0.5 * cum[-1])])
 
 
-def _random_effects(v, s, q):
-    """Quality- and random-effects-weighted median and its standard error."""
+def _random_effects(v, s, q, shift=None):
+    """Quality- and random-effects-weighted median and its standard error; with ``shift``,
+    half the change of the median when every ``v`` moves by its ``shift`` up and down."""
     w = 1.0 / s ** 2
     mean_fixed = float((w * v).sum() / w.sum())
     k = v.size
@@ -218,6 +227,8 @@ def _random_effects(v, s, q):
     ws = q / (s ** 2 + tau2)
     error = math.sqrt(float((ws ** 2 * (s ** 2 + tau2)).sum())) / float(ws.sum())
     # the median of normal errors has 1.2533 (sqrt(pi / 2)) times the standard error of the mean
+    if shift is not None:
+        return 0.5 * (_weighted_median(v + shift, ws) - _weighted_median(v - shift, ws))
     return _weighted_median(v, ws), 1.2533 * error
 
 
@@ -354,6 +365,9 @@ def survey_velocity(fits, *, tolerance: float = 0.05, min_count: int = 3,
         replicas.append(_random_effects(v[idx], s[idx], q[idx])[0])
     spread = float(np.std(replicas, ddof=1)) if len(replicas) > 1 else math.nan
     error = max(fit_std, spread) if math.isfinite(spread) else fit_std
+    # systematic: every fit moved by its aperture uncertainty (corrected like its velocity)
+    aperture = np.nan_to_num(_attr(fits, "velocity_std_aperture", 0.0)) * v / v_app
+    systematic = _random_effects(v[chosen], s[chosen], q[chosen], shift=aperture[chosen])
 
     top = next(quality for m, quality, _ in table if m is members)
     rivals = [g for g in groups if g.count >= min_count and g.quality >= 0.25 * top
@@ -370,5 +384,5 @@ def survey_velocity(fits, *, tolerance: float = 0.05, min_count: int = 3,
         usable, "other group", "unusable")))
     assessed = tuple(FitAssessment(f, float(v[k]), float(s[k]), float(angle[k]), float(q[k]),
                                    str(reasons[k])) for k, f in enumerate(fits))
-    return SurveyVelocity(estimate, float(error), [fits[k] for k in chosen], float(fit_std),
-                          groups, assessed)
+    return SurveyVelocity(estimate, math.hypot(error, systematic), [fits[k] for k in chosen],
+                          float(fit_std), groups, assessed, float(error), float(systematic))

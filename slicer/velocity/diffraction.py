@@ -14,7 +14,8 @@ By default each set of picks is fitted both as a point and with a free time offs
 absorbs a round target's radius, a time-zero error and a pick delay; the offset fit is tried
 again on picks reaching further down the flanks) and the offset form kept only when the picks
 carry it (:func:`~slicer.velocity.offset_fit.fit_apex`). With ``separation`` the fits use the
-travel time of antennas that far apart.
+travel time of antennas that far apart. Each fit is refitted over narrower apertures for its
+systematic uncertainty (:func:`~slicer.velocity.aperture.aperture_spread`).
 :func:`survey_velocity` (defined in :mod:`slicer.velocity.combine`, re-exported here) combines
 the fits of a whole survey.
 
@@ -49,6 +50,7 @@ from slicer.core.errors import SettingsError
 from slicer.core.physics import check_separation, check_velocity
 from slicer.processing.migration import trace_spacing
 from slicer.processing.steps import dominant_frequency, sample_interval
+from slicer.velocity.aperture import aperture_spread
 from slicer.velocity.combine import SurveyVelocity, survey_velocity
 from slicer.velocity.hyperbola import HyperbolaFit, fit_hyperbola, hyperbola_time
 from slicer.velocity.offset_fit import fit_apex, fit_offset_hyperbola
@@ -91,6 +93,9 @@ class Diffraction:
         Dominant period of the line, ns.
     strength : float
         Coherent amplitude along the hyperbola (root of the stack power), in the data's units.
+    velocity_std_aperture : float
+        Systematic uncertainty of the velocity from refits over narrower apertures, m/ns
+        (:func:`~slicer.velocity.aperture.aperture_spread`).
     """
 
     line: str
@@ -107,6 +112,7 @@ class Diffraction:
     heading: float = math.nan
     period: float = math.nan
     strength: float = math.nan
+    velocity_std_aperture: float = 0.0
 
 
 def _analytic(samples: np.ndarray, dt: float, f_dom: float) -> np.ndarray:
@@ -232,11 +238,12 @@ OFFSET_ANGLE = 70.0
 
 def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, min_picks,
             separation, aperture):
-    """Pick, fit, drop outlying picks and fit again; ``None`` when the picks fit badly.
+    """Pick, fit, drop outlying picks and fit again: ``(fit, (x, t, weights))`` of the picks
+    fitted, ``(None, None)`` when the picks fit badly.
 
     With ``radius="auto"`` a point fit is tried once more on picks over a wider reach (to
     :data:`OFFSET_ANGLE`), and the result kept only if the time-offset form wins there."""
-    fit = None
+    fit = picks = None
     passes = [(0.5 * period, reach), (0.3 * period, reach)]
     for half_window, wide in passes:
         if fit is None:
@@ -249,25 +256,24 @@ def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, m
         strong = amp >= 0.2 * amp.max() if amp.size else amp.astype(bool)
         xs, ts, amp = xs[strong], ts[strong], amp[strong]
         if xs.size < min_picks:
-            return fit if wide > reach else None
+            return (fit, picks) if wide > reach else (None, None)
         try:
             tried = _fit(xs, ts, amp ** 2, radius, period, separation)
             residual = np.abs(tried.travel_time(xs) - ts)
             good = residual <= max(3.0 * 1.4826 * np.median(residual), 0.05 * period)
             if good.sum() >= min_picks and not good.all():
-                tried = _fit(xs[good], ts[good], amp[good] ** 2, radius, period, separation)
+                xs, ts, amp = xs[good], ts[good], amp[good]
+                tried = _fit(xs, ts, amp ** 2, radius, period, separation)
         except SettingsError:
-            if wide > reach:
-                return fit
-            return None
+            return (fit, picks) if wide > reach else (None, None)
         if wide > reach and tried.shape != "offset":
-            return fit
-        fit = tried
+            return fit, picks
+        fit, picks = tried, (xs, ts, amp ** 2)
         if len(passes) == 2 and radius == "auto" and fit.shape == "point":
             wider = min(aperture, fit.depth * math.tan(math.radians(OFFSET_ANGLE)))
             if wider > reach:
                 passes.append((0.3 * period, wider))
-    return fit
+    return fit, picks
 
 
 def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 1.5,
@@ -420,9 +426,9 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
                                   * np.log(v[k + 1] / v[k])))
         x0, t0 = distance[i], t0s[j]
         reach = min(aperture, max(2 * dxs, vk * t0 / 2 * math.tan(math.radians(max_angle))))
-        fit = _refine(env, distance, t_axis, x0=x0, t0=t0, velocity=vk, reach=reach,
-                      period=period, radius=radius, min_picks=min_picks,
-                      separation=separation, aperture=aperture)
+        fit, picks = _refine(env, distance, t_axis, x0=x0, t0=t0, velocity=vk, reach=reach,
+                             period=period, radius=radius, min_picks=min_picks,
+                             separation=separation, aperture=aperture)
         if (fit is None or fit.velocity_std > max_relative_std * fit.velocity
                 or fit.rms_ns > 0.25 * period or abs(fit.x0 - x0) > 0.5 * reach
                 or abs(fit.t0 - t0) > period or fit.t0 < earliest
@@ -442,7 +448,8 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
             time=fit.t0, depth=fit.depth, velocity=fit.velocity,
             velocity_std=fit.velocity_std, score=score, fit=fit,
             heading=math.degrees(math.atan2(ey[1] - ey[0], ex[1] - ex[0])), period=period,
-            strength=math.sqrt(float(power[i, j]))))
+            strength=math.sqrt(float(power[i, j])),
+            velocity_std_aperture=aperture_spread(*picks, fit, min_picks=min_picks)[0]))
     return found
 
 
@@ -464,7 +471,8 @@ def diffraction_table(found) -> xr.Dataset:
     found = list(found)
     units = {"trace": "1", "distance": UNITS[DISTANCE], "x": UNITS[X], "y": UNITS[Y],
              "time": UNITS[TWT], "depth": "m", "velocity": "m/ns", "velocity_std": "m/ns",
-             "score": "1", "heading": "degree", "period": UNITS[TWT], "strength": "1"}
+             "score": "1", "heading": "degree", "period": UNITS[TWT], "strength": "1",
+             "velocity_std_aperture": "m/ns"}
     data = {}
     for f in fields(Diffraction):
         if f.name == "fit":

@@ -114,7 +114,7 @@ def test_time_zero_pick_is_on_the_direct_wave(lines):
 # Line FW03's picks corrected by that model (true v and h) read +6 % (steel) and +6 to +10 %
 # (air-filled) as points (the radius), and -3 to +5 % (+-2 %) with a free offset on the steel
 # pipe to 40-50 deg; the air-filled pipe's offset fits stay unusable (+-40 %).
-@_miss("0.1128 +- 0.0003 m/ns found with the 0.14 m separation, truth 0.0999 (+12.9 %; "
+@_miss("0.1128 +- 0.0026 m/ns found with the 0.14 m separation, truth 0.0999 (+12.9 %; "
        "+17.4 % before the bistatic fits): beyond the air-ground critical angle (19.5 deg) "
        "the picks arrive early (0.2 ns at 0.45 m) and the 2 cm air gap flattens the apex "
        "(0.11 ns inside it), which no constant offset absorbs")
@@ -128,8 +128,10 @@ def test_velocity_within_two_percent(velocity_analysis):
     assert abs(v / TRUTH["velocity"] - 1) < 0.02, (v, velocity_analysis.velocity_std)
 
 
-@_miss("stated one-sigma 0.0003 m/ns, error 0.0129 m/ns (about 40 sigma): the bootstrap "
-       "over lines sees only the noise, not the interface's systematic pick error")
+@_miss("stated one-sigma 0.0026 m/ns (bootstrap over lines 0.0003 in quadrature with the "
+       "aperture term 0.0026), error 0.0129 m/ns (4.9 sigma; 40 with the bootstrap alone): "
+       "refits within the critical angle, 30 and 45 deg read 0.114-0.116, faster still, so "
+       "the aperture term sees only the part of the error that changes with the aperture")
 def test_velocity_error_is_within_its_stated_uncertainty(velocity_analysis):
     """The stated one-sigma uncertainty of the survey velocity should cover its error (within
     three sigma; a normal error is outside 3 sigma 0.3 % of the time)."""

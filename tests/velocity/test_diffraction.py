@@ -122,6 +122,9 @@ def test_diffraction_table_has_units(survey):
     table = diffraction_table(survey.found)
     assert table.sizes["diffraction"] == len(survey.found)
     assert table["velocity"].attrs["units"] == "m/ns" and table["time"].attrs["units"] == "ns"
+    # the systematic part from refits over narrower apertures (slicer.velocity.aperture)
+    assert table["velocity_std_aperture"].attrs["units"] == "m/ns"
+    assert (table["velocity_std_aperture"].values >= 0).all()
     np.testing.assert_allclose(table["depth"].values, [d.depth for d in survey.found])
     assert set(table["line"].values) <= {line.attrs["line"] for line in survey.lines}
 
