@@ -368,11 +368,13 @@ LINES_TO_SLICES = [
         ## 5. Files: GeoTIFF slices, the cube, the overview and the record
 
         `build` does what `build_cube` does and then writes, into `settings.out` (which must be
-        new or empty): one GeoTIFF per slice, the CF NetCDF cube, an overview sheet and a
-        record of every setting and input with its checksum. Each file is written atomically,
-        and nothing is written until the whole survey has been read and gridded.
+        new or empty): one GeoTIFF per slice, an overview sheet and a record of every setting
+        and input with its checksum, and the cube as CF NetCDF (`cube.nc`) and Zarr
+        (`cube.zarr`) when `formats` asks for them, as here (the default is `"tif"`, the
+        slices only). The build folder is switched in whole, only once everything is written.
         """),
     _code("""
+        settings = settings.replace(formats="tif,zarr,nc")
         built = slicer.build(settings, progress=False)
         for path in built.files:
             print(f"{path.relative_to(settings.out)!s:42s} {path.stat().st_size / 1024:7.1f} kB")

@@ -150,6 +150,11 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
                    help="memory budget of the build's working data, e.g. 2GB (default 1GiB); "
                         "a build that cannot fit is refused before it starts")
     g = p.add_argument_group("output")
+    g.add_argument("--formats", metavar="tif,zarr,nc",
+                   help="what to write besides overview.png and record.json, a comma list: "
+                        "tif (one Cloud Optimized GeoTIFF per slice, in slices/), zarr (the "
+                        "cube as a chunked Zarr store, cube.zarr), nc (the cube as CF "
+                        "NetCDF-4, cube.nc); default tif")
     g.add_argument("--title", help="title of the overview sheet")
     g.add_argument("--overwrite", action="store_const", const=True, default=None,
                    help="replace the outputs of an earlier build in a non-empty --out folder")

@@ -255,7 +255,7 @@ def test_killed_mid_way_leaves_no_half_written_file(survey, capsys, monkeypatch)
     argv = list(GOOD)
     argv[argv.index("--velocity") + 1] = "0.12"
     code, _, err = run(capsys, "build", survey / "lines.csv", *argv, "--out", out, "-q",
-                       "--overwrite")
+                       "--overwrite", "--formats", "tif,nc")
     assert code == 130 and "interrupted" in err
     after = {p: p.read_bytes() for p in (out / "slices").glob("*.tif")}
     assert after == before  # the earlier build's files are whole and unchanged
@@ -277,6 +277,9 @@ def test_demo_command(tmp_path, capsys):
     assert code == 0, err
     assert (tmp_path / "d" / "survey" / "survey.toml").exists()
     assert len(list((tmp_path / "d" / "build" / "slices").glob("*.tif"))) == 24
+    # the demo shows every output format
+    assert (tmp_path / "d" / "build" / "cube.zarr").is_dir()
+    assert (tmp_path / "d" / "build" / "cube.nc").is_file()
     code, _, err = run(capsys, "demo", "--out", tmp_path / "d", "-q")
     assert code == 2 and "--overwrite" in err
     code, _, err = run(capsys, "demo", "--out", tmp_path / "d", "-q", "--overwrite")
@@ -284,6 +287,8 @@ def test_demo_command(tmp_path, capsys):
 
 
 @pytest.mark.parametrize("extra, match", [
+    (["--formats", "tif,png"], "--formats: unknown output format 'png'"),
+    (["--formats", ","], "--formats: no output format given"),
     (["--memory-limit", "1MB"], "--memory-limit: this build needs about"),
     (["--memory-limit", "plenty"], "--memory-limit"),
     (["--scheduler", "gpu"], "--scheduler"),

@@ -1,19 +1,23 @@
 """Where a build's cube goes: every output written tile by tile, committed all at once.
 
 A cube larger than memory is produced one tile (a block of rows x columns of the grid, every
-slice) at a time. :class:`CubeSink` hands each tile to the slice GeoTIFFs and the Zarr store,
-all kept under temporary names. Once every tile is in, the CF NetCDF cube is written from the
-finished store (on a thread of this process, or by a worker process) while the overview sheet
-is drawn from decimated panels kept as the tiles went by, and only then is every file moved to
-its final name. If anything fails on the way, every temporary file is removed and the final
-names are left as they were, so a folder never holds a half-written output.
+slice) at a time. :class:`CubeSink` puts each tile into a Zarr store kept under a temporary
+name, its working store. Once every tile is in, the slice GeoTIFFs are written whole from the
+store, slice by slice on a few threads (the default; with ``stream_slices`` they are filled
+tile by tile as the tiles arrive and made COGs at the end), and the CF NetCDF cube, if asked
+for, is written from the store too (on a thread of this process, or by a worker process), while
+the overview sheet is drawn from decimated panels kept as the tiles went by. Only then is every
+file moved to its final name; the working store becomes ``cube.zarr`` if the Zarr cube was
+asked for and is deleted otherwise. If anything fails on the way, every temporary file is
+removed and the final names are left as they were, so a folder never holds a half-written
+output.
 
-Layout of ``out_dir``::
+Layout of ``out_dir`` (``formats`` chooses the first three)::
 
-    slices/slice_000_0.000-0.100m.tif ...   one GeoTIFF per slice
-    cube.zarr/                               the cube, chunked (slice x tile x tile)
-    cube.nc                                  the cube, CF-1.8 NetCDF-4
-    overview.png                             every slice on one colour scale
+    slices/slice_000_0.000-0.100m.tif ...   "tif": one GeoTIFF per slice
+    cube.zarr/                               "zarr": the cube, chunked (slice x tile x tile)
+    cube.nc                                  "nc": the cube, CF-1.8 NetCDF-4
+    overview.png                             always: every slice on one colour scale
 """
 
 from __future__ import annotations
@@ -21,7 +25,8 @@ from __future__ import annotations
 import concurrent.futures
 import contextlib
 import os
-from collections.abc import Callable, Mapping
+import threading
+from collections.abc import Callable, Collection, Mapping, Sequence
 from pathlib import Path
 
 import dask
@@ -34,12 +39,18 @@ from slicer.core.progress import progress_bar
 from slicer.outputs.cube import TILE, _check_tile_size, _write_netcdf, check_tile, slice_axis
 from slicer.outputs.figures import panel_stride, plot_overview
 from slicer.outputs.geotiff import SliceTiffWriter, tile_windows
-from slicer.outputs.zarr_store import ZARR_FORMAT, create_cube_store, open_cube_zarr
+from slicer.outputs.zarr_store import ZARR_FORMAT, create_cube_store, open_cube_zarr, read_slice
 
 #: Names of the outputs inside ``out_dir``.
 SLICES_DIR, ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME = "slices", "cube.zarr", "cube.nc", "overview.png"
 #: What a sink may write into ``out_dir``: names and patterns, relative POSIX paths.
 OUTPUT_NAMES = (f"{SLICES_DIR}/slice_*.tif", ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME)
+#: The cube outputs a sink can write, by the name ``formats`` gives them.
+FORMATS = {"tif": f"{SLICES_DIR}/slice_*.tif", "zarr": ZARR_NAME, "nc": NETCDF_NAME}
+#: Threads writing whole slice GeoTIFFs from the working store (DEFLATE runs outside the GIL).
+SLICE_THREADS = 4
+#: Whether a sink streams the slice GeoTIFFs tile by tile unless told (benchmarks/formats.py).
+STREAM_SLICES = False
 
 #: Resolution of the overview sheet, dots per inch.
 OVERVIEW_DPI = 150
@@ -76,19 +87,38 @@ class CubeSink:
         this machine (a build's process pool or LocalCluster): the NetCDF cube is then
         written there, in parallel with the overview. By default it is written on a thread
         of this process, where it shares the GIL with the overview.
+    formats : collection of str
+        The cube outputs to write, of :data:`FORMATS`: ``"tif"`` (the slice GeoTIFFs),
+        ``"zarr"`` (``cube.zarr``), ``"nc"`` (``cube.nc``); default all three. The overview
+        is always drawn; the working store is always kept while the sink is open.
+    stream_slices : bool, optional
+        Fill the slice GeoTIFFs tile by tile as tiles arrive (uncompressed, made COGs at the
+        end) instead of writing each whole from the working store at the end; default
+        :data:`STREAM_SLICES` (whole slices, measured faster: benchmarks/formats.py).
 
     Attributes
     ----------
     files : list of pathlib.Path
         After a successful exit: the GeoTIFFs in slice order, then ``cube.zarr``, ``cube.nc``
-        and ``overview.png``.
+        (those asked for) and ``overview.png``.
+    empty_cells : int or None
+        After a successful exit: the number of NaN cells of the first slice.
     """
 
     def __init__(self, out_dir: str | os.PathLike, cube_template: xr.DataArray, *,
                  tags: Mapping[str, object] | None = None, tile: int = TILE,
                  progress: bool = True, title: str | None = None,
-                 zarr_format: int = ZARR_FORMAT, offload: Callable | None = None):
+                 zarr_format: int = ZARR_FORMAT, offload: Callable | None = None,
+                 formats: Collection[str] = tuple(FORMATS), stream_slices: bool | None = None):
         slice_axis(cube_template)
+        unknown = sorted(set(formats) - set(FORMATS))
+        if unknown or not formats:
+            raise SettingsError(f"formats are some of {', '.join(FORMATS)}, got "
+                                f"{sorted(formats)}", where="formats")
+        self.formats = frozenset(formats)
+        if stream_slices is None:
+            stream_slices = STREAM_SLICES
+        self._stream = stream_slices and "tif" in self.formats
         tile = _check_tile_size(tile)
         if tile % 16:
             raise SettingsError(f"tile must be a multiple of 16 cells (TIFF blocks), got {tile}",
@@ -98,6 +128,7 @@ class CubeSink:
         self.tile = tile
         self.shape = tuple(cube_template.shape)
         self.files: list[Path] = []
+        self.empty_cells: int | None = None
         self._tags = tags
         self._title = title
         self._progress = progress
@@ -111,6 +142,7 @@ class CubeSink:
         self._writer: concurrent.futures.ThreadPoolExecutor | None = None
         self._offload = offload
         self._store = None
+        self._stop = threading.Event()  # set on a Ctrl-C: the slice threads start no more
         self._bar = None
         self._created = [p for p in (self.out_dir, *self.out_dir.parents) if not p.exists()]
 
@@ -120,7 +152,8 @@ class CubeSink:
             raise OutputError("output path is a file, not a folder", where=str(out))
         try:
             out.mkdir(parents=True, exist_ok=True)
-            self._tiffs = self._slice_writer()
+            if "tif" in self.formats:
+                self._tiffs = self._slice_writer()
             self._store = create_cube_store(out / ZARR_NAME, self.template, tile=self.tile,
                                             zarr_format=self._zarr_format)
         except BaseException:
@@ -133,7 +166,33 @@ class CubeSink:
 
     def _slice_writer(self) -> SliceTiffWriter:
         return SliceTiffWriter(self.template, self.out_dir / SLICES_DIR, tags=self._tags,
-                               tile=self.tile)
+                               tile=self.tile, deferred=not self._stream)
+
+    def _start_slices(self):
+        """Start writing the slice GeoTIFFs whole from the finished store: a future, or None.
+
+        On a thread of this process, which spreads the slices over :data:`SLICE_THREADS`
+        threads while this thread draws the overview.
+        """
+        if "tif" not in self.formats or self._stream:
+            return None
+        pool = concurrent.futures.ThreadPoolExecutor(max_workers=1)
+        try:
+            return pool.submit(self._write_whole_slices)
+        finally:
+            pool.shutdown(wait=False)
+
+    def _write_whole_slices(self) -> None:
+        store, name = self._store.path, self._store.name
+
+        def one(index: int) -> None:
+            if self._stop.is_set():
+                return
+            self._tiffs.write_slice(index, read_slice(store, index, name=name))
+
+        with concurrent.futures.ThreadPoolExecutor(max_workers=SLICE_THREADS) as pool:
+            for _ in pool.map(one, range(self.shape[0])):
+                pass
 
     def _start_netcdf(self, target: Path):
         """Start writing the NetCDF cube (temporary path ``target``) from the finished store.
@@ -170,16 +229,19 @@ class CubeSink:
             raise OutputError("the sink is not open (use it in a with block)",
                               where=str(self.out_dir))
         values = check_tile(block, self.shape, row0, col0)
-        check_room(self.out_dir, 2 * values.nbytes, where=self.out_dir)  # GeoTIFFs and Zarr
+        check_room(self.out_dir, (1 + self._stream) * values.nbytes, where=self.out_dir)
         if self._writer is None:
             self._writer = concurrent.futures.ThreadPoolExecutor(max_workers=2)
-        # The Zarr chunks and half of the GeoTIFFs on two more threads while this one writes
-        # the other half: zlib and blosc compress outside the GIL.
+        # The Zarr chunks (and half of streamed GeoTIFFs) on more threads while this one
+        # writes the other half: zlib and blosc compress outside the GIL.
         n = values.shape[0]
-        done = [self._writer.submit(self._store.write_tile, row0, col0, values),
-                self._writer.submit(self._write_bands, range(n // 2, n), row0, col0, values)]
+        done = [self._writer.submit(self._store.write_tile, row0, col0, values)]
+        if self._stream:
+            done.append(self._writer.submit(self._write_bands, range(n // 2, n), row0, col0,
+                                            values))
         try:
-            self._write_bands(range(n // 2), row0, col0, values)
+            if self._stream:
+                self._write_bands(range(n // 2), row0, col0, values)
             self._keep_panels(row0, col0, values)
         finally:
             for future in done:
@@ -213,29 +275,57 @@ class CubeSink:
         self._close_bar(keep=True)
         self._stop_writer()
         out = self.out_dir
-        self._tiffs.close()
-        # The NetCDF cube is written from the finished store (on another thread, or by a
-        # worker process with ``offload``) while this thread draws the overview from the
-        # panels it kept.
+        if self._stream:
+            self._tiffs.close()
+        first = read_slice(self._store.path, 0, name=self._store.name)
+        self.empty_cells = int(np.isnan(first).sum())
+        # The slices and the NetCDF cube are written from the finished store (on other
+        # threads, or by worker processes with ``offload``) while this thread draws the
+        # overview from the panels it kept.
         with contextlib.ExitStack() as stack:
             png = stack.enter_context(atomic_path(out / OVERVIEW_NAME))
-            netcdf = self._start_netcdf(stack.enter_context(atomic_path(out / NETCDF_NAME)))
-            overview = None
+            netcdf = None
+            if "nc" in self.formats:
+                netcdf = self._start_netcdf(stack.enter_context(atomic_path(out / NETCDF_NAME)))
+            started = [netcdf, self._start_slices()]
             try:
-                overview = self._draw_overview(png)
-            finally:
-                error = netcdf.exception()  # waits: the file is complete or failed
-                if overview is not None:
-                    error = error or overview.exception()
-            if isinstance(error, OSError):
-                raise OutputError(f"cannot write NetCDF ({error.strerror or error})",
+                started.append(self._draw_overview(png))
+            finally:  # waits: every file is complete or failed
+                errors = self._wait(started)
+            if isinstance(errors[0], OSError):
+                raise OutputError(f"cannot write NetCDF ({errors[0].strerror or errors[0]})",
                                   where=str(out / NETCDF_NAME)) from None
-            if error is not None:
-                raise error
+            for error in errors:
+                if error is not None:
+                    raise error
             # Everything is complete under temporary names: now the renames.
-            tiffs = self._tiffs.commit()
-            store = self._store.finalize()
-        self.files = [*tiffs, store, out / NETCDF_NAME, out / OVERVIEW_NAME]
+            files = self._tiffs.commit() if self._tiffs is not None else []
+            if "zarr" in self.formats:
+                files.append(self._store.finalize())
+            if "nc" in self.formats:
+                files.append(out / NETCDF_NAME)
+        if "zarr" not in self.formats:
+            self._store.discard()  # the working store: never left behind
+        self.files = [*files, out / OVERVIEW_NAME]
+
+    def _wait(self, futures) -> list[BaseException | None]:
+        """The exception of each future (None: none, or no future), once all are done.
+
+        A Ctrl-C meanwhile stops the slice threads at their next slice and is raised once all
+        are done, so that no thread writes into files being removed.
+        """
+        errors, interrupted = [], False
+        for future in futures:
+            while True:
+                try:
+                    errors.append(None if future is None else future.exception())
+                    break
+                except KeyboardInterrupt:
+                    interrupted = True
+                    self._stop.set()
+        if interrupted:
+            raise KeyboardInterrupt
+        return errors
 
     def _close_bar(self, *, keep: bool) -> None:
         if self._bar is not None:
@@ -280,6 +370,53 @@ def decimate(values, row0: int, col0: int, stride: int) -> np.ndarray:
     """Every ``stride``-th row and column of the grid within a tile, as the overview draws."""
     r, c = -(-row0 // stride), -(-col0 // stride)  # first panel row and column in this tile
     return np.asarray(values[:, r * stride - row0::stride, c * stride - col0::stride])
+
+
+def cube_from_slices(template: xr.DataArray,
+                     paths: Sequence[str | os.PathLike]) -> xr.DataArray:
+    """The cube read lazily from its slice GeoTIFFs: ``template`` with their values.
+
+    Each file is opened by rioxarray (``open_rasterio``, dask chunks of the template's plan
+    chunks, one slice deep) and the slices are stacked along the slice dim; the
+    windows, CRS, coordinates and attrs are the template's. Nothing is read until used.
+
+    Parameters
+    ----------
+    template : xarray.DataArray
+        The cube's template (:func:`slicer.outputs.cube.empty_cube`), the one the files
+        were written from.
+    paths : sequence of path-like
+        The slice GeoTIFFs, in slice order.
+
+    Raises
+    ------
+    OutputError
+        A file does not hold the template's grid (size or transform).
+    """
+    import dask.array as darray
+    import rioxarray
+
+    from slicer.outputs.cube import cube_transform
+
+    if len(paths) != template.shape[0]:
+        raise OutputError(f"{len(paths)} slice files for {template.shape[0]} slices",
+                          where=str(Path(paths[0]).parent) if paths else "slices")
+    chunks = (template.chunks[1][0], template.chunks[2][0]) if template.chunks else (-1, -1)
+    transform = cube_transform(template)
+    bands = []
+    for path in paths:
+        band = rioxarray.open_rasterio(path, parse_coordinates=False,
+                                       chunks={"band": 1, "y": chunks[0], "x": chunks[1]})
+        # GDAL's geotransform as rioxarray keeps it (reading it through .rio.transform()
+        # warns in rioxarray 0.19 of affine's deprecated `*`)
+        stored = [float(v) for v in band["spatial_ref"].attrs["GeoTransform"].split()]
+        if band.shape[1:] != template.shape[1:] or not np.allclose(stored, transform.to_gdal(),
+                                                                   rtol=0, atol=1e-9):
+            raise OutputError("does not hold the cube's grid", where=str(path))
+        bands.append(band.data[0])
+    out = template.copy(data=darray.stack(bands))
+    out.encoding = dict(template.encoding)
+    return out
 
 
 def write_netcdf_from_store(store: str, target: str) -> None:

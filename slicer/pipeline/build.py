@@ -34,8 +34,8 @@ from slicer.gridding.grid import (
 from slicer.gridding.levelling import level_lines
 from slicer.io.reading import describe_file, line_info
 from slicer.outputs.cube import empty_cube, new_cube
-from slicer.outputs.sink import OUTPUT_NAMES, CubeSink
-from slicer.outputs.zarr_store import open_cube_zarr, read_slice
+from slicer.outputs.sink import FORMATS, OVERVIEW_NAME, CubeSink, cube_from_slices
+from slicer.outputs.zarr_store import open_cube_zarr
 from slicer.pipeline.bounds import check_bounds
 from slicer.pipeline.budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
 from slicer.pipeline.engine import Engine, parse_scheduler
@@ -319,12 +319,16 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
           repeat_of: dict | None = None) -> BuildResult:
     """Build the slices of a survey and write them to ``settings.out``.
 
-    Writes ``slices/`` (one GeoTIFF per slice), ``cube.zarr`` and ``cube.nc`` (the cube as
-    Zarr and CF NetCDF), ``overview.png`` and ``record.json`` (every setting and input, with
-    checksums). The cube is gridded tile by tile straight into the outputs, so memory does not
-    grow with the grid. Everything is written into a folder beside ``settings.out`` and switched
-    in whole at the end (:mod:`slicer.core.commit`): a build that fails or is stopped leaves the
-    earlier build, or the new one, whole. With ``overwrite`` the earlier build's outputs are
+    Writes the outputs ``settings.formats`` asks for -- ``slices/`` (one Cloud Optimized
+    GeoTIFF per slice, ``tif``, the default), ``cube.zarr`` (``zarr``) and ``cube.nc`` (CF
+    NetCDF, ``nc``) -- and always ``overview.png`` and ``record.json`` (every setting and input,
+    with checksums). The cube is gridded tile by tile into a Zarr working store in the build
+    folder, so memory does not grow with the grid; the slices and the NetCDF cube are written
+    from it once it is complete, and it becomes ``cube.zarr`` or, if the Zarr cube was not
+    asked for, is deleted before the commit (and with the build folder on any failure).
+    Everything is written into a folder beside ``settings.out`` and switched in whole at the
+    end (:mod:`slicer.core.commit`): a build that fails or is stopped leaves the earlier
+    build, or the new one, whole. With ``overwrite`` the earlier build's outputs are
     replaced and every other file in the folder is kept.
 
     Parameters
@@ -342,6 +346,14 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
     The record's paths are relative to the output folder and its floats free of binary noise
     (:mod:`slicer.pipeline.record`).
 
+    Returns
+    -------
+    BuildResult
+        ``cube`` is the committed cube, opened lazily (dask) from the output folder: from
+        ``cube.zarr`` when written, else from the slice GeoTIFFs (rioxarray, stacked along
+        the slice dim; windows, coordinates and attrs as the build made them), else from
+        ``cube.nc``. It stays valid after the call, as long as those files do.
+
     Raises
     ------
     SlicerError
@@ -349,7 +361,9 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
     """
     if settings.out is None:
         raise SettingsError("no output folder given", where="--out")
-    folder = OutputFolder(settings.out, overwrite=bool(settings.overwrite), names=OUTPUT_NAMES,
+    formats = settings.formats.split(",")
+    folder = OutputFolder(settings.out, overwrite=bool(settings.overwrite),
+                          names=[*(FORMATS[f] for f in formats), OVERVIEW_NAME],
                           inputs=input_files(settings))
     with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine, folder:
         warnings.simplefilter("always", SlicerWarning)
@@ -366,7 +380,8 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
             table)
         out = folder.path  # written whole, then switched in by folder.commit
         tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
-        common = dict(tags=tags, tile=TILE, progress=progress, title=settings.title)
+        common = dict(tags=tags, tile=TILE, progress=progress, title=settings.title,
+                      formats=formats)
         if engine.offloader() is not None:  # workers on this machine write every output
             sink = WorkerSink(out, template, engine=engine, **common)
         else:
@@ -382,9 +397,7 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         # (small) are done here.
         r.record["inputs"] = [describe_file(p) for p in _side_inputs(settings)] + \
             r.reduced.inputs
-        # read here, not through dask: a cluster's workers may not see this folder
-        first = read_slice(out / "cube.zarr", 0, name=str(template.name))
-        r.record["grid"]["empty_cells"] = int(np.isnan(first).sum())
+        r.record["grid"]["empty_cells"] = sink.empty_cells
         r.record["warnings"] = [str(w.message) for w in caught
                                 if issubclass(w.category, SlicerWarning)]
         r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
@@ -397,8 +410,24 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     for message in warned:  # the caller sees them too
         warnings.warn(message, SlicerWarning, stacklevel=2)
-    return BuildResult(cube=open_cube_zarr(folder.given / "cube.zarr"), record=r.record,
-                       files=files, warnings=warned)
+    return BuildResult(cube=open_result(template, files), record=r.record, files=files,
+                       warnings=warned)
+
+
+def open_result(template: xr.DataArray, files: list[Path]) -> xr.DataArray:
+    """The committed cube, lazily: from ``cube.zarr``, else the slice GeoTIFFs, else ``cube.nc``.
+
+    ``files`` are the committed outputs (:meth:`OutputFolder.commit`); ``template`` the cube's
+    template the GeoTIFFs were written from.
+    """
+    names = {f.name: f for f in files}
+    if FORMATS["zarr"] in names:
+        return open_cube_zarr(names[FORMATS["zarr"]])
+    slices = [f for f in files if f.parent.name == "slices" and f.suffix == ".tif"]
+    if slices:
+        return cube_from_slices(template, slices)
+    from slicer.outputs.cube import read_cube_netcdf
+    return read_cube_netcdf(names[FORMATS["nc"]])
 
 
 def input_files(settings: BuildSettings) -> list[Path]:

@@ -16,6 +16,9 @@ DEMO_OPTIONS = {
     "cell": 0.1,
     "depths": "0:2.4:0.1",
 }
+#: The demo writes every output format, so that a first look shows them all (a build's default
+#: is the slice GeoTIFFs only).
+DEMO_FORMATS = "tif,zarr,nc"
 
 
 def write_survey_toml(path: str | os.PathLike, *, lines: str, out: str | None = None,
@@ -41,7 +44,8 @@ def run_demo(out: str | os.PathLike, *, format: str = "segy", overwrite: bool = 
     """Write the demo survey to ``out/survey`` and build it into ``out/build``.
 
     The survey folder also gets ``survey.toml`` so that the build can be repeated with
-    ``slicer build out/survey/survey.toml --out ...``.
+    ``slicer build out/survey/survey.toml --out ...``. The demo writes every output format
+    (:data:`DEMO_FORMATS`), and its survey file says so.
 
     Returns
     -------
@@ -59,6 +63,6 @@ def run_demo(out: str | os.PathLike, *, format: str = "segy", overwrite: bool = 
     survey = write_survey(survey_dir, ground, radar, lines, format=format, crs=crs,
                           overwrite=overwrite, progress=progress)
     toml = write_survey_toml(survey_dir / "survey.toml", lines=Path(survey.line_table).name,
-                             **{**DEMO_OPTIONS, "crs": crs})
+                             **{**DEMO_OPTIONS, "crs": crs, "formats": DEMO_FORMATS})
     settings = load_settings(toml, out=out / "build", overwrite=overwrite or None)
     return build(settings, progress=progress, command=["slicer", "demo", "--out", str(out)])

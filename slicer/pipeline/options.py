@@ -37,7 +37,8 @@ class Option:
     kind : str
         ``number``, ``flag`` (true/false), ``text``, ``choice``, ``path``, ``number|word``
         (a number or one of ``words``), ``size`` (bytes, a number or text such as 1GB) or
-        ``background`` (text in :func:`slicer.processing.background.parse_background`'s form).
+        ``background`` (text in :func:`slicer.processing.background.parse_background`'s form)
+        or ``formats`` (a comma list of ``words``, or a TOML list of them).
     help : str
         Meaning, for the docs and ``--help``.
     unit : str
@@ -139,6 +140,8 @@ def check_option(name: str, value, *, where: str | None = None):
             raise SettingsError(f"expected a size such as 1GB or 512MiB, got {value!r}",
                                 where=where)
         return value
+    if o.kind == "formats":
+        return _formats(o, value, where)
     if not isinstance(value, str):
         raise SettingsError(f"expected text, got {value!r}", where=where)
     if o.kind == "background":  # its grammar lives with the step (imported only here)
@@ -151,6 +154,23 @@ def check_option(name: str, value, *, where: str | None = None):
         raise SettingsError(f"expected one of {', '.join(o.words)}, got {value!r}",
                             where=where)
     return value
+
+
+def _formats(o, value, where) -> str:
+    """A comma list (or a list) of ``o.words``, normalised to their order, each once."""
+    items = value.split(",") if isinstance(value, str) else value
+    if not isinstance(items, list | tuple) or not all(isinstance(i, str) for i in items):
+        raise SettingsError(f"expected a comma list of {', '.join(o.words)}, got {value!r}",
+                            where=where)
+    given = {i.strip().lower() for i in items} - {""}
+    unknown = sorted(given - set(o.words))
+    if unknown:
+        raise SettingsError(f"unknown output format {unknown[0]!r}; expected a comma list of "
+                            f"{', '.join(o.words)}", where=where)
+    if not given:
+        raise SettingsError(f"no output format given; expected a comma list of "
+                            f"{', '.join(o.words)}", where=where)
+    return ",".join(w for w in o.words if w in given)
 
 
 def _o(name, kind, help, unit="", low=None, high=None, open_low=False, words=()):
@@ -240,6 +260,10 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
     _o("scheduler", "text", "where to run: auto, threads, processes, local:N or "
        "tcp://HOST:PORT"),
     _o("memory_limit", "size", "memory budget of the build's working data, e.g. 1GB"),
+    _o("formats", "formats", "outputs besides overview.png and record.json, a comma list: "
+       "'tif' (one Cloud Optimized GeoTIFF per slice, the default), 'zarr' (the cube as a "
+       "chunked Zarr store, cube.zarr) and 'nc' (the cube as CF NetCDF-4, cube.nc)",
+       words=("tif", "zarr", "nc")),
     _o("title", "text", "title of the overview sheet"),
     _o("out", "path", "output folder"),
     _o("overwrite", "flag", "replace the outputs of an earlier build in the output folder "

@@ -30,6 +30,8 @@ RECORD_NAME = "record.json"
 
 #: Options a repeat never takes from the record: where it writes, and whether it may replace.
 _NOT_REPEATED = ("out", "overwrite")
+#: What a build wrote before its outputs could be chosen (a record without ``formats``).
+_EARLIER_FORMATS = "tif,zarr,nc"
 
 
 class RecordError(SlicerError):
@@ -120,6 +122,8 @@ class BuildRecord:
         for key in ("velocity_model", "control_points"):
             if key in options:
                 options[key] = self.find(options[key])
+        if "formats" not in recorded:  # recorded before the option: every format was written
+            options["formats"] = _EARLIER_FORMATS
         return options
 
     def check_input(self, entry: dict) -> tuple[Path, InputChangedError | None]:

@@ -91,6 +91,7 @@ class BuildSettings:
     times: str | None = None
     scheduler: str = "auto"
     memory_limit: str | float | None = None
+    formats: str = "tif"
     title: str | None = None
     out: Path | None = None
     overwrite: bool = False

@@ -4,9 +4,10 @@ On a process pool or a LocalCluster the workers share this machine's files, so t
 process need not touch the cube's values at all. Each tile task grids its tile and writes it
 straight into the temporary Zarr store (:func:`grid_and_store`); only a decimated copy for the
 overview comes back. Once every tile is stored, one task per slice reads it back, writes its
-GeoTIFF (:func:`slicer.outputs.geotiff.write_slice_file`) and compresses its NetCDF chunks
-(:mod:`slicer.outputs.netcdf_chunks`), which a thread of the calling process stores in the NetCDF
-file as they come; one more task draws the overview. Everything stays under
+GeoTIFF (:func:`slicer.outputs.geotiff.write_slice_file`) and, when the NetCDF cube is asked
+for, compresses its NetCDF chunks (:mod:`slicer.outputs.netcdf_chunks`), which a thread of the
+calling process stores in the NetCDF file as they come; one more task draws the overview. The
+store becomes ``cube.zarr`` only if the Zarr cube is asked for (``formats``). Everything stays under
 temporary names until all is done, as with :class:`slicer.outputs.sink.CubeSink`. The compression of
 the outputs, which a build otherwise does in its own process, is then shared by the workers:
 with N workers a build uses N cores, and its time falls as workers are added.
@@ -60,31 +61,41 @@ def grid_and_store(item: StoredTile) -> tuple[int, int, np.ndarray]:
 
 @dataclass(frozen=True)
 class SliceOutputs:
-    """One slice's GeoTIFF to write and NetCDF chunks to compress (picklable)."""
+    """One slice's GeoTIFF to write and/or NetCDF chunks to compress (picklable)."""
 
-    tiff: SliceFileJob
-    layout: ChunkLayout
-    #: File the compressed chunks go to, one after another.
-    parts: str
+    store: str
+    index: int
+    #: Name of the cube array in the store.
+    name: str
+    #: The GeoTIFF, or None when the slices are not asked for.
+    tiff: SliceFileJob | None
+    #: The NetCDF chunks and the file they go to, one after another, or None without NetCDF.
+    layout: ChunkLayout | None
+    parts: str | None
 
 
-def write_slice_outputs(job: SliceOutputs) -> tuple[int, str, list[tuple[int, int, int, int]]]:
+def write_slice_outputs(job: SliceOutputs) -> tuple[int, str | None,
+                                                    list[tuple[int, int, int, int]]]:
     """Read one slice from the store, write its GeoTIFF and its compressed NetCDF chunks.
 
     The chunks go to the file ``job.parts`` rather than back through the engine: sending
     them as results cost the calling process most of a core (distributed's messages),
     taken from the workers. Returns ``(index, parts file, [(row0, col0, offset, size)])``.
     """
-    values = read_slice(job.tiff.store, job.tiff.index)
-    check_room(Path(job.parts).parent, 2 * values.nbytes, where=job.tiff.final)
-    write_slice_file(job.tiff, values)
+    values = read_slice(job.store, job.index, name=job.name)
+    folder = Path(job.store).parent
+    check_room(folder, 2 * values.nbytes, where=folder)
+    if job.tiff is not None:
+        write_slice_file(job.tiff, values)
+    if job.layout is None:
+        return job.index, None, []
     index, offset = [], 0
     with open(job.parts, "wb") as f:
         for row0, col0, data in compress_slice(values, job.layout):
             f.write(data)
             index.append((row0, col0, offset, len(data)))
             offset += len(data)
-    return job.tiff.index, job.parts, index
+    return job.index, job.parts, index
 
 
 def _stored_parts(f, layout: ChunkLayout, index: int, parts: str, where) -> None:
@@ -113,6 +124,7 @@ class WorkerSink(CubeSink):
         if offload is None:
             raise ValueError("WorkerSink needs a process pool or LocalCluster engine")
         super().__init__(out_dir, cube_template, offload=offload, **kwargs)
+        self._stream = False  # the slices are always written whole, by the workers
         self._engine = engine
         self._slicer: concurrent.futures.ThreadPoolExecutor | None = None
         self._skeleton = None
@@ -120,6 +132,8 @@ class WorkerSink(CubeSink):
 
     def __enter__(self) -> WorkerSink:
         super().__enter__()
+        if "nc" not in self.formats:
+            return self
         try:
             # The empty NetCDF file needs only the template: a worker makes it among the
             # tiles (about 2 s for a 1 M-trace cube here).
@@ -167,20 +181,40 @@ class WorkerSink(CubeSink):
                              title=self._title, where=str(self.out_dir / "overview.png"))
 
     def _start_netcdf(self, target):
+        return self._start_slice_tasks(target)
+
+    def _start_slices(self):
+        # with NetCDF, the slice tasks were started with it (each writes both)
+        if "tif" not in self.formats or "nc" in self.formats:
+            return None
+        return self._start_slice_tasks(None)
+
+    def _start_slice_tasks(self, netcdf):
+        """Run the slice tasks (GeoTIFFs, and NetCDF chunks into ``netcdf`` if not None)."""
         self._slicer = concurrent.futures.ThreadPoolExecutor(max_workers=1)
-        future = self._slicer.submit(self._write_slices, target)  # this thread: the sink
+        future = self._slicer.submit(self._write_slices, netcdf)  # this thread: the sink
         self._slicer.shutdown(wait=False)
         return future
 
     def _write_slices(self, target) -> None:
+        store = self._worker_path(self._store.path)
+
+        def job(i: int, layout=None, parts=None) -> SliceOutputs:
+            tiff = self._tiffs.slice_job(i, store) if self._tiffs is not None else None
+            return SliceOutputs(store, i, self._store.name, tiff, layout,
+                                None if parts is None else str(parts / f"slice_{i}.bin"))
+
+        if target is None:
+            for _ in self._engine.map(write_slice_outputs, map(job, range(self.shape[0])),
+                                      desc="slices", unit="slice", progress=False):
+                pass
+            return
         import h5py
         layout = self._skeleton.result()
         self._skeleton = None
-        store = self._worker_path(self._store.path)
         parts = Path(tempfile.mkdtemp(prefix=f".{NETCDF_NAME}.", suffix=".parts",
                                       dir=self.out_dir)).resolve()
-        jobs = [SliceOutputs(self._tiffs.slice_job(i, store), layout,
-                             str(parts / f"slice_{i}.bin")) for i in range(self.shape[0])]
+        jobs = [job(i, layout, parts) for i in range(self.shape[0])]
         try:
             # through a GuardedFile, as every NetCDF write (slicer.outputs.cube._write_netcdf)
             with GuardedFile(self._early, "r+b") as raw:

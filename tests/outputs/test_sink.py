@@ -15,7 +15,7 @@ from matplotlib.figure import Figure
 from slicer.core.errors import OutputError, SettingsError
 from slicer.outputs.cube import empty_cube, new_cube, read_cube_netcdf, write_cube_netcdf
 from slicer.outputs.geotiff import write_slice_geotiffs
-from slicer.outputs.sink import CubeSink, write_cube
+from slicer.outputs.sink import CubeSink, cube_from_slices, write_cube
 from slicer.outputs.zarr_store import CubeStore, open_cube_zarr
 
 # Worked example of /work/shared/reference/check-values.md (OGC 19-008r4, GeoTIFF 1.1):
@@ -38,11 +38,11 @@ def tiles(shape, tile=TILE):
     return [(r, c) for r in range(0, shape[1], tile) for c in range(0, shape[2], tile)]
 
 
-def write_by_tiles(cube, out, order=None, skip=()):
+def write_by_tiles(cube, out, order=None, skip=(), **options):
     """Drive a CubeSink as a build would: an empty template, then tile after tile."""
     data = cube.values
     with CubeSink(out, empty_cube(cube.shape, tile=TILE, **GRID), tags=TAGS, tile=TILE,
-                  progress=False) as sink:
+                  progress=False, **options) as sink:
         for r, c in order or tiles(cube.shape):
             if (r, c) not in skip:
                 sink.write(r, c, data[:, r:r + TILE, c:c + TILE])
@@ -277,3 +277,80 @@ def write_by_tiles_blocks(cube, tile):
     for row0 in range(0, cube.shape[1], tile):
         for col0 in range(0, cube.shape[2], tile):
             yield row0, col0, cube.values[:, row0:row0 + tile, col0:col0 + tile]
+
+
+@pytest.mark.parametrize("formats", [("tif",), ("zarr",), ("nc",), ("tif", "nc")])
+def test_only_the_formats_asked_for_are_written_and_the_working_store_goes(tmp_path, formats):
+    cube = make_cube()
+    out = tmp_path / "out"
+    template = empty_cube(cube.shape, tile=TILE, **GRID)
+    with CubeSink(out, template, tags=TAGS, tile=TILE, progress=False,
+                  formats=formats) as sink:
+        for r, c in tiles(cube.shape):
+            sink.write(r, c, cube.values[:, r:r + TILE, c:c + TILE])
+    expected = {"overview.png"}
+    if "tif" in formats:
+        expected |= {"slices", *(f"slices/{p.name}" for p in sink.files if p.suffix == ".tif")}
+    expected |= {"zarr": {"cube.zarr"}, "nc": {"cube.nc"}}.get(formats[-1], set())
+    if "nc" in formats:
+        expected.add("cube.nc")
+    # no working store nor any temporary file left: top-level entries and the slices only
+    assert {e for e in listing(out) if not e.startswith("cube.zarr/")} == expected
+    assert [p.name for p in sink.files][-1] == "overview.png"
+    assert sink.empty_cells == 5 * 7  # the NaN corner of make_cube
+    if "tif" in formats:
+        tifs = [p for p in sink.files if p.suffix == ".tif"]
+        assert len(tifs) == 3
+        # the slices read back lazily by rioxarray equal the cube, on its coordinates
+        back = cube_from_slices(template, tifs)
+        assert back.chunks is not None
+        np.testing.assert_array_equal(back.values, cube.values)
+        xr.testing.assert_identical(back.compute(), cube)
+        with rasterio.open(tifs[2]) as src:  # and as GDAL reads the file
+            np.testing.assert_array_equal(src.read(1), cube.values[2])
+
+
+def test_slices_streamed_tile_by_tile_equal_those_written_whole(tmp_path):
+    cube = make_cube(seed=4)
+    whole = write_by_tiles(cube, tmp_path / "whole", formats=("tif",))
+    streamed = write_by_tiles(cube, tmp_path / "streamed", formats=("tif",),
+                              stream_slices=True)
+    assert [p.name for p in whole] == [p.name for p in streamed]
+    for a, b in zip(whole[:3], streamed[:3], strict=True):
+        with rasterio.open(a) as x, rasterio.open(b) as y:
+            np.testing.assert_array_equal(x.read(), y.read())
+            assert x.tags() == y.tags() and x.overviews(1) == y.overviews(1)
+            px, py = dict(x.profile), dict(y.profile)
+            assert np.isnan(px.pop("nodata")) and np.isnan(py.pop("nodata")) and px == py
+
+
+def test_a_failing_whole_slice_leaves_nothing_behind(tmp_path, monkeypatch):
+    import slicer.outputs.geotiff as geotiff
+    cube = make_cube()
+    calls = []
+
+    def full_disk(job, values=None):
+        calls.append(job.index)
+        raise OutputError("cannot write GeoTIFF (No space left on device)", where=job.final)
+
+    monkeypatch.setattr(geotiff, "write_slice_file", full_disk)
+    with pytest.raises(OutputError, match="No space left"):
+        write_by_tiles(cube, tmp_path / "out", formats=("tif",))
+    assert calls and not (tmp_path / "out").exists()  # nor the working store
+
+
+def test_slices_of_another_grid_are_refused(tmp_path):
+    cube = make_cube()
+    tifs = write_by_tiles(cube, tmp_path / "out", formats=("tif",))[:3]
+    other = empty_cube((3, 70, 90), tile=TILE, **{**GRID, "west": WEST + 1.0})
+    with pytest.raises(OutputError, match="does not hold the cube's grid") as info:
+        cube_from_slices(other, tifs)
+    assert info.value.where == str(tifs[0])
+    with pytest.raises(OutputError, match="2 slice files for 3 slices"):
+        cube_from_slices(cube, tifs[:2])
+
+
+def test_unknown_formats_are_refused(tmp_path):
+    with pytest.raises(SettingsError, match="formats") as info:
+        CubeSink(tmp_path / "out", make_cube(), tile=TILE, formats=("tif", "png"))
+    assert info.value.where == "formats" and not (tmp_path / "out").exists()

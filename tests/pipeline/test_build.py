@@ -25,7 +25,7 @@ def contract_build(demo_files, tmp_path_factory):
     cwd = __import__("os").getcwd()
     __import__("os").chdir(work)
     try:
-        code = main([*CONTRACT, "-q"])
+        code = main([*CONTRACT, "--formats", "tif,zarr,nc", "-q"])  # the cube files too
     finally:
         __import__("os").chdir(cwd)
     assert code == 0
@@ -165,7 +165,7 @@ def test_streamed_build_equals_in_memory_cube(small_survey, tmp_path):
     import xarray as xr
     settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
                                     time_zero=3.0, velocity=0.1, depths="0:2.4:0.1", cell=0.05,
-                                    out=tmp_path / "o")
+                                    out=tmp_path / "o", formats="nc,zarr")
     memory = slicer.build_cube(settings, progress=False).cube
     streamed = slicer.build(settings, progress=False)
     np.testing.assert_allclose(streamed.cube.values, memory.values, rtol=1e-6, equal_nan=True)
@@ -173,6 +173,38 @@ def test_streamed_build_equals_in_memory_cube(small_survey, tmp_path):
     netcdf = slicer.read_cube_netcdf(tmp_path / "o" / "cube.nc").values
     np.testing.assert_array_equal(zarr, netcdf)  # the two cube stores agree exactly
     np.testing.assert_allclose(netcdf, memory.values, rtol=1e-6, equal_nan=True)
+
+
+def test_default_build_writes_slices_only_and_returns_their_cube(small_survey, tmp_path):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, velocity=0.1, velocity_std=0.005,
+                                    depths="0:2.4:0.1", cell=0.05, out=tmp_path / "o")
+    assert settings.formats == "tif"
+    result = slicer.build(settings, progress=False)
+    out = tmp_path / "o"
+    tifs = sorted((out / "slices").glob("*.tif"))
+    assert len(tifs) == 24
+    # the working Zarr store is gone: only the slices, the overview and the record
+    on_disk = {p.relative_to(out).as_posix() for p in out.rglob("*")}
+    assert on_disk == {"slices", "overview.png", "record.json",
+                       *(f"slices/{p.name}" for p in tifs)}
+    assert not list(tmp_path.glob("o.slicer-*"))  # nor a build folder beside it
+    record = json.loads((out / "record.json").read_text())
+    assert record["settings"]["formats"] == "tif"
+    assert sorted(record["outputs"]) == sorted(
+        ["overview.png", *(f"slices/{p.name}" for p in tifs)])
+    # The returned cube, read lazily from the committed files, is the in-memory build's,
+    # with its windows, depth error and CRS; each slice as rasterio (GDAL) reads its file.
+    cube = result.cube
+    assert cube.chunks is not None
+    memory = slicer.build_cube(settings, progress=False).cube
+    np.testing.assert_allclose(cube.values, memory.values, rtol=1e-6, equal_nan=True)
+    for name in ("depth", "depth_top", "depth_bottom", "depth_error", "x", "y"):
+        np.testing.assert_array_equal(cube[name].values, memory[name].values)
+    assert cube.rio.crs == memory.rio.crs and cube.attrs == memory.attrs
+    with rasterio.open(tifs[5]) as src:
+        np.testing.assert_array_equal(src.read(1), cube.isel(depth=5).values)
+    assert int(np.isnan(cube.isel(depth=0).values).sum()) == record["grid"]["empty_cells"]
 
 
 def test_layered_model_file_equal_layers_match_constant_velocity(small_survey, tmp_path):
@@ -204,7 +236,7 @@ def test_depth_error_in_tags_and_cube(small_survey, tmp_path):
     # sigma_d = d sigma_v / v for one velocity (first-order error propagation of d = v t / 2)
     settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
                                     time_zero=3.0, velocity=0.1, velocity_std=0.005,
-                                    depths="0:1:0.5", out=tmp_path / "o")
+                                    depths="0:1:0.5", out=tmp_path / "o", formats="tif,nc")
     result = slicer.build(settings, progress=False)
     np.testing.assert_allclose(result.cube["depth_error"].values, [0.25 * 0.05, 0.75 * 0.05])
     with rasterio.open(sorted((tmp_path / "o" / "slices").glob("*.tif"))[1]) as src:
@@ -236,7 +268,8 @@ def test_orthogonal_sets_positioned_from_headers(crossed_survey, tmp_path, monke
     monkeypatch.chdir(crossed_survey.folder)
     code = main(["build", "files.csv", "--positions", "headers", "--crs", "EPSG:32633",
                  "--sample-interval", "0.1", "--time-zero", "3.0", "--velocity", "0.1",
-                 "--cell", "0.1", "--depths", "0:2.4:0.1", "--out", str(tmp_path / "o"), "-q"])
+                 "--cell", "0.1", "--depths", "0:2.4:0.1", "--out", str(tmp_path / "o"),
+                 "--formats", "nc", "-q"])
     assert code == 0
     cube = slicer.read_cube_netcdf(tmp_path / "o" / "cube.nc")
     for t in json.loads(crossed_survey.truth_file.read_text())["targets"]:

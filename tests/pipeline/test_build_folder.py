@@ -36,10 +36,12 @@ def beside(out: Path) -> list[str]:
 def test_overwrite_keeps_the_users_files_and_replaces_the_earlier_builds(small_survey,
                                                                           tmp_path, capsys):
     out = tmp_path / "out"
-    code, err = build(capsys, small_survey.line_table, out, "--depths", "0:2:0.25")
+    code, err = build(capsys, small_survey.line_table, out, "--depths", "0:2:0.25",
+                      "--formats", "tif,zarr,nc")
     assert code == 0, err
     first = json.loads((out / "record.json").read_text())
     assert len([o for o in first["outputs"] if o.startswith("slices/")]) == 8
+    assert {"cube.zarr", "cube.nc"} <= set(first["outputs"])
     mine = {"slices/slice_notmine.tif": b"a raster of my own", "notes/dig.txt": b"trench 2",
             "plan.dxf": b"site plan"}
     for rel, data in mine.items():
@@ -53,9 +55,10 @@ def test_overwrite_keeps_the_users_files_and_replaces_the_earlier_builds(small_s
     on_disk = tree(out)
     for rel, data in mine.items():
         assert on_disk.pop(rel) == data
-    # what is left is exactly the new build: the 8 slices of the first went, 2 new ones came
-    listed = {o for o in record["outputs"] if o != "cube.zarr"} | {"record.json"}
-    assert {k for k in on_disk if not k.startswith("cube.zarr/")} == listed
+    # what is left is exactly the new build (by default slices, overview, record): the 8
+    # slices, the Zarr and NetCDF cubes of the first went, 2 new slices came
+    assert set(on_disk) == {*record["outputs"], "record.json"}
+    assert not (out / "cube.zarr").exists() and not (out / "cube.nc").exists()
     assert sorted(p.name for p in (out / "slices").iterdir()) == [
         "slice_000_0.000-0.500m.tif", "slice_001_0.500-1.000m.tif", "slice_notmine.tif"]
     assert beside(out) == []
@@ -82,7 +85,8 @@ def test_an_input_named_like_an_output_is_refused_before_anything_is_written(
         assert code == 0, err
     table = _line_named_like_an_output(small_survey, out)
     before = tree(out)
-    code, err = build(capsys, table, out, "--depths", "0:1:0.5", "--overwrite")
+    code, err = build(capsys, table, out, "--depths", "0:1:0.5", "--overwrite",
+                      "--formats", "tif,nc")
     assert code == 2
     assert err.splitlines() == [f"slicer: error: {out / 'cube.nc'}: is an input of this build "
                                 "and lies where its outputs go; move it out of the output "
@@ -93,6 +97,19 @@ def test_an_input_named_like_an_output_is_refused_before_anything_is_written(
     table.write_text(table.read_text().replace(str(out / "cube.nc"), str(tmp_path / "L001.nc")))
     code, err = build(capsys, table, out, "--depths", "0:1:0.5", "--overwrite")
     assert code == 0, err
+
+
+def test_an_output_not_asked_for_leaves_a_file_of_that_name_alone(small_survey, tmp_path,
+                                                                  capsys):
+    # without --formats nc the build writes no cube.nc, so a line file of that name in the
+    # output folder is neither refused nor touched
+    out = tmp_path / "out"
+    table = _line_named_like_an_output(small_survey, out)
+    line = (out / "cube.nc").read_bytes()
+    code, err = build(capsys, table, out, "--depths", "0:1:0.5", "--overwrite")
+    assert code == 0, err
+    assert (out / "cube.nc").read_bytes() == line
+    assert "cube.nc" not in json.loads((out / "record.json").read_text())["outputs"]
 
 
 def modes(folder: Path) -> set[tuple[str, int]]:
@@ -109,10 +126,11 @@ def test_outputs_get_the_users_normal_permissions(small_survey, tmp_path, capsys
     old = os.umask(umask)
     try:
         out = tmp_path / "new" / "out"
-        code, err = build(capsys, small_survey.line_table, out, "--depths", "0:1:0.5")
+        code, err = build(capsys, small_survey.line_table, out, "--depths", "0:1:0.5",
+                          "--formats", "tif,zarr,nc")
         assert code == 0, err
         code, err = build(capsys, small_survey.line_table, out, "--depths", "0:1:0.25",
-                          "--overwrite")
+                          "--overwrite", "--formats", "tif,zarr,nc")
         assert code == 0, err
     finally:
         os.umask(old)

@@ -19,7 +19,7 @@ import slicer
 import slicer.pipeline.build as build_module
 import slicer.synthetic.surveys as surveys
 from slicer.core.errors import OutputError
-from slicer.pipeline.demo import DEMO_OPTIONS, run_demo, write_survey_toml
+from slicer.pipeline.demo import DEMO_FORMATS, DEMO_OPTIONS, run_demo, write_survey_toml
 from slicer.synthetic import Ground, PointTarget, Radar, grid_lines
 
 
@@ -83,13 +83,15 @@ def test_run_demo_writes_the_survey_and_hands_it_to_the_build(tmp_path, monkeypa
     survey = out / "survey"
     names = [f"L00{k}{suffix}" for k in range(3)]
     assert sorted(p.name for p in survey.glob(f"*{suffix}")) == names
-    # survey.toml repeats the build: the demo options and the survey's own line table
-    assert tomllib.loads((survey / "survey.toml").read_text()) == {"lines": "lines.csv",
-                                                                   **DEMO_OPTIONS}
+    # survey.toml repeats the build: the demo options, every output format and the survey's
+    # own line table
+    assert DEMO_FORMATS == "tif,zarr,nc"
+    assert tomllib.loads((survey / "survey.toml").read_text()) == {
+        "lines": "lines.csv", **DEMO_OPTIONS, "formats": DEMO_FORMATS}
     [(settings, progress, command)] = calls
     assert [e.file for e in settings.lines] == [survey / name for name in names]
     assert settings.out == out / "build" and not settings.overwrite
-    for key, value in DEMO_OPTIONS.items():
+    for key, value in {**DEMO_OPTIONS, "formats": DEMO_FORMATS}.items():
         assert getattr(settings, key) == value, key
     assert progress is False and command == ["slicer", "demo", "--out", str(out)]
     # again: refused without overwrite (nothing rebuilt), rewritten with it

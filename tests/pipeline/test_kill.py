@@ -31,7 +31,10 @@ from slicer.outputs.cube import read_cube_netcdf
 from slicer.outputs.zarr_store import open_cube_zarr
 
 ARGS = ["--crs", "EPSG:32633", "--sample-interval", "0.1", "--time-zero", "3.0", "--cell",
-        "0.1", "--depths", "0:2:0.25", "-q"]
+        "0.1", "--depths", "0:2:0.25", "--formats", "tif,zarr,nc", "-q"]
+#: Phases whose build writes only the default outputs (the slices, from a working Zarr store
+#: that must never be left behind); the last --formats given counts.
+TIF_ONLY = ["--formats", "tif"]
 EARLIER, NEW = ["--velocity", "0.1"], ["--velocity", "0.12", "--overwrite"]
 USER = {"slices/slice_notmine.tif": b"my own raster", "notes/field.txt": b"rain at 11:00"}
 
@@ -156,6 +159,7 @@ PHASES = {
     "reading": ("slicer.pipeline.line_tasks:reduce_line", "before", "earlier"),
     "tiles": ("slicer.outputs.sink:CubeSink.write", "after", "earlier"),
     "netcdf": ("slicer.outputs.sink:write_netcdf_from_store", "before", "earlier"),
+    "slices": ("slicer.outputs.sink:CubeSink._write_whole_slices", "before", "earlier"),
     "switch": ("slicer.core.commit:exchange", "before", "earlier"),
     "switched": ("slicer.core.commit:exchange", "after", "new"),
 }
@@ -170,6 +174,8 @@ def killed(small_survey, earlier, tmp_path_factory):
         out = folder / "out"
         shutil.copytree(earlier[0], out, symlinks=True)
         argv = ["build", str(small_survey.line_table), *ARGS, *NEW, "--out", str(out)]
+        if phase == "slices":
+            argv += TIF_ONLY
         children[phase] = (Child(folder, hook, when, argv), out)
     try:
         for child, _ in children.values():
@@ -202,11 +208,13 @@ def test_a_killed_build_leaves_one_build_whole_and_the_next_clears_up(killed, ea
 def interrupted(small_survey, earlier, tmp_path_factory):
     """Builds stopped by a Ctrl-C (SIGINT) at three phases: exit code, stderr, folder."""
     children = {}
-    for phase in ("reading", "tiles", "netcdf"):
+    for phase in ("reading", "tiles", "netcdf", "slices"):
         hook, when, _ = PHASES[phase]
         folder = tmp_path_factory.mktemp(f"ctrl-c-{phase}")
         shutil.copytree(earlier[0], folder / "out", symlinks=True)
         argv = ["build", str(small_survey.line_table), *ARGS, *NEW, "--out", str(folder / "out")]
+        if phase == "slices":
+            argv += TIF_ONLY
         children[phase] = (Child(folder, hook, when, argv), folder / "out")
     results = {}
     try:
@@ -221,7 +229,7 @@ def interrupted(small_survey, earlier, tmp_path_factory):
     return results
 
 
-@pytest.mark.parametrize("phase", ["reading", "tiles", "netcdf"])
+@pytest.mark.parametrize("phase", ["reading", "tiles", "netcdf", "slices"])
 def test_a_ctrl_c_ends_in_one_line_and_leaves_the_earlier_build(interrupted, earlier, phase):
     code, err, out = interrupted[phase]
     assert code == 130 and len(err.splitlines()) == 1, err
@@ -274,6 +282,8 @@ FULL = {
     "netcdf": ("slicer.outputs.sink:write_netcdf_from_store", "before", "threads", 20_000),
     "netcdf by workers": ("slicer.pipeline.worker_outputs:WorkerSink._write_slices", "before",
                           "processes", 20_000),
+    "slices from the working store": ("slicer.outputs.sink:CubeSink._write_whole_slices",
+                                      "before", "threads", 20_000),
     "record": ("slicer.core.commit:atomic_write_text", "before", "threads", 0),
 }
 
@@ -285,8 +295,9 @@ def test_a_full_disk_ends_in_one_line_and_keeps_the_earlier_build(small_survey, 
     assert main(["build", str(small_survey.line_table), *ARGS, *EARLIER, "--out", str(out)]) == 0
     before = checksums(out)
     hook, when, scheduler, room = FULL[where]
+    extra = TIF_ONLY if where == "slices from the working store" else []
     child = Child(tmp_path, hook, when, ["build", str(small_survey.line_table), *ARGS, *NEW,
-                                             "--scheduler", scheduler, "--out", str(out)])
+                                         "--scheduler", scheduler, "--out", str(out), *extra])
     try:
         child.wait_for_hook()
         ballast = _fill(small_disk, room)

@@ -52,6 +52,9 @@ def test_the_table_covers_every_option():
     ("trace_spacing = 1e-7\n", "trace_spacing", "outside 0.001 <= value"),
     ("cell = nan\n", "cell", "outside"),
     ("velocity = inf\n", "velocity", "finite"),
+    ('formats = "tif,png"\n', "formats", "unknown output format 'png'"),
+    ("formats = []\n", "formats", "no output format given"),
+    ("formats = 3\n", "formats", "expected a comma list of tif, zarr, nc"),
 ])
 def test_toml_values_of_the_wrong_type_or_range_are_refused_by_key(folder, text, key, match):
     with pytest.raises(SettingsError, match=match) as caught:
@@ -66,6 +69,10 @@ def test_well_typed_toml_values_are_taken(folder):
     assert s.overwrite is False and s.level is True
     assert s.cell == 1.0 and isinstance(s.cell, float)
     assert s.dewow == "off" and s.time_zero == 3.0
+    # formats: a TOML list or a comma list, in a fixed order, each once (TOML v1.0.0 arrays)
+    assert load_settings(_toml(folder, 'formats = ["nc", "tif", "nc"]\n')).formats == "tif,nc"
+    assert load_settings(_toml(folder, 'formats = " ZARR, tif"\n')).formats == "tif,zarr"
+    assert load_settings(_toml(folder, "")).formats == "tif"  # the default: the slices
 
 
 def test_keywords_are_checked_like_the_file(folder):
@@ -169,6 +176,9 @@ def test_any_value_is_taken_normalised_or_refused_in_one_line(name, value):
         assert out is value
     elif o.kind == "choice":
         assert out in o.words
+    elif o.kind == "formats":
+        parts = out.split(",")
+        assert parts and set(parts) <= set(o.words) and parts == sorted(parts, key=o.words.index)
 
 
 def test_a_gain_the_record_cannot_carry_is_refused_in_one_line(small_survey, tmp_path, capsys):

@@ -28,6 +28,7 @@ time_zero = 3.0
 velocity_model = "v.toml"
 cell = 0.1
 depths = "0.1:1.6:0.3"
+formats = "tif,zarr,nc"
 """
 
 MODEL = 'kind = "constant"\nvelocity = {velocity}\nvelocity_std = 0.004\n'
@@ -109,12 +110,15 @@ def test_record_paths_are_relative_to_the_record_folder(built):
 def test_a_flag_overrides_the_recorded_setting(built, tmp_path):
     out = tmp_path / "other"
     assert main(["build", "--repeat", str(built / "out"), "--cell", "0.2", "--permittivity",
-                 "9", "--out", str(out), "-q"]) == 0
+                 "9", "--formats", "tif", "--out", str(out), "-q"]) == 0
     rec = record(out)
     assert rec["settings"]["cell"] == 0.2 and rec["grid"]["cell"] == 0.2
+    assert rec["settings"]["formats"] == "tif" and not {"cube.nc", "cube.zarr"} & set(
+        rec["outputs"]) and not (out / "cube.zarr").exists()
     # one of a group of alternatives replaces the recorded one (as a flag does a survey file's)
     assert rec["settings"]["permittivity"] == 9 and rec["settings"]["velocity_model"] is None
-    assert rec["repeat_of"]["overrides"] == {"cell": 0.2, "permittivity": 9.0}
+    assert rec["repeat_of"]["overrides"] == {"cell": 0.2, "permittivity": 9.0,
+                                             "formats": "tif"}
     # v = c / sqrt(er), c = 0.299792458 m/ns (CODATA): 0.0999308193 m/ns at er = 9
     assert rec["settings"]["velocity_used"] == pytest.approx(0.299792458 / 3, rel=1e-11)
 
@@ -165,6 +169,19 @@ def test_a_build_folder_moved_alone_finds_its_survey(built, tmp_path):
     assert rec.source == (built / "survey" / "survey.toml").resolve()
     settings = settings_from_record(rec, out=tmp_path / "new")
     assert settings.velocity_model == (built / "survey" / "v.toml").resolve()
+
+
+def test_the_formats_are_repeated_and_an_earlier_record_repeats_every_format(built, tmp_path):
+    assert settings_from_record(built / "out", out=tmp_path / "a").formats == "tif,zarr,nc"
+    # a record written before outputs could be chosen: its build wrote all three
+    shutil.copytree(built / "out", tmp_path / "old")
+    data = record(tmp_path / "old")
+    del data["settings"]["formats"]
+    (tmp_path / "old" / "record.json").write_text(json.dumps(data))
+    assert settings_from_record(tmp_path / "old", out=tmp_path / "b").formats == "tif,zarr,nc"
+    # and a flag still chooses
+    assert settings_from_record(tmp_path / "old", out=tmp_path / "c",
+                                formats="zarr").formats == "zarr"
 
 
 def test_the_original_build_is_kept_without_explicit_flags(built, tmp_path, capsys):

@@ -26,7 +26,7 @@ def threaded(small_survey, tmp_path_factory):
     out = tmp_path_factory.mktemp("threads") / "o"
     settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
                                     time_zero=3.0, velocity=0.1, depths="0:2.4:0.1", cell=0.1,
-                                    scheduler="threads", out=out)
+                                    scheduler="threads", out=out, formats="tif,zarr,nc")
     slicer.build(settings, progress=False)
     return settings, out
 
@@ -74,6 +74,27 @@ def test_worker_written_outputs_equal_the_threaded_ones(threaded, tmp_path, sche
                 and p.suffix != ".zgroup"]  # no temporary file left behind
     record = json.loads((out / "record.json").read_text())
     assert record["outputs"] == json.loads((reference / "record.json").read_text())["outputs"]
+
+
+@pytest.mark.parametrize("formats", ["tif", "nc"])
+def test_workers_write_only_the_formats_asked_for(threaded, tmp_path, formats):
+    settings, reference = threaded
+    out = tmp_path / "o"
+    result = slicer.build(settings.replace(scheduler="processes", out=out, formats=formats),
+                          progress=False)
+    expected = {"overview.png", "record.json"}
+    if formats == "tif":
+        expected |= {"slices", *(f"slices/{p.name}" for p in _tiffs(reference))}
+    else:
+        expected.add("cube.nc")
+    # nothing else: no cube.zarr (the working store is deleted), no temporary file
+    assert {p.relative_to(out).as_posix() for p in out.rglob("*")} == expected
+    assert not list(tmp_path.glob("o.slicer-*"))
+    # the returned cube (from the GeoTIFFs, or cube.nc) is the threaded build's Zarr cube
+    np.testing.assert_allclose(result.cube.values, open_cube_zarr(reference / "cube.zarr").values,
+                               rtol=1e-6, equal_nan=True)
+    assert result.record["grid"]["empty_cells"] == json.loads(
+        (reference / "record.json").read_text())["grid"]["empty_cells"]
 
 
 class _InThread:

@@ -1,0 +1,101 @@
+"""Build time against the outputs asked for (``--formats``), on one mid-size synthetic survey.
+
+Builds the same survey (default about 65 000 traces, ``--traces``; the contract settings of
+build_throughput.py, 24 depth slices of 0.1 m cells) once per way below and ``--repeat`` times,
+each build in a fresh process, alternating between ways so that a busy spell of the machine
+hits all of them alike:
+
+``tif``
+    The default: the slice GeoTIFFs only (and overview.png, record.json). The tiles go into a
+    Zarr working store, deleted at the end; the GeoTIFFs are written whole from it.
+``tif, streamed``
+    The same outputs with the GeoTIFFs filled tile by tile as the tiles arrive (uncompressed
+    staging files, made COGs at the end), as every build did before ``--formats``.
+``tif,zarr``
+    Plus the Zarr cube (the working store, kept).
+``tif,zarr,nc``
+    Plus the CF NetCDF cube, written from the store after the gridding.
+``tif,zarr,nc, streamed``
+    Every output with streamed GeoTIFFs: what every build wrote before ``--formats``.
+
+The table gives the median and minimum wall time of ``slicer.build`` and its ratio (medians) to
+the default, and the median of the record's ``grid_and_write`` phase.
+
+    python benchmarks/formats.py
+    python benchmarks/formats.py --traces 20000 --repeat 2
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import sys
+import time
+from pathlib import Path
+
+import _common  # noqa: F401 - first: one BLAS thread before numpy loads
+from _common import _f, _table, in_fresh_process, work_root  # noqa: E402
+from build_throughput import SETTINGS, make_survey  # noqa: E402
+
+#: The ways measured: (label, formats, stream the GeoTIFFs).
+WAYS = [("tif", "tif", False), ("tif, streamed", "tif", True), ("tif,zarr", "tif,zarr", False),
+        ("tif,zarr,nc", "tif,zarr,nc", False),
+        ("tif,zarr,nc, streamed", "tif,zarr,nc", True)]
+
+
+def measure(table: str, out: str, formats: str, stream: bool, scheduler: str) -> dict:
+    """One build in this (fresh) process: wall seconds and the record's phases."""
+    import slicer
+    import slicer.outputs.sink
+    slicer.outputs.sink.STREAM_SLICES = stream
+    settings = slicer.load_settings(Path(table), **SETTINGS, out=Path(out), overwrite=True,
+                                    formats=formats, scheduler=scheduler)
+    started = time.perf_counter()
+    result = slicer.build(settings, progress=False)
+    return {"seconds": time.perf_counter() - started,
+            "phases": dict(result.record["seconds"]), "traces": result.record["survey"]["traces"],
+            "shape": tuple(int(n) for n in result.cube.shape)}
+
+
+def parse_args(argv=None):
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--traces", type=int, default=65_000, help="survey size (default 65000)")
+    p.add_argument("--repeat", type=int, default=3, help="builds per way (default 3)")
+    p.add_argument("--scheduler", default="threads", help="engine (default threads)")
+    p.add_argument("--keep", type=Path, help="keep the survey and outputs in this folder")
+    return p.parse_args(argv)
+
+
+def main(argv=None) -> int:
+    args = parse_args(argv)
+    root, cleanup = work_root(args.keep, "slicer-formats-")
+    try:
+        table, _, made, _ = make_survey(root / "survey", args.traces)
+        print(f"survey: {args.traces} traces requested, written in {_f(made, 1)} s; "
+              f"scheduler {args.scheduler}; {args.repeat} builds per way")
+        runs = {label: [] for label, _, _ in WAYS}
+        info = None
+        for _ in range(args.repeat):
+            for label, formats, stream in WAYS:
+                out = root / "out" / label.replace(",", "_").replace(" ", "")
+                info = in_fresh_process(measure, str(table), str(out), formats, stream,
+                                        args.scheduler)
+                runs[label].append(info)
+        print(f"{info['traces']} traces -> cube {info['shape']}")
+        base = statistics.median(r["seconds"] for r in runs["tif"])
+        rows = []
+        for label, _, _ in WAYS:
+            seconds = [r["seconds"] for r in runs[label]]
+            write = statistics.median(r["phases"].get("grid_and_write", float("nan"))
+                                      for r in runs[label])
+            rows.append([label, _f(statistics.median(seconds)), _f(min(seconds)),
+                         _f(statistics.median(seconds) / base), _f(write)])
+        print(_table(["formats", "median s", "min s", "x tif", "grid+write s"], rows))
+    finally:
+        if cleanup is not None:
+            cleanup.cleanup()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
