@@ -30,8 +30,7 @@ import numpy as np
 import scipy.ndimage
 import xarray as xr
 
-from slicer.core.atomic import atomic_path
-from slicer.core.errors import OutputError, SettingsError
+from slicer.core.errors import SettingsError
 from slicer.outputs.cube import cube_crs, cube_transform, slice_axis
 
 #: Eight neighbours in a slice.
@@ -174,33 +173,17 @@ _BODY_FIELDS = ("body", "top", "bottom", "slices", "area_m2", "volume_m3", "peak
 
 
 def write_outlines(outlines: Outlines, path: str | os.PathLike) -> Path:
-    """Write the outlines as a GeoPackage with layers ``outlines`` and ``bodies``.
-
-    The file is written under a temporary name beside ``path`` and renamed into place, with
-    the user's file modes; an existing file is replaced only then.
-    """
-    import pyogrio.raw
-    import shapely
-    path = Path(path)
-    crs = outlines.crs.to_wkt() if outlines.crs is not None else None
-    try:
-        with atomic_path(path) as tmp:
-            tmp = Path(tmp)
-            tmp.unlink()  # GDAL creates the GeoPackage itself (an empty file is no GeoPackage)
-            for layer, rows, names in (("outlines", outlines.patches, _PATCH_FIELDS),
-                                       ("bodies", outlines.bodies, _BODY_FIELDS)):
-                geometry = np.array([shapely.to_wkb(shapely.geometry.MultiPolygon(
-                    [r["geometry"]]) if r["geometry"].geom_type == "Polygon"
-                    else r["geometry"]) for r in rows], dtype=object)
-                data = [np.array([r[n] for r in rows],
-                                 dtype=np.int32 if n in ("slice", "body", "slices")
-                                 else np.float64) for n in names]
-                pyogrio.raw.write(tmp, geometry, data, list(names), layer=layer,
-                                  driver="GPKG", geometry_type="MultiPolygon", crs=crs,
-                                  append=layer != "outlines")
-    except OSError as exc:
-        raise OutputError(f"cannot write the outlines ({exc})", where=str(path)) from None
-    return path
+    """Write the outlines as a GeoPackage with layers ``outlines`` and ``bodies``
+    (:func:`slicer.outputs.vector.write_geopackage`: atomic, the user's file modes)."""
+    from slicer.outputs.vector import Layer, write_geopackage
+    layers = []
+    for name, rows, fields in (("outlines", outlines.patches, _PATCH_FIELDS),
+                               ("bodies", outlines.bodies, _BODY_FIELDS)):
+        data = {f: np.array([r[f] for r in rows],
+                            dtype=np.int32 if f in ("slice", "body", "slices") else np.float64)
+                for f in fields}
+        layers.append(Layer(name, "MultiPolygon", [r["geometry"] for r in rows], data))
+    return write_geopackage(path, layers, crs=outlines.crs)
 
 
 __all__ = ["Outlines", "anomaly_mask", "outline", "write_outlines"]

@@ -45,6 +45,8 @@ class VelocityAnalysis:
     separation: float = 0.0
     velocity_std_lines: float = math.nan
     velocity_std_aperture: float = 0.0
+    #: The survey CRS of the fits' x and y (None: a local grid).
+    crs: str | None = None
 
     def to_json(self) -> dict:
         """``velocity``, ``velocity_std`` (m/ns; the standard uncertainty: in quadrature
@@ -137,7 +139,7 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     return VelocityAnalysis(float(estimate.velocity), float(estimate.std), fits,
                             list(estimate.kept), float(estimate.fit_std), estimate.groups,
                             estimate.assessed, separation, float(estimate.std_lines),
-                            float(estimate.std_aperture))
+                            float(estimate.std_aperture), settings.crs)
 
 
 def plot_line_fits(line, fits, path: Path) -> Path:
@@ -166,6 +168,33 @@ def plot_line_fits(line, fits, path: Path) -> Path:
 
 def write_velocity_outputs(analysis: VelocityAnalysis, out: str | os.PathLike, *,
                            overwrite: bool = False) -> Path:
-    """Write ``velocity.toml`` (a model for ``--velocity-model``) into ``out``."""
+    """Write ``velocity.toml`` (a model for ``--velocity-model``) and ``picks.gpkg`` into
+    ``out``; returns the model's path.
+
+    ``picks.gpkg`` holds one point per fitted hyperbola apex, in the survey CRS (layer
+    ``picks``: ``line``, ``depth`` m, ``time`` ns, ``velocity`` and ``velocity_std`` m/ns,
+    ``score``, ``kept`` 1 or 0, ``shape``, ``reason``), for a GIS beside the slices.
+    """
     out = prepare_output_dir(out, overwrite=overwrite)
+    write_picks(analysis, out / "picks.gpkg")
     return write_velocity_model(out / "velocity.toml", analysis.model())
+
+
+def write_picks(analysis: VelocityAnalysis, path: str | os.PathLike) -> Path:
+    """The fits as a point layer ``picks`` of a GeoPackage (see :func:`write_velocity_outputs`)."""
+    import shapely
+
+    from slicer.outputs.vector import Layer, write_geopackage
+    rows = analysis.to_json()["fits"]
+    fields = {
+        "line": np.array([str(r["line"]) for r in rows], dtype=object),
+        "depth": np.array([r["depth"] for r in rows], dtype=np.float64),
+        "time": np.array([r["time"] for r in rows], dtype=np.float64),
+        "velocity": np.array([r["velocity"] for r in rows], dtype=np.float64),
+        "velocity_std": np.array([r["velocity_std"] for r in rows], dtype=np.float64),
+        "score": np.array([r["score"] for r in rows], dtype=np.float64),
+        "kept": np.array([int(bool(r["kept"])) for r in rows], dtype=np.int32),
+        "shape": np.array([str(r["shape"]) for r in rows], dtype=object),
+        "reason": np.array([str(r["reason"] or "") for r in rows], dtype=object)}
+    points = [shapely.Point(r["x"], r["y"]) for r in rows]
+    return write_geopackage(path, [Layer("picks", "Point", points, fields)], crs=analysis.crs)

@@ -113,3 +113,31 @@ def test_written_model_reads_back(analysed, tmp_path):
     with pytest.raises(OutputError, match="--overwrite"):
         write_velocity_outputs(analysis, tmp_path / "v")
     assert write_velocity_outputs(analysis, tmp_path / "v", overwrite=True) == path
+
+
+def test_picks_open_in_gdal_as_points_in_the_survey_crs(analysed, tmp_path):
+    # read back through GDAL/OGR (pyogrio), the reference reader of the GeoPackage
+    import dataclasses
+
+    import pyogrio
+    import pyproj
+    local = analysed[0]
+    assert local.crs is None  # the fixture's survey has no CRS: a local grid
+    write_velocity_outputs(local, tmp_path / "local")
+    assert pyogrio.read_info(tmp_path / "local" / "picks.gpkg", layer="picks")["crs"] is None
+    analysis = dataclasses.replace(local, crs="EPSG:32633")
+    write_velocity_outputs(analysis, tmp_path / "v")
+    path = tmp_path / "v" / "picks.gpkg"
+    info = pyogrio.read_info(path, layer="picks")
+    assert pyproj.CRS.from_user_input(info["crs"]).to_epsg() == 32633
+    assert info["geometry_type"] == "Point" and info["features"] == len(analysis.fits)
+    types = dict(zip(info["fields"], info["dtypes"], strict=True))
+    assert types["kept"] == "int32" and types["velocity"] == "float64"
+    assert types["line"] == "object"
+    import numpy as np
+    meta, _, geometry, fields = pyogrio.raw.read(path, layer="picks")
+    import shapely
+    xs = [shapely.from_wkb(g).x for g in geometry]
+    np.testing.assert_allclose(sorted(xs), sorted(f.x for f in analysis.fits), atol=1e-9)
+    kept = fields[list(meta["fields"]).index("kept")]
+    assert kept.sum() == len(analysis.kept)
