@@ -18,11 +18,13 @@ hits all of them alike:
 ``tif,zarr,nc, streamed``
     Every output with streamed GeoTIFFs: what every build wrote before ``--formats``.
 
-The table gives the median and minimum wall time of ``slicer.build`` and its ratio (medians) to
-the default, and the median of the record's ``grid_and_write`` phase.
+The table gives the median and minimum wall time of ``slicer.build``, its ratio (medians) to the
+default, the median of the record's ``grid_and_write`` phase, the median CPU time of the build
+(every thread of its process: ``time.process_time``) and the size of the outputs.
 
     python benchmarks/formats.py
     python benchmarks/formats.py --traces 20000 --repeat 2
+    python benchmarks/formats.py --ways 1,2 --repeat 6   # whole against streamed GeoTIFFs
 """
 
 from __future__ import annotations
@@ -50,9 +52,9 @@ def measure(table: str, out: str, formats: str, stream: bool, scheduler: str) ->
     slicer.outputs.sink.STREAM_SLICES = stream
     settings = slicer.load_settings(Path(table), **SETTINGS, out=Path(out), overwrite=True,
                                     formats=formats, scheduler=scheduler)
-    started = time.perf_counter()
+    started, cpu = time.perf_counter(), time.process_time()
     result = slicer.build(settings, progress=False)
-    return {"seconds": time.perf_counter() - started,
+    return {"seconds": time.perf_counter() - started, "cpu": time.process_time() - cpu,
             "phases": dict(result.record["seconds"]), "traces": result.record["survey"]["traces"],
             "shape": tuple(int(n) for n in result.cube.shape)}
 
@@ -63,6 +65,7 @@ def parse_args(argv=None):
     p.add_argument("--repeat", type=int, default=3, help="builds per way (default 3)")
     p.add_argument("--scheduler", default="threads", help="engine (default threads)")
     p.add_argument("--keep", type=Path, help="keep the survey and outputs in this folder")
+    p.add_argument("--ways", help="comma list of row numbers (from 1) to measure; default all")
     return p.parse_args(argv)
 
 
@@ -73,24 +76,31 @@ def main(argv=None) -> int:
         table, _, made, _ = make_survey(root / "survey", args.traces)
         print(f"survey: {args.traces} traces requested, written in {_f(made, 1)} s; "
               f"scheduler {args.scheduler}; {args.repeat} builds per way")
-        runs = {label: [] for label, _, _ in WAYS}
+        ways = WAYS if not args.ways else [WAYS[int(k) - 1] for k in args.ways.split(",")]
+        if ways[0][0] != "tif":
+            ways.insert(0, WAYS[0])  # the ratios' base
+        runs = {label: [] for label, _, _ in ways}
         info = None
         for _ in range(args.repeat):
-            for label, formats, stream in WAYS:
+            for label, formats, stream in ways:
                 out = root / "out" / label.replace(",", "_").replace(" ", "")
                 info = in_fresh_process(measure, str(table), str(out), formats, stream,
                                         args.scheduler)
-                runs[label].append(info)
+                runs[label].append({**info, "out": out})
         print(f"{info['traces']} traces -> cube {info['shape']}")
         base = statistics.median(r["seconds"] for r in runs["tif"])
         rows = []
-        for label, _, _ in WAYS:
+        for label, _, _ in ways:
             seconds = [r["seconds"] for r in runs[label]]
             write = statistics.median(r["phases"].get("grid_and_write", float("nan"))
                                       for r in runs[label])
+            cpu = statistics.median(r["cpu"] for r in runs[label])
+            size = sum(p.stat().st_size for p in runs[label][-1]["out"].rglob("*")
+                       if p.is_file()) / 2**20
             rows.append([label, _f(statistics.median(seconds)), _f(min(seconds)),
-                         _f(statistics.median(seconds) / base), _f(write)])
-        print(_table(["formats", "median s", "min s", "x tif", "grid+write s"], rows))
+                         _f(statistics.median(seconds) / base), _f(write), _f(cpu), _f(size, 1)])
+        print(_table(["formats", "median s", "min s", "x tif", "grid+write s", "CPU s", "MiB"],
+                     rows))
     finally:
         if cleanup is not None:
             cleanup.cleanup()
