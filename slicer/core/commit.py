@@ -433,6 +433,7 @@ class OutputFolder:
                               where=str(self.path))
         outputs = [PurePosixPath(o).as_posix() for o in outputs]
         self._check_taken([*outputs, RECORD])
+        self._sweep(outputs)
         record["outputs"] = outputs
         record["build_id"] = self.build_id
         try:
@@ -443,6 +444,14 @@ class OutputFolder:
                               where=str(self.given / RECORD)) from None
         self._switch()
         return [self.given / o for o in [*outputs, RECORD]]
+
+    def _sweep(self, outputs: list[str]) -> None:
+        """Delete what the stage holds besides ``outputs`` and the record (a writer's leftover)."""
+        keep = {PurePosixPath(o).parts[0] for o in outputs} | {RECORD}
+        for entry in [e for e in self.path.iterdir() if e.name not in keep]:
+            remove = shutil.rmtree if entry.is_dir() and not entry.is_symlink() else os.remove
+            with contextlib.suppress(OSError):
+                remove(entry)
 
     def _switch(self) -> None:
         target, stage = self.target, self.path
