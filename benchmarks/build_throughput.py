@@ -108,7 +108,9 @@ def make_survey(folder: Path, n_traces: int) -> tuple[Path, list[Path], float, b
 # --- measurements ------------------------------------------------------------------------------
 
 def _settings(table: Path, out: Path | None = None):
-    return slicer.load_settings(table, **SETTINGS, out=out, overwrite=out is not None)
+    # the full build writes every output, as it did before --formats (its default is tif only)
+    extra = {"formats": "tif,zarr,nc"} if out is not None else {}
+    return slicer.load_settings(table, **SETTINGS, out=out, overwrite=out is not None, **extra)
 
 
 def measure_build(table: str, out: str | None) -> dict:

@@ -145,7 +145,7 @@ def measure_build(table: str, out: str, scheduler: str) -> dict:
     peaks: dict[int, float] = {}
     _watch_workers(peaks)
     settings = slicer.load_settings(table, **SETTINGS, scheduler=scheduler, out=out,
-                                    overwrite=True)
+                                    overwrite=True, formats="tif,zarr,nc")
     before, _, _ = _memory_mib()
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
