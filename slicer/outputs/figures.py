@@ -321,17 +321,30 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
                         ncols=ncols, colours=colours, norm=norm, dpi=dpi,
                         title=_sheet_title(cube, title), quantity=_quantity(cube))
     if path is not None:
-        path = Path(path)
-        fmt = path.suffix.lstrip(".").lower() or "png"
-        try:
-            with atomic_path(path) as tmp:
-                # zlib level 1 for PNG: a sheet of noisy slices hardly compresses further,
-                # and the default level took longer than drawing it
-                extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
-                figure.savefig(tmp, format=fmt, dpi=dpi, **extra)
-        except OSError as exc:
-            raise OutputError(f"cannot save figure ({exc})", where=str(path)) from None
+        save_figure(figure, path, dpi=dpi)
     return figure
+
+
+def save_figure(figure: Figure, path: str | os.PathLike, *, dpi: float) -> Path:
+    """Save ``figure`` to ``path`` atomically (format from the suffix, PNG by default).
+
+    PNG is written at zlib level 1: a sheet of noisy slices hardly compresses further, and the
+    default level took longer than drawing it.
+
+    Raises
+    ------
+    OutputError
+        If the file cannot be written; an existing file is then left as it was.
+    """
+    path = Path(path)
+    fmt = path.suffix.lstrip(".").lower() or "png"
+    try:
+        with atomic_path(path) as tmp:
+            extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
+            figure.savefig(tmp, format=fmt, dpi=dpi, **extra)
+    except OSError as exc:
+        raise OutputError(f"cannot save figure ({exc})", where=str(path)) from None
+    return path
 
 
 def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,

@@ -107,4 +107,53 @@ def _inside(cube: xr.DataArray, x: np.ndarray, y: np.ndarray) -> int:
     return int(((x >= cx.min()) & (x <= cx.max()) & (y >= cy.min()) & (y <= cy.max())).sum())
 
 
-__all__ = ["DISTANCE", "section"]
+
+def plot_section(sec: xr.DataArray, path=None, *, cmap: str = "magma",
+                 percentile: tuple[float, float] = (1, 99.5), dpi: float = 110):
+    """Draw a section from :func:`section`: distance along the path (m) against depth (m) or
+    two-way time (ns), a colour bar with the values' units, and the path's vertices marked on
+    the top edge. Saved atomically to ``path`` when given; returns the Figure."""
+    from matplotlib import colormaps
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.colors import Normalize
+    from matplotlib.figure import Figure
+
+    from slicer.outputs.figures import save_figure
+    axis = [d for d in sec.dims if d != DISTANCE][0]
+    values = np.asarray(sec.transpose(axis, DISTANCE).values, dtype=np.float32)
+    finite = values[np.isfinite(values)]
+    if not finite.size:
+        raise SettingsError("the section holds no value (it crosses no surveyed cell)",
+                            where="points")
+    lo, hi = np.percentile(finite, percentile)
+    try:
+        colours = colormaps[cmap].with_extremes(bad="#d4d4d4")
+    except KeyError:
+        raise SettingsError(f"unknown colormap {cmap!r}", where="--colormap") from None
+    d = sec[DISTANCE].values
+    z = sec[axis].values
+    figure = Figure(figsize=(9.0, 4.2), dpi=dpi)
+    FigureCanvasAgg(figure)
+    ax = figure.add_axes((0.08, 0.14, 0.76, 0.72))
+    shown = ax.imshow(values, aspect="auto", cmap=colours, norm=Normalize(lo, hi),
+                      extent=(d[0], d[-1], z[-1], z[0]), interpolation="nearest")
+    ax.set_xlabel("distance along the section (m)")
+    ax.set_ylabel("depth (m)" if axis == "depth" else "two-way time (ns)")
+    vertices = np.asarray(sec.attrs.get("section_vertices", []), dtype=float).reshape(-1, 2)
+    if len(vertices) > 2:  # corners of the path, marked where the distance turns
+        corners = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(vertices, axis=0).T))])
+        ax.plot(corners[1:-1], np.full(len(corners) - 2, z[0]), "v", color="0.2",
+                clip_on=False, transform=ax.transData)
+    bar = figure.colorbar(shown, cax=figure.add_axes((0.88, 0.14, 0.015, 0.72)))
+    bar.set_label(str(sec.attrs.get("units", "")) or "value")
+    start, end = vertices[0] if len(vertices) else (np.nan, np.nan), vertices[-1] if len(
+        vertices) else (np.nan, np.nan)
+    figure.text(0.08, 0.95, f"section from ({start[0]:.2f}, {start[1]:.2f}) to "
+                f"({end[0]:.2f}, {end[1]:.2f}) m, {len(vertices)} points", fontsize=9,
+                va="top")
+    if path is not None:
+        save_figure(figure, path, dpi=dpi)
+    return figure
+
+
+__all__ = ["DISTANCE", "plot_section", "section"]

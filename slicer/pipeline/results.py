@@ -1,0 +1,113 @@
+"""An earlier build's cube, opened from its output folder (for ``outline``, ``section``, views).
+
+:func:`open_build` reads ``cube.zarr`` when the build wrote it, else rebuilds the cube from the
+slice GeoTIFFs alone: each file's grid (CRS and transform), its window (the ``DEPTH_TOP`` /
+``DEPTH_BOTTOM`` or ``TWT_TOP`` / ``TWT_BOTTOM`` tags) and values, one slice at a time, checked
+to share one grid; else ``cube.nc``. Nothing but the folder is needed.
+"""
+
+from __future__ import annotations
+
+import os
+from pathlib import Path
+
+import numpy as np
+import xarray as xr
+
+from slicer.core.conventions import DEPTH, TWT
+from slicer.core.errors import InputFileError
+
+
+def _cube_from_tifs(paths: list[Path]) -> xr.DataArray:
+    import rasterio
+
+    from slicer.outputs.cube import new_cube
+    values, tops, bottoms = [], [], []
+    grid = None
+    axis = velocity = None
+    units = ""
+    for path in paths:
+        with rasterio.open(path) as src:
+            tags = src.tags()
+            here = (src.crs.to_wkt() if src.crs else None, tuple(src.transform)[:6],
+                    src.width, src.height)
+            if grid is None:
+                grid = here
+            elif here != grid:
+                raise InputFileError("lies on another grid than the build's first slice",
+                                     where=str(path))
+            found = [a for a in (DEPTH, TWT) if f"{a.upper()}_TOP" in tags]
+            if not found:
+                raise InputFileError("is not a slicer slice (no DEPTH_TOP or TWT_TOP tag)",
+                                     where=str(path))
+            axis = found[0]
+            tops.append(float(tags[f"{axis.upper()}_TOP"]))
+            bottoms.append(float(tags[f"{axis.upper()}_BOTTOM"]))
+            velocity = tags.get("VELOCITY_M_PER_NS", velocity)
+            units = tags.get("UNITS", units)
+            values.append(src.read(1).astype(np.float32))
+    crs, transform, _, _ = grid
+    order = np.argsort(tops)
+    data = np.stack(values)[order]
+    cube = new_cube(data, west=transform[2], north=transform[5], cell=transform[0], crs=crs,
+                    top=np.asarray(tops)[order], bottom=np.asarray(bottoms)[order], axis=axis,
+                    velocity=float(velocity) if velocity else None, units=units or "1")
+    return cube
+
+
+def open_build(out: str | os.PathLike) -> xr.DataArray:
+    """The cube of the build in folder ``out``.
+
+    Raises
+    ------
+    InputFileError
+        If the folder holds no cube (no ``cube.zarr``, slice GeoTIFFs or ``cube.nc``), or its
+        slices disagree on their grid.
+    """
+    out = Path(out)
+    if (out / "cube.zarr").is_dir():
+        from slicer.outputs.zarr_store import open_cube_zarr
+        return open_cube_zarr(out / "cube.zarr")
+    tifs = sorted((out / "slices").glob("*.tif")) if (out / "slices").is_dir() else []
+    if tifs:
+        return _cube_from_tifs(tifs)
+    if (out / "cube.nc").is_file():
+        from slicer.outputs.cube import read_cube_netcdf
+        return read_cube_netcdf(out / "cube.nc")
+    raise InputFileError("holds no slicer build (no cube.zarr, slices/*.tif or cube.nc)",
+                         where=str(out))
+
+
+def outline_build(out: str | os.PathLike, path: str | os.PathLike, *, threshold: float = 3.0,
+                  min_area: float | None = None) -> str:
+    """Outline the anomalies of the build in ``out`` into the GeoPackage ``path``
+    (:func:`slicer.outputs.outlines.outline`); returns a one-line summary."""
+    from slicer.outputs.outlines import outline, write_outlines
+    found = outline(open_build(out), threshold=threshold, min_area=min_area)
+    write_outlines(found, path)
+    return (f"{len(found.patches)} outlines in {len({p['slice'] for p in found.patches})} "
+            f"slices, {len(found.bodies)} bodies; wrote {path}")
+
+
+def parse_point(text: str) -> tuple[float, float]:
+    """``"X,Y"`` (m) as a pair of floats."""
+    from slicer.core.errors import SettingsError
+    try:
+        x, y = (float(v) for v in text.split(","))
+    except ValueError:
+        raise SettingsError(f"expected X,Y in metres, got {text!r}", where="--through") from None
+    return x, y
+
+
+def section_build(out: str | os.PathLike, points, path: str | os.PathLike, *,
+                  spacing: float | None = None) -> str:
+    """Draw the vertical section of the build in ``out`` along ``points`` into ``path``
+    (:func:`slicer.outputs.section.section`); returns a one-line summary."""
+    from slicer.outputs.section import plot_section, section
+    sec = section(open_build(out), points, spacing=spacing)
+    plot_section(sec, path)
+    return (f"section of {float(sec['distance'].values[-1]):.2f} m, "
+            f"{sec.sizes['distance']} samples; wrote {path}")
+
+
+__all__ = ["open_build", "outline_build", "parse_point", "section_build"]
