@@ -257,6 +257,28 @@ def make_parser() -> argparse.ArgumentParser:
                    help="file format of the demo lines (default segy)")
     d.add_argument("--overwrite", action="store_true", help="replace an earlier demo in DIR")
     d.add_argument("-q", "--quiet", action="store_true", help="no progress bars or summary")
+
+    o = sub.add_parser("outline", help="anomaly outlines of a build as GeoPackage layers",
+                       description="Outline the cells of every slice of the build in OUT that "
+                       "stand out of their slice (robust deviations above its median), as one "
+                       "polygon layer per slice patch ('outlines') and one of 3-D bodies "
+                       "('bodies') in a GeoPackage in the survey CRS.")
+    o.add_argument("build", metavar="OUT", help="folder of an earlier slicer build")
+    o.add_argument("--out", metavar="FILE.gpkg", required=True, help="GeoPackage to write")
+    o.add_argument("--threshold", type=_float, default=3.0, metavar="K",
+                   help="robust standard deviations above the slice median (default 3)")
+    o.add_argument("--min-area", type=_float, metavar="M2",
+                   help="smallest outline kept, m2 (default four cells)")
+
+    se = sub.add_parser("section", help="a vertical section through a build's cube",
+                        description="Cut the cube of the build in OUT along a path through "
+                        "two or more points (survey CRS, m) and draw distance against depth.")
+    se.add_argument("build", metavar="OUT", help="folder of an earlier slicer build")
+    se.add_argument("--through", nargs="+", required=True, metavar="X,Y",
+                    help="the path's points in the survey CRS, m (two or more)")
+    se.add_argument("--spacing", type=_float, metavar="M",
+                    help="distance between samples along the path (default: the cell)")
+    se.add_argument("--out", metavar="FILE.png", required=True, help="figure to write")
     return parser
 
 
@@ -373,6 +395,17 @@ def _run_plan(args) -> int:
     return 0
 
 
+def _run_map(args) -> int:
+    from slicer.pipeline import results
+    if args.command == "outline":
+        print(results.outline_build(args.build, args.out, threshold=args.threshold,
+                                    min_area=args.min_area))
+    else:
+        points = [results.parse_point(t) for t in args.through]
+        print(results.section_build(args.build, points, args.out, spacing=args.spacing))
+    return 0
+
+
 def _show_warning(message, category, filename, lineno, file=None, line=None):
     if issubclass(category, SlicerWarning):
         print(f"slicer: warning: {message}", file=sys.stderr)
@@ -403,6 +436,8 @@ def main(argv: list[str] | None = None) -> int:
             return _run_plan(args)
         if args.command == "velocity":
             return _run_velocity(args)
+        if args.command in ("outline", "section"):
+            return _run_map(args)
         return _run_demo(args)
     except SlicerError as exc:
         print(f"slicer: error: {exc}", file=sys.stderr)
