@@ -155,6 +155,9 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
                         "tif (one Cloud Optimized GeoTIFF per slice, in slices/), zarr (the "
                         "cube as a chunked Zarr store, cube.zarr), nc (the cube as CF "
                         "NetCDF-4, cube.nc); default tif")
+    g.add_argument("--radargrams", action=argparse.BooleanOptionalAction, default=None,
+                   help="draw each processed line as radargrams/LINE.png, shown in viewer.html "
+                        "on a click (default on)")
     g.add_argument("--title", help="title of the overview sheet")
     g.add_argument("--overwrite", action="store_const", const=True, default=None,
                    help="replace the outputs of an earlier build in a non-empty --out folder")
@@ -258,6 +261,13 @@ def make_parser() -> argparse.ArgumentParser:
     d.add_argument("--overwrite", action="store_true", help="replace an earlier demo in DIR")
     d.add_argument("-q", "--quiet", action="store_true", help="no progress bars or summary")
 
+    vw = sub.add_parser("view", help="write a build's viewer page again",
+                        description="Write OUT/viewer.html of the build in OUT again from its "
+                        "cube, its record and its radargrams: the slices one at a time, the "
+                        "values under the cursor and each line's radargram on a click, in one "
+                        "file any browser opens.")
+    vw.add_argument("build", metavar="OUT", help="folder of an earlier slicer build")
+
     o = sub.add_parser("outline", help="anomaly outlines of a build as GeoPackage layers",
                        description="Outline the cells of every slice of the build in OUT that "
                        "stand out of their slice (robust deviations above its median), as one "
@@ -327,7 +337,7 @@ def _run_build(args, argv) -> int:
         result = build(settings, progress=not args.quiet, command=command)
         out = settings.out
     if not args.quiet:
-        print(f"{_summary(result, time.perf_counter() - started)}; wrote {out}")
+        print(f"{_summary(result, time.perf_counter() - started)}; wrote {out}\n{_to_look(out)}")
     return 0
 
 
@@ -340,7 +350,19 @@ def _run_demo(args) -> int:
     if not args.quiet:
         print(f"demo survey in {Path(args.out) / 'survey'}; "
               f"{_summary(result, time.perf_counter() - started)}; "
-              f"wrote {Path(args.out) / 'build'}")
+              f"wrote {Path(args.out) / 'build'}\n{_to_look(Path(args.out) / 'build')}")
+    return 0
+
+
+def _to_look(out) -> str:
+    return (f"viewer: {Path(out) / 'viewer.html'} (open in a browser); overview: "
+            f"{Path(out) / 'overview.png'}")
+
+
+def _run_view(args) -> int:
+    from slicer.pipeline.view import write_build_viewer
+
+    print(f"wrote {write_build_viewer(args.build)}")
     return 0
 
 
@@ -438,6 +460,8 @@ def main(argv: list[str] | None = None) -> int:
             return _run_velocity(args)
         if args.command in ("outline", "section"):
             return _run_map(args)
+        if args.command == "view":
+            return _run_view(args)
         return _run_demo(args)
     except SlicerError as exc:
         print(f"slicer: error: {exc}", file=sys.stderr)

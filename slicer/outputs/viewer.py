@@ -37,6 +37,7 @@ from slicer.core.atomic import atomic_write_text
 from slicer.core.conventions import X, Y
 from slicer.core.errors import SettingsError
 from slicer.outputs.cube import slice_axis
+from slicer.outputs.radargram import PLOT_AREA
 
 #: Longest side of a slice on the page, cells.
 MAX_SIDE = 600
@@ -51,8 +52,8 @@ class LineImage:
     png: bytes
     start: tuple[float, float]
     end: tuple[float, float]
-    left: float = 0.08
-    right: float = 0.80
+    left: float = PLOT_AREA[0]
+    right: float = PLOT_AREA[0] + PLOT_AREA[2]
 
 
 def _decimate(values: np.ndarray, k: int) -> np.ndarray:

@@ -34,8 +34,7 @@ from slicer.gridding.grid import (
 from slicer.gridding.levelling import level_lines
 from slicer.io.reading import describe_file, line_info
 from slicer.outputs.cube import empty_cube, new_cube
-from slicer.outputs.sink import FORMATS, OVERVIEW_NAME, CubeSink, cube_from_slices
-from slicer.outputs.zarr_store import open_cube_zarr
+from slicer.outputs.sink import FORMATS, OVERVIEW_NAME, CubeSink
 from slicer.pipeline.bounds import check_bounds
 from slicer.pipeline.budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
 from slicer.pipeline.engine import Engine, parse_scheduler
@@ -43,6 +42,7 @@ from slicer.pipeline.line_chain import processing_summary
 from slicer.pipeline.line_tasks import nice_number, reduce_survey
 from slicer.pipeline.record import environment, tidy_record
 from slicer.pipeline.settings import BuildSettings
+from slicer.pipeline.view import VIEW_NAMES, RadargramPainter, open_result, write_views
 from slicer.pipeline.worker_outputs import WorkerSink
 from slicer.velocity.models import depth_error
 
@@ -178,12 +178,13 @@ class _Reduction:
 
 
 def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
-            cube_in_memory: bool) -> _Reduction:
+            cube_in_memory: bool, on_image=None) -> _Reduction:
     started = time.perf_counter()
     settings = prepare_survey(settings)
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     budget = check_budget(settings, info, workers=engine.workers, cube_in_memory=cube_in_memory)
-    reduced = reduce_survey(settings, engine=engine, info=info, progress=progress)
+    reduced = reduce_survey(settings, engine=engine, info=info, progress=progress,
+                            on_image=on_image)
     zigzag = correct_zigzag(reduced, settings)
     if settings.level:  # per line and slice, against its neighbouring lines
         reduced.table = level_lines(reduced.table)
@@ -321,9 +322,12 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
 
     Writes the outputs ``settings.formats`` asks for -- ``slices/`` (one Cloud Optimized
     GeoTIFF per slice, ``tif``, the default), ``cube.zarr`` (``zarr``) and ``cube.nc`` (CF
-    NetCDF, ``nc``) -- and always ``overview.png`` and ``record.json`` (every setting and input,
-    with checksums). The cube is gridded tile by tile into a Zarr working store in the build
-    folder, so memory does not grow with the grid; the slices and the NetCDF cube are written
+    NetCDF, ``nc``) -- and always ``overview.png``, ``viewer.html`` (the slices in one page,
+    :mod:`slicer.outputs.viewer`), ``radargrams/<LINE>.png`` (each processed line, unless
+    ``settings.radargrams`` is off) and ``record.json`` (every setting and input, with
+    checksums; ``radargrams`` lists each line's picture and ends). The cube is gridded tile
+    by tile into a Zarr working store in the build folder, so memory does not grow with the
+    grid; the slices and the NetCDF cube are written
     from it once it is complete, and it becomes ``cube.zarr`` or, if the Zarr cube was not
     asked for, is deleted before the commit (and with the build folder on any failure).
     Everything is written into a folder beside ``settings.out`` and switched in whole at the
@@ -363,11 +367,13 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         raise SettingsError("no output folder given", where="--out")
     formats = settings.formats.split(",")
     folder = OutputFolder(settings.out, overwrite=bool(settings.overwrite),
-                          names=[*(FORMATS[f] for f in formats), OVERVIEW_NAME],
+                          names=[*(FORMATS[f] for f in formats), OVERVIEW_NAME, *VIEW_NAMES],
                           inputs=input_files(settings))
-    with warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine, folder:
+    with (warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine,
+          folder, RadargramPainter(folder.path) as painter):  # each line drawn on a thread
         warnings.simplefilter("always", SlicerWarning)
-        r = _reduce(settings, engine, progress=progress, cube_in_memory=False)
+        r = _reduce(settings, engine, progress=progress, cube_in_memory=False,
+                    on_image=painter.add)
         r.record["inputs"] = None  # filled in below, in this place of the record
         if command is not None:
             r.record["command"] = command
@@ -393,6 +399,12 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
                 for row0, col0, block in r.layout.blocks(table.values, engine=engine,
                                                          progress=progress):
                     sink.write(row0, col0, block)
+        r.record["radargrams"] = painter.result()
+        viewing = time.perf_counter()
+        viewer = write_views(out, open_result(template, sink.files), r.record["radargrams"],
+                             title=settings.title)
+        r.record["seconds"]["radargrams_drawn"] = round(painter.seconds, 3)
+        r.record["seconds"]["viewer"] = round(time.perf_counter() - viewing, 3)
         # The line files were checksummed by their tasks; the tables and geometry files
         # (small) are done here.
         r.record["inputs"] = [describe_file(p) for p in _side_inputs(settings)] + \
@@ -402,7 +414,8 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
                                 if issubclass(w.category, SlicerWarning)]
         r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
         r.record = tidy_record(r.record, folder=folder.target)
-        files = folder.commit([p.relative_to(out).as_posix() for p in sink.files], r.record,
+        written = [*sink.files, *(out / d["file"] for d in r.record["radargrams"]), viewer]
+        files = folder.commit([p.relative_to(out).as_posix() for p in written], r.record,
                               default=_jsonable)
     warned = [str(w.message) for w in caught if issubclass(w.category, SlicerWarning)]
     for w in caught:
@@ -412,22 +425,6 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         warnings.warn(message, SlicerWarning, stacklevel=2)
     return BuildResult(cube=open_result(template, files), record=r.record, files=files,
                        warnings=warned)
-
-
-def open_result(template: xr.DataArray, files: list[Path]) -> xr.DataArray:
-    """The committed cube, lazily: from ``cube.zarr``, else the slice GeoTIFFs, else ``cube.nc``.
-
-    ``files`` are the committed outputs (:meth:`OutputFolder.commit`); ``template`` the cube's
-    template the GeoTIFFs were written from.
-    """
-    names = {f.name: f for f in files}
-    if FORMATS["zarr"] in names:
-        return open_cube_zarr(names[FORMATS["zarr"]])
-    slices = [f for f in files if f.parent.name == "slices" and f.suffix == ".tif"]
-    if slices:
-        return cube_from_slices(template, slices)
-    from slicer.outputs.cube import read_cube_netcdf
-    return read_cube_netcdf(names[FORMATS["nc"]])
 
 
 def input_files(settings: BuildSettings) -> list[Path]:

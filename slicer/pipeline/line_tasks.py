@@ -116,7 +116,9 @@ def reduce_line(job: LineJob) -> dict:
     -------
     dict
         ``values`` (traces, slices) float32, ``x``, ``y`` (m), ``line`` (the job number),
-        ``time_zero_ns``, ``history`` and ``input`` (the file's size and SHA-256, for the
+        ``time_zero_ns``, ``history``, ``image`` (the processed envelope, or signed trace,
+        decimated for its radargram by :func:`slicer.outputs.radargram.image_of_samples`;
+        None with ``settings.radargrams`` off) and ``input`` (the file's size and SHA-256, for the
         record: taken here, where the file is read anyway, so the process that builds never
         reads the survey a second time; None for the second and later channels of a swath).
     """
@@ -139,6 +141,17 @@ def reduce_line(job: LineJob) -> dict:
         trace = (trace * np.float32(gain)).astype(np.float32) if signed else None
         twt, time_zero_ns = twt - shift, time_zero_ns + shift
         history = f"{history}; {tie_step(shift, gain)}" if history else tie_step(shift, gain)
+    image = None
+    if settings.radargrams:  # the processed line as its radargram shows it, decimated
+        from slicer.outputs.radargram import PAGE_CELLS, image_of_samples  # matplotlib: here
+        constant = job.velocity is not None and not hasattr(job.velocity, "profile")
+        image = image_of_samples(
+            trace if signed else env, line["x"].values, line["y"].values, twt,
+            name=line_name(job.entry, line.attrs), most=PAGE_CELLS,
+            attrs={"line": line_name(job.entry, line.attrs),  # and how to draw it:
+                   "velocity": job.velocity if constant and job.windows.axis == "depth" else None,
+                   "windows": window_times(job.windows, job.velocity,
+                                           separation=settings.antenna_separation or 0.0)})
     separation = settings.antenna_separation or 0.0
     model = _resampling_model(job.windows, job.velocity)
     axis = twt
@@ -155,8 +168,24 @@ def reduce_line(job: LineJob) -> dict:
     return {"values": np.asarray(values, dtype=np.float32),
             "x": line["x"].values, "y": line["y"].values, "line": job.number,
             "file": str(job.entry.file), "traces": line.sizes[TRACE],
-            "time_zero_ns": time_zero_ns, "history": history,
+            "time_zero_ns": time_zero_ns, "history": history, "image": image,
             "input": describe_file(job.entry.file) if job.entry.channel_index == 0 else None}
+
+
+def window_times(windows: Windows, velocity, *, separation: float = 0.0):
+    """The slice windows as two-way times (ns) for a radargram: ``(top, bottom)``, or None when
+    depth windows have no single velocity (a layered or lateral model)."""
+    if windows.axis != "depth":
+        return windows.top, windows.bottom
+    if velocity is None or hasattr(velocity, "profile"):
+        return None
+    return window_limits(windows, velocity, separation=separation)
+
+
+def line_name(entry: LineEntry, attrs: dict) -> str:
+    """A line's name: the file's line name (its stem), with the channel of a swath."""
+    name = str(attrs.get("line", entry.file.stem))
+    return f"{name}_{entry.channel}" if entry.channel is not None else name
 
 
 def _resampling_model(windows: Windows, model):
@@ -234,7 +263,8 @@ def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
 
 
 def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
-                  info: SurveyInfo | None = None, progress: bool = True) -> Reduced:
+                  info: SurveyInfo | None = None, progress: bool = True,
+                  on_image=None) -> Reduced:
     """Read, place, process and reduce every line of the survey to its slice values.
 
     Parameters
@@ -247,10 +277,14 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
         The survey's headers, if already read.
     progress : bool
         Show a progress bar (on a terminal).
+    on_image : callable, optional
+        Called with each line's ``image`` (see :func:`reduce_line`) as its task returns, in
+        line order; without it the images are dropped.
     """
     if engine is None:
         with Engine(parse_scheduler("threads")) as own:
-            return reduce_survey(settings, engine=own, info=info, progress=progress)
+            return reduce_survey(settings, engine=own, info=info, progress=progress,
+                                 on_image=on_image)
     info = info or survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     velocity = settings.resolved_velocity or settings.resolved_model
     where = "--times" if settings.times is not None else "--depths"
@@ -279,8 +313,13 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
                     corrections.get(k))
             for k, entry in enumerate(settings.lines)]
     sizes = [line.n_traces for line in info.lines]
-    results = list(engine.map(reduce_line, jobs, desc="reading and processing", unit="trace",
-                              progress=progress, weights=sizes))
+    results = []
+    for r in engine.map(reduce_line, jobs, desc="reading and processing", unit="trace",
+                        progress=progress, weights=sizes):
+        image = r.pop("image")  # handed on as it comes: never every line's image at once
+        if image is not None and on_image is not None:
+            on_image(image)
+        results.append(r)
     inputs = [r["input"] for r in results if r["input"] is not None]
     return Reduced(table=assemble_table(results, windows), info=info, windows=windows,
                    inputs=inputs,

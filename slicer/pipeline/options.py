@@ -264,6 +264,8 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
        "'tif' (one Cloud Optimized GeoTIFF per slice, the default), 'zarr' (the cube as a "
        "chunked Zarr store, cube.zarr) and 'nc' (the cube as CF NetCDF-4, cube.nc)",
        words=("tif", "zarr", "nc")),
+    _o("radargrams", "flag", "draw each processed line as a picture, radargrams/LINE.png, "
+       "shown in viewer.html on a click (true/false, default true)"),
     _o("title", "text", "title of the overview sheet"),
     _o("out", "path", "output folder"),
     _o("overwrite", "flag", "replace the outputs of an earlier build in the output folder "

@@ -92,6 +92,7 @@ class BuildSettings:
     scheduler: str = "auto"
     memory_limit: str | float | None = None
     formats: str = "tif"
+    radargrams: bool = True
     title: str | None = None
     out: Path | None = None
     overwrite: bool = False

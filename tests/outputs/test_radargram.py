@@ -84,3 +84,58 @@ def test_bad_input():
         plot_radargram(display_image(line(10, 10)), cmap="no-such-map")
     with pytest.raises(SettingsError, match="finite"):
         plot_radargram(display_image(line(10, 10) * np.nan))
+
+
+def test_image_of_samples_is_display_image_on_plain_arrays():
+    src = line(n_traces=900, n_samples=700)
+    a = display_image(src)
+    from slicer.outputs.radargram import image_of_samples
+    b = image_of_samples(src.values, src["x"].values, src["y"].values, src["twt"].values,
+                         name=src.name, attrs=src.attrs)
+    xr.testing.assert_identical(a, b)
+
+
+def test_fast_pages_colour_each_cell_as_matplotlibs_colour_map_and_keep_the_layout(tmp_path):
+    """RadargramPages: the data area where plot_radargram puts it (PLOT_AREA), each pixel the
+    colour matplotlib's 'magma' map gives the value relative to the line's 99.5th percentile
+    (within the 192-entry table's step), the titles drawn, one frame for lines alike."""
+    from PIL import Image
+
+    from slicer.outputs.radargram import PLOT_AREA, image_of_samples
+    from slicer.outputs.radargram_pages import FRAME_COLOURS, RadargramPages
+    values = np.zeros((200, 100), dtype=np.float32)
+    values[100:, :] = 1.0  # the second half of the line: its 99.5th percentile
+    values[:, 50:] *= 0.5  # ... and half that below 5 ns
+    image = image_of_samples(values, 0.05 * np.arange(200), np.zeros(200), 0.1 * np.arange(100),
+                             attrs={"line": "L9"})
+    pages = RadargramPages()
+    a = pages.save(image, tmp_path / "a.png", velocity=0.1)
+    pages.save(image, tmp_path / "b.png", velocity=0.1)
+    assert len(pages._frames) == 1  # the frame was drawn once
+    with Image.open(a) as im:
+        assert im.mode == "P"
+        rgb = np.asarray(im.convert("RGB"), dtype=float)
+    h, w, _ = rgb.shape
+    left, bottom, width, height = PLOT_AREA
+    col = lambda f: int((left + f * width) * w)  # noqa: E731
+    row = lambda f: int((1 - bottom - height + f * height) * h)  # noqa: E731
+    step = 255 / (256 - FRAME_COLOURS - 1)
+    magma = matplotlib.colormaps["magma"]
+    for (fx, fy), value in {(0.25, 0.25): 0.0, (0.75, 0.25): 1.0, (0.75, 0.75): 0.5}.items():
+        expected = np.asarray(magma(value)[:3]) * 255
+        np.testing.assert_allclose(rgb[row(fy), col(fx)], expected, atol=step + 1)
+    # outside the data area on the left: the frame's white margin
+    np.testing.assert_allclose(rgb[row(0.5), int(0.5 * left * w) - 20], 255, atol=1)
+    # the title band holds dark text pixels
+    assert (rgb[: int(0.15 * h)].sum(axis=2) < 200).any()
+    with Image.open(tmp_path / "b.png") as im:
+        assert np.array_equal(np.asarray(im.convert("RGB"), dtype=float), rgb)
+
+
+def test_fast_pages_refuse_an_empty_line(tmp_path):
+    from slicer.outputs.radargram import image_of_samples
+    from slicer.outputs.radargram_pages import RadargramPages
+    image = image_of_samples(np.full((5, 5), np.nan), np.arange(5.0), np.zeros(5),
+                             np.arange(5.0))
+    with pytest.raises(SettingsError):
+        RadargramPages().save(image, tmp_path / "x.png")

@@ -120,3 +120,40 @@ def test_the_page_works_in_a_browser(tmp_path, browser):
     assert browser.find_element(By.ID, "radarimg").get_attribute("src").startswith(
         "data:image/png;base64,")
     assert [e for e in browser.get_log("browser") if e["level"] == "SEVERE"] == []
+
+
+def test_a_builds_viewer_shows_the_clicked_lines_radargram(small_survey, tmp_path, browser):
+    """The page a build writes, with the build's own radargrams: a click on a line shows its
+    picture (the PNG file the build wrote, byte for byte)."""
+    import base64
+    import json
+
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.by import By
+
+    import slicer
+    settings = slicer.load_settings(small_survey.line_table, out=tmp_path / "o",
+                                    sample_interval=0.1, time_zero=3.0, velocity=0.1,
+                                    depths="0:2.4:0.1", cell=0.05)
+    slicer.build(settings, progress=False)
+    out = tmp_path / "o"
+    record = json.loads((out / "record.json").read_text())
+    line = record["radargrams"][2]
+    browser.get((out / "viewer.html").as_uri())
+    assert [e for e in browser.get_log("browser") if e["level"] == "SEVERE"] == []
+    data = browser.execute_script("return {west: D.west, north: D.north, cell: D.cell, "
+                                  "width: D.width, height: D.height}")
+    plan = browser.find_element(By.ID, "plan")
+    # a quarter of the way along the line, in plan pixels from the canvas centre
+    (x0, y0), (x1, y1) = line["start"], line["end"]
+    x, y = x0 + 0.25 * (x1 - x0), y0 + 0.25 * (y1 - y0)
+    col = (x - data["west"]) / data["cell"]
+    row = (data["north"] - y) / data["cell"]
+    dx = (col / data["width"] - 0.5) * plan.size["width"]
+    dy = (row / data["height"] - 0.5) * plan.size["height"]
+    ActionChains(browser).move_to_element_with_offset(plan, dx, dy).click().perform()
+    assert browser.find_element(By.ID, "linename").text.startswith(line["line"])
+    src = browser.find_element(By.ID, "radarimg").get_attribute("src")
+    assert base64.b64decode(src.split(",", 1)[1]) == (out / line["file"]).read_bytes()
+    assert float(browser.find_element(By.ID, "marker").get_attribute("data-fraction")) == \
+        pytest.approx(0.25, abs=0.03)

@@ -184,15 +184,18 @@ def test_default_build_writes_slices_only_and_returns_their_cube(small_survey, t
     out = tmp_path / "o"
     tifs = sorted((out / "slices").glob("*.tif"))
     assert len(tifs) == 24
-    # the working Zarr store is gone: only the slices, the overview and the record
+    # the working Zarr store is gone: only the slices, the overview, the viewer, the
+    # radargrams and the record
+    pictures = sorted(p.relative_to(out).as_posix() for p in (out / "radargrams").glob("*"))
+    assert len(pictures) == 6  # one per line
     on_disk = {p.relative_to(out).as_posix() for p in out.rglob("*")}
-    assert on_disk == {"slices", "overview.png", "record.json",
-                       *(f"slices/{p.name}" for p in tifs)}
+    assert on_disk == {"slices", "overview.png", "record.json", "viewer.html", "radargrams",
+                       *pictures, *(f"slices/{p.name}" for p in tifs)}
     assert not list(tmp_path.glob("o.slicer-*"))  # nor a build folder beside it
     record = json.loads((out / "record.json").read_text())
     assert record["settings"]["formats"] == "tif"
     assert sorted(record["outputs"]) == sorted(
-        ["overview.png", *(f"slices/{p.name}" for p in tifs)])
+        ["overview.png", "viewer.html", *pictures, *(f"slices/{p.name}" for p in tifs)])
     # The returned cube, read lazily from the committed files, is the in-memory build's,
     # with its windows, depth error and CRS; each slice as rasterio (GDAL) reads its file.
     cube = result.cube

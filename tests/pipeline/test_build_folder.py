@@ -151,5 +151,6 @@ def test_a_working_store_left_in_the_build_folder_is_not_switched_in(small_surve
     assert kept and kept[0].name.startswith(".cube.zarr")  # it was left in the stage
     record = json.loads((out / "record.json").read_text())
     assert set(tree(out)) == {*record["outputs"], "record.json"}
-    assert sorted(p.name for p in out.iterdir()) == ["overview.png", "record.json", "slices"]
+    assert sorted(p.name for p in out.iterdir()) == ["overview.png", "radargrams", "record.json",
+                                                     "slices", "viewer.html"]
     assert beside(out) == []

@@ -82,7 +82,9 @@ def test_workers_write_only_the_formats_asked_for(threaded, tmp_path, formats):
     out = tmp_path / "o"
     result = slicer.build(settings.replace(scheduler="processes", out=out, formats=formats),
                           progress=False)
-    expected = {"overview.png", "record.json"}
+    pictures = [f"radargrams/{p.name}" for p in (out / "radargrams").iterdir()]
+    assert len(pictures) == 6  # one per line of the small survey
+    expected = {"overview.png", "record.json", "viewer.html", "radargrams", *pictures}
     if formats == "tif":
         expected |= {"slices", *(f"slices/{p.name}" for p in _tiffs(reference))}
     else:

@@ -1,0 +1,99 @@
+"""What the radargrams and the viewer page cost a build, on one mid-size synthetic survey.
+
+Builds the same survey (default about 65 000 traces, ``--traces``; the contract settings of
+build_throughput.py: 24 depth slices, 0.1 m cells, the default outputs) with
+``radargrams = true`` (the default: one picture per line, drawn on a thread while the tiles are
+gridded, and the viewer page holding them) and ``false`` (the viewer page only), ``--repeat``
+times each, every build in a fresh process, alternating so that a busy spell of the machine hits
+both alike.
+
+The table gives the median and minimum wall time of ``slicer.build``, the ratio of the medians
+to the build without radargrams, the median CPU time of the build (every thread of its process),
+the record's time of the drawing thread (which overlaps the gridding) and of writing
+``viewer.html``, and the sizes of ``radargrams/`` and ``viewer.html``.
+
+    python benchmarks/radargrams.py
+    python benchmarks/radargrams.py --traces 200000 --repeat 1
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import sys
+import time
+from pathlib import Path
+
+import _common  # noqa: F401 - first: one BLAS thread before numpy loads
+from _common import _f, _table, in_fresh_process, work_root  # noqa: E402
+from build_throughput import SETTINGS, make_survey  # noqa: E402
+
+#: The ways measured: (label, radargrams).
+WAYS = [("no radargrams", False), ("radargrams", True)]
+
+
+def measure(table: str, out: str, radargrams: bool, scheduler: str) -> dict:
+    """One build in this (fresh) process: wall and CPU seconds, the record's phases, sizes."""
+    import slicer
+    settings = slicer.load_settings(Path(table), **SETTINGS, out=Path(out), overwrite=True,
+                                    radargrams=radargrams, scheduler=scheduler)
+    started, cpu = time.perf_counter(), time.process_time()
+    result = slicer.build(settings, progress=False)
+    seconds, cpu = time.perf_counter() - started, time.process_time() - cpu
+    pictures = sum(p.stat().st_size for p in (Path(out) / "radargrams").glob("*.png"))
+    return {"seconds": seconds, "cpu": cpu, "phases": dict(result.record["seconds"]),
+            "traces": result.record["survey"]["traces"],
+            "lines": result.record["survey"]["lines"],
+            "shape": tuple(int(n) for n in result.cube.shape),
+            "viewer": (Path(out) / "viewer.html").stat().st_size, "pictures": pictures}
+
+
+def parse_args(argv=None):
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--traces", type=int, default=65_000, help="survey size (default 65000)")
+    p.add_argument("--repeat", type=int, default=3, help="builds per way (default 3)")
+    p.add_argument("--scheduler", default="threads", help="engine (default threads)")
+    p.add_argument("--keep", type=Path, help="keep the survey and outputs in this folder")
+    return p.parse_args(argv)
+
+
+def main(argv=None) -> int:
+    args = parse_args(argv)
+    root, cleanup = work_root(args.keep, "slicer-radargrams-")
+    try:
+        table, _, made, _ = make_survey(root / "survey", args.traces)
+        print(f"survey: {args.traces} traces requested, written in {_f(made, 1)} s; "
+              f"scheduler {args.scheduler}; {args.repeat} builds per way")
+        runs = {label: [] for label, _ in WAYS}
+        info = None
+        for _ in range(args.repeat):
+            for label, radargrams in WAYS:
+                out = root / "out" / label.replace(" ", "_")
+                info = in_fresh_process(measure, str(table), str(out), radargrams,
+                                        args.scheduler)
+                runs[label].append(info)
+        print(f"{info['traces']} traces in {info['lines']} lines -> cube {info['shape']}")
+        base = statistics.median(r["seconds"] for r in runs[WAYS[0][0]])
+        rows = []
+        for label, _ in WAYS:
+            got = runs[label]
+            seconds = [r["seconds"] for r in got]
+
+            def median(key, got=got):
+                return statistics.median(r["phases"].get(key, float("nan")) for r in got)
+
+            rows.append([label, _f(statistics.median(seconds)), _f(min(seconds)),
+                         _f(statistics.median(seconds) / base),
+                         _f(statistics.median(r["cpu"] for r in got)),
+                         _f(median("radargrams_drawn")), _f(median("viewer")),
+                         _f(got[-1]["pictures"] / 2**20), _f(got[-1]["viewer"] / 2**20)])
+        print(_table(["build", "median s", "min s", "x without", "CPU s", "drawing s",
+                      "viewer s", "radargrams MiB", "viewer MiB"], rows))
+    finally:
+        if cleanup is not None:
+            cleanup.cleanup()
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
