@@ -34,12 +34,12 @@ from slicer.core.physics import depth_from_time, time_from_depth
 MAX_TRACES, MAX_SAMPLES = 1200, 600
 #: Where the data area of a radargram lies in its figure: (left, bottom, width, height),
 #: fractions of the figure (the viewer places its marker by the left and right edges).
-PLOT_AREA = (0.08, 0.13, 0.72, 0.70)
+PLOT_AREA = (0.08, 0.13, 0.69, 0.70)
 #: Where the two title lines start (x, then the tops of each, figure fractions) and their
 #: sizes (points).
 TITLE_AT, TITLE_PT = (0.08, 0.955, 0.905), (11.0, 8.5)
 #: Cells a build keeps of each line for its radargram (traces, samples): about the pixels of
-#: the data area at :data:`PAGE_DPI` (9 x 0.72 and 4.6 x 0.70 inches).
+#: the data area at :data:`PAGE_DPI` (9 x 0.69 and 4.6 x 0.70 inches).
 PAGE_CELLS = (520, 260)
 #: Resolution of a build's radargrams, dots per inch.
 PAGE_DPI = 80
@@ -216,7 +216,9 @@ def plot_radargram(image: xr.DataArray, path: str | os.PathLike | None = None, *
     # the image's extent, whatever the brackets made of the limits (they are not data)
     ax.set_xlim(d[0], d[-1])
     ax.set_ylim(t[-1], t[0])
-    bar = figure.colorbar(shown, cax=figure.add_axes((0.925, 0.13, 0.015, 0.70)))
+    # the colour bar right of the depth axis, room for signed tick labels and its label after
+    bar = figure.colorbar(shown, cax=figure.add_axes(
+        (PLOT_AREA[0] + PLOT_AREA[2] + 0.115, PLOT_AREA[1], 0.015, PLOT_AREA[3])))
     bar.set_label(units or "amplitude")
     name, ends = titles(image, title)
     figure.text(TITLE_AT[0], TITLE_AT[1], name, fontsize=TITLE_PT[0], weight="bold", va="top")

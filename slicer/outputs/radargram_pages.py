@@ -44,7 +44,7 @@ class RadargramPages:
     Parameters
     ----------
     units : str, keyword-only
-        Units of the values (the colour bar reads "fraction of the line's 99.5th percentile").
+        Units of the values (the colour bar reads them over the line's 99.5th percentile).
     cmap : str, keyword-only
         A matplotlib colour map for unsigned lines; signed ones use a diverging map.
     dpi : float, keyword-only
@@ -127,8 +127,8 @@ class RadargramPages:
             np.array([[low, 1.0], [1.0, low]], dtype=np.float32), dims=("distance", TWT),
             coords={"distance": [float(d[0]), float(d[-1])], TWT: [float(t[0]), float(t[-1])],
                     X: ("distance", [0.0, 1.0]), Y: ("distance", [0.0, 0.0])})
-        what = f"{self.units or 'amplitude'}, fraction of the line's {self.percentile:g}th " \
-               f"percentile{' of |value|' if signed else ''}"
+        what = f"{self.units or 'amplitude'} / line's {self.percentile:g}th percentile" \
+               f"{' of |value|' if signed else ''}"
         figure = plot_radargram(dummy, velocity=velocity, windows=windows, units=what,
                                 cmap=self.cmap, percentile=(0, 100), dpi=self.dpi)
         figure.canvas.draw()
@@ -139,7 +139,8 @@ class RadargramPages:
         c0, c1 = int(np.ceil(box.x0)), int(np.floor(box.x1))
         rgb = rgba[..., :3].copy()
         # the title lines are drawn per line: blank down to below the second one
-        rgb[: int((1 - TITLE_AT[2]) * h + 1.4 * TITLE_PT[1] * self.dpi / 72)] = 255
+        rgb[: int((1 - TITLE_AT[2]) * h + 1.4 * TITLE_PT[1] * self.dpi / 72),
+            : int(0.9 * rgb.shape[1])] = 255  # (left of the colour bar's label)
         rgb[r0:r1, c0:c1] = 255
         frame = Image.fromarray(rgb).quantize(FRAME_COLOURS, method=Image.Quantize.FASTOCTREE)
         indices = np.asarray(frame, dtype=np.uint8)
