@@ -51,6 +51,7 @@ import xarray as xr
 
 from slicer.core.conventions import SLICE, TRACE, X, Y
 from slicer.core.errors import SettingsError, warn
+from slicer.gridding.neighbours import table_arrays
 
 #: Lines within this angle (degrees) of each other belong to one parallel set.
 PARALLEL_DEGREES = 15.0
@@ -58,19 +59,6 @@ PARALLEL_DEGREES = 15.0
 PAIR_REACH = 2
 #: Least number of paired traces for a level difference.
 MIN_PAIRS = 5
-
-
-def _check_table(table: xr.DataArray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    if not isinstance(table, xr.DataArray) or set(table.dims) != {TRACE, SLICE}:
-        raise SettingsError("expected a trace x slice table (DataArray with dims 'trace' and "
-                            "'slice')", where="table")
-    for coord in (X, Y, "line"):
-        if coord not in table.coords or table[coord].dims != (TRACE,):
-            raise SettingsError(f"the table has no per-trace {coord!r} coordinate",
-                                where="table")
-    values = np.asarray(table.transpose(TRACE, SLICE).values, dtype=np.float64)
-    return (values, np.asarray(table[X].values, dtype=np.float64),
-            np.asarray(table[Y].values, dtype=np.float64), np.asarray(table["line"].values))
 
 
 def _median(values: np.ndarray) -> np.ndarray:
@@ -242,7 +230,7 @@ def line_corrections(table: xr.DataArray, *, method: str = "median", kind: str =
         value of the line; 1 (or 0) where a line has no parallel neighbour to compare with.
     """
     _check_options(method, kind, neighbours)
-    values, x, y, line = _check_table(table)
+    values, x, y, line = table_arrays(table)
     geo = _Geometry(x, y, line)
     if kind == "gain":
         with np.errstate(invalid="ignore", divide="ignore"):
@@ -356,7 +344,7 @@ def stripe_amplitude(data: xr.DataArray, *, across: str = "y") -> xr.DataArray:
         One value per slice (dimensionless).
     """
     if isinstance(data, xr.DataArray) and set(data.dims) == {TRACE, SLICE}:
-        values, x, y, line = _check_table(data)
+        values, x, y, line = table_arrays(data)
         geo = _Geometry(x, y, line)
         medians = np.array([_median(values[m]) for m in geo.members])  # (lines, slices)
         steps = [np.diff(medians[members], axis=0) for members, _, _ in geo.sets

@@ -17,6 +17,10 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+import xarray as xr
+
+from slicer.core.conventions import SLICE, TRACE, X, Y
+from slicer.core.errors import SettingsError
 
 #: Lines within this angle (degrees) of each other are parallel neighbours.
 PARALLEL_DEGREES = 15.0
@@ -162,3 +166,18 @@ def side_distances(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, limit: flo
             left[m] = np.fmin(left[m], np.where(covers & (gap > 1e-9), gap, np.nan))
             right[m] = np.fmin(right[m], np.where(covers & (gap < -1e-9), -gap, np.nan))
     return left, right
+
+
+def table_arrays(table: xr.DataArray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """The values ``(trace, slice)``, ``x``, ``y`` (m) and ``line`` of a trace x slice table,
+    checked (a :class:`~slicer.core.errors.SettingsError` naming ``table`` otherwise)."""
+    if not isinstance(table, xr.DataArray) or set(table.dims) != {TRACE, SLICE}:
+        raise SettingsError("expected a trace x slice table (DataArray with dims 'trace' and "
+                            "'slice')", where="table")
+    for coord in (X, Y, "line"):
+        if coord not in table.coords or table[coord].dims != (TRACE,):
+            raise SettingsError(f"the table has no per-trace {coord!r} coordinate",
+                                where="table")
+    values = np.asarray(table.transpose(TRACE, SLICE).values, dtype=np.float64)
+    return (values, np.asarray(table[X].values, dtype=np.float64),
+            np.asarray(table[Y].values, dtype=np.float64), np.asarray(table["line"].values))

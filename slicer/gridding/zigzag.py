@@ -45,9 +45,9 @@ import numpy as np
 import scipy.signal
 import xarray as xr
 
-from slicer.core.conventions import SLICE, TRACE, X, Y
+from slicer.core.conventions import TRACE, X, Y
 from slicer.core.errors import SettingsError
-from slicer.gridding.neighbours import _Lines, trace_spacing
+from slicer.gridding.neighbours import _Lines, table_arrays, trace_spacing
 
 #: Largest shift (m) looked for by :func:`estimate_zigzag_shift` by default (pair displacements up
 #: to twice it), and no more than :data:`MAX_SHIFT_TRACES` trace spacings: a wheel or trigger lag
@@ -88,18 +88,6 @@ class ZigzagEstimate:
         for key in ("shift_m", "spread_m"):
             out[key] = None if math.isnan(out[key]) else round(out[key], 4)
         return out
-
-
-def _check_table(table: xr.DataArray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    if not isinstance(table, xr.DataArray) or set(table.dims) != {TRACE, SLICE}:
-        raise SettingsError("expected a trace x slice table (dims 'trace' and 'slice')",
-                            where="table")
-    for coord in (X, Y, "line"):
-        if coord not in table.coords or table[coord].dims != (TRACE,):
-            raise SettingsError(f"the table has no per-trace {coord!r} coordinate", where="table")
-    values = np.asarray(table.transpose(TRACE, SLICE).values, dtype=np.float64)
-    return (values, np.asarray(table[X].values, dtype=np.float64),
-            np.asarray(table[Y].values, dtype=np.float64), np.asarray(table["line"].values))
 
 
 def _standardise(v: np.ndarray) -> np.ndarray:
@@ -180,7 +168,7 @@ def estimate_zigzag_shift(table: xr.DataArray, *, max_shift: float | None = None
         If no line has a parallel neighbour walked the other way, or no pair of such lines
         shows a pattern to correlate (``where="--zigzag-shift"``).
     """
-    values, x, y, line = _check_table(table)
+    values, x, y, line = table_arrays(table)
     spacing = trace_spacing(x, y, line)
     if max_shift is None:
         max_shift = min(MAX_SHIFT, MAX_SHIFT_TRACES * spacing)
@@ -248,7 +236,7 @@ def shift_along_lines(table: xr.DataArray, *, shift: float) -> xr.DataArray:
     xarray.DataArray
         The same table with new ``x`` and ``y``; values unchanged.
     """
-    _, x, y, line = _check_table(table)
+    _, x, y, line = table_arrays(table)
     if not math.isfinite(shift):
         raise SettingsError(f"must be a finite number of metres, got {shift!r}",
                             where="--zigzag-shift")
