@@ -7,6 +7,7 @@ Import it before numpy: the thread settings only take effect if they precede num
 from __future__ import annotations
 
 import concurrent.futures
+import contextlib
 import math
 import multiprocessing
 import os
@@ -90,6 +91,26 @@ def work_root(keep: Path | None, prefix: str):
         return root, None
     cleanup = tempfile.TemporaryDirectory(prefix=prefix)
     return Path(cleanup.name), cleanup
+
+
+@contextlib.contextmanager
+def work_folder(keep: Path | None, prefix: str):
+    """:func:`work_root` as a context: yields the folder and removes it at the end unless kept."""
+    root, cleanup = work_root(keep, prefix)
+    try:
+        yield root
+    finally:
+        if cleanup is not None:
+            cleanup.cleanup()
+
+
+def survey_options(parser) -> None:
+    """The options of a script that builds one synthetic survey several ways."""
+    parser.add_argument("--traces", type=int, default=65_000,
+                        help="survey size (default 65000)")
+    parser.add_argument("--repeat", type=int, default=3, help="builds per way (default 3)")
+    parser.add_argument("--scheduler", default="threads", help="engine (default threads)")
+    parser.add_argument("--keep", type=Path, help="keep the survey and outputs in this folder")
 
 
 class TunedFloor:

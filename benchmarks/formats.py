@@ -36,7 +36,7 @@ import time
 from pathlib import Path
 
 import _common  # noqa: F401 - first: one BLAS thread before numpy loads
-from _common import _f, _table, in_fresh_process, work_root  # noqa: E402
+from _common import _f, _table, in_fresh_process, survey_options, work_folder  # noqa: E402
 from build_throughput import SETTINGS, make_survey  # noqa: E402
 
 #: The ways measured: (label, formats, stream the GeoTIFFs).
@@ -61,18 +61,14 @@ def measure(table: str, out: str, formats: str, stream: bool, scheduler: str) ->
 
 def parse_args(argv=None):
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--traces", type=int, default=65_000, help="survey size (default 65000)")
-    p.add_argument("--repeat", type=int, default=3, help="builds per way (default 3)")
-    p.add_argument("--scheduler", default="threads", help="engine (default threads)")
-    p.add_argument("--keep", type=Path, help="keep the survey and outputs in this folder")
+    survey_options(p)
     p.add_argument("--ways", help="comma list of row numbers (from 1) to measure; default all")
     return p.parse_args(argv)
 
 
 def main(argv=None) -> int:
     args = parse_args(argv)
-    root, cleanup = work_root(args.keep, "slicer-formats-")
-    try:
+    with work_folder(args.keep, "slicer-formats-") as root:
         table, _, made, _ = make_survey(root / "survey", args.traces)
         print(f"survey: {args.traces} traces requested, written in {_f(made, 1)} s; "
               f"scheduler {args.scheduler}; {args.repeat} builds per way")
@@ -101,9 +97,6 @@ def main(argv=None) -> int:
                          _f(statistics.median(seconds) / base), _f(write), _f(cpu), _f(size, 1)])
         print(_table(["formats", "median s", "min s", "x tif", "grid+write s", "CPU s", "MiB"],
                      rows))
-    finally:
-        if cleanup is not None:
-            cleanup.cleanup()
     return 0
 
 

@@ -34,7 +34,7 @@ from pathlib import Path
 
 import _common  # noqa: F401 - first: one BLAS thread before numpy loads
 import numpy as np  # noqa: E402
-from _common import TunedFloor, _f, _table, in_fresh_process, work_root  # noqa: E402
+from _common import TunedFloor, _f, _table, in_fresh_process, work_folder  # noqa: E402
 
 SETTINGS = dict(crs="EPSG:32633", sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.1,
                 depths="0:2.4:0.1")
@@ -202,16 +202,12 @@ def main(argv=None) -> int:
     except ModuleNotFoundError:
         print("verde not installed: its column is skipped (pip install verde)", file=sys.stderr)
         use_verde = False
-    root, cleanup = work_root(args.keep, "slicer-peers-")
-    try:
+    with work_folder(args.keep, "slicer-peers-") as root:
         rows = []
         for n in (int(s) for s in args.sizes.split(",")):
             rows += measure_size(root, n, use_verde)
             print(_table(["traces", "method", "s", "x floor", "median miss m", "worst miss m"],
                          rows), flush=True)
-    finally:
-        if cleanup is not None:
-            cleanup.cleanup()
     return 0
 
 

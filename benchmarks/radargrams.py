@@ -25,7 +25,7 @@ import time
 from pathlib import Path
 
 import _common  # noqa: F401 - first: one BLAS thread before numpy loads
-from _common import _f, _table, in_fresh_process, work_root  # noqa: E402
+from _common import _f, _table, in_fresh_process, survey_options, work_folder  # noqa: E402
 from build_throughput import SETTINGS, make_survey  # noqa: E402
 
 #: The ways measured: (label, radargrams).
@@ -50,17 +50,13 @@ def measure(table: str, out: str, radargrams: bool, scheduler: str) -> dict:
 
 def parse_args(argv=None):
     p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    p.add_argument("--traces", type=int, default=65_000, help="survey size (default 65000)")
-    p.add_argument("--repeat", type=int, default=3, help="builds per way (default 3)")
-    p.add_argument("--scheduler", default="threads", help="engine (default threads)")
-    p.add_argument("--keep", type=Path, help="keep the survey and outputs in this folder")
+    survey_options(p)
     return p.parse_args(argv)
 
 
 def main(argv=None) -> int:
     args = parse_args(argv)
-    root, cleanup = work_root(args.keep, "slicer-radargrams-")
-    try:
+    with work_folder(args.keep, "slicer-radargrams-") as root:
         table, _, made, _ = make_survey(root / "survey", args.traces)
         print(f"survey: {args.traces} traces requested, written in {_f(made, 1)} s; "
               f"scheduler {args.scheduler}; {args.repeat} builds per way")
@@ -89,9 +85,6 @@ def main(argv=None) -> int:
                          _f(got[-1]["pictures"] / 2**20), _f(got[-1]["viewer"] / 2**20)])
         print(_table(["build", "median s", "min s", "x without", "CPU s", "drawing s",
                       "viewer s", "radargrams MiB", "viewer MiB"], rows))
-    finally:
-        if cleanup is not None:
-            cleanup.cleanup()
     return 0
 
 
