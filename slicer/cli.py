@@ -279,6 +279,7 @@ def make_parser() -> argparse.ArgumentParser:
                    help="robust standard deviations above the slice median (default 3)")
     o.add_argument("--min-area", type=_float, metavar="M2",
                    help="smallest outline kept, m2 (default four cells)")
+    o.add_argument("--overwrite", action="store_true", help="replace an existing FILE.gpkg")
 
     se = sub.add_parser("section", help="a vertical section through a build's cube",
                         description="Cut the cube of the build in OUT along a path through "
@@ -289,6 +290,7 @@ def make_parser() -> argparse.ArgumentParser:
     se.add_argument("--spacing", type=_float, metavar="M",
                     help="distance between samples along the path (default: the cell)")
     se.add_argument("--out", metavar="FILE.png", required=True, help="figure to write")
+    se.add_argument("--overwrite", action="store_true", help="replace an existing FILE.png")
     return parser
 
 
@@ -421,10 +423,11 @@ def _run_map(args) -> int:
     from slicer.pipeline import results
     if args.command == "outline":
         print(results.outline_build(args.build, args.out, threshold=args.threshold,
-                                    min_area=args.min_area))
+                                    min_area=args.min_area, overwrite=args.overwrite))
     else:
         points = [results.parse_point(t) for t in args.through]
-        print(results.section_build(args.build, points, args.out, spacing=args.spacing))
+        print(results.section_build(args.build, points, args.out, spacing=args.spacing,
+                                    overwrite=args.overwrite))
     return 0
 
 

@@ -78,11 +78,20 @@ def open_build(out: str | os.PathLike) -> xr.DataArray:
                          where=str(out))
 
 
+def _free(path: str | os.PathLike, overwrite: bool) -> None:
+    """Refuse to replace an existing file without ``overwrite`` (nothing is lost unasked)."""
+    from slicer.core.errors import OutputError
+    if Path(path).exists() and not overwrite:
+        raise OutputError("exists; give --overwrite to replace it", where=str(path))
+
+
 def outline_build(out: str | os.PathLike, path: str | os.PathLike, *, threshold: float = 3.0,
-                  min_area: float | None = None) -> str:
+                  min_area: float | None = None, overwrite: bool = False) -> str:
     """Outline the anomalies of the build in ``out`` into the GeoPackage ``path``
-    (:func:`slicer.outputs.outlines.outline`); returns a one-line summary."""
+    (:func:`slicer.outputs.outlines.outline`); returns a one-line summary. An existing
+    ``path`` is replaced only with ``overwrite``."""
     from slicer.outputs.outlines import outline, write_outlines
+    _free(path, overwrite)
     found = outline(open_build(out), threshold=threshold, min_area=min_area)
     write_outlines(found, path)
     return (f"{len(found.patches)} outlines in {len({p['slice'] for p in found.patches})} "
@@ -100,10 +109,12 @@ def parse_point(text: str) -> tuple[float, float]:
 
 
 def section_build(out: str | os.PathLike, points, path: str | os.PathLike, *,
-                  spacing: float | None = None) -> str:
+                  spacing: float | None = None, overwrite: bool = False) -> str:
     """Draw the vertical section of the build in ``out`` along ``points`` into ``path``
-    (:func:`slicer.outputs.section.section`); returns a one-line summary."""
+    (:func:`slicer.outputs.section.section`); returns a one-line summary. An existing
+    ``path`` is replaced only with ``overwrite``."""
     from slicer.outputs.section import plot_section, section
+    _free(path, overwrite)
     sec = section(open_build(out), points, spacing=spacing)
     plot_section(sec, path)
     return (f"section of {float(sec['distance'].values[-1]):.2f} m, "

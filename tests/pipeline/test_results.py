@@ -65,3 +65,15 @@ def test_bad_map_commands_say_one_line(built, tmp_path, capsys, argv, match):
     code = main([a.format(out=out, tmp=tmp_path) for a in argv])
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1 and match in err[0]
+
+
+def test_an_existing_file_is_replaced_only_with_overwrite(built, tmp_path, capsys):
+    out, _ = built
+    mine = tmp_path / "mine.gpkg"
+    mine.write_text("a file of the user's")
+    assert main(["outline", str(out), "--out", str(mine)]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "--overwrite" in err[0] and str(mine) in err[0]
+    assert mine.read_text() == "a file of the user's"  # untouched
+    assert main(["outline", str(out), "--out", str(mine), "--overwrite"]) == 0
+    assert mine.read_bytes()[:16] == b"SQLite format 3\x00"  # now a GeoPackage
