@@ -290,8 +290,8 @@ class Layer:
 
 
 def arrivals(px, py, targets=(), layers=(), *, velocity: float,
-             attenuation_db_per_m: float = 0.0,
-             pattern_exponent: float = 2.0) -> tuple[np.ndarray, np.ndarray]:
+             attenuation_db_per_m: float = 0.0, pattern_exponent: float = 2.0,
+             depth_shift=None) -> tuple[np.ndarray, np.ndarray]:
     """Two-way time below the surface and amplitude of every reflector on every trace.
 
     Parameters
@@ -304,6 +304,11 @@ def arrivals(px, py, targets=(), layers=(), *, velocity: float,
         Radar velocity, m/ns.
     attenuation_db_per_m, pattern_exponent : float
         See :func:`reflection_amplitude`.
+    depth_shift : array_like, optional
+        Added to every reflector's depth on each trace, m, shape ``(traces,)``: how far the
+        antenna stands above the level plane the depths are measured from (uneven ground, see
+        :mod:`slicer.synthetic.terrain`).  A reflector whose top is then level with or above
+        the antenna is not seen on that trace (amplitude 0, its time is not meaningful).
 
     Returns
     -------
@@ -328,11 +333,14 @@ def arrivals(px, py, targets=(), layers=(), *, velocity: float,
     depth = np.concatenate([p[2], s[4], r[4], q[0]])
     radius = np.concatenate([p[3], 0 * s[4], 0 * r[4], 0 * q[0]])
     amplitude = np.concatenate([p[4], s[5], r[5], q[1]])
+    if depth_shift is not None:
+        depth = depth + np.asarray(depth_shift, dtype=float).reshape(-1, 1)
+    seen = depth > 0  # always so on level ground, where every depth is positive
     path = slant_range(offset, depth=depth, radius=radius)
-    cos_theta = incidence_cosine(offset, depth=depth, radius=radius)
-    return two_way_time(path, velocity), reflection_amplitude(
-        path, cos_theta, amplitude=amplitude, attenuation_db_per_m=attenuation_db_per_m,
-        pattern_exponent=pattern_exponent)
+    cos_theta = incidence_cosine(offset, depth=np.where(seen, depth, 1.0), radius=radius)
+    return two_way_time(path, velocity), np.where(seen, reflection_amplitude(
+        np.where(seen, path, 1.0), cos_theta, amplitude=amplitude,
+        attenuation_db_per_m=attenuation_db_per_m, pattern_exponent=pattern_exponent), 0.0)
 
 
 # --- trace components --------------------------------------------------------------------------

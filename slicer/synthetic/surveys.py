@@ -3,7 +3,9 @@
 The project's own forward model (:mod:`slicer.synthetic.forward`) turns a description of the ground
 (buried targets and layers) and of the radar into raw traces along planned lines; the survey
 writer stores them as SEG-Y or slicer NetCDF line files with a line table and a ``truth.json``
-that records what was buried, so a build can be checked against ground truth.
+that records what was buried, so a build can be checked against ground truth.  On uneven ground
+(a :class:`Ground` with a surface model, :mod:`slicer.synthetic.terrain`) it also writes GNSS
+tracks with heights and a DEM (:mod:`slicer.synthetic.terrain_files`).
 
 Demo scenario (:func:`demo_survey`) - invented for this project, it describes no real site:
 a 20 m x 14 m grid (EPSG:32633, south-west corner at 512000 E, 4650000 N) over the stone
@@ -37,7 +39,7 @@ import xarray as xr
 
 import slicer.synthetic.forward as _forward
 from slicer.core.atomic import atomic_write_text, prepare_output_dir
-from slicer.core.conventions import C_M_PER_NS, DISTANCE, TRACE, TWT, UNITS, X, Y
+from slicer.core.conventions import DISTANCE, TRACE, TWT, UNITS, X, Y
 from slicer.core.errors import SettingsError, warn
 from slicer.core.progress import progress_bar
 from slicer.synthetic.forward import (
@@ -48,6 +50,9 @@ from slicer.synthetic.forward import (
     check_fields,
     check_number,
 )
+from slicer.synthetic.terrain import Ground
+from slicer.synthetic.terrain_files import SurfaceFiles, SurfaceOptions, write_surface_files
+from slicer.synthetic.terrain_files import format_number as _number
 
 __all__ = ["Ground", "Layer", "LineTarget", "PlannedLine", "PlateTarget", "PointTarget", "Radar",
            "SyntheticSurvey", "demo_survey", "grid_lines", "simulate_line", "write_survey"]
@@ -57,42 +62,6 @@ LINE_TABLE_COLUMNS = ("file", "start_x", "start_y", "end_x", "end_y")
 
 #: File suffix of each output format of :func:`write_survey`.
 FORMATS = {"segy": ".sgy", "netcdf": ".nc"}
-
-Target = PointTarget | LineTarget | PlateTarget
-
-
-@dataclass(frozen=True)
-class Ground:
-    """Homogeneous ground holding targets and flat layers.
-
-    Parameters
-    ----------
-    velocity : float
-        Radar velocity, m/ns (0 < v <= c).
-    attenuation_db_per_m : float
-        Amplitude loss per metre of travel path, dB/m.
-    targets : tuple of PointTarget, LineTarget, PlateTarget
-    layers : tuple of Layer
-    """
-
-    velocity: float = 0.1
-    attenuation_db_per_m: float = 2.0
-    targets: tuple[Target, ...] = ()
-    layers: tuple[Layer, ...] = ()
-
-    def __post_init__(self):
-        check_fields(self, positive=("velocity",), nonnegative=("attenuation_db_per_m",))
-        if self.velocity > C_M_PER_NS:
-            raise SettingsError(f"{self.velocity} m/ns exceeds the speed of light "
-                                f"({C_M_PER_NS} m/ns)", where="Ground.velocity")
-        object.__setattr__(self, "targets", tuple(self.targets))
-        object.__setattr__(self, "layers", tuple(self.layers))
-        for name, kinds in (("targets", PointTarget | LineTarget | PlateTarget),
-                            ("layers", Layer)):
-            for i, item in enumerate(getattr(self, name)):
-                if not isinstance(item, kinds):
-                    raise SettingsError(f"not a target or layer: {type(item).__name__}",
-                                        where=f"Ground.{name}[{i}]")
 
 
 @dataclass(frozen=True)
@@ -285,9 +254,7 @@ def simulate_line(ground: Ground, radar: Radar, line: PlannedLine) -> xr.DataArr
     """
     x, y = line.positions()
     twt = radar.twt()
-    times, amplitudes = _forward.arrivals(
-        x, y, ground.targets, ground.layers, velocity=ground.velocity,
-        attenuation_db_per_m=ground.attenuation_db_per_m, pattern_exponent=radar.pattern_exponent)
+    times, amplitudes = ground.arrivals(x, y, pattern_exponent=radar.pattern_exponent)
     rng = np.random.default_rng([int(radar.seed), zlib.crc32(line.name.encode())])
     data = _forward.synthesize(
         twt, times, amplitudes, kind=radar.wavelet, frequency_ghz=radar.frequency_ghz,
@@ -329,6 +296,8 @@ class SyntheticSurvey:
         The survey CRS as given.
     files : tuple of Path
         The line files, in the order of ``lines``.
+    surface_files : SurfaceFiles
+        On uneven ground, the tracks and DEM written (empty on level ground).
     """
 
     folder: Path
@@ -339,11 +308,7 @@ class SyntheticSurvey:
     lines: tuple[PlannedLine, ...]
     crs: str
     files: tuple[Path, ...] = field(default=())
-
-
-def _number(value: float) -> str:
-    # Shortest text that reads back to the value, capped at micrometres (no 0.30000000000000004).
-    return np.format_float_positional(float(value), precision=6, unique=True, trim="0")
+    surface_files: SurfaceFiles = field(default_factory=SurfaceFiles)
 
 
 def _truth(ground: Ground, radar: Radar, lines, files, crs: str, fmt: str) -> dict:
@@ -367,8 +332,14 @@ def _truth(ground: Ground, radar: Radar, lines, files, crs: str, fmt: str) -> di
 
 def write_survey(folder: str | os.PathLike, ground: Ground, radar: Radar, lines, *,
                  format: str = "segy", crs: str = "EPSG:32633", overwrite: bool = False,
-                 progress: bool = True) -> SyntheticSurvey:
+                 progress: bool = True, gnss_height: float = 1.0,
+                 vertical_datum: str = "site datum (synthetic)",
+                 dem_cell: float = 0.25) -> SyntheticSurvey:
     """Simulate every line and write a survey folder: line files, ``lines.csv``, ``truth.json``.
+
+    On uneven ground (``ground.surface``) it also writes ``tracks/<line>.csv`` and ``dem.tif``,
+    adds ``track``, ``start_elevation`` and ``end_elevation`` to ``lines.csv`` and elevations
+    to ``truth.json`` (:mod:`slicer.synthetic.terrain_files`).
 
     Parameters
     ----------
@@ -386,6 +357,10 @@ def write_survey(folder: str | os.PathLike, ground: Ground, radar: Radar, lines,
         Allow a folder that already holds files.
     progress : bool
         Show a progress bar over the lines.
+    gnss_height, vertical_datum, dem_cell
+        Uneven ground only: the GNSS antenna's height above the ground (m), the name of the
+        vertical datum and the DEM cell size (m); see
+        :class:`slicer.synthetic.terrain_files.SurfaceOptions`.
 
     Returns
     -------
@@ -394,7 +369,7 @@ def write_survey(folder: str | os.PathLike, ground: Ground, radar: Radar, lines,
     Raises
     ------
     SettingsError
-        Unknown format or CRS, no lines, or repeated line names.
+        Unknown format or CRS, no lines, repeated line names or a bad surface option.
     OutputError
         The folder cannot be written (see :func:`slicer.core.atomic.prepare_output_dir`).
     """
@@ -416,6 +391,8 @@ def write_survey(folder: str | os.PathLike, ground: Ground, radar: Radar, lines,
     if len(set(names)) != len(names):
         repeated = sorted({n for n in names if names.count(n) > 1})
         raise SettingsError(f"repeated line names: {', '.join(repeated)}", where="lines")
+    options = SurfaceOptions(gnss_height=gnss_height, vertical_datum=vertical_datum,
+                             dem_cell=dem_cell)
     if format == "segy":
         from slicer.io.segy import write_segy_line as writer
     else:
@@ -428,19 +405,22 @@ def write_survey(folder: str | os.PathLike, ground: Ground, radar: Radar, lines,
         data = simulate_line(ground, radar, line)
         data.attrs["source"] = str(path)
         writer(path, data)
+    surface = (SurfaceFiles() if ground.surface is None else
+               write_surface_files(folder, ground, lines, crs=crs, options=options))
 
     table = io.StringIO()
     out = csv.writer(table, lineterminator="\n")
-    out.writerow(LINE_TABLE_COLUMNS)
-    for line, path in zip(lines, files, strict=True):
+    out.writerow((*LINE_TABLE_COLUMNS, *surface.columns))
+    for i, (line, path) in enumerate(zip(lines, files, strict=True)):
         out.writerow([path.name, *(_number(v) for v in (line.start_x, line.start_y,
-                                                         line.end_x, line.end_y))])
+                                                         line.end_x, line.end_y)),
+                      *surface.row(i)])
     line_table = atomic_write_text(folder / "lines.csv", table.getvalue())
-    truth_file = atomic_write_text(
-        folder / "truth.json",
-        json.dumps(_truth(ground, radar, lines, files, crs, format), indent=2) + "\n")
+    truth = surface.add_to(_truth(ground, radar, lines, files, crs, format))
+    truth_file = atomic_write_text(folder / "truth.json", json.dumps(truth, indent=2) + "\n")
     return SyntheticSurvey(folder=folder, line_table=line_table, truth_file=truth_file,
-                           ground=ground, radar=radar, lines=lines, crs=crs, files=files)
+                           ground=ground, radar=radar, lines=lines, crs=crs, files=files,
+                           surface_files=surface)
 
 
 # --- the demo ----------------------------------------------------------------------------------
