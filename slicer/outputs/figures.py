@@ -1,19 +1,20 @@
-"""The overview sheet: every slice of a cube side by side on one shared colour scale.
+"""The overview: every slice of a cube side by side, on pages of a readable size.
 
 Figures are built on :class:`matplotlib.figure.Figure` with an Agg canvas and never touch
 pyplot, so the library neither changes the user's backend nor keeps figures alive in pyplot's
-registry. The overview is drawn by :mod:`slicer.outputs.sheet` as one picture.
+registry. Each page is drawn by :mod:`slicer.outputs.sheet` as one picture; its colours follow a
+:class:`slicer.outputs.display.Display` (colour map, shared or per-slice stretch, clip).
 """
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 from pathlib import Path
 
 import numpy as np
 import xarray as xr
-from matplotlib import colormaps
 from matplotlib.axes import Axes
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.colors import Colormap, Normalize
@@ -21,96 +22,32 @@ from matplotlib.figure import Figure
 from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
 from slicer.core.atomic import atomic_path
-from slicer.core.conventions import DEPTH, UNITS
 from slicer.core.errors import OutputError, SettingsError
-from slicer.outputs.cube import cube_crs, cube_transform, slice_axis
-from slicer.outputs.sheet import PANEL_INCHES, _decimals, _length_label, _nice_length, draw_sheet
+from slicer.outputs.cube import cube_crs, slice_axis
+from slicer.outputs.display import (
+    DEFAULT_CLIP,
+    NODATA_COLOUR,
+    Display,
+    display_from,
+    relative_scale,
+)
+from slicer.outputs.display_panels import (
+    MAX_PANEL_CELLS,
+    MAX_SAMPLE_VALUES,
+    MAX_SHEET_CELLS,
+    Frame,
+    drawn_cells,
+    panel_stride,
+    range_labels,
+    sample_count_stride,
+    sample_stride,
+)
+from slicer.outputs.sheet import Scale, _length_label, _nice_length, draw_sheet
 
-#: Colour of cells without data: a neutral grey that none of the usual sequential maps use.
-NODATA_COLOUR = "#d4d4d4"
-
-#: Coordinates at least this large (m) are plotted relative to the grid corner.
-_RELATIVE_FROM = 10_000.0
-
-#: Longest side of a panel as drawn, cells; larger slices are decimated (every k-th cell).
-MAX_PANEL_CELLS = 1000
-
-#: Most cells drawn over all panels of a sheet (about 64 MB of float32); many slices are
-#: drawn coarser than MAX_PANEL_CELLS, still finer than their few hundred pixels on paper.
-MAX_SHEET_CELLS = 16_000_000
-
-#: Cells drawn per pixel of a saved panel at most: more would be averaged away by the
-#: renderer, at the cost of memory and time.
-_CELLS_PER_PIXEL = 2
-
-#: Most values the shared colour limits are computed from (a strided subsample beyond).
-MAX_SAMPLE_VALUES = 1_000_000
-
-
-def _colormap(cmap: str | Colormap) -> Colormap:
-    try:
-        base = colormaps[cmap] if isinstance(cmap, str) else cmap
-    except KeyError:
-        raise SettingsError(f"unknown colormap {cmap!r}", where="cmap") from None
-    return base.with_extremes(bad=NODATA_COLOUR)
-
-
-def _check_percentile(percentile) -> tuple[float, float]:
-    lo, hi = (float(p) for p in percentile)
-    if not (0 <= lo < hi <= 100):
-        raise SettingsError(f"percentiles must satisfy 0 <= low < high <= 100, got {percentile}",
-                            where="percentile")
-    return lo, hi
-
-
-def panel_stride(cube: xr.DataArray, *, dpi: float | None = None) -> int:
-    """Return the decimation k of the overview panels of ``cube`` (every k-th row and column).
-
-    The long side of a panel keeps at most :data:`MAX_PANEL_CELLS` cells, all panels of the
-    sheet together at most :data:`MAX_SHEET_CELLS`, and, when ``dpi`` is given, at most two
-    cells per pixel of the saved panel (3 inches on its long side).
-    """
-    n, ny, nx = cube.shape
-    longest = min(MAX_PANEL_CELLS, math.isqrt(MAX_SHEET_CELLS // max(n, 1)))
-    if dpi is not None:
-        longest = min(longest, math.ceil(_CELLS_PER_PIXEL * PANEL_INCHES * float(dpi)))
-    return max(1, math.ceil(max(ny, nx) / max(longest, 1)))
-
-
-def _sample_stride(n_values: int) -> int:
-    # Stride along both plan axes that brings n_values down to MAX_SAMPLE_VALUES or fewer.
-    return max(1, math.ceil(math.sqrt(n_values / MAX_SAMPLE_VALUES)))
-
-
-def _panel(cube: xr.DataArray, index: int, stride: int) -> np.ndarray:
-    # Strided selection of one slice: a dask-backed cube computes this slice's chunks only.
-    return np.asarray(cube.data[index, ::stride, ::stride], dtype=np.float32)
-
-
-def _limits(samples: list[np.ndarray], percentile) -> tuple[float, float]:
-    lo, hi = _check_percentile(percentile)
-    finite = np.concatenate([s[np.isfinite(s)].astype(np.float64).ravel() for s in samples])
-    if finite.size == 0:
-        return 0.0, 1.0
-    vmin, vmax = (float(v) for v in np.percentile(finite, [lo, hi]))
-    if vmax <= vmin:
-        pad = abs(vmin) * 0.01 or 1.0
-        vmin, vmax = vmin - pad, vmax + pad
-    return vmin, vmax
-
-
-def sample_stride(cube: xr.DataArray, *, dpi: float | None = None) -> int:
-    """Return the plan stride s of the colour-limit subsample ``cube[:, ::s, ::s]``.
-
-    s is the panel stride (:func:`panel_stride`, with the same ``dpi``) times the smallest
-    whole number that leaves at most :data:`MAX_SAMPLE_VALUES` of the drawn cells, so the
-    sample is a subset of the cells drawn; s is 1 (every value) for small cubes.
-    """
-    d = panel_stride(cube, dpi=dpi)
-    n, ny, nx = cube.shape
-    k = _sample_stride(n * math.ceil(ny / d) * math.ceil(nx / d))
-    return d * k
-
+#: Most panels on a page of the overview. 4 x 3 panels of 3 inches make a page of about
+#: 16 x 12 inches, 2450 x 1800 pixels at 150 dpi: A3 landscape at full size, or a screen at
+#: about 80 %, with every panel 450 pixels across and its labels still 7-9 points.
+PER_PAGE = 12
 
 def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
                   ) -> tuple[float, float]:
@@ -122,53 +59,12 @@ def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
     even from a dask-backed cube larger than memory. Falls back to (0, 1) for a cube with no
     finite value and widens a zero-width range, so the colour scale is always usable.
     """
-    _check_percentile(percentile)
     stride = sample_stride(cube)
-    return _limits([np.asarray(cube.data[:, ::stride, ::stride], dtype=np.float32)],
-                   percentile)
+    return Display(clip=percentile).limits(
+        np.asarray(cube.data[:, ::stride, ::stride], dtype=np.float32))
 
 
-def range_labels(cube: xr.DataArray) -> list[str]:
-    """Return one label per slice with its window, e.g. ``"0.30-0.40 m"`` or ``"10.0-12.5 ns"``."""
-    axis = slice_axis(cube)
-    tops = cube[f"{axis}_top"].values
-    bottoms = cube[f"{axis}_bottom"].values
-    low, high = (2, 4) if axis == DEPTH else (1, 3)
-    d = _decimals(np.concatenate([tops, bottoms]), low, high)
-    return [f"{t:.{d}f}-{b:.{d}f} {UNITS[axis]}" for t, b in zip(tops, bottoms, strict=True)]
-
-
-class _Frame:
-    """Plot extent of a cube, relative to its south-west corner when coordinates are large.
-
-    UTM coordinates have six or seven digits; ticks relative to the corner stay short and the
-    corner goes into the axis label instead.
-    """
-
-    def __init__(self, cube: xr.DataArray):
-        t = cube_transform(cube)
-        self.ny, self.nx = ny, nx = cube.shape[1:]
-        self.cell = t.a
-        self.width = nx * self.cell
-        self.height = ny * self.cell
-        west, south = t.c, t.f - ny * self.cell
-        large = max(abs(west), abs(south), abs(west + self.width), abs(t.f)) >= _RELATIVE_FROM
-        self.x0, self.y0 = (west, south) if large else (0.0, 0.0)
-        self.extent = (west - self.x0, west - self.x0 + self.width,
-                       south - self.y0, south - self.y0 + self.height)
-
-    @staticmethod
-    def _label(word: str, origin: float) -> str:
-        return f"{word} - {origin:.10g} (m)" if origin else f"{word} (m)"
-
-    def xlabel(self) -> str:
-        return self._label("easting", self.x0)
-
-    def ylabel(self) -> str:
-        return self._label("northing", self.y0)
-
-
-def _decorate(ax: Axes, frame: _Frame) -> None:
+def _decorate(ax: Axes, frame: Frame) -> None:
     length = _nice_length(frame.width)
     bar = AnchoredSizeBar(ax.transData, length, _length_label(length), loc="lower left",
                           pad=0.4, borderpad=0.4, sep=3, frameon=True,
@@ -182,7 +78,7 @@ def _decorate(ax: Axes, frame: _Frame) -> None:
                 bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none", "alpha": 0.7})
 
 
-def _draw(ax: Axes, panel: np.ndarray, stride: int, frame: _Frame, cmap: Colormap,
+def _draw(ax: Axes, panel: np.ndarray, stride: int, frame: Frame, cmap: Colormap,
           norm: Normalize, label: str):
     ax.set_facecolor(NODATA_COLOUR)
     # A decimated panel holds every stride-th cell; each drawn pixel covers stride x stride
@@ -201,7 +97,8 @@ def _draw(ax: Axes, panel: np.ndarray, stride: int, frame: _Frame, cmap: Colorma
     return image
 
 
-def _sheet_title(cube: xr.DataArray, title: str | None) -> str:
+def _sheet_title(cube: xr.DataArray, title: str | None, which: str = "") -> str:
+    # which: the slices of this page, e.g. " 13-24 of 120"
     axis = slice_axis(cube)
     crs = cube_crs(cube)
     if crs is None:
@@ -214,7 +111,7 @@ def _sheet_title(cube: xr.DataArray, title: str | None) -> str:
     if velocity is not None:
         parts.append(f"velocity {float(velocity):.4g} m/ns")
     head = title or f"{cube.name or 'envelope'} {axis} slices"
-    return f"{head}\n" + ", ".join(parts)
+    return f"{head}{which}\n" + ", ".join(parts)
 
 
 def _quantity(cube: xr.DataArray) -> str:
@@ -224,105 +121,218 @@ def _quantity(cube: xr.DataArray) -> str:
     return f"{name} ({'dimensionless' if units in ('', '1') else units})"
 
 
+def _units(cube: xr.DataArray) -> str:
+    units = str(cube.attrs.get("units", ""))
+    return "" if units in ("", "1") else f" {units}"
+
+
+def _range_text(vmin: float, vmax: float, units: str, signed: bool) -> str:
+    # A panel's own colour range, short enough for the line above its title.
+    return f"\u00b1{vmax:.3g}{units}" if signed else f"{vmin:.3g} to {vmax:.3g}{units}"
+
+
+class _Overview:
+    """What every page of an overview shares: the decimated panels, their colours, labels."""
+
+    def __init__(self, cube: xr.DataArray, display: Display, *, title: str | None,
+                 dpi: float, panels: list[np.ndarray] | None):
+        slice_axis(cube)  # refuses anything that is not a cube
+        if not (math.isfinite(float(dpi)) and float(dpi) > 0):
+            raise SettingsError(f"dpi must be a positive number, got {dpi}", where="dpi")
+        self.n = n = cube.shape[0]
+        self.dpi, self.frame = float(dpi), Frame(cube)
+        self.labels, self.quantity = range_labels(cube), _quantity(cube)
+        self.cube, self.title = cube, title
+        signed = str(cube.name or "").startswith("signed")
+        # One pass over the data: the decimated panels, and the colour limits from them.
+        self.stride = stride = panel_stride(cube, dpi=dpi)
+        if panels is None:
+            self.drawn = [drawn_cells(cube, i, stride) for i in range(n)]
+        else:
+            self.drawn = [np.asarray(p, dtype=np.float32) for p in panels]
+            expected = (math.ceil(cube.shape[1] / stride), math.ceil(cube.shape[2] / stride))
+            if len(self.drawn) != n or any(p.shape != expected for p in self.drawn):
+                raise SettingsError(f"panels must be {n} arrays of {expected} cells "
+                                    f"(every {stride}th cell)", where="panels")
+        colours = display.colours(signed=signed)
+        if display.per_slice:
+            # A panel holds at most MAX_PANEL_CELLS**2 = MAX_SAMPLE_VALUES cells: all count.
+            limits = [display.limits(p, signed=signed) for p in self.drawn]
+            ticks, tick_labels, caption = relative_scale(display, signed=signed)
+            units = _units(cube)
+            self.scale = Scale(colours, [Normalize(*lim) for lim in limits],
+                               ranges=[_range_text(*lim, units, signed) for lim in limits],
+                               ticks=ticks, tick_labels=tick_labels, caption=caption)
+        else:
+            # Over the whole cube (a regular subsample of the drawn cells, sample_stride),
+            # so that every page has the same colours.
+            k = sample_stride(cube, dpi=dpi) // stride
+            norm = Normalize(*display.limits([p[::k, ::k] for p in self.drawn],
+                                             signed=signed))
+            self.scale = Scale(colours, [norm] * n)
+
+    def sheet(self, start: int, stop: int, *, ncols: int, nrows: int | None = None,
+              page: tuple[int, int] | None = None) -> Figure:
+        """The figure of slices ``start:stop``; ``page`` = (number, count) when paged."""
+        which = "" if page is None else f" {start + 1}-{stop} of {self.n}"
+        return draw_sheet(self.drawn[start:stop], stride=self.stride, frame=self.frame,
+                          labels=self.labels[start:stop], ncols=ncols,
+                          scale=self.scale.page(start, stop), dpi=self.dpi,
+                          title=_sheet_title(self.cube, self.title, which),
+                          quantity=self.quantity, nrows=nrows,
+                          page=None if page is None else f"page {page[0]} of {page[1]}")
+
+
+def _columns(n: int, max_columns: int | None) -> int:
+    ncols = math.ceil(math.sqrt(n))
+    if max_columns is not None:
+        if int(max_columns) < 1:
+            raise SettingsError(f"max_columns must be >= 1, got {max_columns}",
+                                where="max_columns")
+        ncols = min(ncols, int(max_columns))
+    return ncols
+
+
+def page_paths(path: str | os.PathLike, n_pages: int) -> list[Path]:
+    """The files of an overview of ``n_pages`` pages written to ``path``.
+
+    One page is ``path`` itself; more are numbered after its stem with at least two digits,
+    so they sort in page order: ``overview-01.png``, ``overview-02.png``, ...
+    """
+    path = Path(path)
+    if n_pages == 1:
+        return [path]
+    width = max(2, len(str(n_pages)))
+    return [path.with_name(f"{path.stem}-{i:0{width}d}{path.suffix}")
+            for i in range(1, n_pages + 1)]
+
+
+def _check_per_page(per_page) -> int:
+    if isinstance(per_page, bool) or not isinstance(per_page, int | np.integer) or per_page < 1:
+        raise SettingsError(f"per_page must be a whole number >= 1, got {per_page!r}",
+                            where="per_page")
+    return int(per_page)
+
+
+def overview_pages(cube: xr.DataArray, *, colormap=None, stretch: str = "shared",
+                   clip: tuple[float, float] = DEFAULT_CLIP, per_page: int = PER_PAGE,
+                   title: str | None = None, max_columns: int | None = None,
+                   dpi: float = 150, panels: list[np.ndarray] | None = None):
+    """Yield the pages of the overview of ``cube`` one at a time, as figures.
+
+    The arguments are those of :func:`plot_overview`. Every page has the same grid of
+    panels (the last may leave places empty), so all pages have the same size; with more
+    than one page each says ``"page i of n"`` at its top right and which slices it holds.
+    """
+    per_page = _check_per_page(per_page)
+    overview = _Overview(cube, display_from(colormap, stretch, clip), title=title, dpi=dpi,
+                         panels=panels)
+    on_page = min(overview.n, per_page)
+    ncols = _columns(on_page, max_columns)
+    nrows = math.ceil(on_page / ncols)
+    count = math.ceil(overview.n / per_page)
+    for i in range(count):
+        start, stop = i * per_page, min(overview.n, (i + 1) * per_page)
+        yield overview.sheet(start, stop, ncols=ncols, nrows=nrows,
+                             page=(i + 1, count) if count > 1 else None)
+
+
 def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
-                  title: str | None = None, cmap: str | Colormap | None = None,
-                  percentile: tuple[float, float] = (2, 98),
-                  max_columns: int | None = None, dpi: float = 150,
-                  panels: list[np.ndarray] | None = None) -> Figure:
-    """Draw every slice of ``cube`` on one sheet with one shared colour scale.
+                  colormap=None, stretch: str = "shared",
+                  clip: tuple[float, float] = DEFAULT_CLIP, per_page: int = PER_PAGE,
+                  title: str | None = None, max_columns: int | None = None, dpi: float = 150,
+                  panels: list[np.ndarray] | None = None, cmap=None, percentile=None):
+    """Draw every slice of ``cube`` side by side; with ``path``, write it as numbered pages.
 
-    Panels are laid out in a grid of about ``sqrt(n_slices)`` columns, titled with their window
-    (``"0.30-0.40 m"``), with equal aspect and axes in metres (relative to the grid's south-west
-    corner, given in the axis labels, when coordinates are as large as UTM ones). Cells
-    without data show as light grey. The first panel carries a scale bar and a north arrow;
-    the arrow points to grid north (+y), which for a projected CRS differs from true north by
-    the meridian convergence (up to a few degrees away from the central meridian).
+    Panels are laid out in rows of about ``sqrt(panels on a page)`` columns, in reading
+    order, titled with their window (``"0.30-0.40 m"``), with equal aspect and axes in metres
+    (relative to the grid's south-west corner, given in the axis labels, when coordinates are
+    as large as UTM ones); tick labels are written on the page's left and bottom edges only.
+    Cells without data show as light grey. The first panel of each page carries a scale bar
+    and a north arrow (black with a white halo); the arrow points to grid north (+y), which
+    for a projected CRS differs from true north by the meridian convergence (up to a few
+    degrees away from the central meridian). A colour bar with the quantity and its units
+    stands beside the panels.
 
-    The panels are colour-mapped into one picture laid out in whole pixels of the sheet at
-    ``dpi`` (:mod:`slicer.outputs.sheet`), each pixel showing its nearest drawn cell; tick
-    labels are written beside the panels on the sheet's left and bottom edges. The returned
-    figure may be saved at another resolution (the picture is then resampled to the nearest
-    pixel); one Axes holds the colour bar (label ``"<colorbar>"``).
-
-    A dask-backed cube (e.g. from :func:`slicer.outputs.zarr_store.open_cube_zarr`) is never loaded
-    whole: large slices are drawn decimated (every k-th row and column, :func:`panel_stride`:
-    at most :data:`MAX_PANEL_CELLS` cells and two cells per saved pixel along a side), one
-    slice computed at a time, and the colour limits come from a regular subsample of the drawn
-    cells (:func:`sample_stride`).
+    The panels are colour-mapped into one picture laid out in whole pixels of the page at
+    ``dpi`` (:mod:`slicer.outputs.sheet`), each pixel showing its nearest drawn cell. A
+    dask-backed cube (e.g. from :func:`slicer.outputs.zarr_store.open_cube_zarr`) is never
+    loaded whole: large slices are drawn decimated (every k-th row and column,
+    :func:`panel_stride`: at most :data:`MAX_PANEL_CELLS` cells and two cells per saved pixel
+    along a side), one slice computed at a time, and shared colour limits come from a regular
+    subsample of the drawn cells (:func:`sample_stride`).
 
     Parameters
     ----------
     cube : xarray.DataArray
         A cube as built by :func:`slicer.outputs.cube.new_cube`, in memory or dask-backed.
     path : path-like, optional
-        Save the figure here, atomically (format from the suffix; PNG by default).
-    title : str, optional
-        First line of the sheet title; the CRS, cell size and velocity follow.
-    cmap : str or Colormap, optional
-        Colour map of the values; default viridis (perceptually uniform), or for a signed
-        cube (named ``signed_...``) the diverging PuOr_r, centred on zero.
-    percentile : (float, float)
+        Write the pages here (format from the suffix; PNG by default): one page as ``path``
+        itself, more as ``<stem>-01<suffix>``, ``<stem>-02<suffix>``, ... (:func:`page_paths`).
+        Each file is written atomically, and none is renamed into place until all are drawn.
+        Without ``path`` the overview is returned as one figure of every slice, whatever
+        ``per_page`` says (see :func:`overview_pages` for the pages in memory).
+    colormap : str or Colormap, optional
+        Any matplotlib colour map; by default viridis (perceptually uniform), or for a
+        signed cube (named ``signed_...``) the diverging PuOr_r, centred on zero.
+        ``"gray"`` (or ``"greyscale"``) draws in grey. See :class:`Display`.
+    stretch : {"shared", "per-slice"}
+        ``"shared"``: one colour range for all slices, taken over the whole cube (not page
+        by page), so colours compare across pages; ``"per-slice"``: each slice on its own
+        range, written above its panel, the colour bar reading percentiles of each slice.
+    clip : (float, float)
         Percentiles (0-100) of the finite values (all of them, or the subsample of
-        :func:`sample_stride` for large cubes) setting the colour limits; a signed cube's
-        limits are then made symmetric about zero (the larger of the two).
+        :func:`sample_stride` for large cubes) at the two ends of the colour map; a signed
+        cube's limits are then made symmetric about zero (the larger of the two).
+    per_page : int
+        Most panels on a page, :data:`PER_PAGE` (12, 4 x 3) by default.
+    title : str, optional
+        First line of each page's title; the CRS, cell size and velocity follow.
     max_columns : int, optional
         Upper bound on the number of panel columns.
     dpi : float
-        Resolution of the saved image, dots per inch; it also bounds the cells drawn.
+        Resolution of the saved pages, dots per inch; it also bounds the cells drawn.
     panels : list of numpy.ndarray, optional
         The decimated slices, if already at hand: ``cube.data[i, ::k, ::k]`` for every slice
         ``i``, with ``k = panel_stride(cube, dpi=dpi)`` (a writer that saw every tile go by
         keeps them, so the cube need not be read again).
+    cmap, percentile : optional
+        Older names of ``colormap`` and ``clip``.
 
     Returns
     -------
-    matplotlib.figure.Figure
-        The sheet (with an Agg canvas attached).
+    list of pathlib.Path or matplotlib.figure.Figure
+        With ``path``: the pages written, in order. Without: the figure of every slice on
+        one sheet (with an Agg canvas attached); one Axes holds the colour bar (label
+        ``"<colorbar>"``).
 
     Raises
     ------
     SettingsError
-        If ``cmap``, ``percentile`` or ``max_columns`` is invalid.
+        If a display setting, ``per_page``, ``max_columns``, ``dpi`` or ``panels`` is invalid.
     OutputError
-        If ``path`` cannot be written; an existing file is then left as it was.
+        If a page cannot be written; existing files are then left as they were.
     """
-    slice_axis(cube)  # refuses anything that is not a cube
-    n_slices = cube.shape[0]
-    ncols = math.ceil(math.sqrt(n_slices))
-    if max_columns is not None:
-        if int(max_columns) < 1:
-            raise SettingsError(f"max_columns must be >= 1, got {max_columns}",
-                                where="max_columns")
-        ncols = min(ncols, int(max_columns))
-    frame = _Frame(cube)
-    signed = str(cube.name or "").startswith("signed")
-    colours = _colormap(cmap if cmap is not None else ("PuOr_r" if signed else "viridis"))
-    _check_percentile(percentile)
-    if not (math.isfinite(float(dpi)) and float(dpi) > 0):
-        raise SettingsError(f"dpi must be a positive number, got {dpi}", where="dpi")
-    # One pass over the data: the decimated panels, and the colour limits from a regular
-    # subsample of them (sample_stride).
-    stride = panel_stride(cube, dpi=dpi)
-    if panels is None:
-        drawn = [_panel(cube, i, stride) for i in range(n_slices)]
-    else:
-        drawn = [np.asarray(p, dtype=np.float32) for p in panels]
-        expected = (math.ceil(cube.shape[1] / stride), math.ceil(cube.shape[2] / stride))
-        if len(drawn) != n_slices or any(p.shape != expected for p in drawn):
-            raise SettingsError(f"panels must be {n_slices} arrays of {expected} cells "
-                                f"(every {stride}th cell)", where="panels")
-    k = sample_stride(cube, dpi=dpi) // stride
-    vmin, vmax = _limits([p[::k, ::k] for p in drawn], percentile)
-    if signed:  # zero, the sign change, sits at the middle of the diverging map
-        vmax = max(abs(vmin), abs(vmax))
-        vmin = -vmax
-    norm = Normalize(vmin=vmin, vmax=vmax)
-    figure = draw_sheet(drawn, stride=stride, frame=frame, labels=range_labels(cube),
-                        ncols=ncols, colours=colours, norm=norm, dpi=dpi,
-                        title=_sheet_title(cube, title), quantity=_quantity(cube))
-    if path is not None:
-        save_figure(figure, path, dpi=dpi)
-    return figure
+    display = display_from(colormap, stretch, clip, cmap=cmap, percentile=percentile)
+    if path is None:
+        overview = _Overview(cube, display, title=title, dpi=dpi, panels=panels)
+        return overview.sheet(0, overview.n, ncols=_columns(overview.n, max_columns))
+    pages = overview_pages(cube, per_page=per_page, title=title, max_columns=max_columns,
+                           dpi=dpi, panels=panels, **display.options())
+    paths = page_paths(path, math.ceil(cube.shape[0] / _check_per_page(per_page)))
+    with contextlib.ExitStack() as stack:  # every page renamed into place only at the end
+        for figure, target in zip(pages, paths, strict=True):
+            _save(figure, stack.enter_context(atomic_path(target)), dpi=dpi, where=target)
+    return paths
+
+
+def _save(figure: Figure, tmp: Path, *, dpi: float, where: Path) -> None:
+    fmt = where.suffix.lstrip(".").lower() or "png"
+    extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
+    try:
+        figure.savefig(tmp, format=fmt, dpi=dpi, **extra)
+    except OSError as exc:
+        raise OutputError(f"cannot save figure ({exc})", where=str(where)) from None
 
 
 def save_figure(figure: Figure, path: str | os.PathLike, *, dpi: float) -> Path:
@@ -337,20 +347,18 @@ def save_figure(figure: Figure, path: str | os.PathLike, *, dpi: float) -> Path:
         If the file cannot be written; an existing file is then left as it was.
     """
     path = Path(path)
-    fmt = path.suffix.lstrip(".").lower() or "png"
     try:
         with atomic_path(path) as tmp:
-            extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
-            figure.savefig(tmp, format=fmt, dpi=dpi, **extra)
-    except OSError as exc:
+            _save(figure, tmp, dpi=dpi, where=path)
+    except OSError as exc:  # atomic_path's own rename
         raise OutputError(f"cannot save figure ({exc})", where=str(path)) from None
     return path
 
 
 def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,
-               cmap: str | Colormap = "viridis", vmin: float | None = None,
-               vmax: float | None = None, percentile: tuple[float, float] = (2, 98),
-               colorbar: bool = True) -> Axes:
+               colormap=None, clip: tuple[float, float] = DEFAULT_CLIP,
+               vmin: float | None = None, vmax: float | None = None, colorbar: bool = True,
+               cmap=None, percentile=None) -> Axes:
     """Draw one slice of ``cube`` on ``ax`` (a new Agg figure when omitted).
 
     Parameters
@@ -361,15 +369,19 @@ def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,
         Position of the slice along the slice dimension.
     ax : matplotlib.axes.Axes, optional
         Where to draw; by default a new figure is made (show it with ``ax.figure``).
-    cmap : str or Colormap
-        Colour map of the values; cells without data show as light grey.
+    colormap : str or Colormap, optional
+        Colour map of the values, as in :func:`plot_overview`; cells without data show as
+        light grey.
+    clip : (float, float)
+        Percentiles (0-100) of this slice's finite values (of the drawn cells, subsampled
+        beyond :data:`MAX_SAMPLE_VALUES`) setting the limits not given; symmetric about zero
+        for a signed cube.
     vmin, vmax : float, optional
-        Colour limits; by default the ``percentile`` range of this slice's finite values
-        (of the drawn cells, subsampled beyond :data:`MAX_SAMPLE_VALUES`).
-    percentile : (float, float)
-        Percentiles (0-100) used for limits not given.
+        Colour limits.
     colorbar : bool
         Add a colorbar labelled with the quantity and units.
+    cmap, percentile : optional
+        Older names of ``colormap`` and ``clip``.
 
     Returns
     -------
@@ -387,15 +399,23 @@ def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,
         FigureCanvasAgg(figure)
         ax = figure.add_subplot()
     stride = panel_stride(cube)
-    panel = _panel(cube, index, stride)
-    k = _sample_stride(panel.size)
-    lo, hi = _limits([panel[::k, ::k]], percentile)
+    panel = drawn_cells(cube, index, stride)
+    k = sample_count_stride(panel.size)
+    display = display_from(colormap, "shared", clip, cmap=cmap, percentile=percentile)
+    signed = str(cube.name or "").startswith("signed")
+    lo, hi = display.limits(panel[::k, ::k], signed=signed)
     norm = Normalize(vmin=lo if vmin is None else vmin, vmax=hi if vmax is None else vmax)
-    frame = _Frame(cube)
-    image = _draw(ax, panel, stride, frame, _colormap(cmap), norm, range_labels(cube)[index])
+    frame = Frame(cube)
+    image = _draw(ax, panel, stride, frame, display.colours(signed=signed), norm,
+                  range_labels(cube)[index])
     ax.set_xlabel(frame.xlabel(), fontsize=8)
     ax.set_ylabel(frame.ylabel(), fontsize=8)
     _decorate(ax, frame)
     if colorbar:
         ax.figure.colorbar(image, ax=ax, extend="both").set_label(_quantity(cube))
     return ax
+
+
+__all__ = ["MAX_PANEL_CELLS", "MAX_SAMPLE_VALUES", "MAX_SHEET_CELLS", "NODATA_COLOUR", "PER_PAGE",
+           "overview_pages", "page_paths", "panel_stride", "plot_overview", "plot_slice",
+           "range_labels", "sample_stride", "save_figure", "shared_limits"]

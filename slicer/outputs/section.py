@@ -18,6 +18,7 @@ import xarray as xr
 from slicer.core.conventions import X, Y
 from slicer.core.errors import SettingsError
 from slicer.outputs.cube import slice_axis
+from slicer.outputs.display import DEFAULT_CLIP, display_from, relative_scale
 
 #: The sample dimension along the section.
 DISTANCE = "distance"
@@ -108,34 +109,44 @@ def _inside(cube: xr.DataArray, x: np.ndarray, y: np.ndarray) -> int:
 
 
 
-def plot_section(sec: xr.DataArray, path=None, *, cmap: str = "magma",
-                 percentile: tuple[float, float] = (1, 99.5), dpi: float = 110):
+def plot_section(sec: xr.DataArray, path=None, *, colormap=None, stretch: str = "shared",
+                 clip: tuple[float, float] = DEFAULT_CLIP, dpi: float = 110, cmap=None,
+                 percentile=None):
     """Draw a section from :func:`section`: distance along the path (m) against depth (m) or
     two-way time (ns), a colour bar with the values' units, and the path's vertices marked on
-    the top edge. Saved atomically to ``path`` when given; returns the Figure."""
-    from matplotlib import colormaps
+    the top edge. Saved atomically to ``path`` when given; returns the Figure.
+
+    ``colormap``, ``stretch`` and ``clip`` are those of
+    :func:`slicer.outputs.figures.plot_overview` (:class:`slicer.outputs.display.Display`),
+    so a section matches the overview of its cube: ``"shared"`` takes one colour range over
+    the whole section, ``"per-slice"`` one range for each depth (or time) of it, the colour
+    bar then reading percentiles of each row. ``cmap`` and ``percentile`` are older names of
+    ``colormap`` and ``clip``.
+    """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.colors import Normalize
     from matplotlib.figure import Figure
 
     from slicer.outputs.figures import save_figure
+    display = display_from(colormap, stretch, clip, cmap=cmap, percentile=percentile)
+    signed = str(sec.name or "").startswith("signed")
     axis = [d for d in sec.dims if d != DISTANCE][0]
     values = np.asarray(sec.transpose(axis, DISTANCE).values, dtype=np.float32)
-    finite = values[np.isfinite(values)]
-    if not finite.size:
+    if not np.isfinite(values).any():
         raise SettingsError("the section holds no value (it crosses no surveyed cell)",
                             where="points")
-    lo, hi = np.percentile(finite, percentile)
-    try:
-        colours = colormaps[cmap].with_extremes(bad="#d4d4d4")
-    except KeyError:
-        raise SettingsError(f"unknown colormap {cmap!r}", where="--colormap") from None
+    if display.per_slice:  # each row to 0-1 of its own range
+        limits = np.array([display.limits(row, signed=signed) for row in values])
+        values = (values - limits[:, :1]) / (limits[:, 1:] - limits[:, :1])
+        norm = Normalize(0.0, 1.0)
+    else:
+        norm = Normalize(*display.limits(values, signed=signed))
     d = sec[DISTANCE].values
     z = sec[axis].values
     figure = Figure(figsize=(9.0, 4.2), dpi=dpi)
     FigureCanvasAgg(figure)
     ax = figure.add_axes((0.08, 0.14, 0.76, 0.72))
-    shown = ax.imshow(values, aspect="auto", cmap=colours, norm=Normalize(lo, hi),
+    shown = ax.imshow(values, aspect="auto", cmap=display.colours(signed=signed), norm=norm,
                       extent=(d[0], d[-1], z[-1], z[0]), interpolation="nearest")
     ax.set_xlabel("distance along the section (m)")
     ax.set_ylabel("depth (m)" if axis == "depth" else "two-way time (ns)")
@@ -144,8 +155,14 @@ def plot_section(sec: xr.DataArray, path=None, *, cmap: str = "magma",
         corners = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(vertices, axis=0).T))])
         ax.plot(corners[1:-1], np.full(len(corners) - 2, z[0]), "v", color="0.2",
                 clip_on=False, transform=ax.transData)
-    bar = figure.colorbar(shown, cax=figure.add_axes((0.88, 0.14, 0.015, 0.72)))
-    bar.set_label(str(sec.attrs.get("units", "")) or "value")
+    bar = figure.colorbar(shown, cax=figure.add_axes((0.88, 0.14, 0.015, 0.72),
+                                                     label="<colorbar>"))
+    units = str(sec.attrs.get("units", "")) or "value"
+    if display.per_slice:
+        ticks, labels, caption = relative_scale(display, signed=signed)
+        bar.set_ticks(ticks, labels=labels)
+        units = f"{units}, {caption.replace('slice', {'twt': 'time'}.get(axis, axis))}"
+    bar.set_label(units)
     start, end = vertices[0] if len(vertices) else (np.nan, np.nan), vertices[-1] if len(
         vertices) else (np.nan, np.nan)
     figure.text(0.08, 0.95, f"section from ({start[0]:.2f}, {start[1]:.2f}) to "

@@ -12,6 +12,7 @@ from __future__ import annotations
 import math
 
 import numpy as np
+from matplotlib import patheffects
 from matplotlib.artist import Artist
 from matplotlib.backends.backend_agg import FigureCanvasAgg
 from matplotlib.cm import ScalarMappable
@@ -31,6 +32,9 @@ PANEL_INCHES = 3.0
 _LEFT, _GAP_X, _TOP, _GAP_TOP, _BELOW, _BAR_ROOM = 0.6, 0.15, 0.8, 0.25, 0.5, 1.3
 
 _TICK_POINTS, _TICK_FONT, _LABEL_FONT, _TITLE_FONT = 3.5, 7, 8, 9
+
+#: Room for the line of a panel's own colour range above its title (per-slice stretch), inches.
+_RANGE_ROOM = 0.15
 
 
 def _nice_length(width: float) -> float:
@@ -62,14 +66,15 @@ class Layout:
     Pixel rows count down from the top of the sheet, as in the saved image.
     """
 
-    def __init__(self, nrows: int, ncols: int, aspect: float, dpi: float):
+    def __init__(self, nrows: int, ncols: int, aspect: float, dpi: float, *,
+                 gap_top: float = _GAP_TOP):
         self.nrows, self.ncols, self.dpi = nrows, ncols, float(dpi)
         panel_w = PANEL_INCHES if aspect <= 1 else PANEL_INCHES / aspect
         px = self.px
         self.pw, self.ph = max(1, px(panel_w)), max(1, px(panel_w * aspect))
         self.step_x = px(_LEFT + _GAP_X) + self.pw
-        self.step_y = px(_BELOW + _GAP_TOP) + self.ph
-        self.left, self.top = px(_LEFT), px(_TOP + _GAP_TOP)
+        self.step_y = px(_BELOW + gap_top) + self.ph
+        self.left, self.top = px(_LEFT), px(_TOP + gap_top)
         self.grid_w = (ncols - 1) * self.step_x + self.pw
         self.grid_h = (nrows - 1) * self.step_y + self.ph
         self.width = self.left + self.grid_w + px(_GAP_X + _BAR_ROOM)
@@ -94,7 +99,7 @@ class Layout:
 
 
 def _mosaic(drawn: list[np.ndarray], stride: int, cells: tuple[int, int], layout: Layout,
-            colours: Colormap, norm: Normalize) -> np.ndarray:
+            colours: Colormap, norms: list[Normalize]) -> np.ndarray:
     """The panels resampled to their pixels (nearest cell) and colour-mapped, on a clear
     background: an RGBA ``uint8`` array of the grid's pixels."""
     ny, nx = cells
@@ -105,7 +110,7 @@ def _mosaic(drawn: list[np.ndarray], stride: int, cells: tuple[int, int], layout
     cols = np.minimum(((np.arange(layout.pw) + 0.5) * nx / layout.pw) // stride,
                       drawn[0].shape[1] - 1).astype(np.intp)
     mosaic = np.zeros((layout.grid_h, layout.grid_w, 4), dtype=np.uint8)
-    for i, panel in enumerate(drawn):
+    for i, (panel, norm) in enumerate(zip(drawn, norms, strict=True)):
         c, r = layout.box(i)
         r, c = r - layout.top, c - layout.left
         mosaic[r:r + layout.ph, c:c + layout.pw] = colours(norm(panel[np.ix_(rows, cols)]),
@@ -152,21 +157,49 @@ def _ticks(low: float, high: float) -> tuple[np.ndarray, list[str]]:
     return values, [f"{v:.{d}f}" for v in values]
 
 
+class Scale:
+    """How the panels of a sheet are coloured: a colour map and one Normalize per panel.
+
+    ``ranges`` (per-slice stretch) holds each panel's range as a short text, written above the
+    panel; the colour bar then shows ``ticks`` labelled ``tick_labels`` (0-1 of each panel's
+    range) with ``caption`` added to its label.
+    """
+
+    def __init__(self, colours: Colormap, norms: list[Normalize], *,
+                 ranges: list[str] | None = None, ticks=None, tick_labels=None,
+                 caption: str = ""):
+        self.colours, self.norms, self.ranges = colours, norms, ranges
+        self.ticks, self.tick_labels, self.caption = ticks, tick_labels, caption
+
+    def page(self, start: int, stop: int) -> Scale:
+        """The scale of panels ``start:stop``."""
+        return Scale(self.colours, self.norms[start:stop],
+                     ranges=None if self.ranges is None else self.ranges[start:stop],
+                     ticks=self.ticks, tick_labels=self.tick_labels, caption=self.caption)
+
+
 def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str],
-               ncols: int, colours: Colormap, norm: Normalize, dpi: float, title: str,
-               quantity: str) -> Figure:
+               ncols: int, scale: Scale, dpi: float, title: str, quantity: str,
+               nrows: int | None = None, page: str | None = None) -> Figure:
     """Draw the overview sheet of the decimated panels ``drawn`` (see
     :func:`slicer.outputs.figures.plot_overview`, which checks the arguments).
 
-    ``frame`` is the cube's plot extent (``figures._Frame``); ``labels`` the panel titles,
-    ``title`` the sheet title and ``quantity`` the colour bar's label.
+    ``frame`` is the cube's plot extent (:class:`slicer.outputs.display_panels.Frame`);
+    ``labels`` the panel titles, ``title`` the sheet title and ``quantity`` the colour bar's
+    label; ``scale`` the colours of the panels. ``nrows`` (default:
+    as many as the panels need) keeps every page of an overview the same size; ``page``
+    (e.g. ``"page 2 of 8"``) is written at the top right.
     """
     n = len(drawn)
-    nrows = math.ceil(n / ncols)
-    lay = Layout(nrows, ncols, frame.height / frame.width, dpi)
+    nrows = math.ceil(n / ncols) if nrows is None else nrows
+    per_slice = scale.ranges is not None
+    # per-slice: a second title line, each panel's range, needs room above the panel
+    lay = Layout(nrows, ncols, frame.height / frame.width, dpi,
+                 gap_top=_GAP_TOP + (_RANGE_ROOM if per_slice else 0))
     figure = Figure(figsize=(lay.width / lay.dpi, lay.height / lay.dpi), dpi=lay.dpi)
     FigureCanvasAgg(figure)
-    figure.add_artist(_Picture(_mosaic(drawn, stride, (frame.ny, frame.nx), lay, colours, norm),
+    figure.add_artist(_Picture(_mosaic(drawn, stride, (frame.ny, frame.nx), lay, scale.colours,
+                                       scale.norms),
                                (lay.fx(lay.left), lay.fy(lay.top + lay.grid_h),
                                 lay.fx(lay.left + lay.grid_w), lay.fy(lay.top))))
 
@@ -182,7 +215,12 @@ def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str]
         figure.add_artist(Rectangle((lay.fx(c), lay.fy(r + lay.ph)), lay.pw / lay.width,
                                     lay.ph / lay.height, transform=figure.transFigure,
                                     fill=False, lw=0.8, ec="black", label=f"panel {label}"))
-        figure.text(lay.fx(c + lay.pw / 2), lay.fy(r - pad * 2), label, ha="center",
+        above = r - pad * 2
+        if per_slice:
+            figure.text(lay.fx(c + lay.pw / 2), lay.fy(above), scale.ranges[i], ha="center",
+                        va="bottom", fontsize=_TICK_FONT, color="0.3", gid=f"range {label}")
+            above -= lay.px(_RANGE_ROOM)
+        figure.text(lay.fx(c + lay.pw / 2), lay.fy(above), label, ha="center",
                     va="bottom", fontsize=_TITLE_FONT)
         xs = c + (xt - west) / (east - west) * lay.pw
         ys = r + lay.ph - (yt - south) / (north - south) * lay.ph
@@ -193,27 +231,40 @@ def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str]
         if row == nrows - 1 or i + ncols >= n:  # nothing below: label the easting
             for x, text in zip(xs, xlabels, strict=True):
                 figure.text(lay.fx(x), lay.fy(bottom + tick + pad), text, ha="center",
-                            va="top", fontsize=_TICK_FONT)
+                            va="top", fontsize=_TICK_FONT, gid="tick label")
             figure.text(lay.fx(c + lay.pw / 2), lay.fy(r + lay.ph + lay.px(_BELOW) - pad),
                         frame.xlabel(), ha="center", va="bottom", fontsize=_LABEL_FONT)
         if col == 0:
             for y, text in zip(ys, ylabels, strict=True):
                 figure.text(lay.fx(c - tick - pad), lay.fy(y), text, ha="right",
-                            va="center", fontsize=_TICK_FONT)
+                            va="center", fontsize=_TICK_FONT, gid="tick label")
             figure.text(lay.fx(pad), lay.fy(r + lay.ph / 2), frame.ylabel(), ha="left",
                         va="center", rotation=90, fontsize=_LABEL_FONT)
     figure.add_artist(LineCollection(segments, colors="black", linewidths=0.8,
                                      transform=figure.transFigure))
     _scale_bar(figure, lay, frame)
     _north_arrow(figure, lay)
+    _colour_bar(figure, lay, scale, quantity)
+    figure.suptitle(title, fontsize=11, y=lay.fy(lay.px(0.1)), va="top")
+    if page is not None:
+        figure.text(lay.fx(lay.width - lay.px(0.15)), lay.fy(lay.px(0.1)), page, ha="right",
+                    va="top", fontsize=10, fontweight="bold", gid="page number")
+    return figure
+
+
+def _colour_bar(figure: Figure, lay: Layout, scale: Scale, quantity: str) -> None:
     # The colour bar beside the grid, 0.8 of its height.
     cax = figure.add_axes((lay.fx(lay.left + lay.grid_w + lay.px(_GAP_X + 0.3)),
                            lay.fy(lay.top + 0.9 * lay.grid_h), lay.px(0.18) / lay.width,
                            0.8 * lay.grid_h / lay.height), label="<colorbar>")
-    bar = figure.colorbar(ScalarMappable(norm=norm, cmap=colours), cax=cax, extend="both")
-    bar.set_label(quantity)
-    figure.suptitle(title, fontsize=11, y=lay.fy(lay.px(0.1)), va="top")
-    return figure
+    norm = scale.norms[0] if scale.ranges is None else Normalize(0.0, 1.0)
+    bar = figure.colorbar(ScalarMappable(norm=norm, cmap=scale.colours), cax=cax,
+                          extend="both")
+    if scale.ranges is None:
+        bar.set_label(quantity)
+        return
+    bar.set_ticks(scale.ticks, labels=scale.tick_labels)
+    bar.set_label(f"{quantity}\n{scale.caption} (range above each panel)")
 
 
 def _scale_bar(figure: Figure, lay: Layout, frame) -> None:
@@ -229,7 +280,7 @@ def _scale_bar(figure: Figure, lay: Layout, frame) -> None:
     trans = figure.transFigure
     figure.add_artist(Rectangle((lay.fx(x0), lay.fy(y1)), box_w / lay.width,
                                 box_h / lay.height, transform=trans, fc="white",
-                                ec="none", alpha=0.7, label="scale bar"))
+                                ec="none", alpha=0.7, label="scale bar", gid="scale bar"))
     figure.add_artist(Rectangle((lay.fx(x0 + pad), lay.fy(y1 - pad - text_h - sep)),
                                 bar_w / lay.width, bar_h / lay.height, transform=trans,
                                 fc="black", ec="none"))
@@ -238,12 +289,15 @@ def _scale_bar(figure: Figure, lay: Layout, frame) -> None:
 
 
 def _north_arrow(figure: Figure, lay: Layout) -> None:
-    # Arrow towards +y: grid north, which is what a north-up raster shows.
+    # Arrow towards +y: grid north, which is what a north-up raster shows. Black with a white
+    # halo, so it shows on the darkest and the lightest colours of any map.
     c, r = lay.box(0)
+    halo = [patheffects.withStroke(linewidth=3.5, foreground="white")]
     arrow = Annotation("N", xy=(lay.fx(c + 0.92 * lay.pw), lay.fy(r + 0.05 * lay.ph)),
                        xycoords="figure fraction", xytext=(0, -26), textcoords="offset points",
-                       ha="center", va="center", fontsize=8, fontweight="bold",
-                       arrowprops={"arrowstyle": "-|>", "color": "black", "lw": 1.2},
-                       bbox={"boxstyle": "round,pad=0.15", "fc": "white", "ec": "none",
-                             "alpha": 0.7})
+                       ha="center", va="center", fontsize=9, fontweight="bold",
+                       arrowprops={"arrowstyle": "-|>", "color": "black", "lw": 1.4},
+                       path_effects=halo)
+    arrow.arrow_patch.set_path_effects(halo)
+    arrow.set_gid("north arrow")
     figure.add_artist(arrow)

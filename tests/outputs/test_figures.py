@@ -67,6 +67,13 @@ def colorbar(figure: Figure):
     return bars[0]
 
 
+def drawn_and_saved(cube, path, **options):
+    """The one-page overview of ``cube`` written to ``path``, and the same page as a figure
+    (drawn again: a one-page overview is the sheet of every slice)."""
+    assert plot_overview(cube, path, **options) == [path]
+    return plot_overview(cube, **options)
+
+
 def grid_shape(boxes) -> tuple[int, int]:
     # Rows and columns of panels: distinct top edges and left edges of the boxes.
     return (len({round(b.y1) for b in boxes.values()}),
@@ -120,7 +127,7 @@ def test_compact_ticks_relative_to_the_corner():
 
 
 def test_nodata_is_grey_and_distinct_from_the_colormap(tmp_path):
-    figure = plot_overview(make_cube(), tmp_path / "sheet.png", cmap="viridis", dpi=100)
+    figure = drawn_and_saved(make_cube(), tmp_path / "sheet.png", colormap="viridis", dpi=100)
     image = matplotlib.image.imread(tmp_path / "sheet.png")
     grey = np.array(to_rgba(NODATA_COLOUR))
     # Cells 0-4 (of 30) from the north and 0-5 (of 45) from the west have no data.
@@ -157,7 +164,7 @@ def test_scale_bar_length_is_round_and_about_a_fifth(width):
 
 def test_saved_png_has_the_figure_size(tmp_path):
     path = tmp_path / "overview.png"
-    figure = plot_overview(make_cube(n=2), path, dpi=100)
+    figure = drawn_and_saved(make_cube(n=2), path, dpi=100)
     image = matplotlib.image.imread(path)
     w, h = figure.get_size_inches() * 100
     assert image.shape[:2] == (round(h), round(w))
@@ -184,7 +191,11 @@ def check_block_colours(figure, png, blocks, cmap, vmin, vmax):
     # Reference: matplotlib's own colour map and Normalize applied to the input values,
     # compared with the pixels of the saved PNG read back by matplotlib.image.imread.
     image = matplotlib.image.imread(png)
-    expected = colormaps[cmap](Normalize(vmin, vmax)(blocks))[..., :3]
+    if np.ndim(vmin):  # one range per slice
+        low, high = np.asarray(vmin)[:, None, None], np.asarray(vmax)[:, None, None]
+        expected = colormaps[cmap]((blocks - low) / (high - low))[..., :3]
+    else:
+        expected = colormaps[cmap](Normalize(vmin, vmax)(blocks))[..., :3]
     expected[np.isnan(blocks)] = to_rgba(NODATA_COLOUR)[:3]
     boxes = panel_boxes(figure)
     assert len(boxes) == len(blocks)
@@ -199,7 +210,7 @@ def check_block_colours(figure, png, blocks, cmap, vmin, vmax):
 @pytest.mark.parametrize("dpi", [60, 100])
 def test_panel_pixels_are_the_colour_mapped_slices(tmp_path, dpi):
     cube, blocks = block_cube()
-    figure = plot_overview(cube, tmp_path / "sheet.png", dpi=dpi)
+    figure = drawn_and_saved(cube, tmp_path / "sheet.png", dpi=dpi)
     finite = cube.values[np.isfinite(cube.values)]
     # Reference: numpy.percentile of all finite cells for the shared limits.
     vmin, vmax = np.percentile(finite, [2, 98])
@@ -210,9 +221,22 @@ def test_panel_pixels_are_the_colour_mapped_slices(tmp_path, dpi):
                         "viridis", vmin, vmax)
 
 
+def test_per_slice_stretch_colours_each_slice_on_its_own_percentiles(tmp_path):
+    cube, blocks = block_cube()
+    figure = drawn_and_saved(cube, tmp_path / "sheet.png", dpi=80, stretch="per-slice",
+                             clip=(10, 90), colormap="cividis")
+    # Reference: numpy.nanpercentile of each slice on its own.
+    low, high = np.nanpercentile(cube.values, [10, 90], axis=(1, 2))
+    check_block_colours(figure, tmp_path / "sheet.png", blocks, "cividis", low, high)
+    # The colour bar reads the percentiles, not values of any one slice.
+    bar = colorbar(figure)
+    assert bar.get_ylim() == (0, 1)
+    assert [t.get_text() for t in bar.get_yticklabels()] == ["10 %", "90 %"]
+
+
 def test_signed_cube_on_a_diverging_map_centred_on_zero(tmp_path):
     cube, blocks = block_cube(name="signed_envelope", signed=True)
-    figure = plot_overview(cube, tmp_path / "sheet.png", dpi=80)
+    figure = drawn_and_saved(cube, tmp_path / "sheet.png", dpi=80)
     finite = cube.values[np.isfinite(cube.values)]
     low, high = np.percentile(finite, [2, 98])  # reference: numpy.percentile
     limit = max(abs(low), abs(high))
@@ -266,8 +290,11 @@ def test_labels_keep_fine_windows_apart():
 
 
 def test_bad_percentiles_are_refused():
-    with pytest.raises(SettingsError, match="percentile"):
-        plot_overview(make_cube(n=1), percentile=(98, 2))
+    with pytest.raises(SettingsError, match="percentile") as info:
+        plot_overview(make_cube(n=1), percentile=(98, 2))  # the older name of clip
+    assert info.value.where == "clip"
+    with pytest.raises(SettingsError, match="not both"):
+        plot_overview(make_cube(n=1), clip=(1, 99), percentile=(2, 98))
 
 
 def test_plot_slice_on_new_and_given_axes():
@@ -326,7 +353,7 @@ def test_overview_of_a_dask_cube_never_computes_it_whole(tmp_path):
     tracemalloc.start()
     try:
         with watch:
-            figure = plot_overview(cube, tmp_path / "overview.png", dpi=40)
+            written = plot_overview(cube, tmp_path / "overview.png", dpi=40)
         peak = tracemalloc.get_traced_memory()[1]
     finally:
         tracemalloc.stop()
@@ -336,7 +363,9 @@ def test_overview_of_a_dask_cube_never_computes_it_whole(tmp_path):
     # and column (ceil(3000 / 240)), 231 x 231 cells drawn; the colour limits come from them.
     assert sample_stride(cube, dpi=40) == 13
     expected = percentiles_of(cube.data[:, ::13, ::13].compute())
+    figure = plot_overview(cube, dpi=40)
     assert colorbar(figure).get_ylim() == pytest.approx(expected, rel=1e-6)
+    assert written == [tmp_path / "overview.png"]
     assert matplotlib.image.imread(tmp_path / "overview.png").std() > 0.05
 
 

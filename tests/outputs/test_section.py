@@ -17,7 +17,7 @@ from hypothesis import strategies as st
 
 from slicer.core.errors import SettingsError
 from slicer.outputs.cube import new_cube
-from slicer.outputs.section import section
+from slicer.outputs.section import plot_section, section
 
 WEST, NORTH, CELL = 500000.0, 4200010.0, 0.1
 NX, NY = 80, 100  # 8 m east, 10 m north
@@ -94,3 +94,43 @@ def test_gaps_stay_gaps():
 def test_bad_paths_are_refused(points, spacing, match):
     with pytest.raises(SettingsError, match=match):
         section(plane_cube(), points, spacing=spacing)
+
+
+def section_image(figure):
+    ax = next(a for a in figure.axes if a.get_images())
+    return ax.get_images()[0]
+
+
+def test_plot_section_takes_the_overview_display_options(tmp_path):
+    sec = section(plane_cube(holes=True), [(WEST + 0.5, NORTH - 5), (WEST + 7.5, NORTH - 5)])
+    values = sec.transpose("depth", "distance").values
+    shared = section_image(plot_section(sec, clip=(5, 95)))
+    # Reference: numpy.nanpercentile over the whole section.
+    expected = np.nanpercentile(values, [5, 95])
+    assert (shared.norm.vmin, shared.norm.vmax) == pytest.approx(tuple(expected))
+    rows = section_image(plot_section(sec, stretch="per-slice", clip=(5, 95)))
+    shown = np.ma.filled(rows.get_array().astype(float), np.nan)
+    # Per-slice: each depth row on 0-1 of its own 5th-95th nanpercentiles.
+    for i in (3, 10, 25):
+        low, high = np.nanpercentile(values[i], [5, 95])
+        np.testing.assert_allclose(shown[i], (values[i] - low) / (high - low), rtol=1e-5,
+                                   atol=1e-6)
+    assert (rows.norm.vmin, rows.norm.vmax) == (0, 1)
+    path = tmp_path / "section.png"
+    plot_section(sec, path, colormap="greyscale", dpi=50)
+    from PIL import Image
+    with Image.open(path) as image:  # reference: Pillow reads the PNG back
+        rgb = np.asarray(image.convert("RGB")).astype(int)
+    assert rgb.std() > 10
+    assert (rgb[..., 0] == rgb[..., 1]).all() and (rgb[..., 1] == rgb[..., 2]).all()
+
+
+def test_plot_section_refuses_bad_display_options():
+    sec = section(plane_cube(), [(WEST + 0.5, NORTH - 5), (WEST + 7.5, NORTH - 5)])
+    for options, where in (({"colormap": "magmaa"}, "colormap"), ({"stretch": "row"}, "stretch"),
+                           ({"clip": (50, 10)}, "clip")):
+        with pytest.raises(SettingsError) as info:
+            plot_section(sec, **options)
+        assert info.value.where == where
+    with pytest.raises(SettingsError, match="magma"):
+        plot_section(sec, colormap="magmaa")
