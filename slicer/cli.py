@@ -123,6 +123,19 @@ def _add_build_options(p: argparse.ArgumentParser) -> None:
                    help="depth slices in m below the surface (needs a velocity)")
     s.add_argument("--times", metavar="TOP:BOTTOM:STEP",
                    help="time slices in ns below time zero")
+    s.add_argument("--elevations", metavar="TOP:BOTTOM:STEP",
+                   help="elevation slices in m above --datum, TOP the higher (implies "
+                        "--slices elevation)")
+    g.add_argument("--slices", choices=("depth", "elevation"),
+                   help="depth below the ground (default) or elevation: level slices above "
+                        "--datum, each trace cut below its own ground (needs --terrain)")
+    g.add_argument("--terrain", metavar="gnss|table|DEM.tif",
+                   help="the ground's elevation: gnss (track heights less --antenna-height), "
+                        "table (columns start_elevation, end_elevation) or a GeoTIFF")
+    g.add_argument("--antenna-height", type=_float, metavar="M",
+                   help="GNSS antenna height above the ground (--terrain gnss)")
+    g.add_argument("--datum", metavar="NAME",
+                   help="vertical datum of the elevations, e.g. EGM2008 (recorded, not converted)")
     g.add_argument("--thickness", type=_float, metavar="M|NS",
                    help="slice thickness (default: the step)")
     g.add_argument("--level", action="store_const", const=True, default=None,

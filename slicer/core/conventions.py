@@ -11,6 +11,8 @@ TRACE = "trace"
 TWT = "twt"
 #: Dimension of depth below the surface, metres, positive down.
 DEPTH = "depth"
+#: Dimension of elevation above a vertical datum, metres, positive up (elevation slices).
+ELEVATION = "elevation"
 #: Plan dims / per-trace coordinates: easting (x) and northing (y) in the survey CRS, metres.
 X = "x"
 Y = "y"
@@ -20,4 +22,4 @@ DISTANCE = "distance"
 SLICE = "slice"
 
 #: Units written into ``attrs["units"]``.
-UNITS = {TWT: "ns", DEPTH: "m", X: "m", Y: "m", DISTANCE: "m"}
+UNITS = {TWT: "ns", DEPTH: "m", ELEVATION: "m", X: "m", Y: "m", DISTANCE: "m"}

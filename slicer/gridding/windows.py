@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
-from slicer.core.conventions import DEPTH, SLICE, TWT
+from slicer.core.conventions import DEPTH, ELEVATION, SLICE, TWT
 from slicer.core.errors import SettingsError
 from slicer.core.physics import check_velocity, time_from_depth
 
@@ -25,10 +25,12 @@ class Windows:
 
     Attributes
     ----------
-    axis : {"depth", "twt"}
-        Depth below the surface (m, positive down) or two-way time below time zero (ns).
+    axis : {"depth", "twt", "elevation"}
+        Depth below the surface (m, positive down), two-way time below time zero (ns) or
+        elevation above a vertical datum (m, positive up; see :mod:`slicer.gridding.elevation`).
     top, bottom : numpy.ndarray
-        Window limits, ``top < bottom``, in the axis's unit.
+        Window limits in the axis's unit: ``top < bottom`` in depth and time, ``top > bottom``
+        in elevation (the top is the upper edge).
     """
 
     axis: str
@@ -37,7 +39,7 @@ class Windows:
 
     @property
     def units(self) -> str:
-        return "m" if self.axis == DEPTH else "ns"
+        return "ns" if self.axis == TWT else "m"
 
     def __len__(self) -> int:
         return len(self.top)
@@ -52,6 +54,10 @@ class Windows:
         transmitter-receiver distance (see :func:`slicer.core.physics.time_from_depth`)."""
         if self.axis == TWT:
             return self.top, self.bottom
+        if self.axis == ELEVATION:
+            raise SettingsError("elevation windows have no single time: each trace has its "
+                                "own (slicer.gridding.elevation.elevation_limits)",
+                                where="--elevations")
         if velocity is None:
             raise SettingsError("depth slices need a velocity: give --velocity or "
                                 "--permittivity, or cut time slices with --times",
@@ -64,7 +70,7 @@ class Windows:
     def describe(self) -> str:
         u = self.units
         return (f"{len(self)} {self.axis} slices {self.top[0]:g}-{self.bottom[-1]:g} {u}, "
-                f"thickness {float(np.median(self.bottom - self.top)):g} {u}")
+                f"thickness {float(np.median(np.abs(self.bottom - self.top))):g} {u}")
 
 
 def _model_times(model, depth: np.ndarray) -> np.ndarray:

@@ -22,6 +22,9 @@ empty field means the survey's default:
 ``channels``
     A channel table ``channel,across,along``: the file is a multi-channel swath, expanded
     into one line per channel.
+``start_elevation``, ``end_elevation``
+    The ground's elevation (m above the survey's vertical datum) at the first and last trace,
+    for elevation slices with ``terrain = "table"`` (linear along the line in between).
 """
 
 from __future__ import annotations
@@ -38,7 +41,9 @@ from slicer.core.errors import LineTableError, warn
 
 COLUMNS = ("file", "start_x", "start_y", "end_x", "end_y")
 #: Optional columns: how a row is positioned (values), and which of them name files.
-OPTIONAL = ("positions", "track", "marks", "channels")
+OPTIONAL = ("positions", "track", "marks", "channels", "start_elevation", "end_elevation")
+#: Optional columns holding numbers (m above the vertical datum).
+NUMBER_COLUMNS = ("start_elevation", "end_elevation")
 PATH_COLUMNS = ("track", "marks", "channels")
 #: Where a line's positions can come from.
 POSITION_SOURCES = ("table", "headers", "track")
@@ -77,6 +82,9 @@ class LineEntry:
     offset: tuple[float, float] = (0.0, 0.0)
     #: Block of the survey the line belongs to (TOML ``[[block]]`` name), if any.
     block: str | None = None
+    #: Ground elevation (m above the vertical datum) at the first and last trace, if given.
+    start_elevation: float | None = None
+    end_elevation: float | None = None
 
     @property
     def has_ends(self) -> bool:
@@ -172,6 +180,8 @@ def _optional(fields: dict, *, base: Path, where: str) -> dict:
                 raise LineTableError(f"column positions: expected one of "
                                      f"{', '.join(POSITION_SOURCES)}, got {text!r}", where=where)
             out[column] = text
+        elif column in NUMBER_COLUMNS:
+            out[column] = _number(text, column, where)
         elif "\x00" in text:
             raise LineTableError(f"column {column}: {text!r} holds a NUL character",
                                  where=where)

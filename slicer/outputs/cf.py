@@ -14,7 +14,7 @@ import pyproj
 import xarray as xr
 from affine import Affine
 
-from slicer.core.conventions import DEPTH, TWT, UNITS, X
+from slicer.core.conventions import DEPTH, ELEVATION, TWT, UNITS, X
 
 #: Name of the scalar grid-mapping coordinate (the name rioxarray and GDAL expect).
 GRID_MAPPING = "spatial_ref"
@@ -22,7 +22,8 @@ GRID_MAPPING = "spatial_ref"
 #: Name of the second dimension of a cell-bounds variable (CF 1.8 section 7.1).
 BOUNDS_DIM = "bnds"
 
-_AXIS_LONG_NAME = {DEPTH: "depth below the ground surface", TWT: "two-way travel time"}
+_AXIS_LONG_NAME = {DEPTH: "depth below the ground surface", TWT: "two-way travel time",
+                   ELEVATION: "elevation above the vertical datum"}
 
 
 def plan_attrs(dim: str) -> dict[str, str]:
@@ -38,11 +39,17 @@ def plan_attrs(dim: str) -> dict[str, str]:
 
 
 def axis_attrs(axis: str) -> dict[str, str]:
-    """Attributes of the slice-window centre coordinate (``depth`` or ``twt``)."""
+    """Attributes of the slice-window centre coordinate (``depth``, ``twt`` or ``elevation``).
+
+    Elevation has no standard name: CF's heights name their datum (geoid, ellipsoid, sea
+    level), and slicer only knows the name the user gives (the ``vertical_datum`` attribute).
+    """
     attrs = {"long_name": f"{_AXIS_LONG_NAME[axis]}, window centre", "units": UNITS[axis]}
     if axis == DEPTH:
         # CF 1.8 section 4.3: a vertical coordinate in length units needs ``positive``.
         attrs.update(standard_name="depth", positive="down", axis="Z")
+    elif axis == ELEVATION:
+        attrs.update(positive="up", axis="Z")
     return attrs
 
 

@@ -24,11 +24,14 @@ import xarray as xr
 from affine import Affine
 
 from slicer.core.atomic import GuardedFile, atomic_path
-from slicer.core.conventions import C_M_PER_NS, DEPTH, TWT, UNITS, X, Y
+from slicer.core.conventions import C_M_PER_NS, DEPTH, ELEVATION, TWT, UNITS, X, Y
 from slicer.core.errors import InputFileError, OutputError, SettingsError
 from slicer.outputs import cf
 from slicer.outputs.cf import GRID_MAPPING
 from slicer.outputs.cube_index import index_windows
+
+#: The slice dims a cube may have.
+AXES = (DEPTH, TWT, ELEVATION)
 
 #: Encoding keys the h5netcdf backend accepts; anything else left over from a read is dropped.
 _NC_ENCODING_KEYS = frozenset({
@@ -41,16 +44,16 @@ TILE = 256
 
 
 def _check_axis(axis: str) -> str:
-    if axis not in (DEPTH, TWT):
-        raise SettingsError(f"slice axis must be {DEPTH!r} or {TWT!r}, not {axis!r}",
-                            where="axis")
+    if axis not in AXES:
+        raise SettingsError(f"slice axis must be {DEPTH!r}, {TWT!r} or {ELEVATION!r}, not "
+                            f"{axis!r}", where="axis")
     return axis
 
 
 def slice_axis(cube: xr.DataArray) -> str:
     """Return the name of the slice dimension of ``cube`` (``"depth"`` or ``"twt"``)."""
     axis = cube.dims[0] if cube.ndim == 3 else None
-    if axis not in (DEPTH, TWT) or cube.dims[1:] != (Y, X):
+    if axis not in AXES or cube.dims[1:] != (Y, X):
         raise SettingsError(f"a cube has dims (depth|twt, y, x), not {cube.dims}", where="cube")
     return str(axis)
 
@@ -63,7 +66,7 @@ def _as_text(value: str | Sequence[str]) -> str:
 def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
              axis: str = DEPTH, velocity: float | None = None,
              processing: str | Sequence[str] = "", name: str = "envelope",
-             units: str = "1") -> xr.DataArray:
+             units: str = "1", vertical_datum: str | None = None) -> xr.DataArray:
     """Build a cube DataArray following the data model in DEVELOPERS.md.
 
     Parameters
@@ -79,9 +82,11 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
         The survey CRS (e.g. ``"EPSG:32633"``). None means a local engineering grid: the cube
         then has no ``spatial_ref`` coordinate.
     top, bottom : array-like, shape (n_slices,)
-        Slice window bounds ``[top, bottom)``, m for depth or ns for two-way time. Every top
-        must lie above its bottom and window centres must increase strictly.
-    axis : {"depth", "twt"}
+        Slice window bounds ``[top, bottom)``, m for depth or ns for two-way time, or
+        ``(bottom, top]`` in m above a vertical datum for elevation. Every top must lie above
+        its bottom (``top < bottom`` in depth and time, ``top > bottom`` in elevation) and the
+        slices go downwards: window centres increase strictly (decrease, in elevation).
+    axis : {"depth", "twt", "elevation"}
         Slice dimension.
     velocity : float, optional
         Radar velocity used for time-to-depth conversion, m/ns (0 < v <= c).
@@ -91,6 +96,9 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
         Name of the DataArray.
     units : str
         Units of the slice values (amplitude units; ``"1"`` when dimensionless).
+    vertical_datum : str, optional
+        The datum elevations refer to, as the user named it (``attrs["vertical_datum"]``);
+        required for elevation slices, refused for others.
 
     Returns
     -------
@@ -129,15 +137,19 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
                             f"{bottoms.size} bottoms", where="top/bottom")
     if not (np.all(np.isfinite(tops)) and np.all(np.isfinite(bottoms))):
         raise SettingsError("slice window bounds must be finite", where="top/bottom")
-    bad = np.flatnonzero(tops >= bottoms)
+    down = 1.0 if axis != ELEVATION else -1.0  # elevation counts up
+    bad = np.flatnonzero(down * (bottoms - tops) <= 0)
     if bad.size:
         i = int(bad[0])
         raise SettingsError(f"slice {i}: top {tops[i]} is not above bottom {bottoms[i]}",
                             where="top/bottom")
     centres = (tops + bottoms) / 2
-    if np.any(np.diff(centres) <= 0):
-        raise SettingsError("slice windows must be sorted by increasing centre",
-                            where="top/bottom")
+    if np.any(down * np.diff(centres) <= 0):
+        raise SettingsError("slice windows must go downwards (sorted by increasing depth or "
+                            "time, decreasing elevation)", where="top/bottom")
+    if (axis == ELEVATION) != (vertical_datum is not None and bool(str(vertical_datum).strip())):
+        raise SettingsError("elevation slices need the vertical datum their elevations refer to, "
+                            "and only they have one", where="vertical_datum")
     if velocity is not None:
         velocity = float(velocity)
         if not (math.isfinite(velocity) and 0 < velocity <= C_M_PER_NS):
@@ -170,6 +182,7 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
         "north": north,
         **({"velocity": velocity} if velocity is not None else {}),
         "processing": _as_text(processing),
+        **({"vertical_datum": str(vertical_datum)} if vertical_datum is not None else {}),
     }
     if pcrs is not None:
         transform = Affine(cell, 0.0, west, 0.0, -cell, north)
@@ -454,7 +467,7 @@ def cube_from_dataset(ds: xr.Dataset, *, name: str | None = None,
     """
     if name is None:
         found = [v for v, da in ds.data_vars.items()
-                 if da.ndim == 3 and da.dims[0] in (DEPTH, TWT) and da.dims[1:] == (Y, X)]
+                 if da.ndim == 3 and da.dims[0] in AXES and da.dims[1:] == (Y, X)]
         if len(found) != 1:
             raise InputFileError(f"expected one (depth|twt, y, x) variable, found {found}",
                                  where=where)

@@ -7,7 +7,8 @@ is a tie). :class:`WindowIndex` replaces that index on the slice dim: it keeps t
 the coordinate (what files store, see :mod:`slicer.outputs.cf`) and looks labels up in a
 :class:`pandas.IntervalIndex` of the windows ``[top, bottom)``.
 
-Rules of ``cube.sel(depth=v)`` (the same for ``twt``):
+Rules of ``cube.sel(depth=v)`` (the same for ``twt``; for ``elevation``, whose windows count up,
+the window is ``(bottom, top]``, so a shared edge again belongs to the deeper window):
 
 * the slice whose window contains ``v``; windows are half-open (common practice, and the
   same ``[top, bottom)`` over which :func:`slicer.gridding.windows.reduce_to_windows`
@@ -46,8 +47,10 @@ class NoWindowError(SettingsError, KeyError):
 
 
 def _windows(top, bottom) -> pd.IntervalIndex:
-    return pd.IntervalIndex.from_arrays(np.asarray(top, dtype=np.float64),
-                                        np.asarray(bottom, dtype=np.float64), closed="left")
+    top, bottom = np.asarray(top, dtype=np.float64), np.asarray(bottom, dtype=np.float64)
+    if top.size and np.all(top > bottom):  # elevation: (bottom, top], the lower edge
+        return pd.IntervalIndex.from_arrays(bottom, top, closed="right")  # the deeper window's
+    return pd.IntervalIndex.from_arrays(top, bottom, closed="left")
 
 
 class WindowIndex(Index):

@@ -29,14 +29,14 @@ from rasterio.crs import CRS as RasterioCRS
 from rasterio.windows import Window
 
 from slicer.core.atomic import temp_file
-from slicer.core.conventions import DEPTH, TWT, UNITS
+from slicer.core.conventions import DEPTH, ELEVATION, TWT, UNITS
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
 from slicer.outputs.cog import TILE, cog_env, cog_profile, copy_to_cog, staging_profile
 from slicer.outputs.cube import check_tile, cube_crs, cube_transform, slice_axis
 
 #: Decimals of the window bounds in file names and band descriptions (mm, hundredths of ns).
-_DECIMALS = {DEPTH: 3, TWT: 2}
+_DECIMALS = {DEPTH: 3, TWT: 2, ELEVATION: 3}
 
 
 def slice_file_name(index: int, top: float, bottom: float, axis: str = DEPTH, *,
@@ -58,7 +58,7 @@ def slice_file_name(index: int, top: float, bottom: float, axis: str = DEPTH, *,
         Minimum width of the zero-padded index.
     """
     if axis not in _DECIMALS:
-        raise SettingsError(f"slice axis must be {DEPTH!r} or {TWT!r}, not {axis!r}",
+        raise SettingsError(f"slice axis must be one of {', '.join(_DECIMALS)}, not {axis!r}",
                             where="axis")
     if int(index) < 0:
         raise SettingsError(f"slice index must be >= 0, got {index}", where="index")
@@ -191,8 +191,10 @@ class SliceTiffWriter:
             "UNITS": str(cube.attrs.get("units", "")),
             "PROCESSING": _tag_text(cube.attrs.get("processing", "")),
         }
-        if axis == DEPTH and cube.attrs.get("velocity") is not None:
+        if axis in (DEPTH, ELEVATION) and cube.attrs.get("velocity") is not None:
             common["VELOCITY_M_PER_NS"] = _number(cube.attrs["velocity"])
+        if cube.attrs.get("vertical_datum"):
+            common["VERTICAL_DATUM"] = _tag_text(cube.attrs["vertical_datum"])
         extra = {str(k): _tag_text(v) for k, v in (tags or {}).items()}
         base = {"width": nx, "height": ny, "count": 1, "dtype": "float32",
                 "crs": _rasterio_crs(cube), "transform": cube_transform(cube), "nodata": np.nan}
@@ -419,8 +421,10 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
     same name are replaced whole or not at all; nothing else in ``folder`` is touched.
 
     Each file carries GDAL metadata tags ``DEPTH_TOP``/``DEPTH_BOTTOM`` (m) and
-    ``VELOCITY_M_PER_NS`` for depth slices, or ``TWT_TOP``/``TWT_BOTTOM`` (ns) for time slices,
-    plus ``UNITS`` (of the values), ``PROCESSING`` and any extra ``tags``; the band description
+    ``VELOCITY_M_PER_NS`` for depth slices, ``TWT_TOP``/``TWT_BOTTOM`` (ns) for time slices, or
+    ``ELEVATION_TOP``/``ELEVATION_BOTTOM`` (m above the datum), ``VELOCITY_M_PER_NS`` and
+    ``VERTICAL_DATUM`` (the cube's ``vertical_datum`` as given) for elevation slices; plus
+    ``UNITS`` (of the values), ``PROCESSING`` and any extra ``tags``; the band description
     reads e.g. ``"depth 0.300-0.400 m"``.
 
     Parameters

@@ -279,8 +279,8 @@ def slice_count(settings, info: SurveyInfo) -> int:
     windows = settings.requested_windows
     if windows is None:
         return len(default_windows(info.record_ns, velocity))
-    if windows.axis == "depth" and velocity is None:
-        return len(windows)
+    if (windows.axis == "depth" and velocity is None) or windows.axis == "elevation":
+        return len(windows)  # elevation: at most, before the ground's range is known
     return max(int(record_reach(info.record_ns, windows, velocity=velocity).sum()), 1)
 
 

@@ -189,12 +189,15 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
     if settings.level:  # per line and slice, against its neighbouring lines
         reduced.table = level_lines(reduced.table)
     read_s = time.perf_counter() - started
-    velocity = settings.resolved_velocity if reduced.windows.axis == "depth" else None
+    velocity = (settings.resolved_velocity if reduced.windows.axis in ("depth", "elevation")
+                else None)
     summary = processing_summary(settings, reduced.dewow_ns)
     layout = GridLayout.of(reduced.table, cell=settings.cell, radius=settings.radius,
                            max_gap=settings.max_gap)
     kwargs = layout.cube_kwargs(reduced.table, crs=settings.crs, velocity=velocity,
                                 processing=summary)
+    if reduced.windows.axis == "elevation":
+        kwargs["vertical_datum"] = settings.datum
     if settings.attribute == "signed":  # a name that says the values carry a sign
         kwargs["name"] = "signed_envelope"
     record = {

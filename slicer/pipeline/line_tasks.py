@@ -21,9 +21,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import xarray as xr
 
-from slicer.core.conventions import DISTANCE, TRACE, TWT
+from slicer.core.conventions import DEPTH, DISTANCE, ELEVATION, TRACE, TWT
 from slicer.core.errors import SettingsError, SlicerWarning
 from slicer.geometry.survey import SurveyInfo, load_line, survey_info
+from slicer.gridding.elevation import elevation_limits, window_means_varying
 from slicer.gridding.windows import (
     Windows,
     _window_means_core,
@@ -33,6 +34,7 @@ from slicer.gridding.windows import (
 )
 from slicer.io.linetable import LineEntry
 from slicer.io.reading import describe_file
+from slicer.pipeline.elevation_slices import line_surface, plan_elevation_windows, survey_surface
 from slicer.pipeline.engine import Engine, parse_scheduler
 from slicer.pipeline.line_chain import process_line, process_samples
 from slicer.pipeline.settings import BuildSettings
@@ -154,13 +156,22 @@ def reduce_line(job: LineJob) -> dict:
                                            separation=settings.antenna_separation or 0.0)})
     separation = settings.antenna_separation or 0.0
     model = _resampling_model(job.windows, job.velocity)
+    # elevation slices: each trace's windows at its own depth below its own ground
+    surface = (line_surface(line, job.entry, settings) if job.windows.axis == ELEVATION
+               else None)
     axis = twt
     if model is not None:  # as depth_axis_for: onto a depth axis before cutting windows
-        env, axis = _to_depth(env, twt, job.windows, model, line)
-        trace = _to_depth(trace, twt, job.windows, model, line)[0] if signed else None
-    lo, hi = window_limits(job.windows, job.velocity, separation=separation,
-                           in_depth=model is not None)
-    values = _window_means_core(env, twt=axis, t_top=lo, t_bottom=hi)
+        deepest = _deepest(job.windows, surface)
+        env, axis = _to_depth(env, twt, deepest, model, line)
+        trace = _to_depth(trace, twt, deepest, model, line)[0] if signed else None
+    if surface is not None:
+        lo, hi = elevation_limits(job.windows, surface, velocity=job.velocity,
+                                  separation=separation, in_depth=model is not None)
+        values = window_means_varying(env, axis_values=axis, top=lo, bottom=hi)
+    else:
+        lo, hi = window_limits(job.windows, job.velocity, separation=separation,
+                               in_depth=model is not None)
+        values = _window_means_core(env, twt=axis, t_top=lo, t_bottom=hi)
     if signed:
         from slicer.processing.polarity import leading_lobe_signs_core
         signs = leading_lobe_signs_core(trace, env, axis_values=axis, top=lo, bottom=hi)
@@ -174,9 +185,12 @@ def reduce_line(job: LineJob) -> dict:
 
 def window_times(windows: Windows, velocity, *, separation: float = 0.0):
     """The slice windows as two-way times (ns) for a radargram: ``(top, bottom)``, or None when
-    depth windows have no single velocity (a layered or lateral model)."""
-    if windows.axis != "depth":
+    depth windows have no single velocity (a layered or lateral model) and for elevation
+    windows (each trace has its own times)."""
+    if windows.axis == TWT:
         return windows.top, windows.bottom
+    if windows.axis == ELEVATION:
+        return None
     if velocity is None or hasattr(velocity, "profile"):
         return None
     return window_limits(windows, velocity, separation=separation)
@@ -190,18 +204,27 @@ def line_name(entry: LineEntry, attrs: dict) -> str:
 
 def _resampling_model(windows: Windows, model):
     """The velocity model a line must be resampled to depth with before its windows are cut
-    (depth windows and a layered or lateral model), else None (see :func:`depth_axis_for`)."""
-    if windows.axis != "depth" or model is None or not hasattr(model, "profile"):
+    (depth or elevation windows and a layered or lateral model), else None (see
+    :func:`depth_axis_for`)."""
+    if windows.axis not in (DEPTH, ELEVATION) or model is None or not hasattr(model, "profile"):
         return None
     return None if isinstance(model, ConstantVelocity) else model
 
 
-def _to_depth(samples: np.ndarray, twt: np.ndarray, windows: Windows, model, line
+def _deepest(windows: Windows, surface) -> float:
+    """The deepest depth (m) any window reaches on a line."""
+    if surface is None:
+        return float(windows.bottom.max())
+    return float(np.nanmax(surface)) - float(windows.bottom.min())
+
+
+def _to_depth(samples: np.ndarray, twt: np.ndarray, deepest: float, model, line
               ) -> tuple[np.ndarray, np.ndarray]:
-    """``samples`` resampled to the depth axis of :func:`depth_axis_for`, and that axis (m)."""
+    """``samples`` resampled to the depth axis of :func:`depth_axis_for` down to ``deepest``
+    (m), and that axis (m)."""
     from slicer.velocity.models import _to_depth_core
     step = float(np.min(model.velocity)) * float(twt[1] - twt[0]) / 2
-    depths = np.arange(0.0, float(windows.bottom.max()) + 2 * step, step)
+    depths = np.arange(0.0, max(deepest, 0.0) + 2 * step, step)
     if getattr(model, "lateral", False):
         tops, v, _ = model.profile(line["x"].values, line["y"].values)
     else:
@@ -249,8 +272,8 @@ class Reduced:
 def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
     """The requested windows, checked against the record when time zero is fixed."""
     windows = settings.requested_windows
-    if isinstance(settings.time_zero, str):
-        return windows
+    if isinstance(settings.time_zero, str) or settings.slices_axis == ELEVATION:
+        return windows  # elevation windows are fitted with the ground (reduce_survey)
     t0 = float(settings.time_zero)
     if not 0 <= t0 < info.record_ns:
         raise SettingsError(f"time zero {settings.time_zero} ns lies outside the record "
@@ -299,11 +322,18 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
         t0_line = correct_time_zero(first, time_zero=settings.time_zero,
                                     threshold=settings.time_zero_threshold)
         dewow_ns = 1.5 / dominant_frequency(t0_line)
+    elevation = settings.slices_axis == ELEVATION
     if windows is None or record_ns is None:
         env = process_line(first, settings, dewow_ns=dewow_ns)
         record_ns = float(env[TWT].values[-1])
-        windows = (default_windows(record_ns, velocity) if windows is None
-                   else fit_windows(windows, record_ns, velocity, where))
+        if not elevation:
+            windows = (default_windows(record_ns, velocity) if windows is None
+                       else fit_windows(windows, record_ns, velocity, where))
+    if elevation:  # fitted to the ground's range and the depth the record reaches
+        low, high = survey_surface(settings, info)
+        reach = reach_depth(velocity, record_ns)
+        windows = plan_elevation_windows(windows, low=low, high=high, reach=reach,
+                                         step=nice_number(reach / 20))  # as default_windows
     ties, corrections = None, {}
     if settings.ties != "off":
         from slicer.pipeline.survey_ties import tie_survey

@@ -257,6 +257,20 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
     _o("thickness", "number", "slice thickness (m or ns), default the step", "m or ns",
        0, 100_000, open_low=True),
     _o("times", "text", "time slices TOP:BOTTOM:STEP in ns below time zero"),
+    _o("slices", "choice", "what slices follow: 'depth' (below the ground surface, or time "
+       "with --times; the default) or 'elevation' (level, at heights above a vertical datum: "
+       "needs --terrain and --datum)", words=("depth", "elevation")),
+    _o("elevations", "text", "elevation slices TOP:BOTTOM:STEP in m above the datum, TOP the "
+       "higher (default: from the highest ground down as far as the record reaches)"),
+    _o("terrain", "text", "the ground's elevation at every trace, for elevation slices: "
+       "'gnss' (the height column of each line's GNSS track, less --antenna-height), 'table' "
+       "(line-table columns start_elevation and end_elevation) or an elevation model "
+       "GeoTIFF"),
+    # A survey pole or a cart mast holds a GNSS antenna 0.3-3 m up; 20 m covers any vehicle.
+    _o("antenna_height", "number", "height of the GNSS antenna above the ground, subtracted "
+       "from the track's heights (--terrain gnss)", "m", 0, 20),
+    _o("datum", "text", "vertical datum the elevations refer to (e.g. 'EGM2008' or 'site "
+       "benchmark BM1'), written into every output; slicer converts between none"),
     _o("scheduler", "text", "where to run: auto, threads, processes, local:N or "
        "tcp://HOST:PORT"),
     _o("memory_limit", "size", "memory budget of the build's working data, e.g. 1GB"),

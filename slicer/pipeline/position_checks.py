@@ -168,6 +168,14 @@ def trace_positions(entry: LineEntry, settings, n_traces: int) -> tuple[np.ndarr
 
     ``n_traces`` counts the entry's own traces (its channel's, for a swath).
     """
+    placed = placed_stub(entry, settings, n_traces)
+    return (np.asarray(placed[X].values, dtype=np.float64),
+            np.asarray(placed[Y].values, dtype=np.float64))
+
+
+def placed_stub(entry: LineEntry, settings, n_traces: int) -> xr.DataArray:
+    """The line of :func:`trace_positions` as placed: no samples, every trace coordinate
+    (``x``, ``y``, and ``height`` from a GNSS track that has one)."""
     file_traces = n_traces * (entry.channel_count if entry.channel is not None else 1)
     coords = {TRACE: (TRACE, np.arange(file_traces, dtype=np.int64))}
     if source_of(entry, settings) == "headers":
@@ -181,9 +189,7 @@ def trace_positions(entry: LineEntry, settings, n_traces: int) -> tuple[np.ndarr
                                               "source": str(entry.file)})
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", SlicerWarning)
-        placed = positioned(stub, entry, _Unresampled(settings))
-    return (np.asarray(placed[X].values, dtype=np.float64),
-            np.asarray(placed[Y].values, dtype=np.float64))
+        return positioned(stub, entry, _Unresampled(settings))
 
 
 # --- degrees given as metres --------------------------------------------------------------------
@@ -213,4 +219,5 @@ def check_not_degrees(x: np.ndarray, y: np.ndarray, settings) -> None:
         "fixes as a GNSS track (--positions track) with --track-crs", where=where)
 
 
-__all__ = ["check_far_positions", "check_not_degrees", "far_from_line", "trace_positions"]
+__all__ = ["check_far_positions", "check_not_degrees", "far_from_line", "placed_stub",
+           "trace_positions"]

@@ -28,6 +28,7 @@ import pyproj
 
 from slicer.core.errors import LineTableError, SettingsError
 from slicer.core.physics import check_velocity, velocity_from_permittivity
+from slicer.geometry.terrain import TERRAIN_WORDS
 from slicer.gridding.grid import check_cell
 from slicer.gridding.windows import Windows, make_windows, parse_range
 from slicer.io.linetable import (
@@ -39,6 +40,11 @@ from slicer.io.linetable import (
     unknown_names,
 )
 from slicer.io.tomlfile import read_toml
+from slicer.pipeline.elevation_slices import (
+    check_elevation_settings,
+    elevation_windows,
+    wants_elevation,
+)
 from slicer.pipeline.options import OPTIONS, check_option
 from slicer.velocity.model_file import read_velocity_model
 from slicer.velocity.models import ConstantVelocity
@@ -89,6 +95,11 @@ class BuildSettings:
     depths: str | None = None
     thickness: float | None = None
     times: str | None = None
+    slices: str | None = None
+    elevations: str | None = None
+    terrain: str | None = None
+    antenna_height: float | None = None
+    datum: str | None = None
     scheduler: str = "auto"
     memory_limit: str | float | None = None
     formats: str = "tif"
@@ -155,9 +166,11 @@ class BuildSettings:
         if self.velocity_std is not None and model is None:
             raise SettingsError("has no effect without a velocity (--velocity, --permittivity "
                                 "or --velocity-model)", where="--velocity-std")
-        if self.thickness is not None and self.depths is None and self.times is None:
-            raise SettingsError("has no effect without --depths or --times (the default "
-                                "slices have their own thickness)", where="--thickness")
+        if self.thickness is not None and all(getattr(self, n) is None
+                                              for n in ("depths", "times", "elevations")):
+            raise SettingsError("has no effect without --depths, --times or --elevations (the "
+                                "default slices have their own thickness)", where="--thickness")
+        check_elevation_settings(self)
         if self.velocity_std is not None and model is not None:
             slowest = float(min(np.atleast_1d(model.velocity)))
             if self.velocity_std >= slowest:
@@ -207,6 +220,13 @@ class BuildSettings:
                                     "track file (column track)", where="--positions")
 
     @property
+    def slices_axis(self) -> str:
+        """``elevation`` for elevation slices, ``twt`` for --times, else ``depth``."""
+        if wants_elevation(self):
+            return "elevation"
+        return "twt" if self.times is not None else "depth"
+
+    @property
     def resolved_velocity(self) -> float | None:
         """One radar velocity (m/ns) when the model is constant, else None."""
         model = self.resolved_model
@@ -248,6 +268,8 @@ class BuildSettings:
     @property
     def requested_windows(self) -> Windows | None:
         """The slice windows asked for, or None to choose them from the record."""
+        if wants_elevation(self):
+            return elevation_windows(self)
         if self.depths is not None:
             top, bottom, step = parse_range(self.depths, option="--depths")
             return make_windows(top, bottom, step, thickness=self.thickness, axis="depth",
@@ -312,7 +334,8 @@ def _positive(value, where: str, unit: str) -> float:
 
 
 #: Options of which a build takes one: a flag for one of them overrides the survey file's.
-EXCLUSIVE = (("velocity", "permittivity", "velocity_model"), ("depths", "times"))
+EXCLUSIVE = (("velocity", "permittivity", "velocity_model"),
+             ("depths", "times", "elevations", "slices"))
 
 #: Keys of a TOML ``[[block]]`` table.
 BLOCK_KEYS = ("name", "lines", "line", "positions", "control_points", "control_fit",
@@ -371,6 +394,8 @@ def _read_toml(path: Path, overrides: dict) -> tuple[list[_Group], dict]:
     for key in ("out", "velocity_model", "control_points"):
         if key in data:
             data[key] = path.parent / data[key]
+    if "terrain" in data and data["terrain"].strip().lower() not in TERRAIN_WORDS:
+        data["terrain"] = str(path.parent / data["terrain"])  # a file beside the survey file
     blocks = specs.pop("block", None)
     if blocks is None:
         return [_Group(_entries_of(specs, path.parent, str(path), positions == "table"),

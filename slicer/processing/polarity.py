@@ -40,29 +40,52 @@ def leading_lobe_signs_core(samples: np.ndarray, envelope: np.ndarray, *,
     onset may lie above the window: an event belongs to the window that holds its peak). +1 or
     -1; 0 where silent; NaN where the record does not reach the window. A window thinner than
     the sample interval takes the sample nearest its middle as the event's peak.
+
+    ``top`` and ``bottom`` are ``(window,)``, or ``(trace, window)`` for windows of each trace's
+    own (elevation slices), NaN where a trace has no such window.
     """
     lead = samples.shape[:-1]
     a = samples.reshape(-1, samples.shape[-1])
     e = envelope.reshape(-1, envelope.shape[-1])
+    top, bottom = np.asarray(top, dtype=float), np.asarray(bottom, dtype=float)
+    out = np.full((a.shape[0], top.shape[-1]), np.nan, dtype=np.float32)
+    first, last = axis_values[0] - 1e-9, axis_values[-1] + 1e-9
+    for j in range(top.shape[-1]):
+        lo, hi = top[..., j], bottom[..., j]
+        if top.ndim == 1:  # one window for every trace
+            if lo < first or hi > last:
+                continue  # the record does not reach the window (as the window means)
+            rows = np.arange(a.shape[0])
+            inside = np.flatnonzero((axis_values >= lo) & (axis_values < hi))
+            if not inside.size:
+                inside = np.array([np.argmin(np.abs(axis_values - (lo + hi) / 2))])
+            peak = inside[0] + np.argmax(e[:, inside[0]:inside[-1] + 1], axis=-1)
+        else:
+            rows = np.flatnonzero(np.isfinite(lo) & np.isfinite(hi) & (lo >= first)
+                                  & (hi <= last))
+            if not rows.size:
+                continue
+            lo_r, hi_r = lo[rows, None], hi[rows, None]
+            inside = (axis_values >= lo_r) & (axis_values < hi_r)
+            thin = ~inside.any(axis=-1)  # thinner than a sample: the one nearest its middle
+            inside[thin, np.argmin(np.abs(axis_values - (lo_r + hi_r)[thin] / 2), axis=-1)] = True
+            peak = np.argmax(np.where(inside, e[rows], -np.inf), axis=-1)
+        out[rows, j] = _lobe_sign(a[rows], e[rows], peak, fraction)
+    return out.reshape(lead + (top.shape[-1],))
+
+
+def _lobe_sign(a: np.ndarray, e: np.ndarray, peak: np.ndarray, fraction: float) -> np.ndarray:
+    """Sign of the leading lobe of the event peaking at ``peak`` on each row."""
     n = a.shape[-1]
     idx = np.arange(n)
     rows = np.arange(a.shape[0])
-    out = np.full((a.shape[0], len(top)), np.nan, dtype=np.float32)
-    for j, (lo, hi) in enumerate(zip(top, bottom, strict=True)):
-        if lo < axis_values[0] - 1e-9 or hi > axis_values[-1] + 1e-9:
-            continue  # the record does not reach the window (as the window means)
-        inside = np.flatnonzero((axis_values >= lo) & (axis_values < hi))
-        if not inside.size:
-            inside = np.array([np.argmin(np.abs(axis_values - (lo + hi) / 2))])
-        peak = inside[0] + np.argmax(e[:, inside[0]:inside[-1] + 1], axis=-1)
-        level = fraction * e[rows, peak]
-        below = (e < level[:, None]) & (idx[None, :] < peak[:, None])
-        onset = np.where(below, idx[None, :], -1).max(axis=-1) + 1
-        strong = (np.abs(a) >= level[:, None]) & (idx[None, :] >= onset[:, None])
-        first = np.where(strong, idx[None, :], n).min(axis=-1)
-        first = np.minimum(first, peak)  # a silent trace: the peak itself (sign 0)
-        out[:, j] = np.sign(a[rows, first])
-    return out.reshape(lead + (len(top),))
+    level = fraction * e[rows, peak]
+    below = (e < level[:, None]) & (idx[None, :] < peak[:, None])
+    onset = np.where(below, idx[None, :], -1).max(axis=-1) + 1
+    strong = (np.abs(a) >= level[:, None]) & (idx[None, :] >= onset[:, None])
+    first = np.where(strong, idx[None, :], n).min(axis=-1)
+    first = np.minimum(first, peak)  # a silent trace: the peak itself (sign 0)
+    return np.sign(a[rows, first])
 
 
 def direct_wave_polarity(line: xr.DataArray, *, period_ns: float) -> int:
