@@ -218,11 +218,12 @@ def overview_pages(cube: xr.DataArray, *, colormap=None, stretch: str = "shared"
                    clip: tuple[float, float] = DEFAULT_CLIP, per_page: int = PER_PAGE,
                    title: str | None = None, max_columns: int | None = None,
                    dpi: float = 150, panels: list[np.ndarray] | None = None):
-    """Yield the pages of the overview of ``cube`` one at a time, as figures.
+    """The pages of the overview of ``cube``: an iterator drawing one figure at a time.
 
-    The arguments are those of :func:`plot_overview`. Every page has the same grid of
-    panels (the last may leave places empty), so all pages have the same size; with more
-    than one page each says ``"page i of n"`` at its top right and which slices it holds.
+    The arguments are those of :func:`plot_overview`, checked (and the cube's panels read)
+    before this returns. Every page has the same grid of panels (the last may leave places
+    empty), so all pages have the same size; with more than one page each says
+    ``"page i of n"`` at its top right and which slices it holds in its title.
     """
     per_page = _check_per_page(per_page)
     overview = _Overview(cube, display_from(colormap, stretch, clip), title=title, dpi=dpi,
@@ -231,10 +232,9 @@ def overview_pages(cube: xr.DataArray, *, colormap=None, stretch: str = "shared"
     ncols = _columns(on_page, max_columns)
     nrows = math.ceil(on_page / ncols)
     count = math.ceil(overview.n / per_page)
-    for i in range(count):
-        start, stop = i * per_page, min(overview.n, (i + 1) * per_page)
-        yield overview.sheet(start, stop, ncols=ncols, nrows=nrows,
-                             page=(i + 1, count) if count > 1 else None)
+    return (overview.sheet(i * per_page, min(overview.n, (i + 1) * per_page), ncols=ncols,
+                           nrows=nrows, page=(i + 1, count) if count > 1 else None)
+            for i in range(count))
 
 
 def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,

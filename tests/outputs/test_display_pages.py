@@ -189,7 +189,7 @@ def test_page_names_sort_in_page_order(tmp_path, n_pages, names):
 @pytest.mark.parametrize("per_page", [0, -3, 2.5, True, "12"])
 def test_bad_per_page_is_refused(per_page):
     with pytest.raises(SettingsError) as info:
-        list(overview_pages(cube_of(3), per_page=per_page))
+        overview_pages(cube_of(3), per_page=per_page)  # refused before any page is drawn
     assert info.value.where == "per_page"
 
 
