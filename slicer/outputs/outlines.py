@@ -135,7 +135,8 @@ def outline(cube: xr.DataArray, *, threshold: float = 3.0, min_area: float | Non
                       else cube[axis].values, dtype=float)
     bottoms = np.asarray(cube[f"{axis}_bottom"].values if f"{axis}_bottom" in cube.coords
                          else cube[axis].values, dtype=float)
-    result = Outlines(crs=cube_crs(cube), units="m" if axis == "depth" else "ns")
+    result = Outlines(crs=cube_crs(cube), units="ns" if axis == "twt" else "m")
+    up = axis == "elevation"  # elevation windows count up: a body's top is its highest edge
     for k in range(mask.shape[0]):
         labels, n = scipy.ndimage.label(mask[k], structure=_PLANE)
         if n == 0:
@@ -160,11 +161,12 @@ def outline(cube: xr.DataArray, *, threshold: float = 3.0, min_area: float | Non
             levels = np.flatnonzero(member.any(axis=(1, 2))) + where[0].start
             plan = np.zeros(mask.shape[1:], dtype=bool)
             plan[where[1:]] = member.any(axis=0)
-            thickness = (bottoms - tops)[levels]
+            thickness = np.abs(bottoms - tops)[levels]
             counts = (bodies[levels] == b).sum(axis=(1, 2))
             rows.append((b, plan, {
-                "body": b, "top": float(tops[levels].min()),
-                "bottom": float(bottoms[levels].max()), "slices": int(levels.size),
+                "body": b, "top": float(tops[levels].max() if up else tops[levels].min()),
+                "bottom": float(bottoms[levels].min() if up else bottoms[levels].max()),
+                "slices": int(levels.size),
                 "area_m2": float(plan.sum() * area),
                 "volume_m3": float((counts * thickness).sum() * area)
                 if result.units == "m" else math.nan,

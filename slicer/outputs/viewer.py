@@ -100,7 +100,7 @@ def viewer_data(cube: xr.DataArray, *, lines: Sequence[LineImage] = (),
     tops = cube[f"{axis}_top"].values if f"{axis}_top" in cube.coords else cube[axis].values
     bottoms = (cube[f"{axis}_bottom"].values if f"{axis}_bottom" in cube.coords
                else cube[axis].values)
-    unit = "m" if axis == "depth" else "ns"
+    unit = "ns" if axis == "twt" else "m"
     for i in range(cube.sizes[axis]):
         q, lo, hi = _quantise(_decimate(np.asarray(cube.isel({axis: i}).values,
                                                    dtype=np.float64), k))

@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from slicer.core.conventions import DEPTH, TWT
+from slicer.core.conventions import DEPTH, ELEVATION, TWT
 from slicer.core.errors import InputFileError
 
 
@@ -24,7 +24,7 @@ def _cube_from_tifs(paths: list[Path]) -> xr.DataArray:
     from slicer.outputs.cube import new_cube
     values, tops, bottoms = [], [], []
     grid = None
-    axis = velocity = None
+    axis = velocity = datum = None
     units = ""
     for path in paths:
         with rasterio.open(path) as src:
@@ -36,22 +36,24 @@ def _cube_from_tifs(paths: list[Path]) -> xr.DataArray:
             elif here != grid:
                 raise InputFileError("lies on another grid than the build's first slice",
                                      where=str(path))
-            found = [a for a in (DEPTH, TWT) if f"{a.upper()}_TOP" in tags]
+            found = [a for a in (DEPTH, TWT, ELEVATION) if f"{a.upper()}_TOP" in tags]
             if not found:
-                raise InputFileError("is not a slicer slice (no DEPTH_TOP or TWT_TOP tag)",
-                                     where=str(path))
+                raise InputFileError("is not a slicer slice (no DEPTH_TOP, TWT_TOP or "
+                                     "ELEVATION_TOP tag)", where=str(path))
             axis = found[0]
             tops.append(float(tags[f"{axis.upper()}_TOP"]))
             bottoms.append(float(tags[f"{axis.upper()}_BOTTOM"]))
             velocity = tags.get("VELOCITY_M_PER_NS", velocity)
+            datum = tags.get("VERTICAL_DATUM", datum)
             units = tags.get("UNITS", units)
             values.append(src.read(1).astype(np.float32))
     crs, transform, _, _ = grid
-    order = np.argsort(tops)
+    order = np.argsort(-np.asarray(tops) if axis == ELEVATION else tops)  # downwards
     data = np.stack(values)[order]
     cube = new_cube(data, west=transform[2], north=transform[5], cell=transform[0], crs=crs,
                     top=np.asarray(tops)[order], bottom=np.asarray(bottoms)[order], axis=axis,
-                    velocity=float(velocity) if velocity else None, units=units or "1")
+                    velocity=float(velocity) if velocity else None, units=units or "1",
+                    vertical_datum=datum if axis == ELEVATION else None)
     return cube
 
 

@@ -176,8 +176,9 @@ def template_from_record(record: dict) -> xr.DataArray:
     """The cube's template (grid, windows, CRS; lazy NaN values) of a build from its record."""
     from slicer.outputs.cube import TILE, empty_cube
     grid, sl, settings = record["grid"], record["slices"], record.get("settings", {})
-    velocity = settings.get("velocity") if sl["axis"] == "depth" else None
-    if velocity is None and sl["axis"] == "depth" and settings.get("permittivity"):
+    below = sl["axis"] in ("depth", "elevation")  # converted from time with a velocity
+    velocity = settings.get("velocity") if below else None
+    if velocity is None and below and settings.get("permittivity"):
         from slicer.core.physics import velocity_from_permittivity
         velocity = float(velocity_from_permittivity(settings["permittivity"]))
     name = "signed_envelope" if settings.get("attribute") == "signed" else "envelope"
@@ -185,7 +186,8 @@ def template_from_record(record: dict) -> xr.DataArray:
                       north=grid["north"], cell=grid["cell"], crs=settings.get("crs"),
                       top=np.asarray(sl["top"]), bottom=np.asarray(sl["bottom"]),
                       axis=sl["axis"], velocity=velocity,
-                      processing=record.get("processing", ""), name=name)
+                      processing=record.get("processing", ""), name=name,
+                      vertical_datum=settings.get("datum") if sl["axis"] == "elevation" else None)
 
 
 def write_build_viewer(out: str | os.PathLike) -> Path:

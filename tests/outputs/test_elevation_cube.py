@@ -84,3 +84,19 @@ def test_geotiff_tags_read_by_gdal(tmp_path):
         assert tags["VERTICAL_DATUM"] == DATUM
         assert float(tags["VELOCITY_M_PER_NS"]) == 0.1
         assert src.descriptions[0] == "elevation 119.900-119.800 m"
+
+
+def test_a_body_spans_from_its_highest_to_its_lowest_edge():
+    from slicer.outputs.outlines import outline
+    data = np.zeros((4, 20, 20), dtype=np.float32)
+    data += np.random.default_rng(2).normal(0, 0.01, data.shape).astype(np.float32)
+    data[1:3, 5:10, 5:10] = 5.0  # a block in the slices 119.9-119.8 and 119.8-119.7 m
+    cube = new_cube(data, west=WEST, north=NORTH, cell=0.1, crs=f"EPSG:{EPSG}",
+                    top=120.0 - 0.1 * np.arange(4), bottom=119.9 - 0.1 * np.arange(4),
+                    axis="elevation", vertical_datum=DATUM)
+    bodies = outline(cube).bodies
+    assert len(bodies) == 1
+    body = bodies[0]
+    # hand-computed: the block spans 119.9 down to 119.7 m, 25 cells of 0.01 m2, 0.2 m thick
+    assert body["top"] == pytest.approx(119.9) and body["bottom"] == pytest.approx(119.7)
+    assert body["volume_m3"] == pytest.approx(25 * 0.01 * 0.2)

@@ -197,3 +197,20 @@ def test_cli_writes_elevation_slices_with_their_datum(survey, tmp_path, capsys):
         tags = src.tags()
     assert tags["VERTICAL_DATUM"] == "NAVD88 (site)"
     assert float(tags["ELEVATION_TOP"]) == pytest.approx(99.2)
+
+
+def test_an_elevation_build_reopens_from_its_slices(survey, tmp_path, capsys):
+    from slicer.pipeline.results import open_build
+    out = tmp_path / "out"
+    assert main([str(a) for a in ("build", survey / "slope.csv", "--crs", "EPSG:32633",
+                                  "--velocity", "0.1", "--time-zero", "3", "--terrain", "table",
+                                  "--datum", "site", "--elevations", "100.4:99:0.2", "--out",
+                                  out, "--quiet")]) == 0
+    cube = open_build(out)  # from the GeoTIFFs alone (their tags)
+    assert cube.dims[0] == "elevation" and cube.attrs["vertical_datum"] == "site"
+    np.testing.assert_allclose(cube["elevation_top"].values, 100.4 - 0.2 * np.arange(7),
+                               atol=1e-9)
+    (out / "viewer.html").unlink()
+    assert main(["view", str(out)]) == 0  # the viewer page written again from the build
+    page = (out / "viewer.html").read_text(encoding="utf-8")
+    assert "100.4-100.2 m" in page  # each slice labelled by its elevations in metres
