@@ -408,7 +408,7 @@ LINES_TO_SLICES = [
     _code("""
         record = json.loads((settings.out / "record.json").read_text())
         print("inputs recorded:", len(record["inputs"]), "| seconds:", record["seconds"])
-        Image(filename=str(settings.out / "overview.png"), width=900)
+        Image(filename=str(sorted(settings.out.glob("overview*.png"))[0]), width=900)
         """),
     _md("""
         The temporary folder is removed at the end; skip this cell to keep the files.

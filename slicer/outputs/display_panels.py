@@ -12,7 +12,7 @@ import math
 import numpy as np
 import xarray as xr
 
-from slicer.core.conventions import DEPTH, UNITS
+from slicer.core.conventions import TWT, UNITS
 from slicer.outputs.cube import cube_transform, slice_axis
 from slicer.outputs.sheet import PANEL_INCHES, _decimals
 
@@ -76,7 +76,7 @@ def range_labels(cube: xr.DataArray) -> list[str]:
     axis = slice_axis(cube)
     tops = cube[f"{axis}_top"].values
     bottoms = cube[f"{axis}_bottom"].values
-    low, high = (2, 4) if axis == DEPTH else (1, 3)
+    low, high = (1, 3) if axis == TWT else (2, 4)
     d = _decimals(np.concatenate([tops, bottoms]), low, high)
     return [f"{t:.{d}f}-{b:.{d}f} {UNITS[axis]}" for t, b in zip(tops, bottoms, strict=True)]
 

@@ -149,7 +149,8 @@ def plot_section(sec: xr.DataArray, path=None, *, colormap=None, stretch: str = 
     shown = ax.imshow(values, aspect="auto", cmap=display.colours(signed=signed), norm=norm,
                       extent=(d[0], d[-1], z[-1], z[0]), interpolation="nearest")
     ax.set_xlabel("distance along the section (m)")
-    ax.set_ylabel("depth (m)" if axis == "depth" else "two-way time (ns)")
+    ax.set_ylabel({"depth": "depth (m)", "twt": "two-way time (ns)"}.get(
+        axis, f"elevation above {sec.attrs.get('vertical_datum', 'the datum')} (m)"))
     vertices = np.asarray(sec.attrs.get("section_vertices", []), dtype=float).reshape(-1, 2)
     if len(vertices) > 2:  # corners of the path, marked where the distance turns
         corners = np.concatenate([[0.0], np.cumsum(np.hypot(*np.diff(vertices, axis=0).T))])

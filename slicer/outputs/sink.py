@@ -37,14 +37,18 @@ from slicer.core.atomic import atomic_path, check_room
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
 from slicer.outputs.cube import TILE, _check_tile_size, _write_netcdf, check_tile, slice_axis
-from slicer.outputs.figures import panel_stride, plot_overview
+from slicer.outputs.display import Display
+from slicer.outputs.figures import PER_PAGE, overview_pages, page_paths, panel_stride
 from slicer.outputs.geotiff import SliceTiffWriter, tile_windows
 from slicer.outputs.zarr_store import ZARR_FORMAT, create_cube_store, open_cube_zarr, read_slice
 
 #: Names of the outputs inside ``out_dir``.
 SLICES_DIR, ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME = "slices", "cube.zarr", "cube.nc", "overview.png"
 #: What a sink may write into ``out_dir``: names and patterns, relative POSIX paths.
-OUTPUT_NAMES = (f"{SLICES_DIR}/slice_*.tif", ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME)
+#: The pages of an overview longer than one page: overview-01.png, overview-02.png, ...
+OVERVIEW_PAGES = "overview-*.png"
+OUTPUT_NAMES = (f"{SLICES_DIR}/slice_*.tif", ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME,
+                OVERVIEW_PAGES)
 #: The cube outputs a sink can write, by the name ``formats`` gives them.
 FORMATS = {"tif": f"{SLICES_DIR}/slice_*.tif", "zarr": ZARR_NAME, "nc": NETCDF_NAME}
 #: Threads writing whole slice GeoTIFFs from the working store (DEFLATE runs outside the GIL).
@@ -109,7 +113,8 @@ class CubeSink:
                  tags: Mapping[str, object] | None = None, tile: int = TILE,
                  progress: bool = True, title: str | None = None,
                  zarr_format: int = ZARR_FORMAT, offload: Callable | None = None,
-                 formats: Collection[str] = tuple(FORMATS), stream_slices: bool | None = None):
+                 formats: Collection[str] = tuple(FORMATS), stream_slices: bool | None = None,
+                 display: Display | None = None, per_page: int = PER_PAGE):
         slice_axis(cube_template)
         unknown = sorted(set(formats) - set(FORMATS))
         if unknown or not formats:
@@ -131,6 +136,8 @@ class CubeSink:
         self.empty_cells: int | None = None
         self._tags = tags
         self._title = title
+        self._display = Display() if display is None else display
+        self._per_page = per_page
         self._progress = progress
         self._zarr_format = zarr_format
         self._tiffs: SliceTiffWriter | None = None
@@ -209,10 +216,16 @@ class CubeSink:
         finally:
             pool.shutdown(wait=False)
 
-    def _draw_overview(self, png: Path):
-        """Draw and save the overview to ``png`` (temporary path); a future if done elsewhere."""
-        save_overview(self.template, self._panels, png, title=self._title,
-                      where=str(self.out_dir / OVERVIEW_NAME))
+    def overview_paths(self) -> list[Path]:
+        """The overview's files in ``out_dir``: ``overview.png``, or numbered pages."""
+        return page_paths(self.out_dir / OVERVIEW_NAME, -(-self.shape[0] // self._per_page))
+
+    def _draw_overview(self, pngs: list[Path]):
+        """Draw and save the overview pages to ``pngs`` (temporary paths); a future if done
+        elsewhere."""
+        save_overview(self.template, self._panels, pngs, title=self._title,
+                      display=self._display, per_page=self._per_page,
+                      where=[str(p) for p in self.overview_paths()])
         return None
 
     def write(self, row0: int, col0: int, block) -> None:
@@ -283,13 +296,13 @@ class CubeSink:
         # threads, or by worker processes with ``offload``) while this thread draws the
         # overview from the panels it kept.
         with contextlib.ExitStack() as stack:
-            png = stack.enter_context(atomic_path(out / OVERVIEW_NAME))
+            pngs = [stack.enter_context(atomic_path(p)) for p in self.overview_paths()]
             netcdf = None
             if "nc" in self.formats:
                 netcdf = self._start_netcdf(stack.enter_context(atomic_path(out / NETCDF_NAME)))
             started = [netcdf, self._start_slices()]
             try:
-                started.append(self._draw_overview(png))
+                started.append(self._draw_overview(pngs))
             finally:  # waits: every file is complete or failed
                 errors = self._wait(started)
             if isinstance(errors[0], OSError):
@@ -306,7 +319,7 @@ class CubeSink:
                 files.append(out / NETCDF_NAME)
         if "zarr" not in self.formats:
             self._store.discard()  # the working store: never left behind
-        self.files = [*files, out / OVERVIEW_NAME]
+        self.files = [*files, *self.overview_paths()]
 
     def _wait(self, futures) -> list[BaseException | None]:
         """The exception of each future (None: none, or no future), once all are done.
@@ -350,20 +363,25 @@ class CubeSink:
                 folder.rmdir()
 
 
-def save_overview(template: xr.DataArray, panels: np.ndarray, png: str | os.PathLike, *,
-                  title: str | None = None, where: str | None = None) -> None:
-    """Draw the overview sheet from decimated ``panels`` (see :func:`decimate`), save as PNG.
+def save_overview(template: xr.DataArray, panels: np.ndarray,
+                  pngs: Sequence[str | os.PathLike], *, title: str | None = None,
+                  display: Display | None = None, per_page: int = PER_PAGE,
+                  where: Sequence[str] | None = None) -> None:
+    """Draw the overview pages from decimated ``panels`` (see :func:`decimate`), save each as
+    PNG to its path in ``pngs`` (one per page, as :func:`slicer.outputs.figures.page_paths`).
 
     A module-level function of picklable arguments, so a worker process can run it.
-    ``where`` names the file in errors (the final name; ``png`` may be a temporary one).
+    ``where`` names the files in errors (the final names; ``pngs`` may be temporary ones).
     """
-    figure = plot_overview(template, title=title, dpi=OVERVIEW_DPI, panels=list(panels))
-    try:
-        # zlib level 1: a sheet of noisy slices hardly compresses further, and level 6 took
-        # longer than drawing it
-        figure.savefig(png, format="png", dpi=OVERVIEW_DPI, pil_kwargs={"compress_level": 1})
-    except OSError as exc:
-        raise OutputError(f"cannot save figure ({exc})", where=where or str(png)) from None
+    pages = overview_pages(template, title=title, dpi=OVERVIEW_DPI, panels=list(panels),
+                           per_page=per_page, **(display or Display()).options())
+    for figure, png, name in zip(pages, pngs, where or [str(p) for p in pngs], strict=True):
+        try:
+            # zlib level 1: a sheet of noisy slices hardly compresses further, and level 6
+            # took longer than drawing it
+            figure.savefig(png, format="png", dpi=OVERVIEW_DPI, pil_kwargs={"compress_level": 1})
+        except OSError as exc:
+            raise OutputError(f"cannot save figure ({exc})", where=name) from None
 
 
 def decimate(values, row0: int, col0: int, stride: int) -> np.ndarray:

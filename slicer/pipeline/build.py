@@ -34,7 +34,7 @@ from slicer.gridding.grid import (
 from slicer.gridding.levelling import level_lines
 from slicer.io.reading import describe_file, line_info
 from slicer.outputs.cube import empty_cube, new_cube
-from slicer.outputs.sink import FORMATS, OVERVIEW_NAME, CubeSink
+from slicer.outputs.sink import FORMATS, OVERVIEW_NAME, OVERVIEW_PAGES, CubeSink
 from slicer.pipeline.bounds import check_bounds
 from slicer.pipeline.budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
 from slicer.pipeline.engine import Engine, parse_scheduler
@@ -325,7 +325,8 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
 
     Writes the outputs ``settings.formats`` asks for -- ``slices/`` (one Cloud Optimized
     GeoTIFF per slice, ``tif``, the default), ``cube.zarr`` (``zarr``) and ``cube.nc`` (CF
-    NetCDF, ``nc``) -- and always ``overview.png``, ``viewer.html`` (the slices in one page,
+    NetCDF, ``nc``) -- and always the overview (``overview.png``, or ``overview-01.png``, ...
+    for more slices than one page holds), ``viewer.html`` (the slices in one page,
     :mod:`slicer.outputs.viewer`), ``radargrams/<LINE>.png`` (each processed line, unless
     ``settings.radargrams`` is off) and ``record.json`` (every setting and input, with
     checksums; ``radargrams`` lists each line's picture and ends). The cube is gridded tile
@@ -370,7 +371,8 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         raise SettingsError("no output folder given", where="--out")
     formats = settings.formats.split(",")
     folder = OutputFolder(settings.out, overwrite=bool(settings.overwrite),
-                          names=[*(FORMATS[f] for f in formats), OVERVIEW_NAME, *VIEW_NAMES],
+                          names=[*(FORMATS[f] for f in formats), OVERVIEW_NAME, OVERVIEW_PAGES,
+                                 *VIEW_NAMES],
                           inputs=input_files(settings))
     with (warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine,
           folder, RadargramPainter(folder.path) as painter):  # each line drawn on a thread
@@ -390,7 +392,7 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         out = folder.path  # written whole, then switched in by folder.commit
         tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
         common = dict(tags=tags, tile=TILE, progress=progress, title=settings.title,
-                      formats=formats)
+                      formats=formats, display=settings.display)
         if engine.offloader() is not None:  # workers on this machine write every output
             sink = WorkerSink(out, template, engine=engine, **common)
         else:

@@ -274,13 +274,20 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
     _o("scheduler", "text", "where to run: auto, threads, processes, local:N or "
        "tcp://HOST:PORT"),
     _o("memory_limit", "size", "memory budget of the build's working data, e.g. 1GB"),
-    _o("formats", "formats", "outputs besides overview.png and record.json, a comma list: "
+    _o("formats", "formats", "outputs besides the overview (overview.png, or overview-01.png, "
+       "... for more than 12 slices) and record.json, a comma list: "
        "'tif' (one Cloud Optimized GeoTIFF per slice, the default), 'zarr' (the cube as a "
        "chunked Zarr store, cube.zarr) and 'nc' (the cube as CF NetCDF-4, cube.nc)",
        words=("tif", "zarr", "nc")),
     _o("radargrams", "flag", "draw each processed line as a picture, radargrams/LINE.png, "
        "shown in viewer.html on a click (true/false, default true)"),
     _o("title", "text", "title of the overview sheet"),
+    _o("colormap", "text", "colour map of the overview and sections: any matplotlib name "
+       "(default viridis, or PuOr_r centred on zero for signed slices; gray for grey)"),
+    _o("stretch", "choice", "colour range: 'shared' (one for all slices, so they compare) or "
+       "'per-slice' (each its own, so faint slices show detail)", words=("shared", "per-slice")),
+    _o("clip", "text", "percentiles LOW:HIGH of the values at the two ends of the colour map "
+       "(default 2:98)"),
     _o("out", "path", "output folder"),
     _o("overwrite", "flag", "replace the outputs of an earlier build in the output folder "
        "(true/false)"),

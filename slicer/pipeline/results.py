@@ -111,14 +111,17 @@ def parse_point(text: str) -> tuple[float, float]:
 
 
 def section_build(out: str | os.PathLike, points, path: str | os.PathLike, *,
-                  spacing: float | None = None, overwrite: bool = False) -> str:
+                  spacing: float | None = None, overwrite: bool = False,
+                  display=None) -> str:
     """Draw the vertical section of the build in ``out`` along ``points`` into ``path``
-    (:func:`slicer.outputs.section.section`); returns a one-line summary. An existing
-    ``path`` is replaced only with ``overwrite``."""
+    (:func:`slicer.outputs.section.section`) with ``display`` (a
+    :class:`slicer.outputs.display.Display`, default its defaults); returns a one-line
+    summary. An existing ``path`` is replaced only with ``overwrite``."""
+    from slicer.outputs.display import Display
     from slicer.outputs.section import plot_section, section
     _free(path, overwrite)
     sec = section(open_build(out), points, spacing=spacing)
-    plot_section(sec, path)
+    plot_section(sec, path, **(display or Display()).options())
     return (f"section of {float(sec['distance'].values[-1]):.2f} m, "
             f"{sec.sizes['distance']} samples; wrote {path}")
 

@@ -174,11 +174,13 @@ class WorkerSink(CubeSink):
         # absolute: a worker need not share this process's working folder
         return str(Path(path).resolve())
 
-    def _draw_overview(self, png):
+    def _draw_overview(self, pngs):
         # on a worker too: rendering and encoding the sheet took about 5 s of a core at 1 M
         # traces, which the workers writing the slices would otherwise lose
-        return self._offload(save_overview, self.template, self._panels, self._worker_path(png),
-                             title=self._title, where=str(self.out_dir / "overview.png"))
+        return self._offload(save_overview, self.template, self._panels,
+                             [self._worker_path(p) for p in pngs], title=self._title,
+                             display=self._display, per_page=self._per_page,
+                             where=[str(p) for p in self.overview_paths()])
 
     def _start_netcdf(self, target):
         return self._start_slice_tasks(target)

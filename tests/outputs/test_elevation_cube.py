@@ -100,3 +100,19 @@ def test_a_body_spans_from_its_highest_to_its_lowest_edge():
     # hand-computed: the block spans 119.9 down to 119.7 m, 25 cells of 0.01 m2, 0.2 m thick
     assert body["top"] == pytest.approx(119.9) and body["bottom"] == pytest.approx(119.7)
     assert body["volume_m3"] == pytest.approx(25 * 0.01 * 0.2)
+
+
+def test_overview_and_section_name_the_elevations(tmp_path):
+    from slicer.outputs.figures import plot_overview
+    from slicer.outputs.section import plot_section, section
+    cube = make_cube()
+    figure = plot_overview(cube)
+    texts = {t.get_text() for t in figure.texts}  # the overview is drawn as one picture
+    assert {"120.00-119.90 m", "119.70-119.60 m"} <= texts, texts
+    sec = section(cube, [(WEST + 0.02, NORTH - 0.1), (WEST + 0.2, NORTH - 0.1)])
+    assert sec.dims == ("distance", "elevation")
+    figure = plot_section(sec, tmp_path / "s.png")
+    assert (tmp_path / "s.png").stat().st_size > 0
+    assert figure.axes[0].get_ylabel() == f"elevation above {DATUM} (m)"
+    low, high = figure.axes[0].get_ylim()
+    assert high > low  # elevation counts up the page

@@ -240,13 +240,13 @@ def test_overview_from_the_kept_panels_equals_one_drawn_from_the_cube(tmp_path, 
     cube = make_cube(shape=(3, 1900, 40), seed=5)
     assert panel_stride(cube, dpi=sink_module.OVERVIEW_DPI) == 3
     seen = {}
-    original = sink_module.plot_overview
+    original = sink_module.overview_pages
 
     def spy(cube, **kwargs):
         seen["panels"] = kwargs["panels"]
         return original(cube, **kwargs)
 
-    monkeypatch.setattr(sink_module, "plot_overview", spy)
+    monkeypatch.setattr(sink_module, "overview_pages", spy)
     write_cube(cube, tmp_path / "out", progress=False, tile=256)
     for i, panel in enumerate(seen["panels"]):
         np.testing.assert_array_equal(panel, cube.values[i, ::3, ::3])

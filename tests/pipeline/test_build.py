@@ -85,8 +85,9 @@ def test_record_lists_every_input_and_setting(contract_build):
     assert all(len(p["sha256"]) == 64 for p in record["inputs"])
     assert record["settings"]["velocity"] == 0.1 and record["settings"]["cell"] == 0.1
     assert record["command"][:3] == ["slicer", "build", "lines.csv"]
-    assert set(record["outputs"]) >= {"cube.nc", "overview.png"}
-    assert (contract_build / "out" / "overview.png").stat().st_size > 10_000
+    # 24 slices, 12 to a page: two overview pages (slicer.outputs.figures.PER_PAGE)
+    assert set(record["outputs"]) >= {"cube.nc", "overview-01.png", "overview-02.png"}
+    assert (contract_build / "out" / "overview-02.png").stat().st_size > 10_000
 
 
 def _numbers(value):
@@ -189,13 +190,14 @@ def test_default_build_writes_slices_only_and_returns_their_cube(small_survey, t
     pictures = sorted(p.relative_to(out).as_posix() for p in (out / "radargrams").glob("*"))
     assert len(pictures) == 6  # one per line
     on_disk = {p.relative_to(out).as_posix() for p in out.rglob("*")}
-    assert on_disk == {"slices", "overview.png", "record.json", "viewer.html", "radargrams",
+    pages = ["overview-01.png", "overview-02.png"]  # 24 slices, 12 to a page
+    assert on_disk == {"slices", *pages, "record.json", "viewer.html", "radargrams",
                        *pictures, *(f"slices/{p.name}" for p in tifs)}
     assert not list(tmp_path.glob("o.slicer-*"))  # nor a build folder beside it
     record = json.loads((out / "record.json").read_text())
     assert record["settings"]["formats"] == "tif"
     assert sorted(record["outputs"]) == sorted(
-        ["overview.png", "viewer.html", *pictures, *(f"slices/{p.name}" for p in tifs)])
+        [*pages, "viewer.html", *pictures, *(f"slices/{p.name}" for p in tifs)])
     # The returned cube, read lazily from the committed files, is the in-memory build's,
     # with its windows, depth error and CRS; each slice as rasterio (GDAL) reads its file.
     cube = result.cube

@@ -69,7 +69,8 @@ def test_worker_written_outputs_equal_the_threaded_ones(threaded, tmp_path, sche
                 else open_cube_zarr)
         np.testing.assert_allclose(read(out / name).values, read(reference / name).values,
                                    rtol=1e-6, equal_nan=True)
-    assert (out / "overview.png").stat().st_size > 10_000
+    for page in ("overview-01.png", "overview-02.png"):  # 24 slices, 12 to a page
+        assert (out / page).stat().st_size > 10_000
     assert not [p for p in out.rglob(".*") if p.name != ".zattrs" and ".zarr" not in str(p)
                 and p.suffix != ".zgroup"]  # no temporary file left behind
     record = json.loads((out / "record.json").read_text())
@@ -84,7 +85,8 @@ def test_workers_write_only_the_formats_asked_for(threaded, tmp_path, formats):
                           progress=False)
     pictures = [f"radargrams/{p.name}" for p in (out / "radargrams").iterdir()]
     assert len(pictures) == 6  # one per line of the small survey
-    expected = {"overview.png", "record.json", "viewer.html", "radargrams", *pictures}
+    expected = {"overview-01.png", "overview-02.png", "record.json", "viewer.html", "radargrams",
+                *pictures}
     if formats == "tif":
         expected |= {"slices", *(f"slices/{p.name}" for p in _tiffs(reference))}
     else:

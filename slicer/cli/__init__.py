@@ -12,9 +12,14 @@ import time
 import warnings
 from pathlib import Path
 
+from slicer.cli.build_options import (
+    EXIT_BAD_INPUT,
+    add_build_options,
+    add_display_options,
+    floats,
+    number_or_auto,
+)
 from slicer.core.errors import SlicerError, SlicerWarning
-
-EXIT_BAD_INPUT = 2
 
 
 class _Parser(argparse.ArgumentParser):
@@ -27,164 +32,6 @@ class _Parser(argparse.ArgumentParser):
 
     def error(self, message):  # noqa: D102 - argparse API
         self.exit(EXIT_BAD_INPUT, f"{self.prog}: error: {message} (see --help)\n")
-
-
-def _number_or_auto(text: str):
-    return text if text in ("auto", "off") else float(text)
-
-
-def _float(text: str) -> float:
-    return float(text)
-
-
-def _add_build_options(p: argparse.ArgumentParser) -> None:
-    g = p.add_argument_group("survey")
-    g.add_argument("--crs", help="CRS of the line coordinates, e.g. EPSG:32633 (projected, m)")
-    g.add_argument("--positions", choices=("table", "headers", "track"),
-                   help="trace positions: 'table' spaces them evenly from each line's start to "
-                        "its end, or between the distance marks of a marks column (default); "
-                        "'headers' takes the files' trace-header coordinates (SEG-Y CDP or "
-                        "source X/Y with the coordinate scalar), in the survey CRS, and the "
-                        "line table then needs only its file column; 'track' interpolates each "
-                        "row's GNSS track file (column track). A positions column sets it per "
-                        "line")
-    g.add_argument("--track-crs", metavar="CRS",
-                   help="CRS of the GNSS fixes (default EPSG:4326, longitude/latitude)")
-    g.add_argument("--antenna-along", type=_float, metavar="M",
-                   help="antenna centre this far ahead of the GNSS receiver (m, default 0)")
-    g.add_argument("--antenna-across", type=_float, metavar="M",
-                   help="antenna centre this far right of the GNSS receiver, facing the "
-                        "direction of travel (m, default 0)")
-    g.add_argument("--trace-spacing", type=_float, metavar="M",
-                   help="resample every line to this even trace spacing after positioning")
-    g.add_argument("--control-points", metavar="FILE",
-                   help="CSV name,local_x,local_y,x,y: the line table is in local grid metres, "
-                        "tied to the survey CRS by these points")
-    g.add_argument("--control-fit", choices=("similarity", "affine"),
-                   help="local grid to CRS fit: similarity (scale, rotation, shift; default) "
-                        "or affine (6 parameters)")
-    g.add_argument("--control-tolerance", type=_float, metavar="M",
-                   help="refuse the fit if a control point misses by more (default 0.05 m)")
-    g.add_argument("--sample-interval", type=_float, metavar="NS",
-                   help="sample interval in ns (needed when the files cannot hold it)")
-    g = p.add_argument_group("processing")
-    g.add_argument("--time-zero", type=_number_or_auto, metavar="NS|auto",
-                   help="time zero in ns on the raw record, or 'auto' to pick the direct "
-                        "wave's first peak on each line (default auto)")
-    g.add_argument("--time-zero-threshold", type=_float, metavar="FRACTION",
-                   help="fraction of the largest amplitude the direct wave reaches (default 0.5)")
-    g.add_argument("--dewow", type=_number_or_auto, metavar="NS|auto|off",
-                   help="running-mean window removing wow (default auto: 1.5 dominant periods)")
-    g.add_argument("--background", metavar="scaled|median|mean[:TOP-BOTTOM]|off",
-                   help="background removal (default scaled: each line's median trace fitted "
-                        "to every trace, so no ghost appears under a strong reflector); median "
-                        "or mean subtract it whole (flat layers go too); ':TOP-BOTTOM' limits "
-                        "it to that time window in ns, e.g. median:0-12 removes ringing and "
-                        "keeps the layers below")
-    g.add_argument("--antenna-separation", type=_float, metavar="M",
-                   help="transmitter-receiver distance in m: a picked time zero is the direct "
-                        "wave minus separation / c, and depths follow the bistatic path "
-                        "(default 0)")
-    g.add_argument("--attribute", choices=("envelope", "signed"),
-                   help="slice values: envelope (default) or signed, the envelope with the "
-                        "sign of each window's strongest reflection relative to the direct "
-                        "wave (metal and wetter ground one way, voids and drier fill the "
-                        "other)")
-    g.add_argument("--zigzag-shift", type=_number_or_auto, metavar="auto|M|off",
-                   help="along-line lag of lines walked both ways: auto estimates it from "
-                        "neighbouring lines walked the other way; a number moves every trace "
-                        "that far (m) along its line's direction of travel (default off)")
-    g.add_argument("--migrate", choices=("auto", "off", "stolt", "phase-shift"),
-                   help="2-D migration of each line before the envelope: stolt (f-k, one "
-                        "velocity; Stolt 1978) or phase-shift (layered velocity; Gazdag 1978); "
-                        "default auto: depth slices are migrated (stolt for one velocity, "
-                        "phase-shift for layers), time slices and lateral models are not")
-    g.add_argument("--ties", choices=("off", "report", "apply"),
-                   help="ties where lines cross: 'report' measures the time shift and "
-                        "amplitude ratio at every crossing and reports the misfit; 'apply' "
-                        "also corrects each line's time zero and gain (least squares over the "
-                        "network); default off")
-    g.add_argument("--gain", metavar="power:P|exp:DB_PER_NS|none",
-                   help="gain against time below time zero (default power:1, t^1)")
-    g = p.add_argument_group("velocity")
-    v = g.add_mutually_exclusive_group()
-    v.add_argument("--velocity", type=_float, metavar="M_PER_NS",
-                   help="radar velocity in the ground, m/ns (0 < v < 0.2998)")
-    v.add_argument("--permittivity", type=_float, metavar="ER",
-                   help="relative permittivity of the ground (v = c / sqrt(er))")
-    v.add_argument("--velocity-model", metavar="FILE",
-                   help="velocity-model TOML file: constant, layered (interval or RMS "
-                        "velocities) or lateral (see README)")
-    g.add_argument("--velocity-std", type=_float, metavar="M_PER_NS",
-                   help="one-sigma uncertainty of --velocity, for each slice's depth error")
-    g = p.add_argument_group("slices and grid")
-    s = g.add_mutually_exclusive_group()
-    s.add_argument("--depths", metavar="TOP:BOTTOM:STEP",
-                   help="depth slices in m below the surface (needs a velocity)")
-    s.add_argument("--times", metavar="TOP:BOTTOM:STEP",
-                   help="time slices in ns below time zero")
-    s.add_argument("--elevations", metavar="TOP:BOTTOM:STEP",
-                   help="elevation slices in m above --datum, TOP the higher (implies "
-                        "--slices elevation)")
-    g.add_argument("--slices", choices=("depth", "elevation"),
-                   help="depth below the ground (default) or elevation: level slices above "
-                        "--datum, each trace cut below its own ground (needs --terrain)")
-    g.add_argument("--terrain", metavar="gnss|table|DEM.tif",
-                   help="the ground's elevation: gnss (track heights less --antenna-height), "
-                        "table (columns start_elevation, end_elevation) or a GeoTIFF")
-    g.add_argument("--antenna-height", type=_float, metavar="M",
-                   help="GNSS antenna height above the ground (--terrain gnss)")
-    g.add_argument("--datum", metavar="NAME",
-                   help="vertical datum of the elevations, e.g. EGM2008 (recorded, not converted)")
-    g.add_argument("--thickness", type=_float, metavar="M|NS",
-                   help="slice thickness (default: the step)")
-    g.add_argument("--level", action="store_const", const=True, default=None,
-                   help="remove line-to-line stripes from the slice values before gridding "
-                        "(robust, against neighbouring lines; a feature along most of one "
-                        "line can be taken for a stripe)")
-    g.add_argument("--cell", type=_float, metavar="M",
-                   help="grid cell in m (default: a round number near a quarter of the line "
-                        "spacing)")
-    g.add_argument("--radius", type=_float, metavar="M",
-                   help="search radius in m: cells farther from any trace stay nodata, "
-                        "unless between two lines at most --max-gap apart (default 0.75 x "
-                        "line spacing)")
-    g.add_argument("--max-gap", type=_float, metavar="M",
-                   help="widest gap in m between parallel lines that is bridged by "
-                        "interpolation; a wider gap (missing lines, two blocks) stays nodata "
-                        "beyond --radius from the lines beside it (default 2.5 x line "
-                        "spacing; 0 bridges nothing)")
-    g = p.add_argument_group("engine")
-    g.add_argument("--scheduler", metavar="auto|threads|processes|local:N|tcp://HOST:PORT",
-                   help="where the work runs: auto (default: threads below 300 000 traces, "
-                        "processes above), dask threads, dask processes, a LocalCluster of N "
-                        "workers, or an existing dask.distributed cluster")
-    g.add_argument("--memory-limit", metavar="SIZE",
-                   help="memory budget of the build's working data, e.g. 2GB (default 1GiB); "
-                        "a build that cannot fit is refused before it starts")
-    g = p.add_argument_group("output")
-    g.add_argument("--formats", metavar="tif,zarr,nc",
-                   help="what to write besides overview.png and record.json, a comma list: "
-                        "tif (one Cloud Optimized GeoTIFF per slice, in slices/), zarr (the "
-                        "cube as a chunked Zarr store, cube.zarr), nc (the cube as CF "
-                        "NetCDF-4, cube.nc); default tif")
-    g.add_argument("--radargrams", action=argparse.BooleanOptionalAction, default=None,
-                   help="draw each processed line as radargrams/LINE.png, shown in viewer.html "
-                        "on a click (default on)")
-    g.add_argument("--title", help="title of the overview sheet")
-    g.add_argument("--overwrite", action="store_const", const=True, default=None,
-                   help="replace the outputs of an earlier build in a non-empty --out folder")
-    _state_limits(p)
-
-
-def _state_limits(parser: argparse.ArgumentParser) -> None:
-    """Append each number option's accepted range (from the one table of options) to its help."""
-    from slicer.pipeline.options import OPTIONS
-
-    for action in parser._actions:
-        option = OPTIONS.get(action.dest)
-        if option is not None and option.limits and action.help:
-            action.help += f" [{option.limits}]"
 
 
 def make_parser() -> argparse.ArgumentParser:
@@ -207,7 +54,7 @@ def make_parser() -> argparse.ArgumentParser:
                         "file): its settings, with its inputs checked unchanged; options given "
                         "override the recorded ones. Writes to a new folder beside the earlier "
                         "build unless --out is given")
-    _add_build_options(b)
+    add_build_options(b)
     b.add_argument("--out", metavar="DIR", help="output folder (must be empty or new, unless "
                    "--overwrite); required unless the survey file sets it (with --repeat: "
                    "default a new DIR-repeat-N beside the repeated build)")
@@ -220,15 +67,15 @@ def make_parser() -> argparse.ArgumentParser:
                         "targets crossed obliquely. With --out, write velocity.toml (for "
                         "slicer build --velocity-model) and one figure per line.")
     ve.add_argument("survey", metavar="LINES.csv|SURVEY.toml")
-    ve.add_argument("--sample-interval", type=_float, metavar="NS",
+    ve.add_argument("--sample-interval", type=floats, metavar="NS",
                     help="sample interval in ns, when the files cannot hold it")
-    ve.add_argument("--time-zero", type=_number_or_auto, metavar="NS|auto",
+    ve.add_argument("--time-zero", type=number_or_auto, metavar="NS|auto",
                     help="time zero in ns on the raw record, or auto (default)")
     ve.add_argument("--positions", choices=("table", "headers", "track"),
                     help="trace positions from the line table (default), the trace headers or "
                          "each row's GNSS track (see slicer build --help)")
     ve.add_argument("--crs", help="CRS of the line coordinates")
-    ve.add_argument("--antenna-separation", type=_float, metavar="M",
+    ve.add_argument("--antenna-separation", type=floats, metavar="M",
                     help="transmitter-receiver distance in m: time zero is the direct wave "
                          "minus separation / c and the hyperbolas are fitted with the "
                          "bistatic path (default 0)")
@@ -249,18 +96,18 @@ def make_parser() -> argparse.ArgumentParser:
                         "1 / (6 f), time window 1.3 x 2 d / v and low-loss attenuation 1636 "
                         "sigma / sqrt(er) dB/m (Annan 2009, in Jol (ed.) 2009), with the exact "
                         "lossy-medium value beside it.")
-    pl.add_argument("--frequency", type=_float, required=True, metavar="MHZ",
+    pl.add_argument("--frequency", type=floats, required=True, metavar="MHZ",
                     help="antenna centre frequency, MHz")
     pv = pl.add_mutually_exclusive_group(required=True)
-    pv.add_argument("--permittivity", type=_float, metavar="ER",
+    pv.add_argument("--permittivity", type=floats, metavar="ER",
                     help="relative permittivity of the ground")
-    pv.add_argument("--velocity", type=_float, metavar="M_PER_NS",
+    pv.add_argument("--velocity", type=floats, metavar="M_PER_NS",
                     help="radar velocity in the ground, m/ns")
-    pl.add_argument("--conductivity", type=_float, default=0.0, metavar="MS_PER_M",
+    pl.add_argument("--conductivity", type=floats, default=0.0, metavar="MS_PER_M",
                     help="electrical conductivity of the ground, mS/m (default 0)")
-    pl.add_argument("--target-depth", type=_float, required=True, metavar="M",
+    pl.add_argument("--target-depth", type=floats, required=True, metavar="M",
                     help="depth of the deepest target, m")
-    pl.add_argument("--target-size", type=_float, metavar="M",
+    pl.add_argument("--target-size", type=floats, metavar="M",
                     help="plan size of the smallest target, m")
     pl.add_argument("--json", action="store_true", help="print one JSON object")
 
@@ -288,9 +135,9 @@ def make_parser() -> argparse.ArgumentParser:
                        "('bodies') in a GeoPackage in the survey CRS.")
     o.add_argument("build", metavar="OUT", help="folder of an earlier slicer build")
     o.add_argument("--out", metavar="FILE.gpkg", required=True, help="GeoPackage to write")
-    o.add_argument("--threshold", type=_float, default=3.0, metavar="K",
+    o.add_argument("--threshold", type=floats, default=3.0, metavar="K",
                    help="robust standard deviations above the slice median (default 3)")
-    o.add_argument("--min-area", type=_float, metavar="M2",
+    o.add_argument("--min-area", type=floats, metavar="M2",
                    help="smallest outline kept, m2 (default four cells)")
     o.add_argument("--overwrite", action="store_true", help="replace an existing FILE.gpkg")
 
@@ -300,10 +147,11 @@ def make_parser() -> argparse.ArgumentParser:
     se.add_argument("build", metavar="OUT", help="folder of an earlier slicer build")
     se.add_argument("--through", nargs="+", required=True, metavar="X,Y",
                     help="the path's points in the survey CRS, m (two or more)")
-    se.add_argument("--spacing", type=_float, metavar="M",
+    se.add_argument("--spacing", type=floats, metavar="M",
                     help="distance between samples along the path (default: the cell)")
     se.add_argument("--out", metavar="FILE.png", required=True, help="figure to write")
     se.add_argument("--overwrite", action="store_true", help="replace an existing FILE.png")
+    add_display_options(se)
     return parser
 
 
@@ -370,8 +218,10 @@ def _run_demo(args) -> int:
 
 
 def _to_look(out) -> str:
+    pages = sorted(Path(out).glob("overview*.png")) or [Path(out) / "overview.png"]
+    more = f" ({len(pages)} pages)" if len(pages) > 1 else ""
     return (f"viewer: {Path(out) / 'viewer.html'} (open in a browser); overview: "
-            f"{Path(out) / 'overview.png'}")
+            f"{pages[0]}{more}")
 
 
 def _run_view(args) -> int:
@@ -439,8 +289,10 @@ def _run_map(args) -> int:
                                     min_area=args.min_area, overwrite=args.overwrite))
     else:
         points = [results.parse_point(t) for t in args.through]
+        from slicer.outputs.display import parse_display
+        display = parse_display(colormap=args.colormap, stretch=args.stretch, clip=args.clip)
         print(results.section_build(args.build, points, args.out, spacing=args.spacing,
-                                    overwrite=args.overwrite))
+                                    overwrite=args.overwrite, display=display))
     return 0
 
 
