@@ -127,11 +127,16 @@ def bearing(x0: float, y0: float, x1: float, y1: float) -> float:
 
 
 def titles(image: xr.DataArray, title: str | None = None) -> tuple[str, str]:
-    """A radargram's two title lines: the name, then its direction and CRS ends."""
+    """A radargram's two title lines: the name (with the ground's elevation at the line's ends,
+    when an elevation build knows it: ``attrs["ground"]``, ``[start, end, datum]``), then its
+    direction and CRS ends."""
     x, y = image[X].values, image[Y].values
     (x0, y0) = image.attrs.get("line_start", (x[0], y[0]))
     (x1, y1) = image.attrs.get("line_end", (x[-1], y[-1]))
     name = title or str(image.attrs.get("line", image.name or "line"))
+    if image.attrs.get("ground") is not None:
+        g0, g1, datum = image.attrs["ground"]
+        name = f"{name}   ground {float(g0):.2f} to {float(g1):.2f} m above {datum}"
     return name, (f"travel bearing {bearing(x0, y0, x1, y1):.0f} deg from grid north, "
                   f"({x0:.2f}, {y0:.2f}) to ({x1:.2f}, {y1:.2f}) m")
 

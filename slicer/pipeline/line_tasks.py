@@ -143,6 +143,11 @@ def reduce_line(job: LineJob) -> dict:
         trace = (trace * np.float32(gain)).astype(np.float32) if signed else None
         twt, time_zero_ns = twt - shift, time_zero_ns + shift
         history = f"{history}; {tie_step(shift, gain)}" if history else tie_step(shift, gain)
+    separation = settings.antenna_separation or 0.0
+    model = _resampling_model(job.windows, job.velocity)
+    # elevation slices: each trace's windows at its own depth below its own ground
+    surface = (line_surface(line, job.entry, settings) if job.windows.axis == ELEVATION
+               else None)
     image = None
     if settings.radargrams:  # the processed line as its radargram shows it, decimated
         from slicer.outputs.radargram import PAGE_CELLS, image_of_samples  # matplotlib: here
@@ -151,14 +156,10 @@ def reduce_line(job: LineJob) -> dict:
             trace if signed else env, line["x"].values, line["y"].values, twt,
             name=line_name(job.entry, line.attrs), most=PAGE_CELLS,
             attrs={"line": line_name(job.entry, line.attrs),  # and how to draw it:
-                   "velocity": job.velocity if constant and job.windows.axis == "depth" else None,
-                   "windows": window_times(job.windows, job.velocity,
-                                           separation=settings.antenna_separation or 0.0)})
-    separation = settings.antenna_separation or 0.0
-    model = _resampling_model(job.windows, job.velocity)
-    # elevation slices: each trace's windows at its own depth below its own ground
-    surface = (line_surface(line, job.entry, settings) if job.windows.axis == ELEVATION
-               else None)
+                   "velocity": job.velocity if constant and job.windows.axis != TWT else None,
+                   "windows": window_times(job.windows, job.velocity, separation=separation),
+                   **({} if surface is None else {"ground": [
+                       float(surface[0]), float(surface[-1]), str(settings.datum)]})})
     axis = twt
     if model is not None:  # as depth_axis_for: onto a depth axis before cutting windows
         deepest = _deepest(job.windows, surface)

@@ -116,3 +116,14 @@ def test_overview_and_section_name_the_elevations(tmp_path):
     assert figure.axes[0].get_ylabel() == f"elevation above {DATUM} (m)"
     low, high = figure.axes[0].get_ylim()
     assert high > low  # elevation counts up the page
+
+
+def test_a_radargram_title_names_the_ground_at_the_line_ends():
+    from slicer.outputs.radargram import image_of_samples, titles
+    n = 50
+    image = image_of_samples(np.ones((n, 40)), 513000 + 0.1 * np.arange(n), np.full(n, 4651000.0),
+                             0.1 * np.arange(40), attrs={"line": "L7",
+                                                         "ground": [120.0, 120.392, "site"]})
+    name, ends = titles(image)
+    assert name == "L7   ground 120.00 to 120.39 m above site"
+    assert "(513000.00, 4651000.00) to (513004.90, 4651000.00) m" in ends
