@@ -26,6 +26,7 @@ from slicer.geometry.survey import load_line, survey_info
 from slicer.pipeline.settings import BuildSettings
 from slicer.processing.steps import correct_time_zero
 from slicer.velocity.combine import survey_velocity
+from slicer.velocity.coupling import HEIGHT_STD, correct_for_coupling
 from slicer.velocity.diffraction import find_diffractions
 from slicer.velocity.model_file import write_velocity_model
 from slicer.velocity.models import ConstantVelocity
@@ -47,16 +48,19 @@ class VelocityAnalysis:
     velocity_std_aperture: float = 0.0
     #: The survey CRS of the fits' x and y (None: a local grid).
     crs: str | None = None
+    #: Antenna height the picks were corrected with, m (None: not corrected).
+    antenna_height: float | None = None
 
     def to_json(self) -> dict:
         """``velocity``, ``velocity_std`` (m/ns; the standard uncertainty: in quadrature
         ``velocity_std_lines``, the bootstrap over lines, and ``velocity_std_aperture``, the
-        systematic part from refits over narrower apertures), ``velocity_std_fits`` (from the
-        fits' own errors), ``groups`` and ``fits`` with position, time, depth (at the
-        survey velocity, bistatic with the antenna separation), shape (``"point"``, ``"offset"``
-        or ``"round"``; ``delay``, ns, the fitted time offset and ``radius``, m, the fitted or
-        equivalent radius ``-delay v / 2``), ``velocity_std_aperture`` and what the
-        combination made of each
+        systematic part from refits over narrower apertures and, with the picks corrected for
+        the antennas' coupling, the antenna height's uncertainty), ``velocity_std_fits``
+        (from the fits' own errors), ``antenna_height`` (m, or None), ``groups`` and
+        ``fits`` with position, time, depth (at the survey velocity, bistatic with the antenna
+        separation), shape (``"point"``, ``"offset"`` or ``"round"``; ``delay``, ns, the
+        fitted time offset and ``radius``, m, the fitted or equivalent radius
+        ``-delay v / 2``), ``velocity_std_aperture`` and what the combination made of each
         (``reason``, ``corrected_velocity`` for a linear target crossed at ``crossing_angle``
         degrees)."""
         kept = {id(f) for f in self.kept}
@@ -84,10 +88,11 @@ class VelocityAnalysis:
                 "velocity_std_lines": number(self.velocity_std_lines),
                 "velocity_std_aperture": number(self.velocity_std_aperture),
                 "antenna_separation": self.separation,
+                "antenna_height": self.antenna_height,
                 "units": {"velocity": "m/ns", "x": "m", "y": "m", "time": "ns", "depth": "m",
                           "radius": "m", "delay": "ns", "crossing_angle": "degree",
                           "velocity_std": "m/ns",
-                          "antenna_separation": "m"},
+                          "antenna_separation": "m", "antenna_height": "m"},
                 "groups": [g._asdict() for g in self.groups],
                 "fits": [row(f) for f in self.fits]}
 
@@ -100,7 +105,8 @@ class VelocityAnalysis:
 
 def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
                      figures: str | os.PathLike | None = None,
-                     separation: float | None = None) -> VelocityAnalysis:
+                     separation: float | None = None, antenna_height: float | None = None,
+                     height_std: float = HEIGHT_STD) -> VelocityAnalysis:
     """Find and fit the diffraction hyperbolas of every line; combine them.
 
     Parameters
@@ -115,6 +121,14 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
         Transmitter-receiver separation, m (default: the survey's ``antenna_separation``, or
         0): a picked time zero is the direct wave less ``separation / c`` and the hyperbolas
         are fitted with the bistatic travel time.
+    antenna_height : float, optional
+        Height of the antennas above the ground, m (0: on it). Given, the picks of every
+        hyperbola are corrected for antennas coupled to the ground and refitted
+        (:func:`~slicer.velocity.coupling.correct_for_coupling`); by default they are not (the
+        straight-ray hyperbola, right for antennas well above the ground or data without
+        the boundary's coupling, such as slicer's own synthetic surveys).
+    height_std : float
+        Uncertainty of ``antenna_height``, m, carried into the systematic uncertainty.
     """
     from slicer.geometry.positioning import prepare_survey
     if separation is None:
@@ -131,6 +145,9 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
                                      threshold=settings.time_zero_threshold,
                                      separation=separation)
             found = find_diffractions(line, separation=separation)
+            if antenna_height is not None:
+                found = correct_for_coupling(line, found, antenna_height=antenna_height,
+                                             separation=separation, height_std=height_std)
             fits.extend(found)
             if figures is not None:
                 plot_line_fits(line, found, Path(figures) / f"{line.attrs['line']}.png")
@@ -139,7 +156,8 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     return VelocityAnalysis(float(estimate.velocity), float(estimate.std), fits,
                             list(estimate.kept), float(estimate.fit_std), estimate.groups,
                             estimate.assessed, separation, float(estimate.std_lines),
-                            float(estimate.std_aperture), settings.crs)
+                            float(estimate.std_aperture), settings.crs,
+                            None if antenna_height is None else float(antenna_height))
 
 
 def plot_line_fits(line, fits, path: Path) -> Path:
