@@ -4,4 +4,5 @@ import sys
 
 from slicer.cli import main
 
-sys.exit(main())
+if __name__ == "__main__":  # not when a test imports every module
+    sys.exit(main())
