@@ -37,6 +37,7 @@ from slicer.io.linetable import (
     read_line_table,
 )
 from slicer.pipeline.elevation_slices import (
+    ELEVATION_OPTIONS,
     check_elevation_settings,
     elevation_windows,
     wants_elevation,
@@ -367,6 +368,9 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
         if any(overrides.get(k) is not None for k in group):
             for k in group:
                 options.pop(k, None)
+    if overrides.get("depths") or overrides.get("times") or overrides.get("slices") == "depth":
+        for k in ELEVATION_OPTIONS:  # the file's elevation slices give way with their ground
+            options.pop(k, None)
     for key, value in overrides.items():
         if value is not None:
             options[key] = check_option(key, value)

@@ -214,3 +214,21 @@ def test_an_elevation_build_reopens_from_its_slices(survey, tmp_path, capsys):
     assert main(["view", str(out)]) == 0  # the viewer page written again from the build
     page = (out / "viewer.html").read_text(encoding="utf-8")
     assert "100.4-100.2 m" in page  # each slice labelled by its elevations in metres
+
+
+def test_a_survey_file_names_its_dem_beside_it(survey):
+    # a TOML survey file's paths are relative to its folder, the DEM's too; the words stay words
+    (survey / "sub").mkdir()
+    shutil.move(survey / "dem.tif", survey / "sub" / "dem.tif")
+    toml = survey / "sub" / "survey.toml"
+    toml.write_text('lines = "../lines.csv"\ncrs = "EPSG:32633"\nvelocity = 0.1\n'
+                    'time_zero = 3.0\nslices = "elevation"\nterrain = "dem.tif"\n'
+                    'datum = "site"\n', encoding="utf-8")
+    settings = load_settings(toml)
+    assert settings.terrain == str(survey / "sub" / "dem.tif")
+    toml.write_text(toml.read_text().replace('"dem.tif"', '"table"'), encoding="utf-8")
+    with pytest.raises(LineTableError, match="start_elevation"):  # lines.csv has no elevations
+        load_settings(toml)
+    # a flag replaces the file's choice of slices (and what only elevation slices use)
+    depth = load_settings(toml, depths="0:1:0.1")
+    assert depth.slices_axis == "depth" and depth.terrain is None and depth.datum is None
