@@ -98,3 +98,23 @@ def test_bad_options():
         outline(cube, threshold=0)
     with pytest.raises(SettingsError):
         outline(cube, min_area=-1.0)
+    for bad in ({"fraction": 1.5}, {"floor": -0.1}, {"fraction": float("nan")}):
+        with pytest.raises(SettingsError):
+            outline(cube, **bad)
+
+
+def test_a_weak_patch_on_a_strong_reflectors_echo_is_dropped_and_alone_kept():
+    rng = np.random.default_rng(5)
+    data = rng.normal(1.0, 0.05, (12, 100, 100)).astype(np.float32)
+    data[3, 50:53, 20:23] = 10.0  # a strong reflector in the window 0.3-0.4 m
+    # 0.4-0.5 m east of it in the window 0.6-0.7 m: slant distances from 0.3-0.4 m deep reach
+    # sqrt(0.4² + 0.35²) = 0.53 m, within one slice of the window: where its limb lands
+    data[6, 50:53, 26:28] = 3.0
+    data[6, 80:83, 60:63] = 3.0  # the same patch with nothing above it
+    cube = new_cube(data, west=WEST, north=NORTH, cell=CELL, crs="EPSG:32633", top=TOPS,
+                    bottom=TOPS + 0.1)
+    mask = anomaly_mask(cube)
+    assert mask[3, 51, 21] and mask[6, 81, 61]
+    assert not mask[6, 50:53, 26:28].any()
+    # rule 3 off: both patches stand out (robust deviations alone)
+    assert anomaly_mask(cube, fraction=0.0)[6, 50:53, 26:28].all()
