@@ -360,6 +360,16 @@ def test_velocity_writes_a_model_the_build_accepts(small_survey, tmp_path, capsy
     assert code == 0, err
 
 
+def test_velocity_takes_the_antenna_height(small_survey, capsys):
+    import json
+    code, out, err = run(capsys, "velocity", small_survey.line_table, "--sample-interval",
+                         "0.1", "--time-zero", "3.0", "--antenna-height", "0.0", "--json", "-q")
+    assert code == 0, err
+    assert json.loads(out)["antenna_height"] == 0.0  # the correction ran (see test_coupling)
+    code, _, err = run(capsys, "velocity", small_survey.line_table, "--antenna-height", "-0.1")
+    assert code == 2 and "--antenna-height" in err
+
+
 @pytest.mark.parametrize("text, match", [
     ('kind = "layered"\n[[layer]]\ntop_depth = 0.0\nvelocity = 0.1\nvelocity_std = 0.0\n'
      '[[layer]]\ntop_depth = 2.0\nvelocity = 0.1\nvelocity_std = 0.0\n'

@@ -79,6 +79,10 @@ def make_parser() -> argparse.ArgumentParser:
                     help="transmitter-receiver distance in m: time zero is the direct wave "
                          "minus separation / c and the hyperbolas are fitted with the "
                          "bistatic path (default 0)")
+    ve.add_argument("--antenna-height", type=floats, metavar="M",
+                    help="height of the radar antennas above the ground (0: on it): the picks "
+                         "are corrected for the ground coupling that makes straight "
+                         "hyperbolas read fast (default: no correction; slower)")
     ve.add_argument("--out", metavar="DIR", help="write velocity.toml and figures/ here")
     ve.add_argument("--overwrite", action="store_true", help="allow a non-empty --out")
     ve.add_argument("--json", action="store_true", help="print one JSON object on stdout")
@@ -240,12 +244,14 @@ def _run_velocity(args) -> int:
 
     settings = load_settings(args.survey, sample_interval=args.sample_interval,
                              time_zero=args.time_zero, positions=args.positions, crs=args.crs,
-                             antenna_separation=args.antenna_separation)
+                             antenna_separation=args.antenna_separation,
+                             antenna_height=args.antenna_height)
     figures = None
     if args.out:
         prepare_output_dir(args.out, overwrite=args.overwrite, create=False)
         figures = Path(args.out) / "figures"
-    analysis = analyse_velocity(settings, progress=not args.quiet, figures=figures)
+    analysis = analyse_velocity(settings, progress=not args.quiet, figures=figures,
+                                antenna_height=settings.antenna_height)
     if args.out:
         write_velocity_outputs(analysis, args.out, overwrite=True)
     if args.json:

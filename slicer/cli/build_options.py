@@ -113,9 +113,9 @@ def add_build_options(p: argparse.ArgumentParser) -> None:
                    help="depth below the ground (default) or elevation: level slices above "
                         "--datum, each trace cut below its own ground (needs --terrain)")
     g.add_argument("--terrain", metavar="gnss|table|DEM.tif",
-                   help="the ground's elevation: gnss (track heights less --antenna-height), "
+                   help="the ground's elevation: gnss (track heights less --gnss-height), "
                         "table (columns start_elevation, end_elevation) or a GeoTIFF")
-    g.add_argument("--antenna-height", type=floats, metavar="M",
+    g.add_argument("--gnss-height", type=floats, metavar="M",
                    help="GNSS antenna height above the ground (--terrain gnss)")
     g.add_argument("--datum", metavar="NAME",
                    help="vertical datum of the elevations, e.g. EGM2008 (recorded, not converted)")

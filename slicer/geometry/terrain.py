@@ -28,7 +28,7 @@ from slicer.core.errors import InputFileError, SettingsError
 TERRAIN_WORDS = ("gnss", "table")
 
 
-def surface_from_heights(height, *, antenna_height: float, where: str = "track") -> np.ndarray:
+def surface_from_heights(height, *, gnss_height: float, where: str = "track") -> np.ndarray:
     """Ground elevation (m) from GNSS antenna heights (m) and the antenna's height above ground.
 
     Raises
@@ -42,7 +42,7 @@ def surface_from_heights(height, *, antenna_height: float, where: str = "track")
         raise InputFileError(f"{bad.size} of {h.size} traces have no GNSS height (first: trace "
                              f"{bad[0]}); every trace needs one for elevation slices",
                              where=where)
-    return h - float(antenna_height)
+    return h - float(gnss_height)
 
 
 def surface_from_ends(x, y, *, start, end, start_elevation: float, end_elevation: float

@@ -2,7 +2,7 @@
 
 ``slices = "elevation"`` (or ``elevations`` given) cuts slices at constant elevation above the
 vertical datum named by ``datum``, from the ground's elevation at every trace (``terrain``: the
-GNSS tracks' heights less ``antenna_height``, the line table's ``start_elevation`` /
+GNSS tracks' heights less ``gnss_height``, the line table's ``start_elevation`` /
 ``end_elevation``, or an elevation model GeoTIFF). Everything is checked before any trace is
 read, and a missing height or an elevation model that misses the survey stops the build with one
 line before anything is written.
@@ -28,7 +28,7 @@ from slicer.gridding.elevation import OPTION, make_elevation_windows
 from slicer.gridding.windows import Windows, parse_range
 
 #: Options that only elevation slices use.
-ELEVATION_OPTIONS = ("elevations", "terrain", "antenna_height", "datum")
+ELEVATION_OPTIONS = ("elevations", "terrain", "gnss_height", "datum")
 
 
 def wants_elevation(settings) -> bool:
@@ -73,17 +73,17 @@ def check_elevation_settings(settings) -> None:
                             "--permittivity or --velocity-model", where="--velocity")
     terrain = check_terrain(settings.terrain)
     if terrain == "gnss":
-        if settings.antenna_height is None:
+        if settings.gnss_height is None:
             raise SettingsError("--terrain gnss needs the GNSS antenna's height above the "
-                                "ground (m)", where="--antenna-height")
+                                "ground (m)", where="--gnss-height")
         untracked = [e for e in settings.lines if (e.positions or settings.positions) != "track"]
         if untracked:
             raise SettingsError(f"--terrain gnss takes heights from each line's GNSS track, but "
                                 f"the line at {untracked[0].where} is not placed from a track",
                                 where="--terrain")
-    elif settings.antenna_height is not None:
+    elif settings.gnss_height is not None:
         raise SettingsError("has no effect: only --terrain gnss subtracts it",
-                            where="--antenna-height")
+                            where="--gnss-height")
     if terrain == "table":
         for e in settings.lines:
             for column in ("start_elevation", "end_elevation"):
@@ -131,7 +131,7 @@ def line_surface(line, entry, settings) -> np.ndarray:
             raise InputFileError("the GNSS track has no height column; elevation slices from "
                                  "GNSS need trace,x,y,height (or lon,lat,height)", where=where)
         return surface_from_heights(line["height"].values,
-                                    antenna_height=settings.antenna_height, where=where)
+                                    gnss_height=settings.gnss_height, where=where)
     if terrain == "table":
         return surface_from_ends(x, y, start=entry.start, end=entry.end,
                                  start_elevation=entry.start_elevation,

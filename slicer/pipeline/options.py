@@ -263,11 +263,15 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
     _o("elevations", "text", "elevation slices TOP:BOTTOM:STEP in m above the datum, TOP the "
        "higher (default: from the highest ground down as far as the record reaches)"),
     _o("terrain", "text", "the ground's elevation at every trace, for elevation slices: "
-       "'gnss' (the height column of each line's GNSS track, less --antenna-height), 'table' "
+       "'gnss' (the height column of each line's GNSS track, less --gnss-height), 'table' "
        "(line-table columns start_elevation and end_elevation) or an elevation model "
        "GeoTIFF"),
+    # Ground-coupled antennas ride 0-5 cm up; 2 m covers air-launched horns.
+    _o("antenna_height", "number", "height of the radar antennas above the ground, for slicer "
+       "velocity's correction of ground coupling (0: on the ground; default no correction)",
+       "m", 0, 2),
     # A survey pole or a cart mast holds a GNSS antenna 0.3-3 m up; 20 m covers any vehicle.
-    _o("antenna_height", "number", "height of the GNSS antenna above the ground, subtracted "
+    _o("gnss_height", "number", "height of the GNSS antenna above the ground, subtracted "
        "from the track's heights (--terrain gnss)", "m", 0, 20),
     _o("datum", "text", "vertical datum the elevations refer to (e.g. 'EGM2008' or 'site "
        "benchmark BM1'), written into every output; slicer converts between none"),

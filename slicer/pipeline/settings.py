@@ -74,6 +74,7 @@ class BuildSettings:
     sample_interval: float | None = None
     time_zero: float | str = "auto"
     antenna_separation: float | None = None
+    antenna_height: float | None = None
     time_zero_threshold: float = 0.5
     dewow: float | str = "auto"
     background: str = "scaled"
@@ -96,7 +97,7 @@ class BuildSettings:
     slices: str | None = None
     elevations: str | None = None
     terrain: str | None = None
-    antenna_height: float | None = None
+    gnss_height: float | None = None
     datum: str | None = None
     scheduler: str = "auto"
     memory_limit: str | float | None = None

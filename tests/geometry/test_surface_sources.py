@@ -47,13 +47,13 @@ def dem(tmp_path_factory):
 
 
 def test_heights_less_the_antenna():
-    np.testing.assert_allclose(surface_from_heights([101.5, 102.0], antenna_height=1.5),
+    np.testing.assert_allclose(surface_from_heights([101.5, 102.0], gnss_height=1.5),
                                [100.0, 100.5])
 
 
 def test_a_missing_height_is_refused_naming_the_trace():
     with pytest.raises(InputFileError, match="first: trace 2") as e:
-        surface_from_heights([1.0, 2.0, np.nan, np.nan], antenna_height=0.0, where="t.csv")
+        surface_from_heights([1.0, 2.0, np.nan, np.nan], gnss_height=0.0, where="t.csv")
     assert e.value.where == "t.csv" and "2 of 4" in e.value.message
 
 

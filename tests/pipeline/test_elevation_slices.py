@@ -80,7 +80,7 @@ def test_level_ground_gives_the_depth_slices(survey):
 
 def test_gnss_heights_and_a_dem_give_the_table_cube(survey):
     table = cube_of(survey / "slope.csv", terrain="table", datum="d", elevations="100.4:98.1:0.1")
-    gnss = cube_of(survey / "gnss.csv", terrain="gnss", antenna_height=1.2, datum="d",
+    gnss = cube_of(survey / "gnss.csv", terrain="gnss", gnss_height=1.2, datum="d",
                    elevations="100.4:98.1:0.1", track_crs="EPSG:32633")
     dem = cube_of(survey / "lines.csv", terrain=str(survey / "dem.tif"), datum="d",
                   elevations="100.4:98.1:0.1")
@@ -122,9 +122,9 @@ def test_default_elevations_span_the_ground_and_the_record(survey):
     ({"slices": "depth", "elevations": "100:99:0.1"}, SettingsError, "--elevations"),
     ({"datum": "d"}, SettingsError, "--datum"),
     ({"slices": "elevation", "terrain": "gnss", "datum": "d"}, SettingsError,
-     "--antenna-height"),
-    ({"slices": "elevation", "terrain": "table", "datum": "d", "antenna_height": 1.0},
-     SettingsError, "--antenna-height"),
+     "--gnss-height"),
+    ({"slices": "elevation", "terrain": "table", "datum": "d", "gnss_height": 1.0},
+     SettingsError, "--gnss-height"),
     ({"slices": "elevation", "terrain": "nowhere.tif", "datum": "d"}, InputFileError,
      "nowhere.tif"),
     ({"slices": "elevation", "terrain": "table", "datum": "d", "elevations": "99:100:0.1"},
@@ -145,7 +145,7 @@ def test_table_ground_needs_both_columns_on_every_row(survey):
 
 def test_gnss_ground_needs_tracks(survey):
     with pytest.raises(SettingsError, match="not placed from a track"):
-        load_settings(survey / "slope.csv", **BASE, terrain="gnss", antenna_height=1.0,
+        load_settings(survey / "slope.csv", **BASE, terrain="gnss", gnss_height=1.0,
                       datum="d", slices="elevation")
 
 
@@ -181,7 +181,7 @@ def test_cli_refuses_missing_heights(survey, tmp_path, capsys):
     _refused(capsys, out, "build", survey / "gnss.csv", "--crs", "EPSG:32633", "--track-crs",
              "EPSG:32633", "--velocity", "0.1", "--time-zero", "3", "--slices", "elevation",
              "--terrain", "gnss",
-             "--antenna-height", "1.2", "--datum", "d", "--out", out, match="L001")
+             "--gnss-height", "1.2", "--datum", "d", "--out", out, match="L001")
 
 
 def test_cli_writes_elevation_slices_with_their_datum(survey, tmp_path, capsys):

@@ -29,7 +29,7 @@ def slope(tmp_path_factory):
     return survey.folder, json.loads(survey.truth_file.read_text())
 
 
-TERRAINS = {"gnss": {"terrain": "gnss", "antenna_height": 1.0},
+TERRAINS = {"gnss": {"terrain": "gnss", "gnss_height": 1.0},
             "table": {"terrain": "table"},
             "dem": {"terrain": "dem.tif"}}
 
