@@ -209,7 +209,7 @@ def plot_radargram(image: xr.DataArray, path: str | os.PathLike | None = None, *
         depth_ax = ax.secondary_yaxis(  # set off the edge: the window brackets go between
             1.05, functions=(lambda tt: depth_from_time(tt, velocity=velocity),
                             lambda dd: time_from_depth(dd, velocity=velocity)))
-        depth_ax.set_ylabel(f"depth (m) at {velocity:g} m/ns")
+        depth_ax.set_ylabel(f"depth (m) at {velocity:.4g} m/ns")
     if windows is not None:
         top, bottom = (np.asarray(w, dtype=float) for w in windows)
         for k, (a, b) in enumerate(zip(top, bottom, strict=True)):

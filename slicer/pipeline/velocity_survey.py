@@ -16,14 +16,13 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.figure import Figure
 
-from slicer.core.atomic import atomic_path, prepare_output_dir
+from slicer.core.atomic import prepare_output_dir
 from slicer.core.physics import check_separation, depth_from_time
 from slicer.core.progress import bar_for
 from slicer.geometry.survey import load_line, survey_info
 from slicer.pipeline.settings import BuildSettings
+from slicer.pipeline.velocity_figures import line_picture, plot_line_fits
 from slicer.processing.steps import correct_time_zero
 from slicer.velocity.combine import survey_velocity
 from slicer.velocity.coupling import HEIGHT_STD, correct_for_coupling
@@ -116,7 +115,8 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     progress : bool
         Show a progress bar (on a terminal).
     figures : path-like, optional
-        Folder for one PNG per line: the radargram with each fitted hyperbola drawn on it.
+        Folder for one PNG per line: the processed radargram with each fitted hyperbola drawn
+        on it, kept and set-aside fits told apart (:mod:`slicer.pipeline.velocity_figures`).
     separation : float, optional
         Transmitter-receiver separation, m (default: the survey's ``antenna_separation``, or
         0): a picked time zero is the direct wave less ``separation / c`` and the hyperbolas
@@ -136,7 +136,7 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     separation = check_separation(separation, where="separation")
     settings = prepare_survey(settings)
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
-    fits = []
+    fits, pictures = [], []
     with bar_for(enabled=progress, total=info.n_traces, desc="diffraction search",
                  unit="trace") as bar:
         for entry in settings.lines:
@@ -149,39 +149,18 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
                 found = correct_for_coupling(line, found, antenna_height=antenna_height,
                                              separation=separation, height_std=height_std)
             fits.extend(found)
-            if figures is not None:
-                plot_line_fits(line, found, Path(figures) / f"{line.attrs['line']}.png")
+            if figures is not None:  # drawn once the survey's velocity and choice are known
+                pictures.append((line_picture(line, settings), found))
             bar.update(line.sizes["trace"])
     estimate = survey_velocity(fits)
+    for image, found in pictures:
+        plot_line_fits(image, found, Path(figures) / f"{image.attrs['line']}.png",
+                       kept=estimate.kept, velocity=float(estimate.velocity))
     return VelocityAnalysis(float(estimate.velocity), float(estimate.std), fits,
                             list(estimate.kept), float(estimate.fit_std), estimate.groups,
                             estimate.assessed, separation, float(estimate.std_lines),
                             float(estimate.std_aperture), settings.crs,
                             None if antenna_height is None else float(antenna_height))
-
-
-def plot_line_fits(line, fits, path: Path) -> Path:
-    """Radargram of a line (distance across, two-way time down) with its fitted hyperbolas."""
-    fig = Figure(figsize=(10, 4.5))
-    FigureCanvasAgg(fig)
-    ax = fig.add_subplot()
-    d, t = line["distance"].values, line["twt"].values
-    data = line.values - np.median(line.values, axis=0)
-    lim = np.percentile(np.abs(data), 99) or 1.0
-    ax.imshow(data.T, aspect="auto", cmap="gray", vmin=-lim, vmax=lim,
-              extent=(d[0], d[-1], t[-1], t[0]))
-    for f in fits:
-        x = np.linspace(max(d[0], f.distance - 2), min(d[-1], f.distance + 2), 200)
-        ax.plot(x, f.fit.travel_time(x), color="tab:red", lw=1)
-        ax.annotate(f"{f.velocity:.3f} m/ns", (f.distance, f.time), color="tab:red",
-                    fontsize=7, xytext=(3, -8), textcoords="offset points")
-    ax.set_xlabel("distance along line (m)")
-    ax.set_ylabel("two-way time (ns)")
-    ax.set_title(f"{line.attrs.get('line', '')}: {len(fits)} fitted hyperbola(s)")
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with atomic_path(path) as tmp:
-        fig.savefig(tmp, dpi=110)
-    return path
 
 
 def write_velocity_outputs(analysis: VelocityAnalysis, out: str | os.PathLike, *,
