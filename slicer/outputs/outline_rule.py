@@ -111,29 +111,47 @@ def _ring(inner: int, outer: int, cell_mm: int) -> np.ndarray:
     return ring
 
 
-def echo_reference(contrast: np.ndarray, tops: np.ndarray, bottoms: np.ndarray,
-                   cell: float) -> np.ndarray:
-    """The strongest contrast whose echo can reach each cell (rule 3 of the module docstring).
+def _echo_rings(tops: np.ndarray, bottoms: np.ndarray, k: int, cell: float):
+    """``(j, ring)`` for every slice ``j`` whose echo can reach slice ``k`` (rule 3)."""
+    thickness = np.abs(bottoms - tops)
+    for j in range(tops.size):
+        # the shallower window sends, the deeper receives (limb); or the reverse (smile)
+        near, far = (j, k) if tops[j] <= tops[k] else (k, j)
+        reach_lo = max(tops[far] - thickness[far], 0.0)
+        reach_hi = bottoms[far] + thickness[far]
+        outer = min(math.sqrt(max(reach_hi ** 2 - tops[near] ** 2, 0.0)),
+                    BEAM_TANGENT * bottoms[far])
+        inner = math.sqrt(max(reach_lo ** 2 - bottoms[near] ** 2, 0.0))
+        if inner <= outer:
+            yield j, _ring(round(inner * 1000), round(outer * 1000), round(cell * 1000))
 
-    ``contrast`` is ``(slice, y, x)`` with NaN as 0; ``tops``/``bottoms`` are depths, m.
+
+def echo_survivors(contrast: np.ndarray, candidates: np.ndarray, tops: np.ndarray,
+                   bottoms: np.ndarray, cell: float, fraction: float) -> np.ndarray:
+    """The candidates that reach ``fraction`` of every contrast whose echo can reach them.
+
+    ``contrast`` is ``(slice, y, x)`` with NaN as 0; ``candidates`` the cells to test;
+    ``tops``/``bottoms`` are depths, m. The strongest senders are tried first, and each
+    maximum filter runs only over the box around the candidates still standing (the result
+    is the same as filtering whole slices).
     """
     strength = np.maximum(contrast, 0.0)
-    out = np.zeros_like(strength)
-    thickness = np.abs(bottoms - tops)
-    for k in range(strength.shape[0]):
-        for j in range(strength.shape[0]):
-            # the shallower window sends, the deeper receives (limb); or the reverse (smile)
-            near, far = (j, k) if tops[j] <= tops[k] else (k, j)
-            reach_lo = max(tops[far] - thickness[far], 0.0)
-            reach_hi = bottoms[far] + thickness[far]
-            outer = min(math.sqrt(max(reach_hi ** 2 - tops[near] ** 2, 0.0)),
-                        BEAM_TANGENT * bottoms[far])
-            inner = math.sqrt(max(reach_lo ** 2 - bottoms[near] ** 2, 0.0))
-            if inner > outer:
-                continue
-            ring = _ring(round(inner * 1000), round(outer * 1000), round(cell * 1000))
-            np.maximum(out[k], scipy.ndimage.maximum_filter(
-                strength[j], footprint=ring, mode="constant", cval=0.0), out=out[k])
+    peaks = strength.reshape(strength.shape[0], -1).max(axis=1)
+    out = candidates.copy()
+    for k in range(out.shape[0]):
+        for j, ring in sorted(_echo_rings(tops, bottoms, k, cell), key=lambda p: -peaks[p[0]]):
+            alive = out[k]
+            if not alive.any() or fraction * peaks[j] <= contrast[k][alive].min():
+                break  # nothing left, or no sender left that could reject anyone
+            rows, cols = np.flatnonzero(alive.any(axis=1)), np.flatnonzero(alive.any(axis=0))
+            n = ring.shape[0] // 2
+            r0, r1 = max(rows[0] - n, 0), rows[-1] + n + 1
+            c0, c1 = max(cols[0] - n, 0), cols[-1] + n + 1
+            near = scipy.ndimage.maximum_filter(strength[j, r0:r1, c0:c1], footprint=ring,
+                                                mode="constant", cval=0.0)
+            box = (slice(rows[0], rows[-1] + 1), slice(cols[0], cols[-1] + 1))
+            inner = near[rows[0] - r0:rows[-1] + 1 - r0, cols[0] - c0:cols[-1] + 1 - c0]
+            alive[box] &= contrast[k][box] >= fraction * inner
     return out
 
 
@@ -165,10 +183,9 @@ def anomaly_mask(cube: xr.DataArray, *, threshold: float = THRESHOLD,
     out &= contrast >= floor * contrast.max()
     windows = depth_windows(cube) if fraction > 0 else None
     if windows is not None:
-        cell = float(cube.attrs["cell_size"])
-        out &= contrast >= fraction * echo_reference(contrast, *windows, cell)
+        out = echo_survivors(contrast, out, *windows, float(cube.attrs["cell_size"]), fraction)
     return out
 
 
 __all__ = ["BEAM_TANGENT", "FLOOR", "FRACTION", "THRESHOLD", "anomaly_mask", "check_rule",
-           "depth_windows", "echo_reference", "slice_background", "slice_windows"]
+           "depth_windows", "echo_survivors", "slice_background", "slice_windows"]
