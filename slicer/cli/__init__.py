@@ -134,15 +134,22 @@ def make_parser() -> argparse.ArgumentParser:
 
     o = sub.add_parser("outline", help="anomaly outlines of a build as GeoPackage layers",
                        description="Outline the cells of every slice of the build in OUT that "
-                       "stand out of their slice (robust deviations above its median), as one "
-                       "polygon layer per slice patch ('outlines') and one of 3-D bodies "
-                       "('bodies') in a GeoPackage in the survey CRS.")
+                       "stand out of their slice (robust deviations above its median) and are "
+                       "not the echo of a stronger reflector, as one polygon layer per slice "
+                       "patch ('outlines') and one of 3-D bodies ('bodies') in a GeoPackage in "
+                       "the survey CRS.")
     o.add_argument("build", metavar="OUT", help="folder of an earlier slicer build")
     o.add_argument("--out", metavar="FILE.gpkg", required=True, help="GeoPackage to write")
     o.add_argument("--threshold", type=floats, default=3.0, metavar="K",
                    help="robust standard deviations above the slice median (default 3)")
     o.add_argument("--min-area", type=floats, metavar="M2",
                    help="smallest outline kept, m2 (default four cells)")
+    o.add_argument("--fraction", type=floats, default=0.4, metavar="F",
+                   help="share of the strongest anomaly whose echo can reach a cell that the "
+                        "cell must reach (0: off; default 0.4)")
+    o.add_argument("--floor", type=floats, default=0.02, metavar="F",
+                   help="share of the survey's strongest anomaly a cell must reach (0: off; "
+                        "default 0.02)")
     o.add_argument("--overwrite", action="store_true", help="replace an existing FILE.gpkg")
 
     se = sub.add_parser("section", help="a vertical section through a build's cube",
@@ -292,7 +299,8 @@ def _run_map(args) -> int:
     from slicer.pipeline import results
     if args.command == "outline":
         print(results.outline_build(args.build, args.out, threshold=args.threshold,
-                                    min_area=args.min_area, overwrite=args.overwrite))
+                                    min_area=args.min_area, fraction=args.fraction,
+                                    floor=args.floor, overwrite=args.overwrite))
     else:
         points = [results.parse_point(t) for t in args.through]
         from slicer.outputs.display import parse_display

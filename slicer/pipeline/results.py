@@ -88,13 +88,15 @@ def _free(path: str | os.PathLike, overwrite: bool) -> None:
 
 
 def outline_build(out: str | os.PathLike, path: str | os.PathLike, *, threshold: float = 3.0,
-                  min_area: float | None = None, overwrite: bool = False) -> str:
+                  min_area: float | None = None, fraction: float = 0.4, floor: float = 0.02,
+                  overwrite: bool = False) -> str:
     """Outline the anomalies of the build in ``out`` into the GeoPackage ``path``
     (:func:`slicer.outputs.outlines.outline`); returns a one-line summary. An existing
     ``path`` is replaced only with ``overwrite``."""
     from slicer.outputs.outlines import outline, write_outlines
     _free(path, overwrite)
-    found = outline(open_build(out), threshold=threshold, min_area=min_area)
+    found = outline(open_build(out), threshold=threshold, min_area=min_area,
+                    fraction=fraction, floor=floor)
     write_outlines(found, path)
     return (f"{len(found.patches)} outlines in {len({p['slice'] for p in found.patches})} "
             f"slices, {len(found.bodies)} bodies; wrote {path}")

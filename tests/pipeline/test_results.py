@@ -77,3 +77,23 @@ def test_an_existing_file_is_replaced_only_with_overwrite(built, tmp_path, capsy
     assert mine.read_text() == "a file of the user's"  # untouched
     assert main(["outline", str(out), "--out", str(mine), "--overwrite"]) == 0
     assert mine.read_bytes()[:16] == b"SQLite format 3\x00"  # now a GeoPackage
+
+
+def test_outline_echo_rule_options(built, tmp_path, capsys):
+    import pyogrio
+    out, _ = built
+    area = {}
+    for name, extra in (("default", []), ("off", ["--fraction", "0", "--floor", "0"])):
+        assert main(["outline", str(out), "--out", str(tmp_path / f"{name}.gpkg"), *extra]) == 0
+        _, _, _, fields = pyogrio.raw.read(tmp_path / f"{name}.gpkg", layer="outlines",
+                                           columns=["area_m2"])
+        area[name] = float(np.sum(fields[0]))
+    # the echo rule and the floor only ever remove cells (slicer.outputs.outline_rule), and
+    # hole filling keeps that order: the outlined area can only shrink, and here it does
+    assert 0 < area["default"] < area["off"]
+    capsys.readouterr()
+    assert main(["outline", str(out), "--out", str(tmp_path / "bad.gpkg"),
+                 "--fraction", "1.5"]) == 2
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "fraction" in err[0]
+    assert not (tmp_path / "bad.gpkg").exists()
