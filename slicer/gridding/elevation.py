@@ -123,11 +123,5 @@ def window_means_varying(samples: np.ndarray, *, axis_values: np.ndarray, top: n
     return means.astype(np.float32)
 
 
-def elevation_reach(windows: Windows, surface_high: float, reach_depth: float) -> np.ndarray:
-    """Boolean mask of the windows some trace can reach: a window's bottom no deeper than
-    ``reach_depth`` (m) below the highest surface ``surface_high`` (m above the datum)."""
-    return windows.bottom >= surface_high - reach_depth - 1e-9
-
-
-__all__ = ["depth_limits", "elevation_limits", "elevation_reach", "make_elevation_windows",
+__all__ = ["depth_limits", "elevation_limits", "make_elevation_windows",
            "window_means_varying"]

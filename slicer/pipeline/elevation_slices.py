@@ -161,11 +161,11 @@ def plan_elevation_windows(windows: Windows | None, *, low: float, high: float,
     depth ``reach`` (m) the record reaches below it.
 
     Without ``windows``: ``step`` m apart, on round elevations, from just below the highest ground
-    down as deep as the record reaches below it. Given windows that no trace can fill (wholly
-    above the highest ground, or below the record under the highest ground) are left out with
-    a warning; none left is refused.
+    down as deep as the record reaches under the lowest. Given windows that no trace can fill
+    (wholly above the highest ground, or below the record under the lowest ground) are left out
+    with a warning; none left is refused.
     """
-    deepest = high - reach  # the lowest elevation any trace reaches
+    deepest = low - reach  # the lowest elevation any trace reaches: under the lowest ground
     if windows is None:
         top = math.floor(high / step + 1e-9) * step
         bottom = math.ceil(deepest / step - 1e-9) * step
@@ -175,7 +175,7 @@ def plan_elevation_windows(windows: Windows | None, *, low: float, high: float,
     keep = (windows.bottom >= deepest - 1e-9) & (windows.top <= high + 1e-9)
     if not keep.any():
         raise SettingsError(f"no slice lies between the highest ground ({high:.3f} m) and the "
-                            f"deepest the record reaches under it ({deepest:.3f} m)",
+                            f"deepest the record reaches under the lowest ({deepest:.3f} m)",
                             where=OPTION)
     if not keep.all():
         warnings.warn(f"{int((~keep).sum())} elevation slice(s) lie above the ground or below "

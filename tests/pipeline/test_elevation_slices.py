@@ -107,9 +107,9 @@ def test_slices_above_the_ground_are_empty(survey):
 def test_default_elevations_span_the_ground_and_the_record(survey):
     cube = cube_of(survey / "slope.csv", terrain="table", datum="d", slices="elevation")
     top, bottom = cube["elevation_top"].values, cube["elevation_bottom"].values
-    # hand-computed: highest ground 100.4 + 0.075 = 100.475 m; the record reaches
-    # 0.1 m/ns x (51.2 - 3.0) ns / 2 = 2.41 m below it, to 98.065 m; steps of 0.1 m
-    np.testing.assert_allclose([top[0], bottom[-1]], [100.4, 98.1], atol=1e-9)
+    # hand-computed: highest ground 100.4 + 0.075 = 100.475 m, lowest 100.0 m; the record
+    # reaches 0.1 m/ns x (51.2 - 3.0) ns / 2 = 2.41 m below the lowest, to 97.59 m; 0.1 m steps
+    np.testing.assert_allclose([top[0], bottom[-1]], [100.4, 97.6], atol=1e-9)
     np.testing.assert_allclose(top - bottom, 0.1, atol=1e-9)
     assert np.isfinite(cube.values).any(axis=(1, 2)).all()  # every slice has values
 
