@@ -92,6 +92,23 @@ def test_a_model_in_another_crs_is_sampled_where_the_traces_are(dem, tmp_path):
     np.testing.assert_allclose(model.sample(x, y, crs="EPSG:32633"), plane(x, y), atol=2e-3)
 
 
+def test_a_geographic_model_with_a_nodata_number(dem, tmp_path):
+    # elevation models often come in longitude/latitude (EPSG:4326) with a nodata number:
+    # warped by GDAL (rasterio.warp) to about 0.25 m cells in degrees, nodata -9999
+    with rasterio.open(dem) as src:
+        t, w, h = calculate_default_transform(src.crs, "EPSG:4326", src.width, src.height,
+                                              *src.bounds, resolution=(2.5e-6, 2.5e-6))
+        out = np.full((h, w), -9999, dtype=np.float32)
+        reproject(src.read(1), out, src_transform=src.transform, src_crs=src.crs,
+                  dst_transform=t, dst_crs="EPSG:4326", resampling=Resampling.bilinear,
+                  src_nodata=np.nan, dst_nodata=-9999)
+    model = ElevationModel.read(_write(tmp_path / "geo.tif", out, crs="EPSG:4326",
+                                       transform=t, nodata=-9999))
+    x = np.linspace(WEST + 2, WEST + 12, 40)
+    y = np.linspace(NORTH - 8, NORTH - 2, 40)
+    np.testing.assert_allclose(model.sample(x, y, crs="EPSG:32633"), plane(x, y), atol=5e-3)
+
+
 def test_a_model_that_misses_the_survey_is_refused(dem):
     model = ElevationModel.read(dem)
     with pytest.raises(InputFileError, match="does not cover 2 of 3 traces of line A"):
