@@ -92,6 +92,10 @@ def check_elevation_settings(settings) -> None:
                                          "it is empty here", where=e.where)
     if isinstance(terrain, Path) and not terrain.is_file():
         raise InputFileError("elevation model not found", where=str(terrain))
+    if isinstance(terrain, Path) and settings.crs is None:
+        raise SettingsError("an elevation model is placed by its CRS: give the survey's CRS "
+                            "(a survey on a local grid can take its ground from the line "
+                            "table, --terrain table)", where="--crs")
 
 
 def elevation_windows(settings) -> Windows | None:

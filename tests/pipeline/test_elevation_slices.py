@@ -136,6 +136,13 @@ def test_bad_options_name_the_option(survey, options, error, where):
     assert where in (e.value.where or "")
 
 
+def test_a_dem_needs_the_survey_crs(survey):
+    with pytest.raises(SettingsError) as e:
+        load_settings(survey / "lines.csv", velocity=0.1, terrain=str(survey / "dem.tif"),
+                      datum="d", slices="elevation")
+    assert e.value.where == "--crs"
+
+
 def test_table_ground_needs_both_columns_on_every_row(survey):
     with pytest.raises(LineTableError) as e:
         load_settings(survey / "lines.csv", **BASE, terrain="table", datum="d",
