@@ -24,6 +24,7 @@ from __future__ import annotations
 
 import concurrent.futures
 import contextlib
+import functools
 import os
 import threading
 from collections.abc import Callable, Collection, Mapping, Sequence
@@ -40,6 +41,7 @@ from slicer.outputs.cube import TILE, _check_tile_size, _write_netcdf, check_til
 from slicer.outputs.display import Display
 from slicer.outputs.figures import PER_PAGE, overview_pages, page_paths, panel_stride
 from slicer.outputs.geotiff import SliceTiffWriter, tile_windows
+from slicer.outputs.viewer import page_slice, page_step
 from slicer.outputs.zarr_store import ZARR_FORMAT, create_cube_store, open_cube_zarr, read_slice
 
 #: Names of the outputs inside ``out_dir``.
@@ -99,6 +101,9 @@ class CubeSink:
         Fill the slice GeoTIFFs tile by tile as tiles arrive (uncompressed, made COGs at the
         end) instead of writing each whole from the working store at the end; default
         :data:`STREAM_SLICES` (whole slices, measured faster: benchmarks/formats.py).
+    page_slices : bool
+        Also keep each slice as the viewer page shows it (:attr:`page_slices`), taken as the
+        slice GeoTIFFs are written whole: the page then need not read the slices back.
 
     Attributes
     ----------
@@ -107,6 +112,9 @@ class CubeSink:
         (those asked for) and ``overview.png``.
     empty_cells : int or None
         After a successful exit: the number of NaN cells of the first slice.
+    page_slices : list of slicer.outputs.viewer.PageSlice or None
+        After a successful exit with ``page_slices``: each slice for the viewer page, in order
+        (:func:`slicer.outputs.viewer.page_slice`); None if not asked for or streamed.
     """
 
     def __init__(self, out_dir: str | os.PathLike, cube_template: xr.DataArray, *,
@@ -114,7 +122,8 @@ class CubeSink:
                  progress: bool = True, title: str | None = None,
                  zarr_format: int = ZARR_FORMAT, offload: Callable | None = None,
                  formats: Collection[str] = tuple(FORMATS), stream_slices: bool | None = None,
-                 display: Display | None = None, per_page: int = PER_PAGE):
+                 display: Display | None = None, per_page: int = PER_PAGE,
+                 page_slices: bool = False):
         slice_axis(cube_template)
         unknown = sorted(set(formats) - set(FORMATS))
         if unknown or not formats:
@@ -134,6 +143,8 @@ class CubeSink:
         self.shape = tuple(cube_template.shape)
         self.files: list[Path] = []
         self.empty_cells: int | None = None
+        self.page_slices: list | None = None
+        self._page_step = page_step(*self.shape[1:]) if page_slices else None
         self._tags = tags
         self._title = title
         self._display = Display() if display is None else display
@@ -192,14 +203,20 @@ class CubeSink:
     def _write_whole_slices(self) -> None:
         store, name = self._store.path, self._store.name
 
-        def one(index: int) -> None:
+        page = None if self._page_step is None else functools.partial(page_slice,
+                                                                        step=self._page_step)
+
+        def one(index: int):
             if self._stop.is_set():
-                return
-            self._tiffs.write_slice(index, read_slice(store, index, name=name))
+                return None
+            values = read_slice(store, index, name=name)
+            self._tiffs.write_slice(index, values)
+            return None if page is None else page(values)
 
         with concurrent.futures.ThreadPoolExecutor(max_workers=SLICE_THREADS) as pool:
-            for _ in pool.map(one, range(self.shape[0])):
-                pass
+            pages = list(pool.map(one, range(self.shape[0])))
+        if self._page_step is not None and not self._stop.is_set():
+            self.page_slices = pages
 
     def _start_netcdf(self, target: Path):
         """Start writing the NetCDF cube (temporary path ``target``) from the finished store.

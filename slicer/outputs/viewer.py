@@ -88,25 +88,56 @@ def _lut(cmap: str) -> list[list[int]]:
     return (np.rint(colours(np.linspace(0, 1, 256))[:, :3] * 255)).astype(int).tolist()
 
 
+def page_step(ny: int, nx: int) -> int:
+    """The decimation (cells per page cell along each side) of an ``ny`` x ``nx`` slice."""
+    return max(1, math.ceil(max(ny, nx) / MAX_SIDE))
+
+
+@dataclass(frozen=True)
+class PageSlice:
+    """One slice as the page holds it (:func:`page_slice`): its bytes (base64), the values
+    (the cube's units) of bytes 1 and 255, and its ``(rows, columns)`` on the page."""
+
+    lo: float
+    hi: float
+    data: str
+    shape: tuple[int, int]
+
+
+def page_slice(values: np.ndarray, step: int) -> PageSlice:
+    """A slice ``(y, x)`` decimated by ``step`` (:func:`page_step`) and quantised for the page.
+
+    A build computes it where each slice is written anyway (its GeoTIFF writer), so that the
+    page does not read the slices back; :func:`viewer_data` does the same from a cube.
+    """
+    q, lo, hi = _quantise(_decimate(np.asarray(values, dtype=np.float64), step))
+    return PageSlice(lo, hi, base64.b64encode(q.tobytes()).decode("ascii"), q.shape)
+
+
 def viewer_data(cube: xr.DataArray, *, lines: Sequence[LineImage] = (),
-                cmap: str = "viridis", title: str | None = None) -> dict:
-    """Everything the page shows, as JSON-ready values (see :func:`write_viewer`)."""
+                cmap: str = "viridis", title: str | None = None,
+                slices: Sequence[PageSlice] | None = None) -> dict:
+    """Everything the page shows, as JSON-ready values (see :func:`write_viewer`).
+
+    ``slices`` (one :func:`page_slice` per slice of ``cube``, decimated by :func:`page_step`)
+    are used instead of reading the cube's values; then only its coordinates are read.
+    """
     axis = slice_axis(cube)
     ny, nx = cube.sizes[Y], cube.sizes[X]
-    k = max(1, math.ceil(max(ny, nx) / MAX_SIDE))
+    k = page_step(ny, nx)
     x, y = cube[X].values, cube[Y].values
     cell = float(abs(x[1] - x[0])) if nx > 1 else 1.0
-    slices = []
     tops = cube[f"{axis}_top"].values if f"{axis}_top" in cube.coords else cube[axis].values
     bottoms = (cube[f"{axis}_bottom"].values if f"{axis}_bottom" in cube.coords
                else cube[axis].values)
     unit = "ns" if axis == "twt" else "m"
-    for i in range(cube.sizes[axis]):
-        q, lo, hi = _quantise(_decimate(np.asarray(cube.isel({axis: i}).values,
-                                                   dtype=np.float64), k))
-        slices.append({"label": f"{tops[i]:g}-{bottoms[i]:g} {unit}", "lo": lo, "hi": hi,
-                       "bytes": base64.b64encode(q.tobytes()).decode("ascii")})
-    shape = q.shape
+    if slices is None:
+        slices = [page_slice(cube.isel({axis: i}).values, k) for i in range(cube.sizes[axis])]
+    elif len(slices) != cube.sizes[axis]:
+        raise ValueError(f"{len(slices)} page slices for a cube of {cube.sizes[axis]}")
+    shape = slices[-1].shape
+    slices = [{"label": f"{tops[i]:g}-{bottoms[i]:g} {unit}", "lo": s.lo, "hi": s.hi,
+               "bytes": s.data} for i, s in enumerate(slices)]
     return {
         "title": title or f"{cube.name or 'slices'}: {axis} slices",
         "west": float(x[0] - cell / 2), "north": float(y[0] + cell / 2),
@@ -120,7 +151,7 @@ def viewer_data(cube: xr.DataArray, *, lines: Sequence[LineImage] = (),
 
 def write_viewer(cube: xr.DataArray, path: str | os.PathLike, *,
                  lines: Sequence[LineImage] = (), cmap: str = "viridis",
-                 title: str | None = None) -> Path:
+                 title: str | None = None, slices: Sequence[PageSlice] | None = None) -> Path:
     """Write the viewer page for ``cube`` to ``path`` (atomically; the user's file modes).
 
     Parameters
@@ -135,13 +166,16 @@ def write_viewer(cube: xr.DataArray, path: str | os.PathLike, *,
         A matplotlib colour map for the slices.
     title : str, optional, keyword-only
         The page's heading.
+    slices : sequence of PageSlice, optional, keyword-only
+        The slices already decimated and quantised (:func:`page_slice`): the cube's values
+        are then not read.
 
     Returns
     -------
     pathlib.Path
         The page written.
     """
-    data = viewer_data(cube, lines=lines, cmap=cmap, title=title)
+    data = viewer_data(cube, lines=lines, cmap=cmap, title=title, slices=slices)
     page = _PAGE.replace("__TITLE__", html.escape(data["title"])).replace(
         "__DATA__", json.dumps(data).replace("</", "<\\/"))
     path = Path(path)
@@ -255,4 +289,5 @@ show(0);
 </script></body></html>
 """
 
-__all__ = ["MAX_SIDE", "LineImage", "viewer_data", "write_viewer"]
+__all__ = ["MAX_SIDE", "LineImage", "PageSlice", "page_slice", "page_step", "viewer_data",
+           "write_viewer"]

@@ -392,7 +392,7 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         out = folder.path  # written whole, then switched in by folder.commit
         tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
         common = dict(tags=tags, tile=TILE, progress=progress, title=settings.title,
-                      formats=formats, display=settings.display)
+                      formats=formats, display=settings.display, page_slices=True)
         if engine.offloader() is not None:  # workers on this machine write every output
             sink = WorkerSink(out, template, engine=engine, **common)
         else:
@@ -406,8 +406,10 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
                     sink.write(row0, col0, block)
         r.record["radargrams"] = painter.result()
         viewing = time.perf_counter()
-        viewer = write_views(out, open_result(template, sink.files), r.record["radargrams"],
-                             title=settings.title)
+        # the page's slices were taken as the slice GeoTIFFs were written: nothing is read back
+        pages = sink.page_slices
+        viewer = write_views(out, template if pages else open_result(template, sink.files),
+                             r.record["radargrams"], title=settings.title, slices=pages)
         r.record["seconds"]["radargrams_drawn"] = round(painter.seconds, 3)
         r.record["seconds"]["viewer"] = round(time.perf_counter() - viewing, 3)
         # The line files were checksummed by their tasks; the tables and geometry files

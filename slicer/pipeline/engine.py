@@ -102,6 +102,13 @@ WORKER_MEMORY = 256 * 2**20
 #: Seconds between a ``processes`` worker's checks that the process that started it lives.
 PARENT_CHECK_INTERVAL = 0.5
 
+#: Modules every ``processes`` worker imports as soon as the pool starts (:func:`_warm_up`):
+#: what the line and tile tasks need. A spawned worker otherwise imports them at its first
+#: task, about 1-2 s of a core after the calling process has planned the build and read the
+#: first line alone; started at once, the imports overlap that work (benchmarks/peers.py).
+WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
+                "slicer.pipeline.worker_outputs")
+
 _FORMS = "auto, threads, processes, local:N or tcp://HOST:PORT"
 
 
@@ -201,6 +208,9 @@ class Engine:
             self._pool = concurrent.futures.ProcessPoolExecutor(
                 max_workers=self.spec.workers, mp_context=multiprocessing.get_context("spawn"),
                 initializer=_exit_with_parent, initargs=(os.getpid(),))
+            # one task per worker starts every worker now, importing what the tasks need
+            for _ in range(self.spec.workers):
+                self._pool.submit(_warm_up, WARM_MODULES)
         if self.spec.kind in ("local", "remote"):
             try:
                 from distributed import Client, LocalCluster
@@ -408,6 +418,13 @@ def _one_line(exc: BaseException) -> str:
     """An exception's message on one line, at most 200 characters."""
     text = " ".join(str(exc).split()) or type(exc).__name__
     return text if len(text) <= 200 else text[:197] + "..."
+
+
+def _warm_up(modules: Sequence[str]) -> None:
+    """Import ``modules`` in a worker (a task of its own, so every worker starts at once)."""
+    import importlib
+    for name in modules:
+        importlib.import_module(name)
 
 
 def _exit_with_parent(parent: int) -> None:

@@ -146,14 +146,18 @@ class RadargramPainter:
 
 
 def write_views(out: str | os.PathLike, cube: xr.DataArray, radargrams: Sequence[dict], *,
-                title: str | None = None) -> Path:
+                title: str | None = None, slices: Sequence | None = None) -> Path:
     """Write ``out/viewer.html`` from ``cube`` (read a slice at a time) and the radargrams
-    listed (:meth:`RadargramPainter.result`, files relative to ``out``). Returns its path."""
+    listed (:meth:`RadargramPainter.result`, files relative to ``out``). Returns its path.
+
+    ``slices``: the page's slices already taken (:attr:`slicer.outputs.sink.CubeSink.page_slices`);
+    then ``cube`` may be the build's template, whose values are not read.
+    """
     from slicer.outputs.viewer import LineImage, write_viewer
     out = Path(out)
     lines = [LineImage(r["line"], (out / r["file"]).read_bytes(), tuple(r["start"]),
                        tuple(r["end"])) for r in radargrams]
-    return write_viewer(cube, out / VIEWER_NAME, lines=lines, title=title)
+    return write_viewer(cube, out / VIEWER_NAME, lines=lines, title=title, slices=slices)
 
 
 def open_result(template: xr.DataArray, files: list[Path]) -> xr.DataArray:

@@ -38,6 +38,7 @@ from slicer.outputs.netcdf_chunks import (
     write_skeleton,
 )
 from slicer.outputs.sink import NETCDF_NAME, SLICES_DIR, CubeSink, decimate, save_overview
+from slicer.outputs.viewer import page_slice
 from slicer.outputs.zarr_store import read_slice, write_tile
 
 
@@ -72,30 +73,37 @@ class SliceOutputs:
     #: The NetCDF chunks and the file they go to, one after another, or None without NetCDF.
     layout: ChunkLayout | None
     parts: str | None
+    #: Decimation of the slice for the viewer page (:func:`slicer.outputs.viewer.page_step`),
+    #: or None when the page's slice is not wanted.
+    page_step: int | None = None
 
 
 def write_slice_outputs(job: SliceOutputs) -> tuple[int, str | None,
-                                                    list[tuple[int, int, int, int]]]:
+                                                    list[tuple[int, int, int, int]], object]:
     """Read one slice from the store, write its GeoTIFF and its compressed NetCDF chunks.
 
     The chunks go to the file ``job.parts`` rather than back through the engine: sending
     them as results cost the calling process most of a core (distributed's messages),
-    taken from the workers. Returns ``(index, parts file, [(row0, col0, offset, size)])``.
+    taken from the workers. Returns ``(index, parts file, [(row0, col0, offset, size)],
+    page)``, ``page`` the slice as the viewer page holds it
+    (:func:`slicer.outputs.viewer.page_slice`; None without ``job.page_step``), taken here
+    where the slice is in memory anyway.
     """
     values = read_slice(job.store, job.index, name=job.name)
     folder = Path(job.store).parent
     check_room(folder, 2 * values.nbytes, where=folder)
     if job.tiff is not None:
         write_slice_file(job.tiff, values)
+    page = None if job.page_step is None else page_slice(values, job.page_step)
     if job.layout is None:
-        return job.index, None, []
+        return job.index, None, [], page
     index, offset = [], 0
     with open(job.parts, "wb") as f:
         for row0, col0, data in compress_slice(values, job.layout):
             f.write(data)
             index.append((row0, col0, offset, len(data)))
             offset += len(data)
-    return job.index, job.parts, index
+    return job.index, job.parts, index, page
 
 
 def _stored_parts(f, layout: ChunkLayout, index: int, parts: str, where) -> None:
@@ -169,6 +177,10 @@ class WorkerSink(CubeSink):
             self._put_panels(row0, col0, part)
             self._bar.update(1)
 
+    def _keep_pages(self, pages: list) -> None:
+        if self._page_step is not None:
+            self.page_slices = pages
+
     @staticmethod
     def _worker_path(path) -> str:
         # absolute: a worker need not share this process's working folder
@@ -204,12 +216,16 @@ class WorkerSink(CubeSink):
         def job(i: int, layout=None, parts=None) -> SliceOutputs:
             tiff = self._tiffs.slice_job(i, store) if self._tiffs is not None else None
             return SliceOutputs(store, i, self._store.name, tiff, layout,
-                                None if parts is None else str(parts / f"slice_{i}.bin"))
+                                None if parts is None else str(parts / f"slice_{i}.bin"),
+                                self._page_step)
 
+        pages = []
         if target is None:
-            for _ in self._engine.map(write_slice_outputs, map(job, range(self.shape[0])),
-                                      desc="slices", unit="slice", progress=False):
-                pass
+            for *_, page in self._engine.map(write_slice_outputs,
+                                             map(job, range(self.shape[0])),
+                                             desc="slices", unit="slice", progress=False):
+                pages.append(page)
+            self._keep_pages(pages)
             return
         import h5py
         layout = self._skeleton.result()
@@ -221,12 +237,14 @@ class WorkerSink(CubeSink):
             # through a GuardedFile, as every NetCDF write (slicer.outputs.cube._write_netcdf)
             with GuardedFile(self._early, "r+b") as raw:
                 with h5py.File(raw, "r+") as f:
-                    for index, path, where in self._engine.map(
+                    for index, path, where, page in self._engine.map(
                             write_slice_outputs, jobs, desc="slices", unit="slice",
                             progress=False):
                         _stored_parts(f, layout, index, path, where)
+                        pages.append(page)
                 raw.check()
         finally:
             shutil.rmtree(parts, ignore_errors=True)
+        self._keep_pages(pages)
         os.replace(self._early, target)
         self._early = None

@@ -354,3 +354,30 @@ def test_unknown_formats_are_refused(tmp_path):
     with pytest.raises(SettingsError, match="formats") as info:
         CubeSink(tmp_path / "out", make_cube(), tile=TILE, formats=("tif", "png"))
     assert info.value.where == "formats" and not (tmp_path / "out").exists()
+
+
+def test_page_slices_taken_while_writing_equal_those_of_the_geotiffs_read_back(tmp_path):
+    from slicer.outputs.viewer import page_slice, page_step
+    cube = make_cube(shape=(3, 70, 1300))  # wider than the page: decimated by 3
+    data = cube.values
+    with CubeSink(tmp_path / "o", empty_cube(cube.shape, tile=TILE, **GRID), tile=TILE,
+                  progress=False, page_slices=True) as sink:
+        for r, c in tiles(cube.shape):
+            sink.write(r, c, data[:, r:r + TILE, c:c + TILE])
+    step = page_step(*cube.shape[1:])
+    assert step == 3 and len(sink.page_slices) == 3
+    for tif, page in zip(sink.files[:3], sink.page_slices, strict=True):
+        with rasterio.open(tif) as f:  # the slice as GDAL reads it from the written file
+            assert page == page_slice(f.read(1), step)
+    assert page.shape == (24, 434)
+
+
+def test_page_slices_are_not_taken_unless_asked_or_when_streamed(tmp_path):
+    cube = make_cube()
+    for name, options in (("plain", {}), ("streamed", {"stream_slices": True,
+                                                       "page_slices": True})):
+        with CubeSink(tmp_path / name, empty_cube(cube.shape, tile=TILE, **GRID), tile=TILE,
+                      progress=False, **options) as sink:
+            for r, c in tiles(cube.shape):
+                sink.write(r, c, cube.values[:, r:r + TILE, c:c + TILE])
+        assert sink.page_slices is None

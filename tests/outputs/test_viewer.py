@@ -54,6 +54,17 @@ def test_data_bytes_quantise_and_decimate():
     assert max(big["width"], big["height"]) <= MAX_SIDE
 
 
+def test_slices_given_already_quantised_make_the_same_page_data():
+    from slicer.outputs.viewer import page_slice, page_step
+    cube = small_cube(nx=1300, ny=70, n=3)
+    step = page_step(70, 1300)
+    given = [page_slice(cube.values[i], step) for i in range(3)]
+    assert viewer_data(cube.copy(data=np.full(cube.shape, np.nan, np.float32)),
+                       slices=given) == viewer_data(cube)  # the values are not read
+    with pytest.raises(ValueError, match="2 page slices for a cube of 3"):
+        viewer_data(cube, slices=given[:2])
+
+
 @pytest.fixture(scope="module")
 def browser():
     chromium = shutil.which("chromium") or shutil.which("chromium-browser")

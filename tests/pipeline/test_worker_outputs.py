@@ -75,6 +75,8 @@ def test_worker_written_outputs_equal_the_threaded_ones(threaded, tmp_path, sche
                 and p.suffix != ".zgroup"]  # no temporary file left behind
     record = json.loads((out / "record.json").read_text())
     assert record["outputs"] == json.loads((reference / "record.json").read_text())["outputs"]
+    # the page's slices, taken by the workers as they wrote the slices, as in the threaded build
+    assert (out / "viewer.html").read_text() == (reference / "viewer.html").read_text()
 
 
 @pytest.mark.parametrize("formats", ["tif", "nc"])
