@@ -392,13 +392,26 @@ def save_overview(template: xr.DataArray, panels: np.ndarray,
     """
     pages = overview_pages(template, title=title, dpi=OVERVIEW_DPI, panels=list(panels),
                            per_page=per_page, **(display or Display()).options())
-    for figure, png, name in zip(pages, pngs, where or [str(p) for p in pngs], strict=True):
-        try:
-            # zlib level 1: a sheet of noisy slices hardly compresses further, and level 6
-            # took longer than drawing it
-            figure.savefig(png, format="png", dpi=OVERVIEW_DPI, pil_kwargs={"compress_level": 1})
-        except OSError as exc:
-            raise OutputError(f"cannot save figure ({exc})", where=name) from None
+    # Pages are saved on two threads while the next is drawn here: one's PNG encoding (Pillow,
+    # outside the GIL) overlaps another's rendering. Separate figures on the Agg canvas, as
+    # matplotlib allows across threads; at most two are being saved at once.
+    saving: list = []
+    with concurrent.futures.ThreadPoolExecutor(max_workers=2) as pool:
+        for figure, png, name in zip(pages, pngs, where or [str(p) for p in pngs], strict=True):
+            if len(saving) == 2:
+                saving.pop(0).result()
+            saving.append(pool.submit(_save_page, figure, png, name))
+        for future in saving:
+            future.result()
+
+
+def _save_page(figure, png, name: str) -> None:
+    try:
+        # zlib level 1: a sheet of noisy slices hardly compresses further, and level 6 took
+        # longer than drawing it
+        figure.savefig(png, format="png", dpi=OVERVIEW_DPI, pil_kwargs={"compress_level": 1})
+    except OSError as exc:
+        raise OutputError(f"cannot save figure ({exc})", where=name) from None
 
 
 def decimate(values, row0: int, col0: int, stride: int) -> np.ndarray:
@@ -474,19 +487,9 @@ def write_cube(cube: xr.DataArray, out_dir: str | os.PathLike, *,
     Small and large builds then share one path to disk: the cube is cut into tiles of
     ``tile`` cells (a dask-backed cube computes one tile at a time).
 
-    Parameters
-    ----------
-    cube : xarray.DataArray
-        A cube as built by :func:`slicer.outputs.cube.new_cube`.
-    out_dir : path-like
-        Output folder (see :class:`CubeSink`).
-    tags, progress, tile, title, zarr_format
-        As for :class:`CubeSink`.
-
-    Returns
-    -------
-    list of pathlib.Path
-        The files written (:attr:`CubeSink.files`).
+    ``cube`` is a cube as :func:`slicer.outputs.cube.new_cube` builds it, ``out_dir`` the
+    output folder; the others as for :class:`CubeSink`. Returns the files written
+    (:attr:`CubeSink.files`).
     """
     data = cube.data
     with CubeSink(out_dir, cube, tags=tags, tile=tile, progress=progress, title=title,
