@@ -33,7 +33,7 @@ import numpy as np
 import xarray as xr
 from matplotlib import colormaps
 
-from slicer.core.atomic import atomic_write_text
+from slicer.core.atomic import atomic_path
 from slicer.core.conventions import X, Y
 from slicer.core.errors import SettingsError
 from slicer.outputs.cube import slice_axis
@@ -176,10 +176,17 @@ def write_viewer(cube: xr.DataArray, path: str | os.PathLike, *,
         The page written.
     """
     data = viewer_data(cube, lines=lines, cmap=cmap, title=title, slices=slices)
-    page = _PAGE.replace("__TITLE__", html.escape(data["title"])).replace(
-        "__DATA__", json.dumps(data).replace("</", "<\\/"))
+    head, tail = (part.replace("__TITLE__", html.escape(data["title"]))
+                  for part in _PAGE.split("__DATA__"))
     path = Path(path)
-    atomic_write_text(path, page)
+    # Written piece by piece: at 1 M traces the page is 53 MB, and whole it was held three or
+    # four times over. "</" is escaped within each piece: the encoder's pieces are whole
+    # strings or punctuation, so none ends inside a "</".
+    with atomic_path(path) as tmp, open(tmp, "w", encoding="utf-8") as f:
+        f.write(head)
+        for piece in json.JSONEncoder().iterencode(data):
+            f.write(piece.replace("</", "<\\/"))
+        f.write(tail)
     return path
 
 

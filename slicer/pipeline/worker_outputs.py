@@ -40,6 +40,7 @@ from slicer.outputs.netcdf_chunks import (
 from slicer.outputs.sink import NETCDF_NAME, SLICES_DIR, CubeSink, decimate, save_overview
 from slicer.outputs.viewer import page_slice
 from slicer.outputs.zarr_store import read_slice, write_tile
+from slicer.processing.fk import release_operators
 
 
 @dataclass(frozen=True)
@@ -53,6 +54,7 @@ class StoredTile:
 
 def grid_and_store(item: StoredTile) -> tuple[int, int, np.ndarray]:
     """Grid one tile, write it into the store: ``(row0, col0, decimated tile)``."""
+    release_operators()  # the lines are done: a worker's migration operators (100 MB at 1 M)
     row0, col0, block = grid_tile(item.job)
     folder = Path(item.store).parent
     check_room(folder, block.nbytes, where=folder)

@@ -65,6 +65,20 @@ def test_slices_given_already_quantised_make_the_same_page_data():
         viewer_data(cube, slices=given[:2])
 
 
+def test_a_closing_tag_in_the_data_cannot_end_the_script(tmp_path):
+    # HTML Living Standard, "restrictions for contents of script elements": "</script" inside
+    # a script element ends it, so "</" is written "<\/" (the same string to JSON)
+    import json
+    cube = small_cube()
+    line = LineImage("a</script>b", png((10, 20, 30)), (WEST, NORTH - 1), (WEST + 5, NORTH - 1))
+    page = write_viewer(cube, tmp_path / "v.html", lines=[line], title="t</b>").read_text()
+    assert "a</script>b" not in page and "a<\\/script>b" in page
+    data = page.split("const D = ", 1)[1].split(";\n", 1)[0]
+    assert json.loads(data) == json.loads(json.dumps(viewer_data(cube, lines=[line],
+                                                                 title="t</b>")))
+    assert "<title>t&lt;/b&gt;</title>" in page  # the title escaped as HTML
+
+
 @pytest.fixture(scope="module")
 def browser():
     chromium = shutil.which("chromium") or shutil.which("chromium-browser")

@@ -141,3 +141,22 @@ def test_plain_line_task_equals_the_labelled_steps(small_survey, tmp_path, case)
         np.testing.assert_allclose(got["values"], values, rtol=1e-5, atol=1e-6 * scale)
         assert got["history"] == env.attrs["history"]
         assert got["time_zero_ns"] == pytest.approx(env.attrs["time_zero_ns"], abs=1e-12)
+
+
+def test_the_table_filled_line_by_line_equals_the_joined_lines():
+    # numpy.concatenate of the lines' pieces is the reference; the fill is sized from the
+    # headers (here too small: a line holding more traces than they said grows it)
+    from slicer.pipeline.line_tasks import _TableFill, assemble_table
+    rng = np.random.default_rng(5)
+    windows = make_windows(0.0, 0.3, 0.1)
+    results = [{"values": rng.random((k, 3)).astype(np.float32), "x": rng.random(k),
+                "y": rng.random(k), "line": i, "traces": k}
+               for i, k in enumerate((4, 7, 2))]
+    joined = assemble_table([dict(r) for r in results], windows)
+    for capacity in (13, 9):
+        fill = _TableFill(capacity)
+        for r in results:
+            fill.add(dict(r))
+        table = fill.table(windows)
+        xr.testing.assert_identical(table, joined)
+        assert table["line"].dtype == np.int32 and table.dtype == np.float32

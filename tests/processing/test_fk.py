@@ -69,3 +69,16 @@ def test_an_impulse_migrates_onto_its_semicircle_without_wrapping_around():
     radius = int(round(v * t0 / 2 / dx))
     assert energy[:radius + 5].sum() > 0.99 * energy.sum()
     assert energy[nx // 2:].sum() < 1e-4 * energy.sum()
+
+
+def test_released_operators_are_rebuilt_to_the_same_image():
+    # releasing the kept operators (a worker moving on to tiles) frees them, and a later line
+    # migrates exactly as before: the operator is a pure function of the line's sizes
+    from slicer.processing.fk import release_operators, stolt_operator
+    data = np.random.default_rng(3).standard_normal((60, 128)).astype(np.float32)
+    kwargs = dict(dx=0.05, dt=0.1, t_first=0.0, velocity=0.1, taper=0.2, pad=2, band=None)
+    first = stolt_core(data, **kwargs)
+    assert stolt_operator.cache_info().currsize >= 1
+    release_operators()
+    assert stolt_operator.cache_info().currsize == 0
+    np.testing.assert_array_equal(stolt_core(data, **kwargs), first)
