@@ -21,6 +21,10 @@ Target placement: for each point target, the distance (m) from its true position
 brightest cell within 1 m of it in the slice holding its depth; the median and largest over
 the targets are printed beside each time, so no method is faster by placing things worse.
 
+Peak memory: ``VmHWM`` of the process that ran the method (a fresh one); for slicer also the
+largest sum of the resident memory of that process and its worker processes, sampled every
+50 ms during the build (:class:`TreeMemory`).
+
 Run ``python benchmarks/peers.py [--sizes 65000,400000] [--keep DIR]``; see benchmarks/README.md.
 """
 
@@ -34,7 +38,14 @@ from pathlib import Path
 
 import _common  # noqa: F401 - first: one BLAS thread before numpy loads
 import numpy as np  # noqa: E402
-from _common import TunedFloor, _f, _table, in_fresh_process, work_folder  # noqa: E402
+from _common import (  # noqa: E402
+    TunedFloor,
+    _f,
+    _memory_mib,
+    _table,
+    in_fresh_process,
+    work_folder,
+)
 
 SETTINGS = dict(crs="EPSG:32633", sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.1,
                 depths="0:2.4:0.1")
@@ -52,15 +63,71 @@ def _lines(table: Path):
                  float(r["end_x"]), float(r["end_y"])) for r in csv.DictReader(f)]
 
 
+def _peaks() -> dict:
+    """Peak resident memory (MiB) of this process."""
+    return {"peak": _memory_mib()[1]}
+
+
+class TreeMemory:
+    """The largest sum of resident memory (MiB) of this process and all its descendants (a
+    build's worker processes), sampled every ``interval`` s on a thread while in the with
+    block. Sampled: a peak shorter than the interval can be missed."""
+
+    def __init__(self, interval: float = 0.05):
+        import threading
+        self.interval, self.peak = interval, 0.0
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+
+    def __enter__(self):
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc):
+        self._stop.set()
+        self._thread.join()
+
+    def _run(self) -> None:
+        import os
+        me = os.getpid()
+        while not self._stop.wait(self.interval):
+            self.peak = max(self.peak, sum(_rss_mib(p) for p in _tree(me)))
+
+
+def _tree(pid: int) -> list[int]:
+    found, todo = [], [pid]
+    while todo:
+        p = todo.pop()
+        found.append(p)
+        try:
+            for task in Path(f"/proc/{p}/task").iterdir():
+                todo += [int(c) for c in (task / "children").read_text().split()]
+        except OSError:  # ended meanwhile
+            pass
+    return found
+
+
+def _rss_mib(pid: int) -> float:
+    try:
+        for line in Path(f"/proc/{pid}/status").read_text().splitlines():
+            if line.startswith("VmRSS:"):
+                return float(line.split()[1]) / 1024
+    except OSError:
+        pass
+    return 0.0
+
+
 def run_slicer(table: str, out: str) -> dict:
     import slicer
     settings = slicer.load_settings(table, **SETTINGS, out=out, overwrite=True)
-    started = time.perf_counter()
-    slicer.build(settings, progress=False)
-    seconds = time.perf_counter() - started
+    with TreeMemory() as tree:
+        started = time.perf_counter()
+        result = slicer.build(settings, progress=False)
+        seconds = time.perf_counter() - started
+    peaks = {**_peaks(), "tree_peak": tree.peak}  # before the untimed build below
     cube = slicer.build_cube(settings, progress=False).cube  # for placement, not timed
-    return {"seconds": seconds, "cube": _plain(cube.values, cube["x"].values,
-                                              cube["y"].values)}
+    return {"seconds": seconds, "engine": result.record["engine"], **peaks,
+            "cube": _plain(cube.values, cube["x"].values, cube["y"].values)}
 
 
 def run_floor(table: str) -> dict:
@@ -68,7 +135,7 @@ def run_floor(table: str) -> dict:
     started = time.perf_counter()
     for path, *_ in _lines(Path(table)):
         floor(path)
-    return {"seconds": time.perf_counter() - started}
+    return {"seconds": time.perf_counter() - started, **_peaks()}
 
 
 def _values_per_trace(table: Path):
@@ -126,7 +193,7 @@ def run_griddata(table: str, out: str) -> dict:
     cube = np.moveaxis(grid, -1, 0)
     cube[:, far] = np.nan
     _write_tifs(cube, gx, gy, Path(out))
-    return {"seconds": time.perf_counter() - started, "cube": _plain(cube, gx, gy)}
+    return {"seconds": time.perf_counter() - started, **_peaks(), "cube": _plain(cube, gx, gy)}
 
 
 def run_verde(table: str, out: str) -> dict:
@@ -141,7 +208,7 @@ def run_verde(table: str, out: str) -> dict:
         gridder = vd.KNeighbors(k=4).fit((x, y), values[:, k])
         cube[k] = np.where(mask, gridder.predict((mx, my)), np.nan)
     _write_tifs(cube, gx, gy, Path(out))
-    return {"seconds": time.perf_counter() - started, "cube": _plain(cube, gx, gy)}
+    return {"seconds": time.perf_counter() - started, **_peaks(), "cube": _plain(cube, gx, gy)}
 
 
 def _plain(values, x, y) -> dict:
@@ -177,17 +244,38 @@ def measure_size(root: Path, n: int, use_verde: bool) -> list[list[str]]:
                if t.kind == "point"]
     traces = n
     rows = []
-    floor = in_fresh_process(run_floor, str(table))["seconds"]
-    rows.append([f"{traces}", "tuned floor", _f(floor), "1.00", "-", "-"])
+    _read_once(table)  # every method then finds the files in the page cache, as the first did
+    measured = in_fresh_process(run_floor, str(table))
+    floor = measured["seconds"]
+    rows.append([f"{traces}", "tuned floor", _f(floor), "1.00", "-", "-", _memory(measured)])
     peers = [("slicer build", run_slicer), ("griddata script", run_griddata)]
     if use_verde:
         peers.append(("verde k-NN", run_verde))
     for name, run in peers:
         result = in_fresh_process(run, str(table), str(folder / name.split()[0]))
         med, worst = placement(result["cube"], targets)
-        rows.append([f"{traces}", name, _f(result["seconds"]), _f(result["seconds"] / floor),
-                     _f(med, 3), _f(worst, 3)])
+        label = f"{name} ({result['engine']})" if "engine" in result else name
+        rows.append([f"{traces}", label, _f(result["seconds"]), _f(result["seconds"] / floor),
+                     _f(med, 3), _f(worst, 3), _memory(result)])
     return rows
+
+
+def _read_once(table: Path) -> None:
+    """Read every line file once, untimed: a survey kept from an earlier run may have left
+    the page cache, and the first method measured would pay for reading it from disk (a
+    1 M-trace floor of 53 s instead of 10-13 s was seen)."""
+    for path, *_ in _lines(Path(table)):
+        with open(path, "rb") as f:
+            while f.read(1 << 24):
+                pass
+
+
+def _memory(result: dict) -> str:
+    """Peak MiB of the measuring process; for slicer also that of it and its workers together
+    (sampled)."""
+    text = f"{result['peak']:.0f}"
+    return text + (f" ({result['tree_peak']:.0f} with workers)" if "tree_peak" in result
+                   else "")
 
 
 def main(argv=None) -> int:
@@ -206,8 +294,8 @@ def main(argv=None) -> int:
         rows = []
         for n in (int(s) for s in args.sizes.split(",")):
             rows += measure_size(root, n, use_verde)
-            print(_table(["traces", "method", "s", "x floor", "median miss m", "worst miss m"],
-                         rows), flush=True)
+            print(_table(["traces", "method", "s", "x floor", "median miss m", "worst miss m",
+                          "peak MiB"], rows), flush=True)
     return 0
 
 
