@@ -38,6 +38,11 @@ STRETCHES = ("shared", "per-slice")
 DEFAULT_CLIP = (2.0, 98.0)
 
 
+#: Most cells drawn over all the panels of an overview (about 64 MB of float32); many slices
+#: are drawn coarser than a panel's largest side, still finer than their few hundred pixels on
+#: paper. Here, in a module without matplotlib, so the memory estimate can read it at once.
+MAX_SHEET_CELLS = 16_000_000
+
 def colormap_names() -> list[str]:
     """Every colour map name :class:`Display` accepts (matplotlib's and :data:`GREY_NAMES`)."""
     from matplotlib import colormaps
@@ -244,6 +249,6 @@ def relative_scale(display: Display, *, signed: bool = False):
     return [0.0, 1.0], [f"{low:g} %", f"{high:g} %"], "percentile of each slice"
 
 
-__all__ = ["DEFAULT_CLIP", "DEFAULT_COLORMAP", "Display", "NODATA_COLOUR", "SIGNED_COLORMAP",
-           "STRETCHES", "check_clip", "check_colormap", "check_stretch", "colormap_names",
+__all__ = ["DEFAULT_CLIP", "DEFAULT_COLORMAP", "MAX_SHEET_CELLS", "Display", "NODATA_COLOUR",
+           "SIGNED_COLORMAP", "STRETCHES", "check_clip", "check_colormap", "check_stretch", "colormap_names",
            "display_from", "parse_clip", "parse_display", "relative_scale"]

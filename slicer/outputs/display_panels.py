@@ -14,6 +14,7 @@ import xarray as xr
 
 from slicer.core.conventions import TWT, UNITS
 from slicer.outputs.cube import cube_transform, slice_axis
+from slicer.outputs.display import MAX_SHEET_CELLS
 from slicer.outputs.sheet import PANEL_INCHES, _decimals
 
 #: Coordinates at least this large (m) are plotted relative to the grid corner.
@@ -22,9 +23,6 @@ _RELATIVE_FROM = 10_000.0
 #: Longest side of a panel as drawn, cells; larger slices are decimated (every k-th cell).
 MAX_PANEL_CELLS = 1000
 
-#: Most cells drawn over all panels of a sheet (about 64 MB of float32); many slices are
-#: drawn coarser than MAX_PANEL_CELLS, still finer than their few hundred pixels on paper.
-MAX_SHEET_CELLS = 16_000_000
 
 #: Cells drawn per pixel of a saved panel at most: more would be averaged away by the
 #: renderer, at the cost of memory and time.

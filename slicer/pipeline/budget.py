@@ -104,7 +104,7 @@ def estimate(*, n_traces: int, max_line_traces: int, n_samples: int, n_slices: i
     tiles = workers * int(cells * (neighbours * WEIGHT_BYTES + 12 * n_slices))
     cube = 4 * n_slices * grid_cells if cube_in_memory else 0
     # A streamed cube's writer keeps the overview's panels (at most MAX_SHEET_CELLS cells).
-    from slicer.outputs.figures import MAX_SHEET_CELLS
+    from slicer.outputs.display import MAX_SHEET_CELLS  # no matplotlib: it loads elsewhere
     overview = 0 if cube_in_memory else 4 * min(n_slices * grid_cells, MAX_SHEET_CELLS)
     return Estimate(table=int(table), lines=int(lines), tiles=tiles, cube=int(cube),
                     workers=workers, overview=int(overview))
