@@ -250,5 +250,5 @@ def relative_scale(display: Display, *, signed: bool = False):
 
 
 __all__ = ["DEFAULT_CLIP", "DEFAULT_COLORMAP", "MAX_SHEET_CELLS", "Display", "NODATA_COLOUR",
-           "SIGNED_COLORMAP", "STRETCHES", "check_clip", "check_colormap", "check_stretch", "colormap_names",
-           "display_from", "parse_clip", "parse_display", "relative_scale"]
+           "SIGNED_COLORMAP", "STRETCHES", "check_clip", "check_colormap", "check_stretch",
+           "colormap_names", "display_from", "parse_clip", "parse_display", "relative_scale"]
