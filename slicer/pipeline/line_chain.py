@@ -51,11 +51,14 @@ def migration_method(settings: BuildSettings) -> tuple[str, str | None]:
 
 
 def process_line(line: xr.DataArray, settings: BuildSettings, *,
-                 dewow_ns: float | None = None, keep_trace: bool = False):
+                 dewow_ns: float | None = None, keep_trace: bool = False,
+                 frequency: float | None = None):
     """Run the processing chain of ``settings`` on one placed line; returns its envelope.
 
     ``dewow_ns`` fixes the dewow window when ``settings.dewow`` is ``"auto"`` (the build
-    resolves it once, from the first line). The steps after time zero run fused on one array
+    resolves it once, from the first line), ``frequency`` (GHz) the dominant frequency that
+    the migrated band counts in (a build's is its first line's, for every line; None: each
+    line's own). The steps after time zero run fused on one array
     (:func:`slicer.processing.steps.process_chain`, equal to the single steps); migration
     (:func:`migration_method`) sits between background removal and gain, so the chain runs in
     two fused parts around it.
@@ -85,7 +88,7 @@ def process_line(line: xr.DataArray, settings: BuildSettings, *,
     line = process_chain(line, dewow_ns=window, background=settings.background, gain=None,
                          take_envelope=False)
     if method != "off":
-        line = migrate_line(line, settings, method=method)
+        line = migrate_line(line, settings, method=method, frequency=frequency)
     if not keep_trace:
         return process_chain(line, dewow_ns="off", background=None, gain=gain)
     trace = process_chain(line, dewow_ns="off", background=None, gain=gain,
@@ -94,14 +97,15 @@ def process_line(line: xr.DataArray, settings: BuildSettings, *,
 
 
 def migrate_line(line: xr.DataArray, settings: BuildSettings, *,
-                 method: str | None = None) -> xr.DataArray:
+                 method: str | None = None, frequency: float | None = None) -> xr.DataArray:
     """Migrate one line with the build's velocity: Stolt for one velocity, phase shift for
     layers (a lateral model is migrated with its median velocity, which is said).
 
-    ``method`` defaults to the one :func:`migration_method` chooses from ``settings``.
+    ``method`` defaults to the one :func:`migration_method` chooses from ``settings``;
+    ``frequency`` (GHz) as for :func:`slicer.processing.migration.migrate`.
     """
     from slicer.processing.migration import migrate
-    return migrate(line, **migration_arguments(settings, method=method))
+    return migrate(line, **migration_arguments(settings, method=method), frequency=frequency)
 
 
 def migration_arguments(settings: BuildSettings, *, method: str | None = None) -> dict:
@@ -145,13 +149,14 @@ class ProcessedSamples:
 def process_samples(samples: np.ndarray, twt: np.ndarray, settings: BuildSettings, *,
                     distance: np.ndarray | None = None, dewow_ns: float | None = None,
                     keep_trace: bool = False, time_zero_ns: float = 0.0, history: str = "",
-                    where: str = "line") -> ProcessedSamples:
+                    frequency: float | None = None, where: str = "line") -> ProcessedSamples:
     """:func:`process_line` on plain ``(trace, twt)`` samples: the same cores in the same
     order, without a DataArray per step (a build's line task; the labelled steps cost more
     than the floor of reading and taking envelopes).
 
     ``twt`` (ns) is the samples' time axis, ``distance`` (m) their places along the line (for
-    migration), ``time_zero_ns`` and ``history`` what the line carried in.
+    migration), ``time_zero_ns`` and ``history`` what the line carried in, ``frequency`` as
+    for :func:`process_line`.
     """
     from slicer.processing.steps import (
         _chain_core,
@@ -163,20 +168,20 @@ def process_samples(samples: np.ndarray, twt: np.ndarray, settings: BuildSetting
     steps = [history] if history else []
     separation = settings.antenna_separation or 0.0
     window = dewow_window(settings, dewow_ns)
-    frequency = None  # taken once, for whichever of time zero, polarity and dewow need it
+    own = None  # the line's dominant frequency: taken once, for time zero, polarity, dewow
     if settings.time_zero == "auto" or keep_trace or window is None:
         if twt.size < 2:
             raise SettingsError("a line needs at least two samples per trace", where=where)
-        frequency = dominant_frequency_of(samples, dt=float(twt[1] - twt[0]), where=where)
-        window = 1.5 / frequency if window is None else window
+        own = dominant_frequency_of(samples, dt=float(twt[1] - twt[0]), where=where)
+        window = 1.5 / own if window is None else window
     t0, how = time_zero_of(samples, twt, time_zero=settings.time_zero,
                            threshold=settings.time_zero_threshold, separation=separation,
-                           frequency=frequency, where=where)
+                           frequency=own, where=where)
     twt, polarity = twt - t0, None
     steps.append(how)
     if keep_trace:
         from slicer.processing.polarity import direct_wave_polarity_of
-        reach = 1.0 / frequency + separation / C_M_PER_NS
+        reach = 1.0 / own + separation / C_M_PER_NS
         polarity = direct_wave_polarity_of(samples, twt, period_ns=reach, where=where)
     method, _ = migration_method(settings)
     last = method == "off" and not keep_trace  # one fused part does it all
@@ -192,7 +197,7 @@ def process_samples(samples: np.ndarray, twt: np.ndarray, settings: BuildSetting
                                 "spacing from", where=where)
         migrated, how, _ = migration_plan(twt, dx=spacing_of(distance, where=where),
                                           **migration_arguments(settings, method=method),
-                                          where=where)
+                                          frequency=frequency, where=where)
         out = migrated(out)
         steps.append(how)
     trace = None

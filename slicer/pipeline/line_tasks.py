@@ -36,7 +36,7 @@ from slicer.io.linetable import LineEntry
 from slicer.io.reading import describe_file
 from slicer.pipeline.elevation_slices import line_surface, plan_elevation_windows, survey_surface
 from slicer.pipeline.engine import Engine, parse_scheduler
-from slicer.pipeline.line_chain import process_line, process_samples
+from slicer.pipeline.line_chain import migration_method, process_line, process_samples
 from slicer.pipeline.settings import BuildSettings
 from slicer.processing.steps import (
     correct_time_zero,
@@ -109,6 +109,9 @@ class LineJob:
     #: Tie correction ``(time_zero_ns, gain)`` of this line, or None (see
     #: :mod:`slicer.pipeline.survey_ties`).
     correction: tuple[float, float] | None = None
+    #: The survey's dominant frequency (GHz) that the migrated band counts in, or None for
+    #: each line's own (:func:`slicer.processing.migration.migrate`).
+    frequency: float | None = None
 
 
 def reduce_line(job: LineJob) -> dict:
@@ -132,7 +135,7 @@ def reduce_line(job: LineJob) -> dict:
         line.values, line[TWT].values, settings, dewow_ns=job.dewow_ns, keep_trace=signed,
         distance=line[DISTANCE].values if DISTANCE in line.coords else None,
         time_zero_ns=float(line.attrs.get("time_zero_ns", 0.0)),
-        history=line.attrs.get("history", ""),
+        history=line.attrs.get("history", ""), frequency=job.frequency,
         where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
     env, trace, twt, history = done.envelope, done.trace, done.twt, done.history
     time_zero_ns = done.time_zero_ns
@@ -316,16 +319,22 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
 
     record_ns = (info.record_ns - float(settings.time_zero)
                  if not isinstance(settings.time_zero, str) else None)
-    dewow_ns, first = None, None
-    if settings.dewow == "auto" or windows is None or record_ns is None:
+    dewow_ns, first, frequency = None, None, None
+    # one migrated band for the survey (the first line's dominant frequency): every line is
+    # migrated alike, and lines of one size share one Stolt operator (per-line bands built
+    # 13 operators for the 81 lines of benchmarks/line_task.py, a third of the line tasks)
+    migrated = migration_method(settings)[0] != "off"
+    if settings.dewow == "auto" or migrated or windows is None or record_ns is None:
         first = load_line(settings.lines[0], settings, sample_interval_ns=info.sample_interval_ns)
-    if settings.dewow == "auto":
+    if settings.dewow == "auto" or migrated:
         t0_line = correct_time_zero(first, time_zero=settings.time_zero,
                                     threshold=settings.time_zero_threshold)
-        dewow_ns = 1.5 / dominant_frequency(t0_line)
+        frequency = dominant_frequency(t0_line)
+        dewow_ns = 1.5 / frequency if settings.dewow == "auto" else None
+        frequency = frequency if migrated else None
     elevation = settings.slices_axis == ELEVATION
     if windows is None or record_ns is None:
-        env = process_line(first, settings, dewow_ns=dewow_ns)
+        env = process_line(first, settings, dewow_ns=dewow_ns, frequency=frequency)
         record_ns = float(env[TWT].values[-1])
         if not elevation:
             windows = (default_windows(record_ns, velocity) if windows is None
@@ -341,7 +350,7 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
         ties, corrections = tie_survey(settings, engine=engine, info=info, dewow_ns=dewow_ns,
                                        progress=progress)
     jobs = [LineJob(k, entry, settings, windows, velocity, info.sample_interval_ns, dewow_ns,
-                    corrections.get(k))
+                    corrections.get(k), frequency)
             for k, entry in enumerate(settings.lines)]
     sizes = [line.n_traces for line in info.lines]
     results, table = [], _TableFill(sum(sizes))

@@ -75,17 +75,21 @@ def lagrange_weights(u: np.ndarray, n: int) -> np.ndarray:
 
 
 def band_columns(spectrum: np.ndarray, *, nt: int, ntp: int, dt: float,
-                 band: float | None) -> int:
+                 band: float | None, frequency: float | None = None) -> int:
     """How many frequency samples, from 0, of an ``ntp``-point spectrum are migrated.
 
-    Those up to ``band`` times the dominant frequency: the peak of the mean amplitude spectrum
-    of every fourth trace, ignoring frequencies below four cycles per record (as
-    :func:`slicer.processing.steps.dominant_frequency`). Rounded up to a multiple of 16, so
-    that the lines of a survey share one Stolt operator. All of them when ``band`` is None.
+    Those up to ``band`` times the dominant frequency: ``frequency`` (GHz) when given (a
+    build gives the survey's, so that every line migrates the same band and shares one Stolt
+    operator), else the peak of the mean amplitude spectrum of every fourth trace, ignoring
+    frequencies below four cycles per record (as
+    :func:`slicer.processing.steps.dominant_frequency`). Rounded up to a multiple of 16.
+    All of them when ``band`` is None.
     """
     nw = spectrum.shape[-1]
     if band is None:
         return nw
+    if frequency is not None:  # its frequency sample: ntp * dt ns is the spectrum's period
+        return min(nw, 16 * int(math.ceil((band * frequency * ntp * dt + 2) / 16)))
     # every fourth trace is plenty for a mean spectrum, at a quarter of the cost
     amplitude = np.abs(spectrum[::4]).mean(axis=0)
     low = int(math.ceil(4.0 * ntp / nt))  # four cycles per record, in frequency samples
@@ -145,7 +149,8 @@ def release_operators() -> None:
 
 
 def stolt_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, velocity: float,
-               taper: float, pad: int, band: float | None) -> np.ndarray:
+               taper: float, pad: int, band: float | None,
+               frequency: float | None = None) -> np.ndarray:
     """Stolt migration of ``data`` (traces, samples) whose first sample lies at ``t_first``.
 
     Single precision throughout (float32 samples, complex64 spectra): float32 data carry no
@@ -157,7 +162,8 @@ def stolt_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, veloci
     ntp = scipy.fft.next_fast_len(max(pad * nt, 2 * TAPS), real=True)
     # along time first, on the traces alone; then along the line, padded with zero traces
     spectrum = scipy.fft.rfft(np.asarray(data, dtype=np.float32), n=ntp, axis=1)
-    nw = max(TAPS, band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=band))
+    nw = max(TAPS, band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=band,
+                                      frequency=frequency))
     low = spectrum[:, :nw]
     shift = np.exp(1j * (2.0 * np.pi / (ntp * dt)) * t_first * np.arange(nw)).astype(
         np.complex64) if t_first else None
@@ -180,7 +186,7 @@ MAX_LAYERS = 16
 
 def phase_shift_core(data: np.ndarray, *, dx: float, dt: float, t_first: float,
                      velocities: np.ndarray, taper: float, pad: int,
-                     band: float | None) -> np.ndarray:
+                     band: float | None, frequency: float | None = None) -> np.ndarray:
     """Phase-shift migration; ``velocities[j]`` is the interval velocity below output sample j.
 
     Layers of one velocity are crossed in one step each (:func:`layers_core`); a velocity that
@@ -191,14 +197,15 @@ def phase_shift_core(data: np.ndarray, *, dx: float, dt: float, t_first: float,
     tops = np.concatenate([[0], np.nonzero(np.diff(velocities))[0] + 1])
     if tops.size <= MAX_LAYERS:
         return layers_core(data, dx=dx, dt=dt, t_first=t_first, tops=tops,
-                           velocities=velocities[tops], taper=taper, pad=pad, band=band)
+                           velocities=velocities[tops], taper=taper, pad=pad, band=band,
+                           frequency=frequency)
     return gazdag_core(data, dx=dx, dt=dt, t_first=t_first, velocities=velocities,
-                       taper=taper, band=band)
+                       taper=taper, band=band, frequency=frequency)
 
 
 def layers_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, tops: np.ndarray,
                 velocities: np.ndarray, taper: float, pad: int,
-                band: float | None) -> np.ndarray:
+                band: float | None, frequency: float | None = None) -> np.ndarray:
     """Migration through flat layers: output samples ``tops[i]`` on have ``velocities[i]``.
 
     Phase shift (Gazdag 1978) continues the wavefield from the surface to the top of each layer,
@@ -214,7 +221,8 @@ def layers_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, tops:
     nk = x_length(nx, dx, t_first + nt * dt, float(np.max(velocities)))
     ntp = scipy.fft.next_fast_len(max(pad * nt, 2 * TAPS), real=True)
     spectrum = scipy.fft.rfft(np.asarray(data, dtype=np.float32), n=ntp, axis=1)
-    nw = max(TAPS, band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=band))
+    nw = max(TAPS, band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=band,
+                                      frequency=frequency))
     w = (2.0 * np.pi / (ntp * dt)) * np.arange(nw)
     kx, _ = kx_taper(nk, dx, taper)
     # the surface's wavefield on the clock of time since time zero
@@ -247,7 +255,8 @@ def layers_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, tops:
 
 
 def gazdag_core(data: np.ndarray, *, dx: float, dt: float, t_first: float,
-                velocities: np.ndarray, taper: float, band: float | None) -> np.ndarray:
+                velocities: np.ndarray, taper: float, band: float | None,
+                frequency: float | None = None) -> np.ndarray:
     """Gazdag's (1978) phase shift, one output sample at a time (any velocity with depth).
 
     There is no interpolation, so twice the record keeps energy that continues above the
@@ -259,7 +268,7 @@ def gazdag_core(data: np.ndarray, *, dx: float, dt: float, t_first: float,
     nk = x_length(nx, dx, t_first + nt * dt, float(np.max(velocities)))
     ntp = scipy.fft.next_fast_len(2 * nt, real=True)
     spectrum = scipy.fft.rfft(np.asarray(data, dtype=np.float32), n=ntp, axis=1)
-    nw = band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=band)
+    nw = band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=band, frequency=frequency)
     passed = None
     if nw < spectrum.shape[1]:
         high = spectrum.copy()

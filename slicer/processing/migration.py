@@ -18,10 +18,11 @@ recorded two-way time.
   imaged with Stolt's mapping at its velocity, which is what the continuation sample by
   sample sums to; a velocity that changes at many depths is stepped sample by sample.
 
-Only frequencies up to a few times the line's dominant frequency are migrated (``band``);
-those above, where a radar wavelet has next to nothing and noise much, pass through unchanged.
-The output keeps the line's time axis (the vertical two-way time of the migrated image), so
-the rest of the pipeline - envelope, depth conversion, slices - runs unchanged.
+Only frequencies up to a few times the line's dominant frequency (or a given one: a build gives
+its survey's, so that every line is migrated alike) are migrated (``band``); those above,
+where a radar wavelet has next to nothing and noise much, pass through unchanged. The output
+keeps the line's time axis (the vertical two-way time of the migrated image), so the rest of
+the pipeline - envelope, depth conversion, slices - runs unchanged.
 """
 
 from __future__ import annotations
@@ -145,7 +146,7 @@ def interval_velocity(velocity, *, layer_tops=None, tops: str = "twt",
 
 def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=None,
             tops: str = "twt", taper: float = 0.2, pad: int = 2,
-            band: float | None = 4.0) -> xr.DataArray:
+            band: float | None = 4.0, frequency: float | None = None) -> xr.DataArray:
     """Migrate a line (2-D, zero offset), before the envelope.
 
     The line must be time-zero corrected (``twt = 0`` at the surface). Samples at negative
@@ -191,6 +192,10 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
         frequency is 5e-6 of the peak), while recorded noise often spreads up to the
         Nyquist frequency; leaving it out makes migration several times cheaper. None
         migrates every frequency.
+    frequency : float, optional
+        The dominant frequency (GHz) that ``band`` counts in, instead of the line's own: a
+        build gives its survey's, so that every line migrates the same band (and lines of one
+        size share one Stolt operator).
 
     Returns
     -------
@@ -207,7 +212,7 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
     dx = trace_spacing(line)
     apply, how, v_const = migration_plan(
         np.asarray(line[TWT].values, dtype=float), dx=dx, velocity=velocity, method=method,
-        layer_tops=layer_tops, tops=tops, taper=taper, pad=pad, band=band,
+        layer_tops=layer_tops, tops=tops, taper=taper, pad=pad, band=band, frequency=frequency,
         where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
     if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array
         out = line.copy(deep=False, data=apply(line.values))
@@ -226,7 +231,8 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
 
 def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt",
                    layer_tops=None, tops: str = "twt", taper: float = 0.2, pad: int = 2,
-                   band: float | None = 4.0, where: str = "line"
+                   band: float | None = 4.0, frequency: float | None = None,
+                   where: str = "line"
                    ) -> tuple[Callable[[np.ndarray], np.ndarray], str, float | None]:
     """The migration of :func:`migrate` for ``(..., trace, twt)`` samples on the axis ``twt``
     (ns), traces ``dx`` m apart: a function from samples to migrated float32 samples, the
@@ -244,6 +250,10 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
                                  and band >= 1):
         raise SettingsError(f"the migrated band must be at least 1 dominant frequency (or "
                             f"None for all), got {band!r}", where="--migration")
+    if frequency is not None and not (isinstance(frequency, int | float)
+                                      and math.isfinite(frequency) and frequency > 0):
+        raise SettingsError(f"the dominant frequency of the migrated band must be a positive "
+                            f"number of GHz, got {frequency!r}", where="--migration")
     if twt.size < 2:
         raise SettingsError("a line needs at least two samples per trace")
     dt = float(twt[1] - twt[0])
@@ -272,8 +282,11 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
     def apply(samples: np.ndarray) -> np.ndarray:
         out = np.array(samples, dtype=np.float32, copy=True)
         out[..., start:] = core(samples[..., start:], dx=dx, dt=dt, t_first=t_first,
-                                taper=taper, pad=int(pad), band=band, **kwargs)
+                                taper=taper, pad=int(pad), band=band, frequency=frequency,
+                                **kwargs)
         return out
 
     v_const = float(speed(np.zeros(1))[0]) if constant else None
+    if frequency is not None and band is not None:
+        how += f", frequencies to {band * frequency:.3g} GHz"
     return apply, f"{how}, trace spacing {dx:.4g} m", v_const

@@ -70,7 +70,8 @@ LAYERED = ('kind = "layered"\n[[layer]]\ntop_depth = 0.0\nvelocity = 0.1\nveloci
            '[[layer]]\ntop_depth = 1.0\nvelocity = 0.08\nvelocity_std = 0.0\n')
 
 
-def _labelled(settings, entry, windows, model, *, dewow_ns=None, correction=None):
+def _labelled(settings, entry, windows, model, *, dewow_ns=None, correction=None,
+              frequency=None):
     """reduce_line written with the public labelled functions, one step each."""
     from slicer.gridding.windows import window_signs
     from slicer.pipeline.line_chain import migration_arguments, migration_method
@@ -92,7 +93,7 @@ def _labelled(settings, entry, windows, model, *, dewow_ns=None, correction=None
         line = remove_background(line, method=settings.background)
     method, _ = migration_method(settings)
     if method != "off":
-        line = migrate(line, **migration_arguments(settings))
+        line = migrate(line, **migration_arguments(settings), frequency=frequency)
     if settings.gain_curve is not None:
         line = apply_gain(line, kind=settings.gain_curve[0], value=settings.gain_curve[1])
     env = envelope(line)
@@ -108,6 +109,8 @@ def _labelled(settings, entry, windows, model, *, dewow_ns=None, correction=None
 @pytest.mark.parametrize("case", [
     # Stolt migration (auto: one velocity, depth slices), default scaled background, picked t0
     {"options": {"depths": "0:2.4:0.1", "velocity": 0.1, "time_zero": "auto"}},
+    # the same with the survey's migrated band (a build's: its first line's frequency)
+    {"options": {"depths": "0:2.4:0.1", "velocity": 0.1}, "frequency": 0.4},
     # signed slices, antenna separation (picked t0), tie correction, exp gain, phase shift
     {"options": {"depths": "0:2:0.2", "velocity": 0.1, "attribute": "signed",
                  "antenna_separation": 0.1, "time_zero": "auto", "migrate": "phase-shift",
@@ -130,10 +133,11 @@ def test_plain_line_task_equals_the_labelled_steps(small_survey, tmp_path, case)
     dewow_ns = case.get("dewow_ns", 3.75)
     for number in (0, 3):
         job = LineJob(number, settings.lines[number], settings, windows, model, 0.1, dewow_ns,
-                      case.get("correction"))
+                      case.get("correction"), case.get("frequency"))
         got = reduce_line(job)
         values, signs, env = _labelled(settings, settings.lines[number], windows, model,
-                                       dewow_ns=dewow_ns, correction=case.get("correction"))
+                                       dewow_ns=dewow_ns, correction=case.get("correction"),
+                                       frequency=case.get("frequency"))
         if settings.attribute == "signed":
             values = values * signs
             assert (np.sign(got["values"]) != 0).any()
@@ -160,3 +164,19 @@ def test_the_table_filled_line_by_line_equals_the_joined_lines():
         table = fill.table(windows)
         xr.testing.assert_identical(table, joined)
         assert table["line"].dtype == np.int32 and table.dtype == np.float32
+
+
+def test_a_build_migrates_every_line_with_one_band(small_survey, tmp_path):
+    # The survey's band: four times the first line's dominant frequency
+    # (slicer.processing.steps.dominant_frequency, checked in tests/processing), the same in
+    # every line's history.
+    from slicer.processing.steps import dominant_frequency
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1, time_zero=3.0,
+                                    depths="0:2:0.2", velocity=0.1, out=tmp_path / "out")
+    result = slicer.build(settings, progress=False)
+    first = correct_time_zero(load_line(settings.lines[0], settings, sample_interval_ns=0.1),
+                              time_zero=3.0)
+    band = f"frequencies to {4 * dominant_frequency(first):.3g} GHz"
+    histories = [line["history"] for line in result.record["lines"]]
+    assert len(histories) == len(settings.lines)
+    assert all(band in h for h in histories), (band, histories[0])

@@ -126,17 +126,22 @@ def test_a_diffractor_near_the_end_of_the_record_focuses():
     assert fraction > 0.9
 
 
+def _burst(line, *, seed):
+    """A Hann-windowed 2.2 GHz burst, 20 ns long about 50 ns, random phase on each trace."""
+    t = line["twt"].values
+    window = np.where(np.abs(t - 50.0) < 10.0, np.cos(np.pi * (t - 50.0) / 20.0) ** 2, 0.0)
+    phase = np.random.default_rng(seed).uniform(0, 2 * np.pi, TRACES)[:, None]
+    return (0.02 * float(np.abs(line.values).max()) * window
+            * np.cos(2 * np.pi * 2.2 * t + phase)).astype(np.float32)
+
+
 @pytest.mark.parametrize("method", ["stolt", "phase-shift"])
 def test_frequencies_above_the_band_pass_through(point_line, method):
     # A Hann-windowed 2.2 GHz burst (20 ns long, random phase on each trace) lies wholly above
     # the migrated band, 4 x the 0.4 GHz dominant frequency (rounded up to 1.64 GHz here):
     # migration is linear, so it must come out exactly as it went in. Migrating every
     # frequency (band=None) moves it.
-    t = point_line["twt"].values
-    window = np.where(np.abs(t - 50.0) < 10.0, np.cos(np.pi * (t - 50.0) / 20.0) ** 2, 0.0)
-    phase = np.random.default_rng(3).uniform(0, 2 * np.pi, TRACES)[:, None]
-    burst = (0.02 * float(np.abs(point_line.values).max()) * window
-             * np.cos(2 * np.pi * 2.2 * t + phase)).astype(np.float32)
+    burst = _burst(point_line, seed=3)
     spectrum = np.abs(scipy.fft.rfft(burst, n=1024, axis=1)) ** 2  # scipy.fft: (next to) no
     below = scipy.fft.rfftfreq(1024, DT) < 1.6  # energy below the band's top
     assert spectrum[:, below].sum() < 1e-6 * spectrum.sum()
@@ -145,6 +150,39 @@ def test_frequencies_above_the_band_pass_through(point_line, method):
         moved = (migrate(noisy, velocity=V, method=method, band=band).values
                  - migrate(point_line, velocity=V, method=method, band=band).values - burst)
         assert (np.abs(moved).max() < 2e-3 * np.abs(burst).max()) == passed
+
+
+@pytest.mark.parametrize("method", ["stolt", "phase-shift"])
+def test_a_given_dominant_frequency_sets_the_band(point_line, method):
+    # The same 2.2 GHz burst as above: with the band counted from a given 0.4 GHz (the
+    # forward model's wavelet; a build gives its survey's) it lies above 4 x 0.4 = 1.6 GHz and
+    # passes through; counted from 0.6 GHz (top 2.4 GHz) it is migrated, and so moved.
+    # Linearity of migration, as above; the band's top from band x frequency (its definition).
+    burst = _burst(point_line, seed=5)
+    noisy = point_line.copy(data=point_line.values + burst)
+    for frequency, passed in ((0.4, True), (0.6, False)):
+        moved = (migrate(noisy, velocity=V, method=method, frequency=frequency).values
+                 - migrate(point_line, velocity=V, method=method,
+                           frequency=frequency).values - burst)
+        assert (np.abs(moved).max() < 2e-3 * np.abs(burst).max()) == passed
+    history = migrate(point_line, velocity=V, method=method, frequency=0.4).attrs["history"]
+    assert "frequencies to 1.6 GHz" in history
+
+
+def test_lines_given_one_frequency_share_one_stolt_operator(point_line):
+    # Lines of one size whose own spectra peak apart (a 0.4 GHz line, and the same with a
+    # strong 0.8 GHz ringing) would each get their own band; given the survey's frequency
+    # they are migrated with one operator (functools.lru_cache's counts).
+    from slicer.processing.fk import stolt_operator
+    t = point_line["twt"].values
+    ringing = (5.0 * float(np.abs(point_line.values).max())
+               * np.sin(2 * np.pi * 0.8 * t)).astype(np.float32)
+    rung = point_line.copy(data=point_line.values + ringing)
+    for given, operators in ((None, 2), (0.4, 1)):
+        stolt_operator.cache_clear()
+        for line in (point_line, rung):
+            migrate(line, velocity=V, frequency=given)
+        assert stolt_operator.cache_info().misses == operators
 
 
 # Two layers: 0.12 m/ns down to 0.96 m (16 ns two-way), then 0.08 m/ns; a diffractor 0.64 m
@@ -259,6 +297,10 @@ def test_trace_spacing_is_the_median_step_and_uneven_lines_warn(point_line):
     (dict(velocity=0.1, pad=1), "padding"),
     (dict(velocity=0.1, band=0.5), "band"),
     (dict(velocity=0.1, band=float("nan")), "band"),
+    (dict(velocity=0.1, frequency=0.0), "GHz"),
+    (dict(velocity=0.1, frequency=-0.4), "GHz"),
+    (dict(velocity=0.1, frequency=float("inf")), "GHz"),
+    (dict(velocity=0.1, frequency="400 MHz"), "GHz"),
 ])
 def test_bad_settings_are_refused(point_line, kwargs, match):
     with pytest.raises(SettingsError, match=match):
