@@ -42,6 +42,15 @@ PEERS = {
     "import xarray": "import xarray",
     "import dask.array": "import dask.array",
     "import matplotlib.pyplot": "import matplotlib.pyplot",
+    "import scipy.signal": "import scipy.signal",
+}
+
+#: Imports of the package timed here (and at ``--before``): the package alone, and what a
+#: build's worker process imports before its first task (``engine.WARM_MODULES``).
+IMPORTS = {
+    "import slicer": "import slicer",
+    "a build's worker": ("import slicer.pipeline.line_tasks, slicer.outputs.radargram, "
+                         "slicer.pipeline.worker_outputs"),
 }
 
 
@@ -80,15 +89,18 @@ def main() -> None:
     here = str(ROOT)
     for name, argv in COMMANDS.items():
         runs[name] = (_cli_code("slicer.cli", argv), here)
-    runs["import slicer"] = ("import slicer", here)
+    for name, code in IMPORTS.items():
+        runs[name] = (code, here)
     with tempfile.TemporaryDirectory() as tmp:
         if args.before:
             old = str(_checkout(args.before, Path(tmp)))
-            old_cli = ("slicer.cli" if (Path(old) / "slicer" / "cli.py").exists()
+            old_cli = ("slicer.cli" if any((Path(old) / "slicer" / p).exists()
+                                           for p in ("cli.py", "cli"))
                        else "slicer._cli")
             for name, argv in COMMANDS.items():
                 runs[f"{name} @ {args.before}"] = (_cli_code(old_cli, argv), old)
-            runs[f"import slicer @ {args.before}"] = ("import slicer", old)
+            for name, code in IMPORTS.items():
+                runs[f"{name} @ {args.before}"] = (code, old)
         for code, path in runs.values():  # warm the file cache and .pyc files once
             _wall(code, path)
         times: dict[str, list[float]] = {name: [] for name in runs}
@@ -103,10 +115,10 @@ def main() -> None:
           f"python {sys.version.split()[0]}")
     print(_table(["command", "median s", "min s", "x python -c pass"], rows))
     if args.before:
-        for name in COMMANDS:
+        for name in [*COMMANDS, *IMPORTS]:
             new = statistics.median(times[name])
             old = statistics.median(times[f"{name} @ {args.before}"])
-            print(f"{name}: {old:.2f} s before, {new:.2f} s now ({old / new:.0f}x faster)")
+            print(f"{name}: {old:.2f} s before, {new:.2f} s now ({old / new:.2f}x as fast)")
 
 
 if __name__ == "__main__":
