@@ -111,6 +111,12 @@ WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
 
 _FORMS = "auto, threads, processes, local:N or tcp://HOST:PORT"
 
+#: Said when a worker process ends in the middle of a task (multiprocessing gives only
+#: BrokenProcessPool): the usual causes, and the way round them.
+WORKER_LOST = ("a worker process ended in the middle of a task: out of memory, killed, or (a "
+               "script calling slicer.build) the build starts again in each worker, so put it "
+               "under if __name__ == '__main__':. Threads need neither: --scheduler threads")
+
 
 def parse_scheduler(text: str | None, *, workers: int | None = None,
                     traces: int | None = None) -> EngineSpec:
@@ -302,7 +308,10 @@ class Engine:
                     pending.append(submit(task_func, task))
                 done = 0
                 while pending:
-                    results = pending.popleft().result()
+                    try:
+                        results = pending.popleft().result()
+                    except concurrent.futures.process.BrokenProcessPool:
+                        raise SettingsError(WORKER_LOST, where="--scheduler") from None
                     for task in itertools.islice(tasks, 1):
                         pending.append(submit(task_func, task))
                     for result in ([results] if batch == 1 else results):

@@ -58,12 +58,10 @@ def _remove_baseline(samples: np.ndarray) -> np.ndarray:
     """Subtract a Gaussian running mean, sigma a twentieth of the record (last axis).
 
     As :func:`scipy.ndimage.gaussian_filter1d` (``mode="nearest"``, 4 sigma each side), but
-    as an FFT convolution of the edge-padded traces: the kernel spans two fifths of the
-    record, and sliding it was the largest step of a line whose time zero is picked. The
-    convolution is :func:`scipy.signal.fftconvolve`'s (``mode="valid"``) written with
-    :mod:`scipy.fft`, and the kernel :func:`scipy.signal.windows.gaussian`'s formula:
-    importing :mod:`scipy.signal` took 0.6-0.7 s of every worker process's start
-    (benchmarks/startup.py, "import scipy.signal").
+    by FFT (the kernel spans two fifths of the record; sliding it was the largest step of a
+    picked time zero): :func:`scipy.signal.fftconvolve`'s "valid" convolution of the
+    edge-padded traces, with :mod:`scipy.fft` because importing :mod:`scipy.signal` took
+    0.6-0.7 s of every worker's start (benchmarks/startup.py).
     """
     sigma = max(1.0, samples.shape[-1] / 20)
     if samples.ndim == 1 or samples.shape[-1] < 64:
@@ -73,10 +71,8 @@ def _remove_baseline(samples: np.ndarray) -> np.ndarray:
     kernel /= kernel.sum()
     padded = np.pad(samples, [(0, 0)] * (samples.ndim - 1) + [(r, r)], mode="edge")
     n = scipy.fft.next_fast_len(padded.shape[-1] + 2 * r, real=True)  # no wrap-around
-    smooth = scipy.fft.irfft(scipy.fft.rfft(padded, n, axis=-1) * scipy.fft.rfft(kernel, n),
-                             n, axis=-1)
-    # the "valid" part: where the kernel lies wholly on the padded traces
-    return samples - smooth[..., 2 * r:2 * r + samples.shape[-1]]
+    smooth = scipy.fft.irfft(scipy.fft.rfft(padded, n, axis=-1) * scipy.fft.rfft(kernel, n), n)
+    return samples - smooth[..., 2 * r:2 * r + samples.shape[-1]]  # the "valid" part
 
 
 def dominant_frequency(line: xr.DataArray) -> float:

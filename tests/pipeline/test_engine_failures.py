@@ -279,3 +279,17 @@ def test_killed_build_leaves_no_process_behind(tmp_path, scheduler):
         with contextlib.suppress(psutil.NoSuchProcess):
             psutil.Process(pid).kill()
     assert not left, f"processes {left} of the killed build still run after {BOUND} s"
+
+
+def _end_this_process(_item):
+    os._exit(3)  # as the kernel's out-of-memory killer would end a worker: no exception
+
+
+def test_a_worker_that_ends_mid_task_is_one_clear_error():
+    # concurrent.futures raises BrokenProcessPool (its documented behaviour when a worker
+    # ends abruptly); the engine names the scheduler and the causes instead
+    with Engine(parse_scheduler("processes", workers=1)) as engine:
+        with pytest.raises(SettingsError, match="worker process ended") as caught:
+            list(engine.map(_end_this_process, [1, 2], desc="ending", progress=False))
+    assert caught.value.where == "--scheduler"
+    assert "__main__" in str(caught.value) and "\n" not in str(caught.value)
