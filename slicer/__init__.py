@@ -69,6 +69,7 @@ _PUBLIC: dict[str, tuple[str, ...]] = {
     "slicer.velocity.diffraction": ("find_diffractions", "survey_velocity"),
     "slicer.velocity.hyperbola": ("fit_hyperbola", "hyperbola_time"),
     "slicer.velocity.model_file": ("read_velocity_model", "write_velocity_model"),
+    "slicer.velocity.targets": ("TargetRadius", "target_radius"),
     "slicer.velocity.models": ("ConstantVelocity", "LateralVelocity", "LayeredVelocity",
         "depth_error", "to_depth_axis", "velocity_from_known_depth"),
 }

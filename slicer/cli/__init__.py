@@ -83,6 +83,13 @@ def make_parser() -> argparse.ArgumentParser:
                     help="height of the radar antennas above the ground (0: on it): the picks "
                          "are corrected for the ground coupling that makes straight "
                          "hyperbolas read fast (default: no correction; slower)")
+    ve.add_argument("--target-radius", action="append", metavar="R[+-S][@X1,Y1,X2,Y2...]",
+                    help="radius in m of round targets (pipes) known from the site, with its "
+                         "uncertainty S (default a tenth of R): their hyperbolas are fitted "
+                         "as round targets of that radius instead of points, which read fast "
+                         "by about sqrt(c / (c - R)) for the centre at depth c; with @ and a "
+                         "route (x,y pairs in the survey CRS) only for the fits within 0.5 m "
+                         "of it; repeat for several targets (one without a route at most)")
     ve.add_argument("--out", metavar="DIR", help="write velocity.toml and figures/ here")
     ve.add_argument("--overwrite", action="store_true", help="allow a non-empty --out")
     ve.add_argument("--json", action="store_true", help="print one JSON object on stdout")
@@ -248,17 +255,21 @@ def _run_velocity(args) -> int:
     from slicer.core.atomic import prepare_output_dir
     from slicer.pipeline.settings import load_settings
     from slicer.pipeline.velocity_survey import analyse_velocity, write_velocity_outputs
+    from slicer.velocity.targets import parse_target_radius
 
     settings = load_settings(args.survey, sample_interval=args.sample_interval,
                              time_zero=args.time_zero, positions=args.positions, crs=args.crs,
                              antenna_separation=args.antenna_separation,
-                             antenna_height=args.antenna_height)
+                             antenna_height=args.antenna_height,
+                             target_radius=args.target_radius)
+    targets = [parse_target_radius(text) for text in settings.target_radius or ()]
     figures = None
     if args.out:
         prepare_output_dir(args.out, overwrite=args.overwrite, create=False)
         figures = Path(args.out) / "figures"
     analysis = analyse_velocity(settings, progress=not args.quiet, figures=figures,
-                                antenna_height=settings.antenna_height)
+                                antenna_height=settings.antenna_height,
+                                target_radius=targets or None)
     if args.out:
         write_velocity_outputs(analysis, args.out, overwrite=True)
     if args.json:

@@ -38,7 +38,8 @@ class Option:
         ``number``, ``flag`` (true/false), ``text``, ``choice``, ``path``, ``number|word``
         (a number or one of ``words``), ``size`` (bytes, a number or text such as 1GB) or
         ``background`` (text in :func:`slicer.processing.background.parse_background`'s form)
-        or ``formats`` (a comma list of ``words``, or a TOML list of them).
+        or ``formats`` (a comma list of ``words``, or a TOML list of them) or ``radii`` (one
+        text or a list of texts in :func:`slicer.velocity.targets.parse_target_radius`'s form).
     help : str
         Meaning, for the docs and ``--help``.
     unit : str
@@ -142,6 +143,19 @@ def check_option(name: str, value, *, where: str | None = None):
         return value
     if o.kind == "formats":
         return _formats(o, value, where)
+    if o.kind == "radii":  # their grammar lives with the fits (imported only here)
+        from slicer.velocity.targets import parse_target_radius
+        one = isinstance(value, str | int | float) and not isinstance(value, bool)
+        texts = [str(value)] if one else value
+        if not isinstance(texts, list | tuple) or not all(isinstance(t, str) for t in texts):
+            raise SettingsError(f"expected R[+-S][@X1,Y1,X2,Y2...] or a list of them, got "
+                                f"{value!r}", where=where)
+        for text in texts:
+            try:
+                parse_target_radius(text)
+            except SettingsError as exc:
+                raise SettingsError(exc.message, where=where) from None
+        return tuple(texts) or None
     if not isinstance(value, str):
         raise SettingsError(f"expected text, got {value!r}", where=where)
     if o.kind == "background":  # its grammar lives with the step (imported only here)
@@ -270,6 +284,10 @@ OPTIONS: dict[str, Option] = {o.name: o for o in (
     _o("antenna_height", "number", "height of the radar antennas above the ground, for slicer "
        "velocity's correction of ground coupling (0: on the ground; default no correction)",
        "m", 0, 2),
+    _o("target_radius", "radii", "radius of round targets known from the site (pipes), for "
+       "slicer velocity: R[+-S][@X1,Y1,X2,Y2...] in m, S its uncertainty (default R/10), the "
+       "route (survey CRS) the fits within 0.5 m of which it is for; several as a list",
+       "m"),
     # A survey pole or a cart mast holds a GNSS antenna 0.3-3 m up; 20 m covers any vehicle.
     _o("gnss_height", "number", "height of the GNSS antenna above the ground, subtracted "
        "from the track's heights (--terrain gnss)", "m", 0, 20),

@@ -75,6 +75,7 @@ class BuildSettings:
     time_zero: float | str = "auto"
     antenna_separation: float | None = None
     antenna_height: float | None = None
+    target_radius: tuple[str, ...] | None = None
     time_zero_threshold: float = 0.5
     dewow: float | str = "auto"
     background: str = "scaled"

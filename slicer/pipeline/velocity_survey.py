@@ -18,6 +18,7 @@ from pathlib import Path
 import numpy as np
 
 from slicer.core.atomic import prepare_output_dir
+from slicer.core.errors import SettingsError
 from slicer.core.physics import check_separation, depth_from_time
 from slicer.core.progress import bar_for
 from slicer.geometry.survey import load_line, survey_info
@@ -29,6 +30,7 @@ from slicer.velocity.coupling import HEIGHT_STD, correct_for_coupling
 from slicer.velocity.diffraction import find_diffractions
 from slicer.velocity.model_file import write_velocity_model
 from slicer.velocity.models import ConstantVelocity
+from slicer.velocity.targets import TargetRadius, radius_for, target_radius
 
 
 @dataclass
@@ -49,17 +51,22 @@ class VelocityAnalysis:
     crs: str | None = None
     #: Antenna height the picks were corrected with, m (None: not corrected).
     antenna_height: float | None = None
+    #: Target radii given (:class:`~slicer.velocity.targets.TargetRadius`), empty for none.
+    target_radius: tuple = ()
 
     def to_json(self) -> dict:
         """``velocity``, ``velocity_std`` (m/ns; the standard uncertainty: in quadrature
         ``velocity_std_lines``, the bootstrap over lines, and ``velocity_std_aperture``, the
         systematic part from refits over narrower apertures and, with the picks corrected for
-        the antennas' coupling, the antenna height's uncertainty), ``velocity_std_fits``
-        (from the fits' own errors), ``antenna_height`` (m, or None), ``groups`` and
+        the antennas' coupling, the antenna height's uncertainty and that of given target
+        radii), ``velocity_std_fits`` (from the fits' own errors), ``antenna_height`` (m, or
+        None), ``target_radius`` (the radii given, m, each with ``radius_std`` and its
+        ``route``, a list of ``[x, y]``, m), ``groups`` and
         ``fits`` with position, time, depth (at the survey velocity, bistatic with the antenna
         separation), shape (``"point"``, ``"offset"`` or ``"round"``; ``delay``, ns, the
-        fitted time offset and ``radius``, m, the fitted or equivalent radius
-        ``-delay v / 2``), ``velocity_std_aperture`` and what the combination made of each
+        fitted time offset and ``radius``, m, the fitted, given (``radius_given``) or
+        equivalent radius ``-delay v / 2``), ``velocity_std_aperture`` and what the
+        combination made of each
         (``reason``, ``corrected_velocity`` for a linear target crossed at ``crossing_angle``
         degrees)."""
         kept = {id(f) for f in self.kept}
@@ -77,6 +84,7 @@ class VelocityAnalysis:
                                                    separation=self.separation)),
                     "score": f.score, "kept": id(f) in kept, "shape": f.fit.shape,
                     "radius": f.fit.equivalent_radius, "radius_std": f.fit.radius_std,
+                    "radius_given": bool(getattr(f.fit, "radius_given", False)),
                     "delay": f.fit.delay, "delay_std": f.fit.delay_std,
                     "reason": note.reason if note else None,
                     "corrected_velocity": number(note.velocity) if note else None,
@@ -88,10 +96,12 @@ class VelocityAnalysis:
                 "velocity_std_aperture": number(self.velocity_std_aperture),
                 "antenna_separation": self.separation,
                 "antenna_height": self.antenna_height,
+                "target_radius": [t.to_json() for t in self.target_radius],
                 "units": {"velocity": "m/ns", "x": "m", "y": "m", "time": "ns", "depth": "m",
                           "radius": "m", "delay": "ns", "crossing_angle": "degree",
                           "velocity_std": "m/ns",
-                          "antenna_separation": "m", "antenna_height": "m"},
+                          "antenna_separation": "m", "antenna_height": "m",
+                          "target_radius": "m"},
                 "groups": [g._asdict() for g in self.groups],
                 "fits": [row(f) for f in self.fits]}
 
@@ -105,7 +115,8 @@ class VelocityAnalysis:
 def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
                      figures: str | os.PathLike | None = None,
                      separation: float | None = None, antenna_height: float | None = None,
-                     height_std: float = HEIGHT_STD) -> VelocityAnalysis:
+                     height_std: float = HEIGHT_STD,
+                     target_radius=None) -> VelocityAnalysis:
     """Find and fit the diffraction hyperbolas of every line; combine them.
 
     Parameters
@@ -129,11 +140,21 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
         the boundary's coupling, such as slicer's own synthetic surveys).
     height_std : float
         Uncertainty of ``antenna_height``, m, carried into the systematic uncertainty.
+    target_radius : float, TargetRadius or sequence of TargetRadius, optional
+        Radii known for the targets, m (a float: every target, with the default uncertainty
+        :data:`~slicer.velocity.targets.RADIUS_STD_SHARE`; a
+        :class:`~slicer.velocity.targets.TargetRadius` with a route: the fits near it): the
+        hyperbolas they apply to are refitted as round targets of that radius
+        (:func:`~slicer.velocity.coupling.correct_for_coupling`, with or without the
+        coupling correction), whose velocity is otherwise read fast as a point's and cannot
+        be fitted with a free radius (:mod:`slicer.velocity.targets`). The radius's
+        uncertainty is carried into the systematic uncertainty.
     """
     from slicer.geometry.positioning import prepare_survey
     if separation is None:
         separation = settings.antenna_separation or 0.0
     separation = check_separation(separation, where="separation")
+    targets = _targets(target_radius)
     settings = prepare_survey(settings)
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
     fits, pictures = [], []
@@ -145,9 +166,8 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
                                      threshold=settings.time_zero_threshold,
                                      separation=separation)
             found = find_diffractions(line, separation=separation)
-            if antenna_height is not None:
-                found = correct_for_coupling(line, found, antenna_height=antenna_height,
-                                             separation=separation, height_std=height_std)
+            if antenna_height is not None or targets:
+                found = _refit(line, found, antenna_height, separation, height_std, targets)
             fits.extend(found)
             if figures is not None:  # drawn once the survey's velocity and choice are known
                 pictures.append((line_picture(line, settings), found))
@@ -160,7 +180,43 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
                             list(estimate.kept), float(estimate.fit_std), estimate.groups,
                             estimate.assessed, separation, float(estimate.std_lines),
                             float(estimate.std_aperture), settings.crs,
-                            None if antenna_height is None else float(antenna_height))
+                            None if antenna_height is None else float(antenna_height),
+                            targets)
+
+
+def _targets(given) -> tuple:
+    """``target_radius`` of :func:`analyse_velocity` as a tuple of TargetRadius."""
+    if given is None:
+        return ()
+    if isinstance(given, TargetRadius):
+        return (given,)
+    if isinstance(given, int | float):
+        return (target_radius(given, where="target_radius"),)
+    out = tuple(given)
+    if not all(isinstance(t, TargetRadius) for t in out):
+        raise SettingsError("give a radius in m, a TargetRadius or a sequence of them",
+                            where="target_radius")
+    radius_for((), out)  # one default at most
+    return out
+
+
+def _refit(line, found, antenna_height, separation, height_std, targets) -> list:
+    """The line's hyperbolas refitted, each with the radius given for it (if any), with the
+    picks corrected for the antennas' coupling when ``antenna_height`` is given; in order."""
+    given = radius_for(found, targets)
+    out = list(found)
+    for target in dict.fromkeys(given):  # each radius once, in order of first use
+        idx = [k for k, g in enumerate(given) if g == target]
+        if target is None and antenna_height is None:
+            continue
+        refitted = correct_for_coupling(
+            line, [found[k] for k in idx], antenna_height=antenna_height,
+            separation=separation, height_std=height_std,
+            target_radius=None if target is None else target.radius,
+            radius_std=0.0 if target is None else target.std)
+        for k, d in zip(idx, refitted, strict=True):
+            out[k] = d
+    return out
 
 
 def write_velocity_outputs(analysis: VelocityAnalysis, out: str | os.PathLike, *,

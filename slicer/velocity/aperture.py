@@ -59,9 +59,13 @@ def critical_angle(velocity: float) -> float:
 
 
 def _refit(x, t, w, fit: HyperbolaFit) -> HyperbolaFit:
-    """Fit picks in the form of ``fit``: a round target's with its radius free, otherwise a
-    point's with the fitted time offset (0 for a point) held (a free offset is not resolved
-    near the apex, :mod:`slicer.velocity.offset_fit`)."""
+    """Fit picks in the form of ``fit``: with a given radius, that radius and the time offset
+    held; a round target's with its radius free; otherwise a point's with the fitted time
+    offset (0 for a point) held (a free offset is not resolved near the apex,
+    :mod:`slicer.velocity.offset_fit`)."""
+    if fit.radius_given:
+        return fit_offset_hyperbola(x, t - fit.delay, separation=fit.separation, weights=w,
+                                    delay=False, radius=fit.radius)
     if fit.shape == "round":
         return fit_hyperbola(x, t, radius=True, weights=w)
     return fit_offset_hyperbola(x, t - fit.delay, separation=fit.separation, weights=w,

@@ -39,9 +39,19 @@ pipe, 0.075 m at 0.55 m; the geometric bias of such round targets fitted as poin
 antennas 2 cm up) +12.9 -> +3.6 % (pipes +3.6 and +5.6 %); permittivity 4, 2 cm up
 +10.2 -> +2.5 % (+2.5, +4.7 %); permittivity 9, antennas on the ground +10.7 -> +6.9 %
 (+6.9, +7.2 %, the radius bias alone). The fits with a free time offset, with the coupling
-modelled, stayed unresolved (-2 to -24 % line by line). The result depends on the antenna
-height: 2 cm more or less moves the fixture's velocity by about 6 %, so the spread of two
-refits at ``h -+ height_std`` is added to each fit's systematic uncertainty.
+modelled, stayed unresolved (-2 to -24 % line by line; jointly over the fixture's 8 lines,
+-8 to -14 % for the steel pipe: :mod:`slicer.velocity.targets`). The result depends on the
+antenna height: 2 cm more or less moves the fixture's velocity by about 6 %, so the spread of
+two refits at ``h -+ height_std`` is added to each fit's systematic uncertainty.
+
+With a radius given for a target (``target_radius``), its curve is fitted as a round target of
+that radius (:func:`~slicer.velocity.offset_fit.fit_offset_hyperbola`) and the model's target
+sits at the centre, the echo ``2 R / v`` early. On the fixture, the pipes' radii given: the
+steel pipe's fits 0.0985-0.0986 m/ns (-1.4 %), the air-filled pipe's 0.0995-0.1000 (-0.4 to
++0.1 %), the survey 0.0985 +- 0.0030 m/ns; one radius of 0.05 m for both gave the air-filled
+pipe +1.7 %, one of 0.075 m the steel pipe -3.9 % (a centimetre of radius is about 1 % of
+velocity at these depths; measured 2026). The radius's uncertainty (``radius_std``) is carried
+like the height's.
 
 Times ns, positions and heights m, velocities m/ns, frequencies GHz.
 """
@@ -162,7 +172,8 @@ def _model_peaks(data, t_axis, period, x, t_apex, apex, fit, height, half):
     freqs = np.fft.rfftfreq(nfft, dt)
     freqs = freqs[freqs <= 4.0 / period]  # the band-pass ends at four times the frequency
     v, x0 = fit.velocity, fit.x0
-    centre = math.sqrt(max((v * (fit.t0 - fit.delay) / 2) ** 2 - half * half,
+    offset = fit.delay - 2.0 * fit.radius / v  # a round target is its centre seen early
+    centre = math.sqrt(max((v * (fit.t0 - offset) / 2) ** 2 - half * half,
                            (0.05 * v * fit.t0) ** 2))
     g = _field(freqs, np.concatenate([x - half - x0, x + half - x0, [apex[0] - half - x0,
                                                                      apex[0] + half - x0]]),
@@ -199,27 +210,33 @@ def _section(line: xr.DataArray):
             np.asarray(line[DISTANCE].values, dtype=float))
 
 
-def _corrected_fit(x, t, w, data, t_axis, period, apex, height, separation):
-    """Correct-and-refit passes; the final fit (free time offset allowed) and the
-    corrected picks."""
+def _corrected_fit(x, t, w, data, t_axis, period, apex, height, separation, radius=0.0):
+    """Correct-and-refit passes (none without a ``height``); the final fit (free time offset
+    allowed without a given ``radius``) and the corrected picks."""
     half = separation / 2.0
     t_apex = float(t[int(np.argmin(np.abs(x - apex[0])))])
-    fit = fit_offset_hyperbola(x, t, separation=separation, weights=w, delay=False)
+    fit = fit_offset_hyperbola(x, t, separation=separation, weights=w, delay=False,
+                               radius=radius)
     keep, corrected = np.ones(x.size, bool), t
-    for _ in range(_PASSES):
+    for _ in range(_PASSES if height is not None else 0):
         shift = _model_peaks(data, t_axis, period, x, t_apex, apex, fit, height, half)
         keep = np.isfinite(shift)
         corrected = t[keep] - shift[keep]
         fit = fit_offset_hyperbola(x[keep], corrected, separation=separation, weights=w[keep],
-                                   delay=False)
-    final = fit_apex(x[keep], corrected, separation=separation, weights=w[keep],
-                     precision=period / 50)
+                                   delay=False, radius=radius)
+    if radius > 0:
+        final = fit
+    else:
+        final = fit_apex(x[keep], corrected, separation=separation, weights=w[keep],
+                         precision=period / 50)
     return final, (x[keep], corrected, w[keep])
 
 
-def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float,
+def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float | None,
                          separation: float = 0.0, height_std: float = HEIGHT_STD,
-                         max_angle: float = 50.0, min_picks: int = 8) -> list:
+                         max_angle: float = 50.0, min_picks: int = 8,
+                         target_radius: float | None = None,
+                         radius_std: float = 0.0) -> list:
     """Refit hyperbolas found on a line with picks corrected for ground-coupled antennas.
 
     Parameters
@@ -229,8 +246,9 @@ def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float,
         :func:`~slicer.velocity.diffraction.find_diffractions` (time-zero corrected).
     found : sequence of Diffraction
         Its hyperbolas.
-    antenna_height : float
-        Height of the antennas above the ground, m (0 for antennas on it).
+    antenna_height : float or None
+        Height of the antennas above the ground, m (0 for antennas on it); None: the picks
+        are not corrected, only refitted (with ``target_radius``).
     separation : float
         Transmitter-receiver separation, m.
     height_std : float
@@ -242,14 +260,25 @@ def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float,
     min_picks : int
         Fewest picks of a refit; a hyperbola with fewer, or whose refit fails, is kept as
         found.
+    target_radius : float, optional
+        A radius known for the targets, m: every curve is fitted as a round target of that
+        radius (:func:`~slicer.velocity.offset_fit.fit_offset_hyperbola`) instead of a point
+        or a free time offset, whose velocity the radius cannot be told from (module
+        docstring).
+    radius_std : float
+        Uncertainty of ``target_radius``, m: refits at ``target_radius -+ radius_std`` (not
+        below 0) add half their difference, in quadrature, to ``velocity_std_aperture``.
 
     Returns
     -------
     list of Diffraction
         The refitted hyperbolas (velocity, time, depth and fit replaced; positions kept).
     """
-    height = _check_height(antenna_height, "antenna_height")
-    height_std = _check_height(height_std, "height_std")
+    height = None if antenna_height is None else _check_height(antenna_height,
+                                                               "antenna_height")
+    height_std = _check_height(height_std, "height_std") if height is not None else 0.0
+    radius = 0.0 if target_radius is None else _check_height(target_radius, "target_radius")
+    radius_std = _check_height(radius_std, "radius_std") if radius > 0 else 0.0
     separation = check_separation(separation, where="separation")
     t_axis, data, distance = _section(line)
     dx = trace_spacing(line)
@@ -269,14 +298,18 @@ def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float,
             continue
         i = int(np.argmin(np.abs(distance - d.fit.x0)))
         apex = (distance[i], data[i])
+        args = (x, t, w, data, t_axis, period, apex)
         try:
-            fit, picks = _corrected_fit(x, t, w, data, t_axis, period, apex, height,
-                                        separation)
+            fit, picks = _corrected_fit(*args, height, separation, radius)
             spread = aperture_spread(*picks, fit, min_picks=min_picks)[0]
-            if height_std > 0:
-                ends = [_corrected_fit(x, t, w, data, t_axis, period, apex, max(0.0, height + s),
-                                       separation)[0].velocity for s in (-height_std, height_std)]
-                spread = math.hypot(spread, 0.5 * abs(ends[1] - ends[0]))
+            # refits at the ends of the height's and the radius's uncertainty
+            for dh, dr in ((height_std, 0.0), (0.0, radius_std)):
+                if dh > 0 or dr > 0:
+                    v_lo, v_hi = (_corrected_fit(
+                        *args, None if height is None else max(0.0, height + sign * dh),
+                        separation, max(0.0, radius + sign * dr))[0].velocity
+                        for sign in (-1, 1))
+                    spread = math.hypot(spread, 0.5 * abs(v_hi - v_lo))
         except SettingsError:
             out.append(d)
             continue

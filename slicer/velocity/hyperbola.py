@@ -104,6 +104,9 @@ class HyperbolaFit:
         fitted; :mod:`slicer.velocity.offset_fit`).
     separation : float
         Transmitter-receiver separation the curve was fitted with, m.
+    radius_given : bool
+        The radius was given (known), not fitted
+        (:func:`~slicer.velocity.offset_fit.fit_offset_hyperbola`).
     """
 
     velocity: float
@@ -122,6 +125,7 @@ class HyperbolaFit:
     delay: float = 0.0
     delay_std: float = 0.0
     separation: float = 0.0
+    radius_given: bool = False
 
     @property
     def shape(self) -> str:

@@ -67,16 +67,18 @@ __all__ = ["fit_apex", "fit_offset_hyperbola"]
 MAX_OFFSET_VELOCITY_STD = 0.05
 
 
-def _offset_model(p: np.ndarray, x: np.ndarray, h: float) -> tuple[np.ndarray, np.ndarray]:
-    """Travel times and Jacobian over ``p = (v, x0, c[, d])``; ``h`` half the separation."""
+def _offset_model(p: np.ndarray, x: np.ndarray, h: float,
+                  r: float = 0.0) -> tuple[np.ndarray, np.ndarray]:
+    """Travel times and Jacobian over ``p = (v, x0, c[, d])``; ``h`` half the separation,
+    ``r`` a given radius (the path ``a + b`` to the centre less ``2 r``)."""
     v, x0, c = p[:3]
     d = x - x0
     tiny = np.finfo(float).tiny
     a = np.maximum(np.sqrt((d - h) ** 2 + c * c), tiny)
     b = np.maximum(np.sqrt((d + h) ** 2 + c * c), tiny)
-    t = (a + b) / v + (p[3] if p.size > 3 else 0.0)
+    t = (a + b - 2.0 * r) / v + (p[3] if p.size > 3 else 0.0)
     jac = np.empty((x.size, p.size))
-    jac[:, 0] = -(a + b) / (v * v)
+    jac[:, 0] = -(a + b - 2.0 * r) / (v * v)
     jac[:, 1] = -((d - h) / a + (d + h) / b) / v
     jac[:, 2] = c * (1.0 / a + 1.0 / b) / v
     if p.size > 3:
@@ -85,7 +87,7 @@ def _offset_model(p: np.ndarray, x: np.ndarray, h: float) -> tuple[np.ndarray, n
 
 
 def fit_offset_hyperbola(x_m, t_ns, *, separation: float = 0.0, delay: bool = True,
-                         weights=None) -> HyperbolaFit:
+                         weights=None, radius: float = 0.0) -> HyperbolaFit:
     """Fit the hyperbola of a point (centre) seen by antennas ``separation`` apart, with a free
     constant time offset when ``delay`` (the model: module docstring), by least squares.
 
@@ -105,12 +107,19 @@ def fit_offset_hyperbola(x_m, t_ns, *, separation: float = 0.0, delay: bool = Tr
         Transmitter-receiver separation, m (0 to 10).
     delay : bool
         Fit the time offset (4 parameters; needs 6 picks at 5 positions) or fix it at 0.
+    radius : float
+        A known radius of the target, m (0: a point): the paths run to the centre, at depth
+        ``c > radius``, less ``2 radius`` (the round target of Shihab & Al-Nuaimy 2005 with
+        separated antennas: each leg meets the surface about ``radius`` before the centre,
+        exact for the common-offset pair up to the small bistatic angle; geometry). Not
+        fitted: it is given.
 
     Returns
     -------
     HyperbolaFit
-        ``delay``/``delay_std`` the offset (ns), ``radius`` 0 (see
-        :attr:`~slicer.velocity.hyperbola.HyperbolaFit.equivalent_radius`), ``separation`` set.
+        ``delay``/``delay_std`` the offset (ns), ``radius`` the given radius (0 for a point;
+        see :attr:`~slicer.velocity.hyperbola.HyperbolaFit.equivalent_radius`) with
+        ``radius_given`` set, ``separation`` set.
 
     Raises
     ------
@@ -119,17 +128,22 @@ def fit_offset_hyperbola(x_m, t_ns, *, separation: float = 0.0, delay: bool = Tr
         offset that puts the target's top above the surface.
     """
     h = check_separation(separation, where="separation") / 2.0
+    if not (isinstance(radius, int | float) and math.isfinite(radius) and 0 <= radius < 10):
+        raise SettingsError(f"must be a radius from 0 to 10 m, got {radius!r}",
+                            where="target radius")
+    r = float(radius)
     n_min = 6 if delay else 4
     form = "an offset fit (delay=True)" if delay else None
     x, t, w = _check_picks(x_m, t_ns, weights, n_min, False, form=form)
     v0, x00, t00 = _initial_guess(x, t, w)
     v0 = min(v0, 5 * C_M_PER_NS)
     span = np.ptp(x)
-    lower = np.array([1e-6, x.min() - 100 * span, 0.0])
+    lower = np.array([1e-6, x.min() - 100 * span, r])
     upper = np.array([10 * C_M_PER_NS, x.max() + 100 * span, np.inf])
 
     def start(offset):
-        centre = math.sqrt(max((v0 * (t00 - offset) / 2) ** 2 - h * h, (0.01 * v0 * t00) ** 2))
+        centre = math.sqrt(max((v0 * (t00 - offset) / 2 + r) ** 2 - h * h,
+                               (0.01 * v0 * t00 + r) ** 2))
         return np.array([v0, x00, centre] + ([offset] if delay else []))
 
     if delay:
@@ -140,7 +154,7 @@ def fit_offset_hyperbola(x_m, t_ns, *, separation: float = 0.0, delay: bool = Tr
         starts = [start(0.0)]
 
     def model(p, xs):
-        return _offset_model(p, xs, h)
+        return _offset_model(p, xs, h, r)
 
     result = min((_solve(s, x, t, w, lower, upper, model=model) for s in starts),
                  key=lambda r: r.cost)
@@ -150,9 +164,10 @@ def fit_offset_hyperbola(x_m, t_ns, *, separation: float = 0.0, delay: bool = Tr
     cov = _covariance(result, x.size)
     std = np.sqrt(np.clip(np.diag(cov), 0.0, None))
     root = math.hypot(c, h)
-    t0 = offset + 2.0 * root / v
+    t0 = offset + 2.0 * (root - r) / v
     # d t0 / d (v, x0, c, d)
-    g_t0 = np.array([-2.0 * root / v ** 2, 0.0, 2.0 * c / (v * max(root, 1e-12)), 1.0])[:p.size]
+    g_t0 = np.array([-2.0 * (root - r) / v ** 2, 0.0, 2.0 * c / (v * max(root, 1e-12)),
+                     1.0])[:p.size]
     t0_std = math.sqrt(max(float(g_t0 @ cov @ g_t0), 0.0))
     half = v * t0 / 2.0
     if not half > h:
@@ -168,9 +183,9 @@ def fit_offset_hyperbola(x_m, t_ns, *, separation: float = 0.0, delay: bool = Tr
     residual = model(p, x)[0] - t
     return HyperbolaFit(
         velocity=v, velocity_std=float(std[0]), x0=x0, x0_std=float(std[1]), t0=float(t0),
-        t0_std=t0_std, depth=depth, depth_std=depth_std, radius=0.0, radius_std=0.0,
+        t0_std=t0_std, depth=depth, depth_std=depth_std, radius=r, radius_std=0.0,
         rms_ns=float(np.sqrt(np.mean(residual ** 2))), n_points=int(x.size), delay=offset,
-        delay_std=float(std[3]) if delay else 0.0, separation=2.0 * h)
+        delay_std=float(std[3]) if delay else 0.0, separation=2.0 * h, radius_given=r > 0)
 
 
 def fit_apex(x_m, t_ns, *, separation: float = 0.0, weights=None, alpha: float = 0.01,

@@ -21,6 +21,7 @@ import pytest
 
 import slicer
 from slicer.pipeline.velocity_survey import analyse_velocity
+from slicer.velocity.targets import target_radius
 
 HERE = Path(__file__).parent
 DATA = HERE / "data"
@@ -44,6 +45,22 @@ def velocity_analysis():
     return analyse_velocity(settings, progress=False,
                             separation=TRUTH["antenna_separation"],
                             antenna_height=TRUTH["antenna_height"])
+
+
+def _known_radii():
+    """The pipes' radii as a user who knows them gives them: each with its route in plan (the
+    pipes run along y, across the lines; truth.json pipe_axis), the default uncertainty."""
+    ys = TRUTH["lines"]["y"]
+    return [target_radius(p["radius"], route=((p["x"], ys[0] - 0.5), (p["x"], ys[-1] + 0.5)))
+            for p in TRUTH["pipes"]]
+
+
+@pytest.fixture(scope="module")
+def known_radii_analysis():
+    settings = slicer.load_settings(DATA / "survey.toml")
+    return analyse_velocity(settings, progress=False,
+                            separation=TRUTH["antenna_separation"],
+                            antenna_height=TRUTH["antenna_height"], target_radius=_known_radii())
 
 
 @pytest.fixture(scope="module")
@@ -114,13 +131,20 @@ def test_time_zero_pick_is_on_the_direct_wave(lines):
 # the plane-wave-spectrum model of slicer/velocity/coupling.py, with the true v, depth and h,
 # puts the same picks within 0.02-0.05 ns of the data to 48 deg. The fixture's velocity:
 # 0.1128 +- 0.0026 m/ns (+12.9 %, 4.9 sigma) with straight rays; 0.1035 +- 0.0034 (+3.6 %,
-# 1.0 sigma) with the picks corrected (antenna_height 0.02 m). What is left matches a round
-# target fitted as a point (below); a free time offset or radius, fitted with the coupling
-# model, read -2 to -24 % line by line (the radius against the velocity, unresolved).
-@_miss("0.1035 +- 0.0034 m/ns with the picks corrected for the antennas' coupling (antenna "
-       "height 0.02 m; 0.1128 +- 0.0026, +12.9 %, without): +3.6 %, the steel pipe's fits "
-       "+3.6 % and the air-filled pipe's +5.6 %, as round targets fitted as points read "
-       "fast (sqrt(z / (z - r)) = 1.07 and 1.08); a free offset is not resolved")
+# 1.0 sigma) with the picks corrected (antenna_height 0.02 m). What is left is the round
+# targets fitted as points (below). The radius cannot be fitted with the velocity (measured
+# 2026): with the true v and geometry in the coupling model, the corrected picks of either
+# pipe still lie 0.03-0.05 ns early from 20 to 50 deg off the apex (the same on every line,
+# the lines being copies of one profile), and a free radius takes it up: one line, -6 to -15 %
+# over 40-55 deg; the pooled picks of all 8 lines fitted jointly, the steel pipe -8 to -14 %
+# (radius 0.12-0.18 m against 0.05), the air-filled pipe unresolved (0.078-0.185 m/ns); the
+# F-test of fit_apex keeps the point form (p 0.1-0.97). Given the radii, the target is met
+# (test_velocity_within_two_percent_with_the_radii_given).
+@_miss("0.1035 +- 0.0034 m/ns without the pipes' radii, with the picks corrected for the "
+       "antennas' coupling (antenna height 0.02 m; 0.1128 +- 0.0026, +12.9 %, without): "
+       "+3.6 %, the steel pipe's fits +3.6 % and the air-filled pipe's +5.6 %, as round "
+       "targets fitted as points read fast (sqrt(z / (z - r)) = 1.07 and 1.08); a free radius, "
+       "line by line or joint over the 8 lines, reads 6-15 % slow or is unresolved")
 def test_velocity_within_two_percent(velocity_analysis):
     """Issue 13 target: the survey velocity within 2 % of c / sqrt(9) = 0.0999 m/ns. The Yee
     grid's own phase velocity at 400 MHz (0.0997-0.0998 m/ns, truth.json grid_velocity) is
@@ -129,6 +153,39 @@ def test_velocity_within_two_percent(velocity_analysis):
     t = 2 (sqrt(z^2 + x^2) - r) / v against the point form; geometry)."""
     v = velocity_analysis.velocity
     assert abs(v / TRUTH["velocity"] - 1) < 0.02, (v, velocity_analysis.velocity_std)
+
+
+def test_velocity_within_two_percent_with_the_radii_given(known_radii_analysis):
+    """Issue 13 target, with the pipes' radii given (``--target-radius R@route``; truth.json
+    radii, each with the default 10 % uncertainty): within 2 % of c / sqrt(9) = 0.0999 m/ns
+    (truth.json velocity; the Yee grid's own 0.0997-0.0998 within 0.3 % of it), and the truth
+    within two stated uncertainties. Measured 2026: 0.0985 +- 0.0030 m/ns (-1.4 %,
+    0.47 sigma; the steel pipe's fits 0.0985-0.0986, the air-filled pipe's 0.0995-0.1000,
+    every one fitted with its own radius). The form: the legs to the centre less the radius
+    each (Shihab & Al-Nuaimy 2005 with separated antennas; geometry)."""
+    a = known_radii_analysis
+    assert abs(a.velocity / TRUTH["velocity"] - 1) < 0.02, (a.velocity, a.velocity_std)
+    assert abs(a.velocity - TRUTH["velocity"]) < 2 * a.velocity_std, (a.velocity,
+                                                                     a.velocity_std)
+    kept = a.kept
+    assert kept and all(f.fit.radius_given for f in kept)
+    # both pipes, each with its own radius, on every line
+    for pipe in TRUTH["pipes"]:
+        mine = [f for f in kept if abs(f.x - pipe["x"]) <= 2 * TRUTH["lines"]["trace_spacing"]]
+        assert {f.line for f in mine} == {e.stem for e in DATA.glob("FW*.sgy")}, pipe["name"]
+        assert all(f.fit.radius == pipe["radius"] for f in mine)
+
+
+def test_velocity_json_records_the_radii_given(known_radii_analysis):
+    """The JSON of ``slicer velocity`` lists the radii given (m, with uncertainty and route)
+    and which fits were fitted with one."""
+    record = known_radii_analysis.to_json()
+    assert [t["radius"] for t in record["target_radius"]] == [p["radius"]
+                                                             for p in TRUTH["pipes"]]
+    assert all(t["radius_std"] == pytest.approx(0.1 * t["radius"])
+               for t in record["target_radius"])
+    assert record["units"]["target_radius"] == "m"
+    assert all(r["radius_given"] for r in record["fits"] if r["kept"])
 
 
 def test_velocity_error_is_within_its_stated_uncertainty(velocity_analysis):

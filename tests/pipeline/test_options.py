@@ -75,6 +75,24 @@ def test_well_typed_toml_values_are_taken(folder):
     assert load_settings(_toml(folder, "")).formats == "tif"  # the default: the slices
 
 
+def test_target_radii_are_taken_from_the_file_and_refused_by_key(folder):
+    # slicer velocity's known pipe radii: one number, or texts R[+-S][@route] (TOML arrays)
+    s = load_settings(_toml(folder, 'target_radius = ["0.05@0.75,-1,0.75,10", "0.075+-0.01"]\n'))
+    assert s.target_radius == ("0.05@0.75,-1,0.75,10", "0.075+-0.01")
+    assert load_settings(_toml(folder, "target_radius = 0.05\n")).target_radius == ("0.05",)
+    for bad, match in (("true", "expected R"), ('"0.05@1,2,3"', "pairs X,Y"),
+                       ('"-0.05"', "radius"), ('["0.05", 7e400]', "finite|expected R")):
+        with pytest.raises(SettingsError, match=match) as caught:
+            load_settings(_toml(folder, f"target_radius = {bad}\n"))
+        assert caught.value.where.endswith("survey.toml: target_radius")
+
+
+def test_a_bad_target_radius_on_the_command_line_is_one_line(folder, capsys):
+    code = main(["velocity", str(folder / "lines.csv"), "--target-radius", "0.05@0.75"])
+    err = capsys.readouterr().err
+    assert code == 2 and err.count("\n") == 1 and "--target-radius" in err and "pairs" in err
+
+
 def test_keywords_are_checked_like_the_file(folder):
     with pytest.raises(SettingsError, match="expected true or false") as caught:
         load_settings(folder / "lines.csv", overwrite="yes")

@@ -110,6 +110,20 @@ def test_refits_use_the_fits_form():
     assert all(abs(v / V - 1) < 0.02 for v in velocities.values()), velocities
 
 
+def test_refits_of_a_given_radius_keep_it():
+    # a round target (R = 0.05 m, centre 0.45 m; Shihab & Al-Nuaimy 2005, the point hyperbola
+    # at the centre less 2 R / v) fitted with its radius: every aperture refit keeps the
+    # radius, so picks that follow the form add no aperture term; a free-radius refit of the
+    # same picks near the apex would trade the radius against the velocity
+    x = X.copy()
+    t = 2 * (np.hypot(x, Z + 0.05) - 0.05) / V
+    fit = fit_offset_hyperbola(x, t, delay=False, radius=0.05)
+    spread, velocities = aperture_spread(x, t, None, fit)
+    assert fit.radius_given and fit.velocity == pytest.approx(V, rel=1e-6)
+    assert spread == 0.0 and len(velocities) == 3
+    assert all(v == pytest.approx(V, rel=1e-6) for v in velocities.values()), velocities
+
+
 def record(line, v, aperture=None):
     fields = dict(line=line, velocity=v, velocity_std=0.0005)
     if aperture is not None:

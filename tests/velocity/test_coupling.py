@@ -61,3 +61,14 @@ def test_correction_refuses_a_bad_height():
     with pytest.raises(SettingsError) as info:
         correct_for_coupling(None, [], antenna_height=math.nan)
     assert info.value.where == "antenna_height"
+
+
+@pytest.mark.parametrize("options, where", [
+    (dict(antenna_height=0.02, target_radius=-0.05), "target_radius"),
+    (dict(antenna_height=None, target_radius=math.inf), "target_radius"),
+    (dict(antenna_height=0.02, target_radius=0.05, radius_std=-1.0), "radius_std"),
+])
+def test_correction_refuses_a_bad_radius(options, where):
+    with pytest.raises(SettingsError) as info:
+        correct_for_coupling(None, [], **options)
+    assert info.value.where == where
