@@ -8,6 +8,8 @@ large as UTM ones are given relative to the grid's south-west corner.
 from __future__ import annotations
 
 import math
+import os
+from pathlib import Path
 
 import numpy as np
 import xarray as xr
@@ -15,7 +17,14 @@ import xarray as xr
 from slicer.core.conventions import TWT, UNITS
 from slicer.outputs.cube import cube_transform, slice_axis
 from slicer.outputs.display import MAX_SHEET_CELLS
-from slicer.outputs.sheet import PANEL_INCHES, _decimals
+
+#: Panel edge of the overview, inches, along the longer side of the grid.
+PANEL_INCHES = 3.0
+
+#: Most panels on a page of the overview. 4 x 3 panels of 3 inches make a page of about
+#: 16 x 12 inches, 2450 x 1800 pixels at 150 dpi: A3 landscape at full size, or a screen at
+#: about 80 %, with every panel 450 pixels across and its labels still 7-9 points.
+PER_PAGE = 12
 
 #: Coordinates at least this large (m) are plotted relative to the grid corner.
 _RELATIVE_FROM = 10_000.0
@@ -30,6 +39,28 @@ _CELLS_PER_PIXEL = 2
 
 #: Most values the shared colour limits are computed from (a strided subsample beyond).
 MAX_SAMPLE_VALUES = 1_000_000
+
+
+def page_paths(path: str | os.PathLike, n_pages: int) -> list[Path]:
+    """The files of an overview of ``n_pages`` pages written to ``path``.
+
+    One page is ``path`` itself; more are numbered after its stem with at least two digits,
+    so they sort in page order: ``overview-01.png``, ``overview-02.png``, ...
+    """
+    path = Path(path)
+    if n_pages == 1:
+        return [path]
+    width = max(2, len(str(n_pages)))
+    return [path.with_name(f"{path.stem}-{i:0{width}d}{path.suffix}")
+            for i in range(1, n_pages + 1)]
+
+
+def _decimals(values: np.ndarray, low: int, high: int) -> int:
+    # Fewest decimals (within [low, high]) that show every value exactly.
+    for d in range(low, high + 1):
+        if np.allclose(np.round(values, d), values, rtol=0, atol=1e-9):
+            return d
+    return high
 
 
 def panel_stride(cube: xr.DataArray, *, dpi: float | None = None) -> int:

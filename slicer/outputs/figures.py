@@ -35,8 +35,10 @@ from slicer.outputs.display_panels import (
     MAX_PANEL_CELLS,
     MAX_SAMPLE_VALUES,
     MAX_SHEET_CELLS,
+    PER_PAGE,
     Frame,
     drawn_cells,
+    page_paths,
     panel_stride,
     range_labels,
     sample_count_stride,
@@ -44,10 +46,6 @@ from slicer.outputs.display_panels import (
 )
 from slicer.outputs.sheet import Scale, _length_label, _nice_length, draw_sheet
 
-#: Most panels on a page of the overview. 4 x 3 panels of 3 inches make a page of about
-#: 16 x 12 inches, 2450 x 1800 pixels at 150 dpi: A3 landscape at full size, or a screen at
-#: about 80 %, with every panel 450 pixels across and its labels still 7-9 points.
-PER_PAGE = 12
 
 def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
                   ) -> tuple[float, float]:
@@ -191,20 +189,6 @@ def _columns(n: int, max_columns: int | None) -> int:
                                 where="max_columns")
         ncols = min(ncols, int(max_columns))
     return ncols
-
-
-def page_paths(path: str | os.PathLike, n_pages: int) -> list[Path]:
-    """The files of an overview of ``n_pages`` pages written to ``path``.
-
-    One page is ``path`` itself; more are numbered after its stem with at least two digits,
-    so they sort in page order: ``overview-01.png``, ``overview-02.png``, ...
-    """
-    path = Path(path)
-    if n_pages == 1:
-        return [path]
-    width = max(2, len(str(n_pages)))
-    return [path.with_name(f"{path.stem}-{i:0{width}d}{path.suffix}")
-            for i in range(1, n_pages + 1)]
 
 
 def _check_per_page(per_page) -> int:

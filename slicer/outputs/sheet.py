@@ -23,8 +23,7 @@ from matplotlib.patches import Rectangle
 from matplotlib.text import Annotation
 from matplotlib.ticker import MaxNLocator
 
-#: Panel edge, inches, along the longer side of the grid.
-PANEL_INCHES = 3.0
+from slicer.outputs.display_panels import PANEL_INCHES, _decimals
 
 #: Margins around each panel, inches: room for the y tick labels and axis label on its left,
 #: a gap on its right, its title above and the x tick labels and axis label below; the sheet
@@ -50,14 +49,6 @@ def _nice_length(width: float) -> float:
 
 def _length_label(length: float) -> str:
     return f"{length * 100:g} cm" if length < 1 else f"{length:g} m"
-
-
-def _decimals(values: np.ndarray, low: int, high: int) -> int:
-    # Fewest decimals (within [low, high]) that show every value exactly.
-    for d in range(low, high + 1):
-        if np.allclose(np.round(values, d), values, rtol=0, atol=1e-9):
-            return d
-    return high
 
 
 class Layout:

@@ -39,7 +39,7 @@ from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
 from slicer.outputs.cube import TILE, _check_tile_size, _write_netcdf, check_tile, slice_axis
 from slicer.outputs.display import Display
-from slicer.outputs.figures import PER_PAGE, overview_pages, page_paths, panel_stride
+from slicer.outputs.display_panels import PER_PAGE, page_paths, panel_stride
 from slicer.outputs.geotiff import SliceTiffWriter, tile_windows
 from slicer.outputs.viewer import page_slice, page_step
 from slicer.outputs.zarr_store import ZARR_FORMAT, create_cube_store, open_cube_zarr, read_slice
@@ -390,6 +390,7 @@ def save_overview(template: xr.DataArray, panels: np.ndarray,
     A module-level function of picklable arguments, so a worker process can run it.
     ``where`` names the files in errors (the final names; ``pngs`` may be temporary ones).
     """
+    from slicer.outputs.figures import overview_pages  # matplotlib: only where drawn
     pages = overview_pages(template, title=title, dpi=OVERVIEW_DPI, panels=list(panels),
                            per_page=per_page, **(display or Display()).options())
     # Pages are saved on two threads while the next is drawn here: one's PNG encoding (Pillow,

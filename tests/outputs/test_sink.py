@@ -235,18 +235,19 @@ def test_overview_from_the_kept_panels_equals_one_drawn_from_the_cube(tmp_path, 
     # 1900 rows at 150 dpi: every 3rd cell is drawn, and 256-cell tiles do not start on a
     # multiple of 3, so the panels kept tile by tile must pick the same cells as the strided
     # read of the finished cube that plot_overview does without them.
+    import slicer.outputs.figures as figures_module
     import slicer.outputs.sink as sink_module
     from slicer.outputs.figures import panel_stride, plot_overview
     cube = make_cube(shape=(3, 1900, 40), seed=5)
     assert panel_stride(cube, dpi=sink_module.OVERVIEW_DPI) == 3
     seen = {}
-    original = sink_module.overview_pages
+    original = figures_module.overview_pages
 
     def spy(cube, **kwargs):
         seen["panels"] = kwargs["panels"]
         return original(cube, **kwargs)
 
-    monkeypatch.setattr(sink_module, "overview_pages", spy)
+    monkeypatch.setattr(figures_module, "overview_pages", spy)  # sink imports it when drawing
     write_cube(cube, tmp_path / "out", progress=False, tile=256)
     for i, panel in enumerate(seen["panels"]):
         np.testing.assert_array_equal(panel, cube.values[i, ::3, ::3])
