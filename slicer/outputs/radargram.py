@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import math
 import os
+import warnings
 from pathlib import Path
 
 import numpy as np
@@ -32,6 +33,8 @@ from slicer.core.physics import depth_from_time, time_from_depth
 
 #: Largest decimated image drawn: traces (columns) and samples (rows).
 MAX_TRACES, MAX_SAMPLES = 1200, 600
+#: Size of a radargram (width, height), inches.
+FIGURE_INCHES = (9.0, 4.6)
 #: Where the data area of a radargram lies in its figure: (left, bottom, width, height),
 #: fractions of the figure (the viewer places its marker by the left and right edges).
 PLOT_AREA = (0.08, 0.13, 0.69, 0.70)
@@ -51,11 +54,19 @@ def _block_mean(values: np.ndarray, axis: int, most: int) -> np.ndarray:
     if k == 1:
         return values
     m = (n // k) * k
-    head = np.moveaxis(values, axis, 0)
-    blocks = head[:m].reshape(m // k, k, *head.shape[1:])
-    # NaN-aware only when needed: nanmean took several times as long as mean on a line
-    mean = np.nanmean if np.isnan(blocks).any() else np.mean
-    return np.moveaxis(mean(blocks, axis=1), 0, axis)
+    head = np.moveaxis(values, axis, 0)[:m]
+    if np.isnan(head).any():  # NaN-aware only when needed: several times slower
+        blocks = head.reshape(m // k, k, *head.shape[1:])
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # an all-NaN block stays NaN
+            return np.moveaxis(np.nanmean(blocks, axis=1), 0, axis)
+    # the k strided slices summed in place: a tenth of the time np.mean took over a reshaped
+    # axis on a build's line (0.2 against 1.9 ms for 800 x 512 values, benchmarks/radargrams.py)
+    total = head[0::k].astype(np.float32, copy=True)
+    for i in range(1, k):
+        total += head[i::k]
+    total *= np.float32(1.0 / k)
+    return np.moveaxis(total, 0, axis)
 
 
 def display_image(line: xr.DataArray) -> xr.DataArray:
@@ -130,9 +141,11 @@ def titles(image: xr.DataArray, title: str | None = None) -> tuple[str, str]:
     """A radargram's two title lines: the name (with the ground's elevation at the line's ends,
     when an elevation build knows it: ``attrs["ground"]``, ``[start, end, datum]``), then its
     direction and CRS ends."""
-    x, y = image[X].values, image[Y].values
-    (x0, y0) = image.attrs.get("line_start", (x[0], y[0]))
-    (x1, y1) = image.attrs.get("line_end", (x[-1], y[-1]))
+    if "line_start" in image.attrs and "line_end" in image.attrs:
+        (x0, y0), (x1, y1) = image.attrs["line_start"], image.attrs["line_end"]
+    else:  # the first and last block centres
+        x, y = image[X].values, image[Y].values
+        (x0, y0), (x1, y1) = (x[0], y[0]), (x[-1], y[-1])
     name = title or str(image.attrs.get("line", image.name or "line"))
     if image.attrs.get("ground") is not None:
         g0, g1, datum = image.attrs["ground"]
@@ -198,7 +211,7 @@ def plot_radargram(image: xr.DataArray, path: str | os.PathLike | None = None, *
         raise SettingsError(f"unknown colormap {cmap!r}", where="cmap") from None
     d = image["distance"].values
     t = image[TWT].values
-    figure = Figure(figsize=(9.0, 4.6), dpi=dpi)
+    figure = Figure(figsize=FIGURE_INCHES, dpi=dpi)
     FigureCanvasAgg(figure)
     ax = figure.add_axes(PLOT_AREA)
     shown = ax.imshow(values, aspect="auto", cmap=colours, norm=Normalize(lo, hi),
@@ -250,6 +263,5 @@ def _save_palette_png(figure: Figure, path: Path) -> None:
     rgb.quantize(256, method=Image.Quantize.FASTOCTREE).save(path, format="png")
 
 
-__all__ = ["MAX_SAMPLES", "MAX_TRACES", "PAGE_CELLS", "PAGE_DPI", "PLOT_AREA", "bearing",
-           "display_image", "image_of_samples", "plot_radargram",
-           "titles"]
+__all__ = ["FIGURE_INCHES", "MAX_SAMPLES", "MAX_TRACES", "PAGE_CELLS", "PAGE_DPI", "PLOT_AREA",
+           "bearing", "display_image", "image_of_samples", "plot_radargram", "titles"]

@@ -45,15 +45,21 @@ MAX_SIDE = 600
 
 @dataclass(frozen=True)
 class LineImage:
-    """A radargram for the viewer: the PNG, the line's ends (CRS, m) and where the data area
-    lies across the image (fractions of its width, left and right), to place the marker."""
+    """A radargram for the viewer: the PNG (its bytes, or the file holding them, read as the
+    page is written), the line's ends (CRS, m) and where the data area lies across the image
+    (fractions of its width, left and right), to place the marker."""
 
     name: str
-    png: bytes
+    png: bytes | str | os.PathLike
     start: tuple[float, float]
     end: tuple[float, float]
     left: float = PLOT_AREA[0]
     right: float = PLOT_AREA[0] + PLOT_AREA[2]
+
+
+def _png(line: LineImage) -> str:
+    png = line.png if isinstance(line.png, bytes) else Path(line.png).read_bytes()
+    return base64.b64encode(png).decode("ascii")
 
 
 def _decimate(values: np.ndarray, k: int) -> np.ndarray:
@@ -143,7 +149,7 @@ def viewer_data(cube: xr.DataArray, *, lines: Sequence[LineImage] = (),
         "west": float(x[0] - cell / 2), "north": float(y[0] + cell / 2),
         "cell": cell * k, "width": shape[1], "height": shape[0], "axis": axis,
         "units": str(cube.attrs.get("units", "")), "slices": slices, "lut": _lut(cmap),
-        "lines": [{"name": ln.name, "png": base64.b64encode(ln.png).decode("ascii"),
+        "lines": [{"name": ln.name, "png": _png(ln),
                    "start": list(ln.start), "end": list(ln.end), "left": ln.left,
                    "right": ln.right} for ln in lines],
     }
@@ -175,17 +181,32 @@ def write_viewer(cube: xr.DataArray, path: str | os.PathLike, *,
     pathlib.Path
         The page written.
     """
-    data = viewer_data(cube, lines=lines, cmap=cmap, title=title, slices=slices)
+    data = viewer_data(cube, cmap=cmap, title=title, slices=slices)
+    del data["lines"]  # written below one at a time, as they are read
     head, tail = (part.replace("__TITLE__", html.escape(data["title"]))
                   for part in _PAGE.split("__DATA__"))
     path = Path(path)
     # Written piece by piece: at 1 M traces the page is 53 MB, and whole it was held three or
     # four times over. "</" is escaped within each piece: the encoder's pieces are whole
-    # strings or punctuation, so none ends inside a "</".
+    # strings or punctuation, so none ends inside a "</". The radargrams' base64 (letters,
+    # digits, "+", "/", "=") needs no escape, for JSON or for the script element, and is
+    # written as it is: the JSON encoder took as long again over 8 MB of it.
     with atomic_path(path) as tmp, open(tmp, "w", encoding="utf-8") as f:
         f.write(head)
-        for piece in json.JSONEncoder().iterencode(data):
-            f.write(piece.replace("</", "<\\/"))
+        pieces = json.JSONEncoder().iterencode(data)
+        last = next(pieces)
+        for piece in pieces:
+            f.write(last.replace("</", "<\\/"))
+            last = piece
+        f.write(last[:-1].replace("</", "<\\/"))  # all but the closing brace
+        f.write(', "lines": [')
+        for k, ln in enumerate(lines):
+            about = json.dumps({"name": ln.name, "start": list(ln.start), "end": list(ln.end),
+                                "left": ln.left, "right": ln.right})
+            f.write(("," if k else "") + about[:-1].replace("</", "<\\/") + ', "png": "')
+            f.write(_png(ln))
+            f.write('"}')
+        f.write("]}")
         f.write(tail)
     return path
 

@@ -155,8 +155,8 @@ def write_views(out: str | os.PathLike, cube: xr.DataArray, radargrams: Sequence
     """
     from slicer.outputs.viewer import LineImage, write_viewer
     out = Path(out)
-    lines = [LineImage(r["line"], (out / r["file"]).read_bytes(), tuple(r["start"]),
-                       tuple(r["end"])) for r in radargrams]
+    lines = [LineImage(r["line"], out / r["file"], tuple(r["start"]), tuple(r["end"]))
+             for r in radargrams]  # each file read as the page is written
     return write_viewer(cube, out / VIEWER_NAME, lines=lines, title=title, slices=slices)
 
 
