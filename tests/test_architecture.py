@@ -113,7 +113,18 @@ def test_quick_commands_do_not_load_heavy_libraries(argv):
 def test_the_build_does_load_them():
     """The check above can fail: reaching for the build loads the heavy stack."""
     loaded = _modules_after(None, "import slicer\nslicer.build")
-    assert {"dask", "h5py", "matplotlib"} <= loaded
+    assert {"dask", "h5py", "rasterio"} <= loaded
+
+
+def test_a_builds_worker_does_not_load_the_drawing_libraries():
+    """A build's worker process imports its task modules (engine.WARM_MODULES) and never
+    draws: matplotlib (about 0.5 s of its start) and scipy.signal (0.6-0.7 s) stay out
+    (benchmarks/startup.py, "a build's worker"). The main process imports matplotlib where it
+    draws the overview."""
+    from slicer.pipeline.engine import WARM_MODULES
+    loaded = _modules_after(None, "import " + ", ".join(WARM_MODULES))
+    assert set(WARM_MODULES) <= loaded
+    assert [m for m in ("matplotlib", "scipy.signal") if m in loaded] == []
 
 
 def test_modules_stay_small():

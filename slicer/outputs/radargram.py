@@ -18,18 +18,18 @@ import math
 import os
 import warnings
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import xarray as xr
-from matplotlib import colormaps
-from matplotlib.backends.backend_agg import FigureCanvasAgg
-from matplotlib.colors import Normalize
-from matplotlib.figure import Figure
 
 from slicer.core.atomic import atomic_path
 from slicer.core.conventions import TRACE, TWT, X, Y
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.physics import depth_from_time, time_from_depth
+
+if TYPE_CHECKING:
+    from matplotlib.figure import Figure
 
 #: Largest decimated image drawn: traces (columns) and samples (rows).
 MAX_TRACES, MAX_SAMPLES = 1200, 600
@@ -205,6 +205,12 @@ def plot_radargram(image: xr.DataArray, path: str | os.PathLike | None = None, *
     if signed:
         hi = max(abs(lo), abs(hi))
         lo = -hi
+    # matplotlib here, not at the top: a build's workers import this module for
+    # image_of_samples and never draw (0.5 s of each worker's start, benchmarks/startup.py)
+    from matplotlib import colormaps
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.colors import Normalize
+    from matplotlib.figure import Figure
     try:
         colours = colormaps[cmap]
     except KeyError:

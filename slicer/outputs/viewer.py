@@ -31,7 +31,6 @@ from pathlib import Path
 
 import numpy as np
 import xarray as xr
-from matplotlib import colormaps
 
 from slicer.core.atomic import atomic_path
 from slicer.core.conventions import X, Y
@@ -87,6 +86,7 @@ def _quantise(values: np.ndarray) -> tuple[np.ndarray, float, float]:
 
 
 def _lut(cmap: str) -> list[list[int]]:
+    from matplotlib import colormaps  # here: a build's workers import this module, never this
     try:
         colours = colormaps[cmap]
     except KeyError:
