@@ -40,7 +40,8 @@ BAR_AT, DEPTH_AT, BRACKETS_AT = (0.115, 0.015), 1.05, (1.012, 1.026)
 #: zlib level and strategy of the pages, rows filtered by "Sub" (each byte less the one on its
 #: left): on a build's radargrams (the data's palette indices follow the colour scale, and a
 #: column repeated to fill the data area leaves a zero) 3 % fewer bytes than unfiltered level
-#: 1 in half its time (2.9 against 5.4 ms, 104 against 107 kB, benchmarks/radargrams.py).
+#: 1 in about 0.6 of its time (1.67 against 2.90 ms a page, 104 against 107 kB; Pillow at its
+#: default level 6: 5.68 ms, 102 kB; benchmarks/radargrams.py, last table).
 PNG_LEVEL, PNG_STRATEGY = 1, zlib.Z_RLE
 
 
