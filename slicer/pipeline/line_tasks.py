@@ -289,6 +289,26 @@ def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
                        settings.resolved_velocity or settings.resolved_model, where)
 
 
+#: Lines tried, from the first, for the survey's dominant frequency (a silent line has none).
+FREQUENCY_LINES = 5
+
+
+def _survey_frequency(settings: BuildSettings, info: SurveyInfo,
+                      first: xr.DataArray) -> float | None:
+    """The dominant frequency (GHz) of the first of the first :data:`FREQUENCY_LINES` lines
+    that has one (a silent line has none; ``first`` is the first line, loaded), or None."""
+    for k in range(min(FREQUENCY_LINES, len(settings.lines))):
+        line = first if k == 0 else load_line(settings.lines[k], settings,
+                                              sample_interval_ns=info.sample_interval_ns)
+        line = correct_time_zero(line, time_zero=settings.time_zero,
+                                 threshold=settings.time_zero_threshold)
+        try:
+            return dominant_frequency(line)
+        except SettingsError:
+            continue
+    return None
+
+
 def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
                   info: SurveyInfo | None = None, progress: bool = True,
                   on_image=None) -> Reduced:
@@ -327,10 +347,13 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
     if settings.dewow == "auto" or migrated or windows is None or record_ns is None:
         first = load_line(settings.lines[0], settings, sample_interval_ns=info.sample_interval_ns)
     if settings.dewow == "auto" or migrated:
-        t0_line = correct_time_zero(first, time_zero=settings.time_zero,
-                                    threshold=settings.time_zero_threshold)
-        frequency = dominant_frequency(t0_line)
-        dewow_ns = 1.5 / frequency if settings.dewow == "auto" else None
+        frequency = _survey_frequency(settings, info, first)
+        if settings.dewow == "auto":
+            if frequency is None:
+                raise SettingsError(f"no dominant frequency for the dewow window in the first "
+                                    f"{FREQUENCY_LINES} lines (silent?); give the window in ns",
+                                    where="--dewow")
+            dewow_ns = 1.5 / frequency
         frequency = frequency if migrated else None
     elevation = settings.slices_axis == ELEVATION
     if windows is None or record_ns is None:

@@ -180,3 +180,45 @@ def test_a_build_migrates_every_line_with_one_band(small_survey, tmp_path):
     histories = [line["history"] for line in result.record["lines"]]
     assert len(histories) == len(settings.lines)
     assert all(band in h for h in histories), (band, histories[0])
+
+
+def _silenced(survey, tmp_path, count):
+    """A copy of ``survey`` whose first ``count`` line files hold only zeros (segyio)."""
+    import shutil
+
+    import segyio
+    folder = tmp_path / "silenced"
+    shutil.copytree(survey.line_table.parent, folder)
+    settings = slicer.load_settings(folder / survey.line_table.name, sample_interval=0.1)
+    for entry in settings.lines[:count]:
+        with segyio.open(entry.file, "r+", ignore_geometry=True) as f:
+            for i in range(f.tracecount):
+                f.trace[i] = np.zeros(f.samples.size, dtype=np.float32)
+    return folder / survey.line_table.name
+
+
+def test_a_silent_first_line_gives_way_to_the_next_for_the_survey_frequency(small_survey,
+                                                                            tmp_path):
+    # A dead first line (a channel that recorded nothing) has no dominant frequency
+    # (dominant_frequency refuses a silent record); the dewow window and the migrated band
+    # come from the next line, so the band equals the one the second line gives on its own.
+    from slicer.processing.steps import dominant_frequency
+    table = _silenced(small_survey, tmp_path, 1)
+    settings = slicer.load_settings(table, sample_interval=0.1, time_zero=3.0, depths="0:2:0.2",
+                                    velocity=0.1, out=tmp_path / "out")
+    result = slicer.build(settings, progress=False)
+    second = correct_time_zero(load_line(settings.lines[1], settings, sample_interval_ns=0.1),
+                               time_zero=3.0)
+    band = f"frequencies to {4 * dominant_frequency(second):.3g} GHz"
+    assert all(band in line["history"] for line in result.record["lines"])
+    assert np.isfinite(result.cube.values).any()
+
+
+def test_a_survey_of_silent_lines_is_one_clear_error(small_survey, tmp_path):
+    table = _silenced(small_survey, tmp_path, 6)
+    settings = slicer.load_settings(table, sample_interval=0.1, time_zero=3.0, depths="0:2:0.2",
+                                    velocity=0.1, out=tmp_path / "out")
+    with pytest.raises(slicer.SlicerError, match="dewow") as caught:
+        slicer.build(settings, progress=False)
+    assert caught.value.where == "--dewow" and "\n" not in str(caught.value)
+    assert not (tmp_path / "out").exists()
