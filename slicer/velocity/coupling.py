@@ -29,29 +29,49 @@ wavelet. ``W`` is taken from the data: the echo on the trace nearest the apex di
 ``G G`` there (a damped, Wiener-type division).
 
 :func:`correct_for_coupling` then corrects the picks of each fitted hyperbola by what the model
-puts between its envelope peaks and the straight-ray curve of the same target (relative to the
-apex), refits, and repeats with the new fit (three passes). What the correction leaves is the
-ambiguity of a round target fitted with its shape (the radius against the velocity;
-:mod:`slicer.velocity.offset_fit`). Measured 2026 on full-wave surveys made by
-``tests/fullwave/make_survey.py`` (steel pipe, radius 0.05 m centred 0.40 m deep; air-filled
-pipe, 0.075 m at 0.55 m; the geometric bias of such round targets fitted as points is +7 and
-+8 %), survey velocity uncorrected -> corrected: the fixture (relative permittivity 9,
-antennas 2 cm up) +12.9 -> +3.6 % (pipes +3.6 and +5.6 %); permittivity 4, 2 cm up
-+10.2 -> +2.5 % (+2.5, +4.7 %); permittivity 9, antennas on the ground +10.7 -> +6.9 %
-(+6.9, +7.2 %, the radius bias alone). The fits with a free time offset, with the coupling
-modelled, stayed unresolved (-2 to -24 % line by line; jointly over the fixture's 8 lines,
--8 to -14 % for the steel pipe: :mod:`slicer.velocity.targets`). The result depends on the
-antenna height: 2 cm more or less moves the fixture's velocity by about 6 %, so the spread of
-two refits at ``h -+ height_std`` is added to each fit's systematic uncertainty.
+puts between its own picks of the model echo and the straight-ray curve of the same target
+(relative to the apex), refits, and repeats with the new fit (three passes). The picks, of the
+data and of the model alike, are lags against the echo on the apex trace
+(:mod:`slicer.velocity.lag_picks`), not envelope peaks: with the true velocity and geometry in
+the model, the corrected envelope peaks of the fixture's pipes (below) lay 0.03-0.06 ns early
+from 20 to 50 degrees, the corrected lags within 0.02 ns to 45 degrees (a pair of 12 mm
+conductors in their place: 0.02-0.05 and 0.01 ns, so the envelope's residual was not the
+pipes' size). Each pass fits the form :func:`~slicer.velocity.offset_fit.fit_apex` keeps
+(point, or a free time offset: a round target of unknown radius), tested on the lags' own
+residuals (no floor); an offset that makes the curve late is refused (a round target's echo
+is early, ``-2 R / v``; time zero is the direct wave's less ``s / c``, so a delay of the
+picks within the wavelet is in both and cancels). Because that leaves the velocity of a round
+target to the shape of its picks, the systematic uncertainty of each fit holds half the
+difference from the same procedure run on the envelope peaks (with their floor, a fiftieth of
+a period): a model that describes the echo's change of shape corrects both pickers alike, and
+what it does not describe moves them apart. The similarity threshold of the lags
+(:data:`~slicer.velocity.lag_picks.MIN_SIMILARITY`, 0.95) is a choice: 0.90 gave the fixture
+-2.2 %, 0.98 -1.8 % (measured 2026).
+
+Measured 2026 on full-wave surveys made by ``tests/fullwave/make_survey.py`` (steel pipe,
+radius 0.05 m centred 0.40 m deep; air-filled pipe, 0.075 m at 0.55 m; the geometric bias of
+such round targets fitted as points is +7 and +8 %), survey velocity with envelope peaks and
+point fits (the method before) -> with lags and the point-or-round test: the fixture (relative
+permittivity 9, antennas 2 cm up) +3.6 +- 3.4 % -> -1.7 +- 2.7 % (the round form kept on 14 of
+16 fits, radii 0.047-0.056 m for the steel pipe and 0.068-0.083 m for the air-filled one;
+the other two, point fits at +4 %, fell outside the chosen group); antennas on the ground
++7.0 +- 2.5 % -> -1.6 +- 4.4 %; permittivity 4 (the pipes about one wavelength deep, where the
+round form is not resolved even with the true geometry) +2.5 +- 3.2 % -> +3.0 +- 1.9 %, point
+fits; the 12 mm conductors -0.7 +- 3.1 % -> -0.2 +- 1.1 %, point fits (the round form
+refused). Without the coupling correction the fixture read +12.9 %. The antenna height's
+uncertainty is carried as before: the spread of two refits at ``h -+ height_std`` is added to
+each fit's systematic uncertainty (with point fits 2 cm more or less moved the fixture's
+velocity by about 6 %; with a free offset much less, as the offset takes up most of it).
 
 With a radius given for a target (``target_radius``), its curve is fitted as a round target of
 that radius (:func:`~slicer.velocity.offset_fit.fit_offset_hyperbola`) and the model's target
-sits at the centre, the echo ``2 R / v`` early. On the fixture, the pipes' radii given: the
-steel pipe's fits 0.0985-0.0986 m/ns (-1.4 %), the air-filled pipe's 0.0995-0.1000 (-0.4 to
-+0.1 %), the survey 0.0985 +- 0.0030 m/ns; one radius of 0.05 m for both gave the air-filled
-pipe +1.7 %, one of 0.075 m the steel pipe -3.9 % (a centimetre of radius is about 1 % of
-velocity at these depths; measured 2026). The radius's uncertainty (``radius_std``) is carried
-like the height's.
+sits at the centre, the echo ``2 R / v`` early. On the fixture, the pipes' radii given, with
+envelope peaks: the steel pipe's fits 0.0985-0.0986 m/ns (-1.4 %), the air-filled pipe's
+0.0995-0.1000 (-0.4 to +0.1 %), the survey 0.0985 +- 0.0030 m/ns; with lags (now) the steel
+pipe's -1.3 %, the air-filled pipe's -1.7 to -1.8 %, the survey 0.0986 +- 0.0024 m/ns. With
+envelope peaks, one radius of 0.05 m for both gave the air-filled pipe +1.7 %, one of 0.075 m
+the steel pipe -3.9 % (a centimetre of radius is about 1 % of velocity at these depths;
+measured 2026). The radius's uncertainty (``radius_std``) is carried like the height's.
 
 Times ns, positions and heights m, velocities m/ns, frequencies GHz.
 """
@@ -70,6 +90,7 @@ from slicer.core.physics import check_separation
 from slicer.processing.migration import trace_spacing
 from slicer.velocity.aperture import aperture_spread
 from slicer.velocity.diffraction import _analytic, _pick
+from slicer.velocity.lag_picks import MIN_SIMILARITY, lag_picks
 from slicer.velocity.offset_fit import fit_apex, fit_offset_hyperbola
 
 __all__ = ["HEIGHT_STD", "correct_for_coupling", "line_source_field"]
@@ -164,9 +185,10 @@ def _straight(x, x0, centre, velocity, half):
     return (np.hypot(x - half - x0, centre) + np.hypot(x + half - x0, centre)) / velocity
 
 
-def _model_peaks(data, t_axis, period, x, t_apex, apex, fit, height, half):
-    """Envelope peaks of the model echo at positions ``x`` less the straight-ray time of the
-    same target, relative to the apex (ns; NaN where the model has no peak)."""
+def _model_peaks(data, t_axis, period, x, t_apex, apex, fit, height, half, lags=False):
+    """Picks of the model echo at positions ``x`` (lags against its echo at the apex with
+    ``lags``, else envelope peaks) less the straight-ray time of the same target, relative to
+    the apex (ns; NaN where the model has no pick)."""
     dt = t_axis[1] - t_axis[0]
     nfft = 2 * t_axis.size
     freqs = np.fft.rfftfreq(nfft, dt)
@@ -188,12 +210,23 @@ def _model_peaks(data, t_axis, period, x, t_apex, apex, fit, height, half):
     spectrum = np.zeros((nfft // 2 + 1, x.size), complex)
     spectrum[:freqs.size] = wavelet[:, None] * pair
     traces = np.fft.irfft(spectrum, n=nfft, axis=0).T[:, :t_axis.size]
-    # the same band-pass and envelope as the picks
-    env = np.abs(_analytic(traces.astype(np.float32), dt, 1.0 / period))
     straight = _straight(x, x0, centre, v, half)
     lead = t_apex - _straight(np.array([apex[0]]), x0, centre, v, half)[0]
-    found, times, _ = _pick(env, x, t_axis, x0=x0, reach=np.inf, half_window=0.4 * period,
-                            predict=lambda xs: _straight(xs, x0, centre, v, half) + lead)
+
+    def predict(xs):
+        return _straight(xs, x0, centre, v, half) + lead
+
+    if lags:  # the model's own lags against its echo at the apex, as the data's are picked
+        spectrum[:, 0] = 0.0
+        spectrum[:freqs.size, 0] = wavelet * at_apex
+        reference = np.fft.irfft(spectrum[:, 0], n=nfft)[:t_axis.size]
+        found, times, _, _ = lag_picks(traces, x, t_axis, reference=reference, t_ref=t_apex,
+                                       period=period, x0=x0, predict=predict, reach=np.inf,
+                                       half_window=0.4 * period)
+    else:  # the same band-pass and envelope as the picks
+        env = np.abs(_analytic(traces.astype(np.float32), dt, 1.0 / period))
+        found, times, _ = _pick(env, x, t_axis, x0=x0, reach=np.inf,
+                                half_window=0.4 * period, predict=predict)
     peaks = np.full(x.size, np.nan)
     peaks[np.isin(x, found)] = times  # positions are distinct traces
     delay = peaks - straight
@@ -210,26 +243,41 @@ def _section(line: xr.DataArray):
             np.asarray(line[DISTANCE].values, dtype=float))
 
 
-def _corrected_fit(x, t, w, data, t_axis, period, apex, height, separation, radius=0.0):
+def _corrected_fit(x, t, w, data, t_axis, period, apex, height, separation, radius=0.0,
+                   lags=True):
     """Correct-and-refit passes (none without a ``height``); the final fit (free time offset
-    allowed without a given ``radius``) and the corrected picks."""
+    allowed without a given ``radius``) and the corrected picks.
+
+    Each pass fits the form :func:`~slicer.velocity.offset_fit.fit_apex` keeps, so the model's
+    target sits where that form puts it (a round target's centre ``R`` below its top). Lag
+    picks are tested point-against-round on their own residuals (no floor: their systematic
+    error is carried by the pickers' spread, :func:`correct_for_coupling`); envelope peaks
+    with the floor of a fiftieth of a period (common practice, as in
+    :mod:`slicer.velocity.diffraction`)."""
     half = separation / 2.0
     t_apex = float(t[int(np.argmin(np.abs(x - apex[0])))])
+    precision = 0.0 if lags else period / 50
+
+    def refit(xs, ts, ws):
+        if radius > 0:
+            return fit_offset_hyperbola(xs, ts, separation=separation, weights=ws, delay=False,
+                                        radius=radius)
+        best = fit_apex(xs, ts, separation=separation, weights=ws, precision=precision)
+        if best.delay > 0:  # a late curve is no round target (its radius would be negative)
+            return fit_offset_hyperbola(xs, ts, separation=separation, weights=ws,
+                                        delay=False)
+        return best
+
     fit = fit_offset_hyperbola(x, t, separation=separation, weights=w, delay=False,
                                radius=radius)
     keep, corrected = np.ones(x.size, bool), t
     for _ in range(_PASSES if height is not None else 0):
-        shift = _model_peaks(data, t_axis, period, x, t_apex, apex, fit, height, half)
+        shift = _model_peaks(data, t_axis, period, x, t_apex, apex, fit, height, half, lags)
         keep = np.isfinite(shift)
         corrected = t[keep] - shift[keep]
-        fit = fit_offset_hyperbola(x[keep], corrected, separation=separation, weights=w[keep],
-                                   delay=False, radius=radius)
-    if radius > 0:
-        final = fit
-    else:
-        final = fit_apex(x[keep], corrected, separation=separation, weights=w[keep],
-                         precision=period / 50)
-    return final, (x[keep], corrected, w[keep])
+        fit = refit(x[keep], corrected, w[keep])
+    fit = refit(x[keep], corrected, w[keep])
+    return fit, (x[keep], corrected, w[keep])
 
 
 def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float | None,
@@ -273,6 +321,11 @@ def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float | N
     -------
     list of Diffraction
         The refitted hyperbolas (velocity, time, depth and fit replaced; positions kept).
+        With ``antenna_height``, picked by lags against the apex echo (those whose echo
+        correlates with it below
+        :data:`~slicer.velocity.lag_picks.MIN_SIMILARITY` left out) and fitted as a point or
+        a round target of free radius (module docstring); ``velocity_std_aperture`` holds
+        half the difference from the refit of envelope peaks, in quadrature.
     """
     height = None if antenna_height is None else _check_height(antenna_height,
                                                                "antenna_height")
@@ -291,25 +344,27 @@ def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float | N
         reach = max(2 * dx, d.fit.depth * math.tan(math.radians(max_angle)))
         x, t, amp = _pick(env, distance, t_axis, x0=d.fit.x0, predict=d.fit.travel_time,
                           reach=reach, half_window=0.3 * period)
-        strong = amp >= 0.2 * amp.max() if amp.size else amp.astype(bool)
-        x, t, w = x[strong], t[strong], amp[strong] ** 2
-        if x.size < min_picks:
-            out.append(d)
-            continue
         i = int(np.argmin(np.abs(distance - d.fit.x0)))
         apex = (distance[i], data[i])
-        args = (x, t, w, data, t_axis, period, apex)
+        picks = {False: (x, t, amp)}
+        if x.size and height is not None:  # lags against the apex echo, from its peak
+            t_ref = float(t[int(np.argmin(np.abs(x - apex[0])))])
+            lx, lt, la, similar = lag_picks(data, distance, t_axis, reference=data[i],
+                                            t_ref=t_ref, period=period, x0=d.fit.x0,
+                                            predict=d.fit.travel_time, reach=reach,
+                                            half_window=0.3 * period)
+            like = similar >= MIN_SIMILARITY
+            picks[True] = (lx[like], lt[like], la[like])
+        for key, (x, t, amp) in picks.items():
+            strong = amp >= 0.2 * amp.max() if amp.size else amp.astype(bool)
+            picks[key] = (x[strong], t[strong], amp[strong] ** 2)
+        if picks.get(True, picks[False])[0].size < min_picks:
+            out.append(d)
+            continue
         try:
-            fit, picks = _corrected_fit(*args, height, separation, radius)
-            spread = aperture_spread(*picks, fit, min_picks=min_picks)[0]
-            # refits at the ends of the height's and the radius's uncertainty
-            for dh, dr in ((height_std, 0.0), (0.0, radius_std)):
-                if dh > 0 or dr > 0:
-                    v_lo, v_hi = (_corrected_fit(
-                        *args, None if height is None else max(0.0, height + sign * dh),
-                        separation, max(0.0, radius + sign * dr))[0].velocity
-                        for sign in (-1, 1))
-                    spread = math.hypot(spread, 0.5 * abs(v_hi - v_lo))
+            fit, spread = _fit_with_spread(picks, data, t_axis, period, apex, height,
+                                           height_std, separation, radius, radius_std,
+                                           min_picks)
         except SettingsError:
             out.append(d)
             continue
@@ -317,3 +372,33 @@ def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float | N
                                        time=fit.t0, depth=fit.depth, fit=fit,
                                        velocity_std_aperture=spread))
     return out
+
+
+def _fit_with_spread(picks, data, t_axis, period, apex, height, height_std, separation,
+                     radius, radius_std, min_picks):
+    """The corrected fit of the lag picks (``picks[True]``; the envelope peaks
+    ``picks[False]`` without them) and its systematic uncertainty: the aperture spread, the
+    refits at the ends of the height's and the radius's uncertainty, and half the difference
+    from the fit of the envelope peaks, each in quadrature (:func:`correct_for_coupling`)."""
+    lags = True in picks
+    x, t, w = picks[lags]
+    args = (x, t, w, data, t_axis, period, apex)
+    fit, corrected = _corrected_fit(*args, height, separation, radius, lags)
+    spread = aperture_spread(*corrected, fit, min_picks=min_picks)[0]
+    for dh, dr in ((height_std, 0.0), (0.0, radius_std)):
+        if dh > 0 or dr > 0:
+            v_lo, v_hi = (_corrected_fit(
+                *args, None if height is None else max(0.0, height + sign * dh),
+                separation, max(0.0, radius + sign * dr), lags)[0].velocity
+                for sign in (-1, 1))
+            spread = math.hypot(spread, 0.5 * abs(v_hi - v_lo))
+    if lags and height is not None and picks[False][0].size >= min_picks:
+        # the other picker of the same echo: a model that describes the echo's change of
+        # shape corrects both alike; what it does not describe moves them apart
+        try:
+            other = _corrected_fit(*picks[False], data, t_axis, period, apex, height,
+                                   separation, radius, False)[0]
+            spread = math.hypot(spread, 0.5 * abs(other.velocity - fit.velocity))
+        except SettingsError:
+            pass
+    return fit, spread

@@ -33,8 +33,8 @@ The picks' shape then reads fast (+13 % on the full-wave fixture); no constant o
 it, and the scan's semblance and phase-based picks see the same delays (the wavelet's phase at
 the envelope peak stays within 13 degrees of the apex's to 48 degrees; FDTD, antennas on the
 ground). With the antenna height known, :func:`slicer.velocity.coupling.correct_for_coupling`
-corrects the picks by that model and refits (+3.6 % left: round pipes as points; -1.4 % with
-their radii given, :mod:`slicer.velocity.targets`).
+corrects the picks by that model and refits, on lags against the apex echo, as point or round
+(-1.7 % on the fixture; -1.4 % with the radii given, :mod:`slicer.velocity.targets`).
 """
 
 from __future__ import annotations

@@ -4,16 +4,16 @@ A round target of radius ``R`` fitted as a point reads fast, by about ``sqrt(c /
 for its centre at depth ``c`` (the apex curvature of ``t = 2 (sqrt(c^2 + x^2) - R) / v``
 against the point form; geometry; Shihab & Al-Nuaimy 2005, Subsurface Sensing Technologies
 and Applications 6:151-166, for the curve), 7-8 % for the pipes of the full-wave fixture of
-``tests/fullwave``. The radius cannot be fitted with the velocity from the picks of real
-antennas: the two trade off along the curve, and what the coupling model of
-:mod:`slicer.velocity.coupling` leaves in the picks (0.03-0.05 ns early from 20 to 50 degrees
-off the apex, the same on every line) is enough to pull a free radius to two or three times
-its size and the velocity 8-15 % slow, on one line or on all lines fitted jointly (measured
-2026 on the fixture: steel pipe, radius 0.05 m, free-radius fits of the pooled picks of its
-8 lines read -8 to -14 % with ``r`` = 0.12-0.18 m; the air-filled pipe's did not converge).
-A radius known from the site (a pipe's outer diameter from the utility's records, or one
-exposed in a pit) removes the ambiguity; :func:`radius_for` gives each fit the radius of the
-target it belongs to.
+``tests/fullwave``. The radius and the velocity trade off along the curve, so a free radius
+is only as good as the picks' shape: with envelope peaks, what the coupling model of
+:mod:`slicer.velocity.coupling` left in them (0.03-0.05 ns early from 20 to 50 degrees off
+the apex) pulled a free radius to two or three times its size and the velocity 8-15 % slow
+(measured 2026 on the fixture); with lags against the apex echo (0.01-0.02 ns left) the
+fixture's free radii come out 0.047-0.083 m and the velocity -1.7 %, but pipes about a
+wavelength deep stay unresolved (the round form needs picks far down the flanks,
+:mod:`slicer.velocity.offset_fit`). A radius known from the site (a pipe's outer diameter
+from the utility's records, or one exposed in a pit) removes the ambiguity;
+:func:`radius_for` gives each fit the radius of the target it belongs to.
 
 A :class:`TargetRadius` holds a radius, its standard uncertainty and optionally a route: the
 polyline of a linear target in plan (survey CRS, m). A fit whose apex lies within
