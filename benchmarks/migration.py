@@ -9,8 +9,8 @@ this script measures, in one run on the same files:
   ``slicer.build`` (every output written, as ``slicer build`` does) the one a user sees. The
   Stolt operator cache is cleared before every build, so each pays its set-up as a fresh
   ``slicer build`` process does;
-* migration's share of a migrated build: the thread CPU time spent in
-  :func:`slicer.pipeline.line_chain.migrate_line`, against the build's CPU time;
+* migration's share of a migrated build: the thread CPU time spent in the migration cores
+  (``stolt_core``, ``phase_shift_core``), against the build's CPU time;
 * per line, serially, the processing chain with and without migration;
 * the Stolt mapping of one line's spectrum by the cached sparse operator against the library
   alternative the issue suggested, :func:`numpy.interp` per wavenumber (linear), each with its
@@ -112,27 +112,34 @@ def time_builds(table: Path, migrate: str, rounds: int, out: Path | None) -> dic
 
 
 def migration_share(table: Path, migrate: str, rounds: int) -> list[float]:
-    """Thread CPU time in ``migrate_line`` over the build's CPU time, per migrated build."""
-    from slicer.pipeline import line_chain
-    original = line_chain.migrate_line
+    """Thread CPU time in the migration cores (:func:`slicer.processing.fk.stolt_core` and
+    ``phase_shift_core``, operators included, as both the line task and
+    :func:`slicer.pipeline.line_chain.migrate_line` call them) over the build's CPU time, per
+    migrated build."""
+    from slicer.processing import migration
+    originals = {name: getattr(migration, name) for name in ("stolt_core", "phase_shift_core")}
     spent = []
 
-    def timed(*args, **kwargs):
-        started = time.thread_time()
-        try:
-            return original(*args, **kwargs)
-        finally:
-            spent.append(time.thread_time() - started)
+    def timed(core):
+        def run(*args, **kwargs):
+            started = time.thread_time()
+            try:
+                return core(*args, **kwargs)
+            finally:
+                spent.append(time.thread_time() - started)
+        return run
 
     shares = []
-    line_chain.migrate_line = timed
+    for name, core in originals.items():
+        setattr(migration, name, timed(core))
     try:
         for _ in range(rounds):
             spent.clear()
             _, cpu = _build(table, migrate, None)
             shares.append(sum(spent) / cpu)
     finally:
-        line_chain.migrate_line = original
+        for name, core in originals.items():
+            setattr(migration, name, core)
     return shares
 
 
