@@ -353,6 +353,8 @@ def test_velocity_writes_a_model_the_build_accepts(small_survey, tmp_path, capsy
                          "0.1", "--time-zero", "3.0", "--out", tmp_path / "v", "-q")
     assert code == 0, err
     assert "survey velocity" in out
+    # without --antenna-height the result says it is not corrected for ground coupling
+    assert "--antenna-height not given" in err and err.count("\n") == 1
     assert list((tmp_path / "v" / "figures").glob("*.png"))
     code, _, err = run(capsys, "build", small_survey.line_table, "--sample-interval", "0.1",
                        "--time-zero", "3.0", "--velocity-model", tmp_path / "v" / "velocity.toml",
@@ -366,6 +368,7 @@ def test_velocity_takes_the_antenna_height(small_survey, capsys):
                          "0.1", "--time-zero", "3.0", "--antenna-height", "0.0", "--json", "-q")
     assert code == 0, err
     assert json.loads(out)["antenna_height"] == 0.0  # the correction ran (see test_coupling)
+    assert "--antenna-height not given" not in err
     code, _, err = run(capsys, "velocity", small_survey.line_table, "--antenna-height", "-0.1")
     assert code == 2 and "--antenna-height" in err
 
