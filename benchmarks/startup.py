@@ -46,7 +46,8 @@ PEERS = {
 }
 
 #: Imports of the package timed here (and at ``--before``): the package alone, and what a
-#: build's worker process imports before its first task (``engine.WARM_MODULES``).
+#: build's worker process imports before its first task (``worker_processes.WARM_MODULES``;
+#: paid once by the fork server that forks the workers).
 IMPORTS = {
     "import slicer": "import slicer",
     "a build's worker": ("import slicer.pipeline.line_tasks, slicer.outputs.radargram, "

@@ -117,11 +117,11 @@ def test_the_build_does_load_them():
 
 
 def test_a_builds_worker_does_not_load_the_drawing_libraries():
-    """A build's worker process imports its task modules (engine.WARM_MODULES) and never
+    """A build's worker process imports its task modules (worker_processes.WARM_MODULES) and never
     draws: matplotlib (about 0.5 s of its start) and scipy.signal (0.6-0.7 s) stay out
     (benchmarks/startup.py, "a build's worker"). The main process imports matplotlib where it
     draws the overview."""
-    from slicer.pipeline.engine import WARM_MODULES
+    from slicer.pipeline.worker_processes import WARM_MODULES
     loaded = _modules_after(None, "import " + ", ".join(WARM_MODULES))
     assert set(WARM_MODULES) <= loaded
     assert [m for m in ("matplotlib", "scipy.signal") if m in loaded] == []

@@ -12,8 +12,9 @@ Engines, as ``--scheduler`` spells them:
 ``threads``
     a pool of one thread per core on this machine.
 ``processes``
-    a pool of one spawned worker process per core (no GIL contention; arguments and results
-    are pickled).
+    a pool of one worker process per core (no GIL contention; arguments and results are
+    pickled), forked by a fork server that has imported the task modules
+    (:mod:`slicer.pipeline.worker_processes`).
 ``local:N``
     a ``dask.distributed.LocalCluster`` of N single-threaded worker processes, started for the
     build and closed after it.
@@ -31,9 +32,10 @@ Nothing hangs and nothing is left behind:
   core, and ``local:N`` no more than the machine's memory holds at :data:`WORKER_MEMORY` (or
   the ``memory_limit`` given) each; a larger count is refused before any process starts;
 * worker processes end with the process that started them, even when it is killed
-  (SIGKILL gives it no chance to stop them): ``processes`` workers watch their parent
-  (:func:`_exit_with_parent`), and a LocalCluster's do so by themselves (dask.distributed
-  keeps a pipe from each to its parent open, and a worker exits when it closes).
+  (SIGKILL gives it no chance to stop them): ``processes`` workers watch it
+  (:mod:`slicer.pipeline.worker_processes`), and a LocalCluster's do so by themselves
+  (dask.distributed keeps a pipe from each to its parent open, and a worker exits when it
+  closes).
 
 Every refusal is a :class:`~slicer.core.errors.SettingsError` naming ``--scheduler``.
 """
@@ -45,17 +47,20 @@ import concurrent.futures
 import contextlib
 import functools
 import itertools
-import multiprocessing
 import os
-import signal
 import threading
-import time
 import urllib.parse
 from collections.abc import Callable, Iterable, Iterator, Sequence, Sized
 from dataclasses import dataclass
 
+from slicer.core.atomic import current_umask
 from slicer.core.errors import SettingsError
 from slicer.core.progress import bar_for
+from slicer.pipeline.worker_processes import (
+    start_worker,
+    start_workers,
+    worker_context,
+)
 
 
 @dataclass(frozen=True)
@@ -98,16 +103,6 @@ WORKERS_PER_CORE = 4
 #: Bytes one worker process holds at least (when no ``memory_limit`` is given): a worker that
 #: has imported the build's libraries and run its tasks holds 220-250 MB here (2026-12).
 WORKER_MEMORY = 256 * 2**20
-
-#: Seconds between a ``processes`` worker's checks that the process that started it lives.
-PARENT_CHECK_INTERVAL = 0.5
-
-#: Modules every ``processes`` worker imports as soon as the pool starts (:func:`_warm_up`):
-#: what the line and tile tasks need. A spawned worker otherwise imports them at its first
-#: task, about 1-2 s of a core after the calling process has planned the build and read the
-#: first line alone; started at once, the imports overlap that work (benchmarks/peers.py).
-WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
-                "slicer.pipeline.worker_outputs")
 
 _FORMS = "auto, threads, processes, local:N or tcp://HOST:PORT"
 
@@ -209,14 +204,15 @@ class Engine:
         if self.spec.kind == "threads":
             self._pool = concurrent.futures.ThreadPoolExecutor(max_workers=self.spec.workers)
         if self.spec.kind == "processes":
-            # one pool for the whole build (dask would start one per compute call); spawn,
-            # because forking a process that runs threads can deadlock
+            # one pool for the whole build (dask would start one per compute call)
             self._pool = concurrent.futures.ProcessPoolExecutor(
-                max_workers=self.spec.workers, mp_context=multiprocessing.get_context("spawn"),
-                initializer=_exit_with_parent, initargs=(os.getpid(),))
-            # one task per worker starts every worker now, importing what the tasks need
-            for _ in range(self.spec.workers):
-                self._pool.submit(_warm_up, WARM_MODULES)
+                max_workers=self.spec.workers, mp_context=worker_context(),
+                initializer=start_worker,
+                initargs=(os.getpid(), current_umask(), dict(os.environ)))
+            # one task per worker starts every worker now, importing what the tasks need;
+            # from a thread, as a fork server answers only once it has imported them
+            threading.Thread(target=start_workers, args=(self._pool, self.spec.workers),
+                             name="slicer-start-workers", daemon=True).start()
         if self.spec.kind in ("local", "remote"):
             try:
                 from distributed import Client, LocalCluster
@@ -427,36 +423,6 @@ def _one_line(exc: BaseException) -> str:
     """An exception's message on one line, at most 200 characters."""
     text = " ".join(str(exc).split()) or type(exc).__name__
     return text if len(text) <= 200 else text[:197] + "..."
-
-
-def _warm_up(modules: Sequence[str]) -> None:
-    """Import ``modules`` in a worker (a task of its own, so every worker starts at once)."""
-    import importlib
-    for name in modules:
-        importlib.import_module(name)
-
-
-def _exit_with_parent(parent: int) -> None:
-    """Make this ``processes`` worker exit as soon as ``parent`` (its pool's process) is gone.
-
-    A pool initializer. A killed parent cannot shut its pool down, and the workers would
-    wait on their task queue for ever (each holds both ends of it), keeping their memory
-    and the pool's resource tracker alive. A daemon thread compares ``os.getppid()`` with
-    ``parent`` every :data:`PARENT_CHECK_INTERVAL` seconds; once the worker has been given
-    to another parent it exits at once. Chosen over Linux's ``PR_SET_PDEATHSIG``, which
-    fires when the *thread* that started the worker ends (the pool may start workers from
-    any thread that submits) and exists on Linux only; polling costs two wake-ups a second.
-    """
-    # Ctrl-C reaches the whole process group: the calling process handles it (one line, the
-    # pool shut down), so a worker's own KeyboardInterrupt traceback would only be noise.
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-
-    def watch() -> None:
-        while os.getppid() == parent:
-            time.sleep(PARENT_CHECK_INTERVAL)
-        os._exit(1)
-
-    threading.Thread(target=watch, name="slicer-parent-watch", daemon=True).start()
 
 
 @contextlib.contextmanager

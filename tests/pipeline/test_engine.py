@@ -2,6 +2,7 @@
 processes and a LocalCluster (failures: test_engine_failures.py)."""
 
 import math
+import os
 
 import numpy as np
 import pytest
@@ -89,3 +90,27 @@ def test_map_error_is_raised_and_stops_the_rest():
     with Engine(parse_scheduler("threads", workers=2)) as e, \
             pytest.raises(ZeroDivisionError):
         list(e.map(lambda x: 1 / x, [3, 2, 1, 0, 1, 2], desc="t", progress=False))
+
+
+def _process_state(_item):
+    import os
+
+    from slicer.core.atomic import current_umask
+    return os.environ.get("SLICER_TEST_MARK"), current_umask(), "slicer.pipeline.line_tasks" in \
+        __import__("sys").modules
+
+
+def test_process_workers_take_the_callers_umask_and_environment_of_now(monkeypatch):
+    # A worker forked by the fork server (started by an earlier build, with the umask and
+    # environment of then) must still write files with the caller's mode of now and see the
+    # GDAL settings set since (os.environ / os.umask, Python docs: inherited at process start).
+    with Engine(parse_scheduler("processes", workers=1)) as engine:  # the server is running
+        list(engine.map(_process_state, [0], desc="first", progress=False))
+    monkeypatch.setenv("SLICER_TEST_MARK", "now")
+    old = os.umask(0o037)
+    try:
+        with Engine(parse_scheduler("processes", workers=2)) as engine:
+            states = set(engine.map(_process_state, range(4), desc="state", progress=False))
+    finally:
+        os.umask(old)
+    assert states == {("now", 0o037, True)}  # and the task modules were imported already

@@ -1,0 +1,123 @@
+"""How a ``processes`` engine's workers start, and how they end with the build.
+
+Workers are forked by a fork server that has imported the task modules once
+(:func:`worker_context`), take the umask and environment of the building process
+(:func:`start_worker`), and end as soon as that process does, even when it is killed
+(:func:`exit_with_parent`).
+"""
+
+from __future__ import annotations
+
+import concurrent.futures
+import functools
+import multiprocessing
+import multiprocessing.context
+import os
+import select
+import signal
+import threading
+import time
+from collections.abc import Sequence
+
+#: Seconds between a spawned worker's checks that the process that started it lives (where
+#: there are no process descriptors: :func:`exit_with_parent`).
+PARENT_CHECK_INTERVAL = 0.5
+
+#: Modules every ``processes`` worker imports as soon as the pool starts (:func:`_warm_up`):
+#: what the line and tile tasks need, imported once by the fork server (:func:`worker_context`).
+#: A worker would otherwise import them at its first task, about 1.4-1.6 s of a core after the
+#: calling process has planned the build; started at once, the imports overlap that work.
+WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
+                "slicer.pipeline.worker_outputs")
+
+
+def worker_context() -> multiprocessing.context.BaseContext:
+    """How ``processes`` workers start: forked by a fork server where there is one.
+
+    The fork server is a fresh process (no threads, so forking it is safe, unlike forking
+    the calling process) that imports :data:`WARM_MODULES` once; every worker forked from it
+    starts with them imported, where a spawned worker imports them itself (1.6 s of a core
+    each, benchmarks/startup.py), and ends without tearing its modules down. It lives as long
+    as the calling process, for every later build. Spawn where there is no fork server
+    (Windows) or no process descriptor to watch the calling process by (before Linux 5.3).
+    """
+    if not _process_handles() or "forkserver" not in multiprocessing.get_all_start_methods():
+        return multiprocessing.get_context("spawn")  # see exit_with_parent
+    context = multiprocessing.get_context("forkserver")
+    context.set_forkserver_preload(list(WARM_MODULES))  # used when the server first starts
+    return context
+
+
+@functools.cache
+def _process_handles() -> bool:
+    """Whether this system gives process descriptors (``os.pidfd_open``, Linux 5.3 on)."""
+    try:
+        os.close(os.pidfd_open(os.getpid()))
+    except (AttributeError, OSError):
+        return False
+    return True
+
+
+def start_workers(pool: concurrent.futures.Executor, count: int) -> None:
+    """Start ``count`` workers of ``pool``, each importing :data:`WARM_MODULES` (a task of
+    its own, so every worker starts at once). A pool shut down meanwhile starts none."""
+    try:
+        for _ in range(count):
+            pool.submit(_warm_up, WARM_MODULES)
+    except RuntimeError:  # shut down meanwhile (the build failed while planning)
+        pass
+
+
+def _warm_up(modules: Sequence[str]) -> None:
+    """Import ``modules`` in a worker (a task of its own, so every worker starts at once)."""
+    import importlib
+    for name in modules:
+        importlib.import_module(name)
+
+
+def start_worker(pool_process: int, umask: int, environ: dict[str, str]) -> None:
+    """Initialise a ``processes`` worker: the umask and environment of the pool's process
+    now (a worker forked by the fork server would have the server's, from when it started:
+    files written with another mode, GDAL settings missed), then :func:`exit_with_parent`.
+    """
+    os.umask(umask)
+    for name in set(os.environ) - set(environ):
+        del os.environ[name]
+    os.environ.update(environ)
+    exit_with_parent(pool_process)
+
+
+def exit_with_parent(pool_process: int) -> None:
+    """Make this ``processes`` worker exit as soon as ``pool_process`` (the process whose
+    pool it serves) is gone.
+
+    A pool initializer. A killed pool process cannot shut its pool down, and the workers
+    would wait on their task queue for ever (each holds both ends of it), keeping their
+    memory and the pool's resource tracker alive. A daemon thread waits on a Linux process
+    descriptor of the pool's process (``os.pidfd_open``), readable once it ends. A worker
+    forked by a fork server (:func:`worker_context`) is the server's child, and the server
+    lives while any of its workers does, so the worker must watch the pool's process itself.
+    Where there are no process descriptors the workers are spawned by the pool's process,
+    and the thread compares ``os.getppid()`` with it every :data:`PARENT_CHECK_INTERVAL`
+    seconds. Chosen over Linux's ``PR_SET_PDEATHSIG``, which fires when the *thread* that
+    started the worker ends (the pool may start workers from any thread that submits).
+    """
+    # Ctrl-C reaches the whole process group: the calling process handles it (one line, the
+    # pool shut down), so a worker's own KeyboardInterrupt traceback would only be noise.
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    if _process_handles():
+        try:
+            handle = os.pidfd_open(pool_process)
+        except ProcessLookupError:  # gone already
+            os._exit(1)
+
+        def watch() -> None:
+            select.select([handle], [], [])
+            os._exit(1)
+    else:
+        def watch() -> None:
+            while os.getppid() == pool_process:
+                time.sleep(PARENT_CHECK_INTERVAL)
+            os._exit(1)
+
+    threading.Thread(target=watch, name="slicer-parent-watch", daemon=True).start()
