@@ -32,7 +32,13 @@ from slicer.core.atomic import temp_file
 from slicer.core.conventions import DEPTH, ELEVATION, TWT, UNITS
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
-from slicer.outputs.cog import TILE, cog_env, cog_profile, copy_to_cog, staging_profile
+from slicer.outputs.cog import (
+    TILE,
+    cog_profile,
+    copy_to_cog,
+    staging_profile,
+    write_cog,
+)
 from slicer.outputs.cube import check_tile, cube_crs, cube_transform, slice_axis
 
 #: Decimals of the window bounds in file names and band descriptions (mm, hundredths of ns).
@@ -394,12 +400,9 @@ def write_slice_file(job: SliceFileJob, values: np.ndarray | None = None) -> str
     if values is None:
         from slicer.outputs.zarr_store import read_slice
         values = read_slice(job.store, job.index)
-    # rasterio buffers the slice in a GDAL MEM dataset and copies it into the COG on close
-    # (the COG driver only copies): one slice in memory, twice at most.
-    with SliceTiffWriter._naming(Path(job.final)), cog_env(), rasterio.open(
-            job.temp, "w", **job.profile) as dst:
-        _label(dst, job.tags, job.description, job.units)
-        dst.write(values, 1)
+    with SliceTiffWriter._naming(Path(job.final)):
+        write_cog(job.temp, values, job.profile,
+                  label=lambda dst: _label(dst, job.tags, job.description, job.units))
     return job.temp
 
 

@@ -406,10 +406,10 @@ def test_pixels_are_bit_identical_and_nodata_is_nan(written):
             assert np.isnan(float(tif.pages[0].tags["GDAL_NODATA"].value))
 
 
-def _mean_of_2x2(values):
-    """Independent reduction (numpy): the mean of the valid cells of each 2 x 2 block."""
+def _mean_of_blocks(values, f):
+    """Independent reduction (numpy): the mean of the valid cells of each f x f block."""
     ny, nx = values.shape
-    blocks = values.astype(np.float64).reshape(ny // 2, 2, nx // 2, 2)
+    blocks = values.astype(np.float64).reshape(ny // f, f, nx // f, f)
     valid = ~np.isnan(blocks)
     total = np.where(valid, blocks, 0).sum(axis=(1, 3))
     count = valid.sum(axis=(1, 3))
@@ -421,24 +421,24 @@ def test_overviews_are_means_of_valid_cells(written):
     if size == "tiny":
         pytest.skip("a one-block slice has no overviews")
     for k, path in enumerate(paths):
-        finer = cube.values[k]
+        full = cube.values[k]
         with rasterio.open(path) as src:
-            levels = len(src.overviews(1))
+            factors = src.overviews(1)
         with rasterio.open(path, overview_level=0) as ovr:
             half = ovr.read(1)
         # by hand: rows 0-1, columns 0-1 are all NaN; rows 2-3, columns 0-1 are half NaN
         assert np.isnan(half[0, 0])
-        assert half[1, 0] == pytest.approx(np.mean(finer[3, 0:2], dtype=np.float64), rel=1e-6)
-        for level in range(levels):
-            # rasterio opens one overview level as a dataset of its own (overview_level)
+        assert half[1, 0] == pytest.approx(np.mean(full[3, 0:2], dtype=np.float64), rel=1e-6)
+        for level, f in enumerate(factors):
+            # rasterio opens one overview level as a dataset of its own (overview_level).
+            # Each level is the mean of the valid full-resolution cells under each of its
+            # cells (GDAL's "average" on the source's overviews; a mean of the level before
+            # would weight a half-empty block wrongly), NaN where all are NaN.
             with rasterio.open(path, overview_level=level) as ovr:
                 coarse = ovr.read(1)
-            # GDAL builds each level from the one before (seen here): compare with 2 x 2
-            # means of that level, NaN where all four cells are NaN, else the valid ones' mean.
-            reference = _mean_of_2x2(finer)
+            reference = _mean_of_blocks(full, f)
             np.testing.assert_array_equal(np.isnan(coarse), np.isnan(reference))
             np.testing.assert_allclose(coarse, reference, rtol=1e-6, atol=0)
-            finer = coarse
 
 
 def _gdal_metadata(page) -> dict:
