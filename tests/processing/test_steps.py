@@ -224,6 +224,24 @@ def test_median_background_equals_numpy_median(n_traces):
     assert np.isnan(_median_trace(x)[5]) and np.isfinite(_median_trace(x)[6])
 
 
+@pytest.mark.parametrize("n_traces", [1023, 1024, 2000, 3165])
+def test_background_median_is_numpy_median_of_every_kth_trace(n_traces):
+    # Reference: numpy.median of traces 0, k, 2k... with k = n // 512 (all of them below 1024),
+    # so at least 512 traces spread over the whole line.
+    from slicer.processing.background import MEDIAN_TRACES, background_median
+    rng = np.random.default_rng(n_traces)
+    wavelet = np.sin(np.linspace(0, 12, 64)).astype(np.float32)  # the same on every trace
+    x = (wavelet + 0.1 * rng.normal(size=(n_traces, 64))).astype(np.float32)
+    k = max(1, n_traces // MEDIAN_TRACES)
+    got = background_median(x)
+    np.testing.assert_allclose(got, np.median(x[::k], axis=0), rtol=1e-6, atol=1e-7)
+    assert x[::k].shape[0] >= MEDIAN_TRACES and (k == 1) == (n_traces < 2 * MEDIAN_TRACES)
+    # the common wavelet comes through: within 4 standard errors of a median of Gaussian noise
+    # (sqrt(pi / 2) sigma / sqrt(count), a textbook result)
+    error = 4 * np.sqrt(np.pi / 2) * 0.1 / np.sqrt(x[::k].shape[0])
+    assert np.max(np.abs(got - wavelet)) < error
+
+
 def step_by_step(line, dewow_ns, background, gain):
     # The single xarray steps, one after another: what the fused chain must reproduce.
     if dewow_ns != "off":
