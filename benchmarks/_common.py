@@ -115,13 +115,58 @@ def survey_options(parser) -> None:
 
 class TunedFloor:
     """The least work any envelope build does, done well: each line read once through a
-    memory map (segyio's ``f.mmap()``) and its envelope taken in float32, one complex FFT and
-    its inverse per line (``scipy.fft``, zero-padded to ``next_fast_len(2 n)`` as slicer pads),
-    into buffers reused from line to line. One instance per thread."""
+    memory map (segyio's ``f.mmap()``) and its envelope taken in float32 by real FFTs
+    (``scipy.fft``): one ``rfft`` of the traces zero-padded to ``next_fast_len(2 n)`` as slicer
+    pads, the spectrum times -i (DC and Nyquist zeroed) whose ``irfft`` is the Hilbert
+    transform, and ``sqrt(x^2 + H^2)``, into buffers reused from line to line. One instance per
+    thread. (:class:`ComplexFloor` is the same with one complex FFT and inverse, the floor of
+    2026-12-02, about 1.6 times slower.)"""
+
+    def __init__(self):
+        self._padded = self._out = self._square = None
+
+    def __call__(self, path) -> int:
+        """Read and envelope one line file; returns its trace count."""
+        import numpy as np
+        import scipy.fft
+        import segyio
+        with segyio.open(str(path), "r", ignore_geometry=True) as f:
+            f.mmap()
+            data = f.trace.raw[:]
+        m, n = data.shape
+        nfft = scipy.fft.next_fast_len(2 * n, real=True)
+        if self._padded is None or self._padded.shape != (m, nfft):
+            self._padded = np.zeros((m, nfft), dtype=np.float32)  # the tail stays zero
+            self._out = np.empty((m, n), dtype=np.float32)
+            self._square = np.empty((m, n), dtype=np.float32)
+        self._padded[:, :n] = data
+        spectrum = scipy.fft.rfft(self._padded, axis=-1, workers=1)
+        spectrum[:, 0] = 0
+        if nfft % 2 == 0:
+            spectrum[:, -1] = 0
+        spectrum *= np.complex64(-1j)
+        hilbert = scipy.fft.irfft(spectrum, n=nfft, axis=-1, overwrite_x=True, workers=1)
+        np.multiply(data, data, out=self._out)
+        np.multiply(hilbert[:, :n], hilbert[:, :n], out=self._square)
+        self._out += self._square
+        np.sqrt(self._out, out=self._out)
+        return m
+
+    @property
+    def envelope(self):
+        """The last line's envelope (traces, samples)."""
+        return self._out
+
+
+class ComplexFloor:
+    """The floor of 2026-12-02: as :class:`TunedFloor`, but the analytic signal by one complex
+    FFT and its inverse per line (complex64 buffers reused), about 1.6 times slower than by
+    real FFTs. Kept to compare with the ratios measured against it."""
 
     def __init__(self):
         self._buffer = None
         self._weights = None
+        self.envelope = None
 
     def __call__(self, path) -> int:
         """Read and envelope one line file; returns its trace count."""
@@ -147,5 +192,5 @@ class TunedFloor:
         scipy.fft.fft(buffer, axis=-1, overwrite_x=True, workers=1)
         buffer *= self._weights
         analytic = scipy.fft.ifft(buffer, axis=-1, overwrite_x=True, workers=1)
-        np.abs(analytic[:, :n])
+        self.envelope = np.abs(analytic[:, :n])
         return data.shape[0]

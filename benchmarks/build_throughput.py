@@ -7,7 +7,8 @@ apart, not part of the build), then measures on the same files in the same run:
   process so that its peak resident memory (``VmHWM`` from /proc, not ``ru_maxrss``, which a
   spawned child inherits from its parent) belongs to that build alone;
 * the floor: every trace read once through a memory map (segyio) and its envelope computed in
-  float32 with reused buffers (``_common.TunedFloor``), zero-padded as the pipeline pads;
+  float32 by real FFTs with reused buffers (``_common.TunedFloor``), zero-padded as the
+  pipeline pads;
 * gridding alone: ``slicer.grid_slices`` on the survey's trace x slice table against
   :func:`scipy.interpolate.griddata` (``method="linear"``) looped over the slices, onto the same
   cell centres.
