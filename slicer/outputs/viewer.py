@@ -24,7 +24,6 @@ import html
 import json
 import math
 import os
-import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -62,15 +61,24 @@ def _png(line: LineImage) -> str:
 
 
 def _decimate(values: np.ndarray, k: int) -> np.ndarray:
+    """The mean of the finite cells of each ``k`` x ``k`` block (a partial block at the far
+    edges of what it holds), NaN where a block holds none: float64."""
     if k == 1:
         return values
     ny, nx = values.shape
-    py, px = (-ny) % k, (-nx) % k
-    padded = np.pad(values, ((0, py), (0, px)), constant_values=np.nan)
-    blocks = padded.reshape(padded.shape[0] // k, k, padded.shape[1] // k, k)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RuntimeWarning)  # an all-NaN block is no data
-        return np.nanmean(blocks, axis=(1, 3))
+    total = np.zeros((-(-ny // k), -(-nx // k)))
+    count = np.zeros(total.shape, dtype=np.int32)
+    # k * k strided additions: a NaN-aware mean over the two short axes of a
+    # (rows, k, columns, k) view took five times longer (np.nanmean, 31-50 ms a slice of
+    # 1575 x 1582 cells, a build's every slice)
+    for i in range(k):
+        for j in range(k):
+            part = values[i::k, j::k]
+            finite = np.isfinite(part)
+            total[:part.shape[0], :part.shape[1]] += np.where(finite, part, 0.0)
+            count[:part.shape[0], :part.shape[1]] += finite
+    with np.errstate(invalid="ignore", divide="ignore"):  # 0 / 0: a block of no data
+        return total / count
 
 
 def _quantise(values: np.ndarray) -> tuple[np.ndarray, float, float]:

@@ -11,9 +11,12 @@ from __future__ import annotations
 import io
 import os
 import shutil
+import warnings
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from slicer.outputs.cube import new_cube
 from slicer.outputs.viewer import MAX_SIDE, LineImage, viewer_data, write_viewer
@@ -182,3 +185,24 @@ def test_a_builds_viewer_shows_the_clicked_lines_radargram(small_survey, tmp_pat
     assert base64.b64decode(src.split(",", 1)[1]) == (out / line["file"]).read_bytes()
     assert float(browser.find_element(By.ID, "marker").get_attribute("data-fraction")) == \
         pytest.approx(0.25, abs=0.03)
+
+
+@settings(max_examples=80, deadline=None)
+@given(ny=st.integers(1, 40), nx=st.integers(1, 40), k=st.integers(1, 5),
+       seed=st.integers(0, 2**16), holes=st.floats(0, 1))
+def test_decimation_is_the_nan_mean_of_each_block(ny, nx, k, seed, holes):
+    # Reference: numpy.nanmean over the k x k blocks of the slice padded with NaN to whole
+    # blocks (a block of no data is NaN).
+    from slicer.outputs.viewer import _decimate
+    rng = np.random.default_rng(seed)
+    values = rng.normal(size=(ny, nx)).astype(np.float32)
+    values[rng.random((ny, nx)) < holes] = np.nan
+    padded = np.pad(values.astype(np.float64), ((0, -ny % k), (0, -nx % k)),
+                    constant_values=np.nan)
+    blocks = padded.reshape(padded.shape[0] // k, k, padded.shape[1] // k, k)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        reference = np.nanmean(blocks, axis=(1, 3))
+    got = _decimate(values, k)
+    np.testing.assert_array_equal(np.isnan(got), np.isnan(reference))
+    np.testing.assert_allclose(got, reference, rtol=1e-12, equal_nan=True)
