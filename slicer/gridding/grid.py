@@ -332,7 +332,11 @@ def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
     # traces whose box lies wholly outside the block visit nothing
     inside = (col0 + kx >= 0) & (col0 - kx < nx) & (row0 + ky >= 0) & (row0 - ky < ny)
     rows, cols, vals, bridged = [], [], [], []
-    boxes = np.unique(np.column_stack([kx[inside], ky[inside]]), axis=0)
+    # the distinct (kx, ky) half-extents, by counting (np.unique(..., axis=0) sorted every
+    # inside trace's pair: 15 % of a tile's time)
+    span = int(ky.max(initial=0)) + 1
+    keys = np.flatnonzero(np.bincount(kx[inside] * span + ky[inside]))
+    boxes = np.column_stack([keys // span, keys % span])
     for bx, by in boxes:
         t = np.flatnonzero(inside & (kx == bx) & (ky == by))
         tx, ty, tux, tuy = x[t], y[t], ux[t], uy[t]
