@@ -41,18 +41,16 @@ from slicer.outputs.cube import TILE, _check_tile_size, _write_netcdf, check_til
 from slicer.outputs.display import Display
 from slicer.outputs.display_panels import PER_PAGE, page_paths, panel_stride
 from slicer.outputs.geotiff import SliceTiffWriter, tile_windows
+from slicer.outputs.names import (
+    FORMATS,
+    NETCDF_NAME,
+    OVERVIEW_NAME,
+    SLICES_DIR,
+    ZARR_NAME,
+)
 from slicer.outputs.viewer import page_slice, page_step
 from slicer.outputs.zarr_store import ZARR_FORMAT, create_cube_store, open_cube_zarr, read_slice
 
-#: Names of the outputs inside ``out_dir``.
-SLICES_DIR, ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME = "slices", "cube.zarr", "cube.nc", "overview.png"
-#: What a sink may write into ``out_dir``: names and patterns, relative POSIX paths.
-#: The pages of an overview longer than one page: overview-01.png, overview-02.png, ...
-OVERVIEW_PAGES = "overview-*.png"
-OUTPUT_NAMES = (f"{SLICES_DIR}/slice_*.tif", ZARR_NAME, NETCDF_NAME, OVERVIEW_NAME,
-                OVERVIEW_PAGES)
-#: The cube outputs a sink can write, by the name ``formats`` gives them.
-FORMATS = {"tif": f"{SLICES_DIR}/slice_*.tif", "zarr": ZARR_NAME, "nc": NETCDF_NAME}
 #: Threads writing whole slice GeoTIFFs from the working store (DEFLATE runs outside the GIL).
 SLICE_THREADS = 4
 #: Whether a sink streams the slice GeoTIFFs tile by tile unless told (benchmarks/formats.py).

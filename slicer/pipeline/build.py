@@ -6,6 +6,7 @@ read -> place -> time zero -> dewow -> background -> gain -> envelope -> reduce 
 
 from __future__ import annotations
 
+import contextlib
 import datetime as _dt
 import math
 import time
@@ -31,10 +32,8 @@ from slicer.gridding.grid import (
     trace_frame,
     trace_spacing,
 )
-from slicer.gridding.levelling import level_lines
 from slicer.io.reading import describe_file, line_info
-from slicer.outputs.cube import empty_cube, new_cube
-from slicer.outputs.sink import FORMATS, OVERVIEW_NAME, OVERVIEW_PAGES, CubeSink
+from slicer.outputs.names import FORMATS, OVERVIEW_NAME, OVERVIEW_PAGES, VIEW_NAMES
 from slicer.pipeline.bounds import check_bounds
 from slicer.pipeline.budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
 from slicer.pipeline.engine import Engine, parse_scheduler
@@ -42,8 +41,6 @@ from slicer.pipeline.line_chain import processing_summary
 from slicer.pipeline.line_tasks import nice_number, reduce_survey
 from slicer.pipeline.record import environment, tidy_record
 from slicer.pipeline.settings import BuildSettings
-from slicer.pipeline.view import VIEW_NAMES, RadargramPainter, open_result, write_views
-from slicer.pipeline.worker_outputs import WorkerSink
 from slicer.velocity.models import depth_error
 
 #: Tile edge of the output grid, cells: each tile is gridded from the traces near it only.
@@ -79,6 +76,7 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
     tile : int
         Tile edge in cells: each tile is gridded from the traces near it only.
     """
+    from slicer.outputs.cube import new_cube
     layout = GridLayout.of(table, cell=cell, radius=radius, max_gap=max_gap, tile=tile)
     values = layout.assemble(table.values, engine=engine, progress=progress)
     cube = new_cube(values, **layout.cube_kwargs(table, crs=crs, velocity=velocity,
@@ -187,6 +185,7 @@ def _reduce(settings: BuildSettings, engine: Engine, *, progress: bool,
                             on_image=on_image)
     zigzag = correct_zigzag(reduced, settings)
     if settings.level:  # per line and slice, against its neighbouring lines
+        from slicer.gridding.levelling import level_lines
         reduced.table = level_lines(reduced.table)
     read_s = time.perf_counter() - started
     velocity = (settings.resolved_velocity if reduced.windows.axis in ("depth", "elevation")
@@ -247,6 +246,7 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
     if engine is None:
         with open_engine(settings) as own:
             return build_cube(settings, progress=progress, engine=own)
+    from slicer.outputs.cube import new_cube
     r = _reduce(settings, engine, progress=progress, cube_in_memory=True)
     gridding = time.perf_counter()
     values = r.layout.assemble(r.reduced.table.values, engine=engine, progress=progress)
@@ -374,8 +374,17 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
                           names=[*(FORMATS[f] for f in formats), OVERVIEW_NAME, OVERVIEW_PAGES,
                                  *VIEW_NAMES],
                           inputs=input_files(settings))
-    with (warnings.catch_warnings(record=True) as caught, open_engine(settings) as engine,
-          folder, RadargramPainter(folder.path) as painter):  # each line drawn on a thread
+    with contextlib.ExitStack() as stack:
+        caught = stack.enter_context(warnings.catch_warnings(record=True))
+        engine = stack.enter_context(open_engine(settings))
+        # the engine first: a process engine's fork server imports the task modules (1.4 s)
+        # while this process imports the writers (0.3 s, kept out of this module for that)
+        from slicer.outputs.cube import empty_cube
+        from slicer.outputs.sink import CubeSink
+        from slicer.pipeline.view import RadargramPainter, open_result, write_views
+        from slicer.pipeline.worker_outputs import WorkerSink
+        stack.enter_context(folder)
+        painter = stack.enter_context(RadargramPainter(folder.path))  # lines drawn on a thread
         warnings.simplefilter("always", SlicerWarning)
         r = _reduce(settings, engine, progress=progress, cube_in_memory=False,
                     on_image=painter.add)

@@ -22,13 +22,9 @@ import numpy as np
 import xarray as xr
 
 from slicer.core.errors import InputFileError
-from slicer.outputs.sink import FORMATS, cube_from_slices
+from slicer.outputs.names import FORMATS, RADARGRAMS_DIR, VIEW_NAMES, VIEWER_NAME
+from slicer.outputs.sink import cube_from_slices
 from slicer.outputs.zarr_store import open_cube_zarr
-
-#: The build's radargrams (a folder) and the viewer page, inside the output folder.
-RADARGRAMS_DIR, VIEWER_NAME = "radargrams", "viewer.html"
-#: The outputs this module writes, as names and patterns for the output folder.
-VIEW_NAMES = (f"{RADARGRAMS_DIR}/*.png", VIEWER_NAME)
 
 
 def file_names(names: Sequence[str]) -> list[str]:

@@ -31,13 +31,14 @@ import numpy as np
 from slicer.core.atomic import GuardedFile, check_room, temp_file
 from slicer.gridding.grid import TileJob, grid_tile
 from slicer.outputs.geotiff import SliceFileJob, SliceTiffWriter, write_slice_file
+from slicer.outputs.names import NETCDF_NAME, SLICES_DIR
 from slicer.outputs.netcdf_chunks import (
     ChunkLayout,
     compress_slice,
     store_chunks,
     write_skeleton,
 )
-from slicer.outputs.sink import NETCDF_NAME, SLICES_DIR, CubeSink, decimate, save_overview
+from slicer.outputs.sink import CubeSink, decimate, save_overview
 from slicer.outputs.viewer import page_slice
 from slicer.outputs.zarr_store import read_slice, write_tile
 from slicer.processing.fk import release_operators
