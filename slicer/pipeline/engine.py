@@ -347,7 +347,22 @@ class Engine:
         if pool is None:  # an engine used without its with block: a pool for this map only
             pool = stack.enter_context(concurrent.futures.ThreadPoolExecutor(
                 max_workers=self.spec.workers))
+        if isinstance(pool, concurrent.futures.ProcessPoolExecutor):
+            return functools.partial(_submit_to_processes, pool)
         return pool.submit
+
+
+def _submit_to_processes(pool: concurrent.futures.ProcessPoolExecutor, func: Callable, item):
+    """``pool.submit(func, item)``; a worker process that cannot be started (the system's
+    process or memory limit, no usable temporary folder for the fork server) is one
+    SettingsError naming --scheduler (a fork server that cannot fork ends the answer early:
+    EOFError)."""
+    try:
+        return pool.submit(func, item)
+    except (OSError, EOFError) as exc:
+        reason = getattr(exc, "strerror", None) or str(exc) or type(exc).__name__
+        raise SettingsError(f"cannot start a worker process ({reason}); --scheduler threads "
+                            "needs none", where="--scheduler") from None
 
 
 def _batches(items: Iterable, size: int) -> Iterator[list]:

@@ -64,7 +64,9 @@ def start_workers(pool: concurrent.futures.Executor, count: int) -> None:
     try:
         for _ in range(count):
             pool.submit(_warm_up, WARM_MODULES)
-    except RuntimeError:  # shut down meanwhile (the build failed while planning)
+    except (RuntimeError, OSError, EOFError):
+        # shut down meanwhile (the build failed while planning), or no process could start:
+        # the build's own first task meets that again and says so (engine.Engine.map)
         pass
 
 

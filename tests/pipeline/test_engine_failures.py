@@ -2,6 +2,7 @@
 clear error within a bounded wait, too many workers are refused before any process starts,
 and worker processes die with a killed build."""
 
+import concurrent.futures
 import contextlib
 import os
 import signal
@@ -293,3 +294,18 @@ def test_a_worker_that_ends_mid_task_is_one_clear_error():
             list(engine.map(_end_this_process, [1, 2], desc="ending", progress=False))
     assert caught.value.where == "--scheduler"
     assert "__main__" in str(caught.value) and "\n" not in str(caught.value)
+
+
+def test_a_worker_process_that_cannot_start_is_one_clear_error(monkeypatch):
+    # fork(2) fails with EAGAIN at the system's process limit (POSIX); concurrent.futures lets
+    # that OSError out of submit, and the engine names the scheduler instead
+    import errno
+
+    def refuse(self):
+        raise OSError(errno.EAGAIN, os.strerror(errno.EAGAIN))
+
+    monkeypatch.setattr(concurrent.futures.ProcessPoolExecutor, "_spawn_process", refuse)
+    with Engine(parse_scheduler("processes", workers=2)) as engine:
+        with pytest.raises(SettingsError, match="cannot start a worker process") as caught:
+            list(engine.map(abs, [1, 2], desc="starting", progress=False))
+    assert caught.value.where == "--scheduler" and "\n" not in str(caught.value)
