@@ -6,6 +6,8 @@ import os
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 import slicer
 from slicer.core.errors import SettingsError
@@ -114,3 +116,16 @@ def test_process_workers_take_the_callers_umask_and_environment_of_now(monkeypat
     finally:
         os.umask(old)
     assert states == {("now", 0o037, True)}  # and the task modules were imported already
+
+
+@settings(max_examples=100, deadline=None)
+@given(count=st.integers(0, 400), size=st.integers(1, 8), workers=st.integers(1, 8))
+def test_batches_keep_every_item_in_order_and_shrink_at_the_end(count, size, workers):
+    from slicer.pipeline.engine import _batches
+    batches = list(_batches(iter(range(count)), size, count=count, workers=workers))
+    assert [i for b in batches for i in b] == list(range(count))
+    sizes = [len(b) for b in batches]
+    assert all(1 <= n <= size for n in sizes)
+    assert sizes == sorted(sizes, reverse=True)  # never larger again once they shrink
+    if count >= 2 * size * workers:  # the last task is one item: nobody waits on a big one
+        assert sizes[-1] == 1 and sizes[0] == size
