@@ -121,9 +121,15 @@ def staging_profile(base: dict, *, tile: int = TILE) -> dict:
 def overview_factors(width: int, height: int, block_size: int) -> list[int]:
     """Overview levels of a ``width`` x ``height`` raster in square blocks of ``block_size``:
     2, 4, 8, ... until the reduced raster (sides rounded up) fits in one block; none when the
-    raster does (common practice; GDAL's COG driver does the same for ``OVERVIEWS=AUTO``)."""
+    raster does (common practice; GDAL's COG driver does the same for ``OVERVIEWS=AUTO``).
+
+    Levels stop once the shorter side is down to one cell: a level that cannot reduce it
+    reads as a decimation of 1, which rio-cogeo's validator refuses (a slice one cell wide
+    had five such levels under ``OVERVIEWS=AUTO``).
+    """
     factors, f = [], 1
-    while max(-(-width // f), -(-height // f)) > block_size:
+    while max(-(-width // f), -(-height // f)) > block_size and \
+            min(-(-width // f), -(-height // f)) > 1:
         f *= 2
         factors.append(f)
     return factors

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 import rasterio
 from affine import Affine
 from hypothesis import given, settings
@@ -59,3 +60,26 @@ def test_copy_keeps_pixels_tags_and_lays_out_a_cog(tmp_path):
         # 700 -> 350 -> 175, which fits a 256 block: two levels (common practice)
         assert src.overviews(1) == [2, 4]
         assert src.profile["compress"] == "deflate"
+
+
+@pytest.mark.parametrize("ny, nx", [(5000, 1), (1, 5000), (257, 1), (5000, 2), (5000, 3)])
+def test_thin_slices_are_valid_cogs(tmp_path, ny, nx):
+    # A slice one or a few cells across (a lone line gridded with a coarse cell): rio-cogeo's
+    # validator refuses overview levels that cannot reduce the short side (decimation 1).
+    from rio_cogeo.cogeo import cog_validate
+
+    values = np.random.default_rng(ny + nx).random((ny, nx)).astype(np.float32)
+    values[: ny // 2, : nx // 2] = np.nan
+    for way in ("whole", "streamed"):
+        path = tmp_path / f"{way}.tif"
+        if way == "whole":
+            cog.write_cog(path, values, cog.cog_profile(_base(ny, nx)))
+        else:
+            staged = tmp_path / "staged.tif"
+            with rasterio.open(staged, "w", **cog.staging_profile(_base(ny, nx))) as dst:
+                dst.write(values, 1)
+            cog.copy_to_cog(staged, path, cog.cog_profile(_base(ny, nx)))
+        valid, errors, _warnings = cog_validate(str(path))
+        assert valid and errors == []
+        with rasterio.open(path) as src:
+            np.testing.assert_array_equal(src.read(1), values)
