@@ -12,11 +12,12 @@ machine hits all of them alike:
     The same file with the tags, description and unit set right after opening (no overviews).
 ``COG whole``
     slicer's whole-slice path (``SliceTiffWriter(deferred=True).write_slice``, which is
-    ``write_slice_file``): rasterio buffers the slice and GDAL's COG driver copies it, adding
-    averaged overviews.
+    ``write_slice_file``): the slice in a GDAL MEM dataset with its averaged overviews, which
+    GDAL's COG driver copies (``slicer.outputs.cog.write_cog``).
 ``COG streamed``
     slicer's streaming path (``SliceTiffWriter.write_band`` in 256 x 256 windows, as
-    ``CubeSink`` does): an uncompressed staging GeoTIFF per slice, copied into a COG on commit.
+    ``CubeSink`` does): an uncompressed staging GeoTIFF per slice, given its overviews and
+    copied into a COG on commit.
 ``COG streamed, deflate staging``
     The same with the staging file compressed as the final file is (a variant made by this
     script), to show why the staging file is left uncompressed.
