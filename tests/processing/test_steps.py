@@ -237,7 +237,8 @@ def test_background_median_is_numpy_median_of_every_kth_trace(n_traces):
     np.testing.assert_allclose(got, np.median(x[::k], axis=0), rtol=1e-6, atol=1e-7)
     assert x[::k].shape[0] >= MEDIAN_TRACES and (k == 1) == (n_traces < 2 * MEDIAN_TRACES)
     # the common wavelet comes through: within 4 standard errors of a median of Gaussian noise
-    # (sqrt(pi / 2) sigma / sqrt(count), a textbook result)
+    # (sqrt(pi / 2) sigma / sqrt(count): the sample median's asymptotic variance
+    # pi sigma^2 / (2 n), Laplace's result; quoted from memory)
     error = 4 * np.sqrt(np.pi / 2) * 0.1 / np.sqrt(x[::k].shape[0])
     assert np.max(np.abs(got - wavelet)) < error
 
