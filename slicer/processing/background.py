@@ -19,13 +19,14 @@ adaptive subtraction).
 
 The median trace of ``"median"`` and ``"scaled"`` is taken over every k-th trace of the line,
 k = n // :data:`MEDIAN_TRACES` (so at least 512 traces; every trace of a line of fewer than
-1024), spread evenly from end to end: the median of a line of 3 000 traces cost more than its
-migration. On the peers' surveys (benchmarks/peers.py, after dewow) it differs from the median of
-all traces by at most 0.5 % of the line's RMS amplitude on lines of 2 000 traces and 0.8 % on
-lines of 3 165 (medians 0.2 and 0.3 %), at a sixth of the time; a
-background that is the same on every trace (ringing, the direct wave) is the same in any
-subset, and the noise of the estimate, a few hundredths of the noise on one trace, is a weak
-stripe along the line that adds to an envelope in quadrature.
+1024), spread evenly from end to end: the exact median of a line of 3 000 traces took half as
+long as its migration. After dewow it differs from the median of all traces by at most 0.52 %
+of the line's RMS amplitude on lines of 2 000 traces (median 0.24 %, benchmarks/line_task.py
+--traces 400000, 4.4 times faster) and 0.75 % on lines of 3 165 (median 0.29 %, 6.8 times
+faster; benchmarks/README.md). A background that is the same on every trace (ringing, the
+direct wave) is the same in any subset, and the noise of the estimate, a few hundredths of the
+noise on one trace, is a weak stripe along the line that adds to an envelope in quadrature:
+slices of the 400 k benchmark survey show the same line-to-line spread either way.
 
 A *time window* ``(top, bottom)`` (ns) limits any method to that part of the record, tapered
 over half a period at each end inside it: ``median:0-12`` removes the ringing of the first
