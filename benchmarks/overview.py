@@ -11,11 +11,16 @@ alternating between them so that a busy spell of the machine hits both alike:
     ``slicer/outputs/figures.py`` as it was at git revision ``--before`` (default ``6cfcfa5``,
     one Axes and one image per panel), loaded from git into a module of its own.
 ``now``
-    ``slicer.outputs.figures`` of this checkout.
+    ``slicer.outputs.figures`` of this checkout (matplotlib: the sheet a user's
+    ``plot_overview`` returns).
+``build``
+    the page a build saves since 2026-12-03 (:mod:`slicer.outputs.sheet_png`: the same sheet
+    drawn with NumPy and Pillow, written as a palette PNG), all slices on one page as above.
 
-The table gives the median and minimum wall time of each, the ratio before/now of the
-medians, and (``PNG alone``) the median time PIL takes to encode the new sheet's pixels as
-matplotlib's PNG writer does, a part of ``now`` that no drawing change can remove.
+The table gives the median and minimum wall time of each, the ratios before/now and
+now/build of the medians, and (``PNG alone``) the median time PIL takes to encode the
+matplotlib sheet's pixels as matplotlib's PNG writer does, a part of ``now`` that no drawing
+change can remove. A last line gives the time each way's modules take to import.
 
 The panels are made up: a smooth background, a few bright compact anomalies, speckle,
 and no data (NaN) beyond a diagonal edge of the surveyed area, each value computed at the
@@ -90,6 +95,33 @@ def draw_and_save(module, template, panels) -> float:
     return time.perf_counter() - start
 
 
+def build_page(template, panels) -> float:
+    """Wall time (s) of the same sheet drawn and encoded as a build's page."""
+    from slicer.outputs.display import Display
+    from slicer.outputs.overview_plan import OverviewPlan
+    from slicer.outputs.sheet_png import page_png
+    start = time.perf_counter()
+    plan = OverviewPlan(template, Display(), title=None, dpi=DPI, panels=panels)
+    ncols, nrows, pages = plan.pages(N_SLICES)
+    for first, stop, page in pages:
+        page_png(plan.drawn[first:stop], **plan.page(first, stop, page=page), ncols=ncols,
+                 nrows=nrows)
+    return time.perf_counter() - start
+
+
+IMPORTS = {"now": "slicer.outputs.figures",
+           "build": "slicer.outputs.sheet_png, slicer.outputs.overview_plan"}
+
+
+def import_seconds(modules: str) -> float:
+    """Seconds to import ``modules`` in a fresh interpreter that has imported what a build has
+    when it draws the overview: the sink that calls it and the radargrams' drawing."""
+    code = ("import time, slicer.outputs.sink, slicer.outputs.radargram_pages; "
+            f"t = time.perf_counter(); import {modules}; print(time.perf_counter() - t)")
+    return float(subprocess.run([sys.executable, "-c", code], check=True, capture_output=True,
+                                text=True).stdout)
+
+
 def encode_only(module, template, panels) -> float:
     """Wall time (s) of encoding the drawn sheet's RGBA pixels as PNG (zlib level 1) alone."""
     figure = module.plot_overview(template, dpi=DPI, panels=panels)
@@ -112,24 +144,32 @@ def main(argv=None) -> int:
     for size in args.sizes.split(","):
         nx, ny = (int(v) for v in size.lower().split("x"))
         template, panels, k = make_case(ny, nx)
-        times = {name: [] for name in ways}
+        times = {name: [] for name in [*ways, "build"]}
         encode = []
         for module in ways.values():  # warm-up: fonts, caches
             draw_and_save(module, template, panels)
+        build_page(template, panels)
         for _ in range(args.repeat):
             for name, module in ways.items():
                 times[name].append(draw_and_save(module, template, panels))
+            times["build"].append(build_page(template, panels))
             encode.append(encode_only(figures, template, panels))
         median = {name: statistics.median(t) for name, t in times.items()}
         rows.append([f"{nx} x {ny}", str(k), f"{panels[0].shape[1]} x {panels[0].shape[0]}",
                      _f(median["before"]), _f(min(times["before"])), _f(median["now"]),
                      _f(min(times["now"])), _f(median["before"] / median["now"], 1),
-                     _f(statistics.median(encode))])
+                     _f(statistics.median(encode)), _f(median["build"]),
+                     _f(min(times["build"])), _f(median["now"] / median["build"], 1)])
         print(f"{size}: done", file=sys.stderr)
     print(f"{N_SLICES} slices, {DPI} dpi, PNG zlib level 1; before = {args.before}; "
           f"times in s, median and minimum of {args.repeat}")
     print(_table(["slice cells", "stride", "panel cells", "before", "before min", "now",
-                  "now min", "before/now", "PNG alone"], rows))
+                  "now min", "before/now", "PNG alone", "build", "build min", "now/build"],
+                 rows))
+    imports = {name: statistics.median(import_seconds(m) for _ in range(3))
+               for name, m in IMPORTS.items()}
+    print("imports in a fresh process (median of 3, s): " + ", ".join(
+        f"{name} ({IMPORTS[name]}) {_f(v)}" for name, v in imports.items()))
     return 0
 
 

@@ -23,13 +23,12 @@ from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
 from slicer.core.atomic import atomic_path
 from slicer.core.errors import OutputError, SettingsError
-from slicer.outputs.cube import cube_crs, slice_axis
+from slicer.outputs.cube import slice_axis
 from slicer.outputs.display import (
     DEFAULT_CLIP,
     NODATA_COLOUR,
     Display,
     display_from,
-    relative_scale,
 )
 from slicer.outputs.display_panels import (
     MAX_PANEL_CELLS,
@@ -44,7 +43,13 @@ from slicer.outputs.display_panels import (
     sample_count_stride,
     sample_stride,
 )
-from slicer.outputs.sheet import Scale, _length_label, _nice_length, draw_sheet
+from slicer.outputs.overview_plan import (
+    OverviewPlan,
+    _check_per_page,
+    _columns,
+    _quantity,
+)
+from slicer.outputs.sheet import _length_label, _nice_length, draw_sheet
 
 
 def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
@@ -95,107 +100,11 @@ def _draw(ax: Axes, panel: np.ndarray, stride: int, frame: Frame, cmap: Colormap
     return image
 
 
-def _sheet_title(cube: xr.DataArray, title: str | None, which: str = "") -> str:
-    # which: the slices of this page, e.g. " 13-24 of 120"
-    axis = slice_axis(cube)
-    crs = cube_crs(cube)
-    if crs is None:
-        where = "local grid (no CRS)"
-    else:
-        code = crs.to_epsg()
-        where = f"{crs.name} (EPSG:{code})" if code else crs.name
-    parts = [where, f"cell {cube.attrs.get('cell_size', float('nan')):g} m"]
-    velocity = cube.attrs.get("velocity")
-    if velocity is not None:
-        parts.append(f"velocity {float(velocity):.4g} m/ns")
-    head = title or f"{cube.name or 'envelope'} {axis} slices"
-    return f"{head}{which}\n" + ", ".join(parts)
-
-
-def _quantity(cube: xr.DataArray) -> str:
-    units = cube.attrs.get("units", "")
-    name = str(cube.name or "value")
-    # "1" is the CF/UDUNITS spelling of a dimensionless quantity.
-    return f"{name} ({'dimensionless' if units in ('', '1') else units})"
-
-
-def _units(cube: xr.DataArray) -> str:
-    units = str(cube.attrs.get("units", ""))
-    return "" if units in ("", "1") else f" {units}"
-
-
-def _range_text(vmin: float, vmax: float, units: str, signed: bool) -> str:
-    # A panel's own colour range, short enough for the line above its title.
-    return f"\u00b1{vmax:.3g}{units}" if signed else f"{vmin:.3g} to {vmax:.3g}{units}"
-
-
-class _Overview:
-    """What every page of an overview shares: the decimated panels, their colours, labels."""
-
-    def __init__(self, cube: xr.DataArray, display: Display, *, title: str | None,
-                 dpi: float, panels: list[np.ndarray] | None):
-        slice_axis(cube)  # refuses anything that is not a cube
-        if not (math.isfinite(float(dpi)) and float(dpi) > 0):
-            raise SettingsError(f"dpi must be a positive number, got {dpi}", where="dpi")
-        self.n = n = cube.shape[0]
-        self.dpi, self.frame = float(dpi), Frame(cube)
-        self.labels, self.quantity = range_labels(cube), _quantity(cube)
-        self.cube, self.title = cube, title
-        signed = str(cube.name or "").startswith("signed")
-        # One pass over the data: the decimated panels, and the colour limits from them.
-        self.stride = stride = panel_stride(cube, dpi=dpi)
-        if panels is None:
-            self.drawn = [drawn_cells(cube, i, stride) for i in range(n)]
-        else:
-            self.drawn = [np.asarray(p, dtype=np.float32) for p in panels]
-            expected = (math.ceil(cube.shape[1] / stride), math.ceil(cube.shape[2] / stride))
-            if len(self.drawn) != n or any(p.shape != expected for p in self.drawn):
-                raise SettingsError(f"panels must be {n} arrays of {expected} cells "
-                                    f"(every {stride}th cell)", where="panels")
-        colours = display.colours(signed=signed)
-        if display.per_slice:
-            # A panel holds at most MAX_PANEL_CELLS**2 = MAX_SAMPLE_VALUES cells: all count.
-            limits = [display.limits(p, signed=signed) for p in self.drawn]
-            ticks, tick_labels, caption = relative_scale(display, signed=signed)
-            units = _units(cube)
-            self.scale = Scale(colours, [Normalize(*lim) for lim in limits],
-                               ranges=[_range_text(*lim, units, signed) for lim in limits],
-                               ticks=ticks, tick_labels=tick_labels, caption=caption)
-        else:
-            # Over the whole cube (a regular subsample of the drawn cells, sample_stride),
-            # so that every page has the same colours.
-            k = sample_stride(cube, dpi=dpi) // stride
-            norm = Normalize(*display.limits([p[::k, ::k] for p in self.drawn],
-                                             signed=signed))
-            self.scale = Scale(colours, [norm] * n)
-
-    def sheet(self, start: int, stop: int, *, ncols: int, nrows: int | None = None,
-              page: tuple[int, int] | None = None) -> Figure:
-        """The figure of slices ``start:stop``; ``page`` = (number, count) when paged."""
-        which = "" if page is None else f" {start + 1}-{stop} of {self.n}"
-        return draw_sheet(self.drawn[start:stop], stride=self.stride, frame=self.frame,
-                          labels=self.labels[start:stop], ncols=ncols,
-                          scale=self.scale.page(start, stop), dpi=self.dpi,
-                          title=_sheet_title(self.cube, self.title, which),
-                          quantity=self.quantity, nrows=nrows,
-                          page=None if page is None else f"page {page[0]} of {page[1]}")
-
-
-def _columns(n: int, max_columns: int | None) -> int:
-    ncols = math.ceil(math.sqrt(n))
-    if max_columns is not None:
-        if int(max_columns) < 1:
-            raise SettingsError(f"max_columns must be >= 1, got {max_columns}",
-                                where="max_columns")
-        ncols = min(ncols, int(max_columns))
-    return ncols
-
-
-def _check_per_page(per_page) -> int:
-    if isinstance(per_page, bool) or not isinstance(per_page, int | np.integer) or per_page < 1:
-        raise SettingsError(f"per_page must be a whole number >= 1, got {per_page!r}",
-                            where="per_page")
-    return int(per_page)
+def _sheet(overview: OverviewPlan, start: int, stop: int, *, ncols: int,
+           nrows: int | None = None, page: tuple[int, int] | None = None) -> Figure:
+    """The figure of slices ``start:stop``; ``page`` = (number, count) when paged."""
+    return draw_sheet(overview.drawn[start:stop], **overview.page(start, stop, page=page),
+                      ncols=ncols, nrows=nrows)
 
 
 def overview_pages(cube: xr.DataArray, *, colormap=None, stretch: str = "shared",
@@ -209,16 +118,11 @@ def overview_pages(cube: xr.DataArray, *, colormap=None, stretch: str = "shared"
     empty), so all pages have the same size; with more than one page each says
     ``"page i of n"`` at its top right and which slices it holds in its title.
     """
-    per_page = _check_per_page(per_page)
-    overview = _Overview(cube, display_from(colormap, stretch, clip), title=title, dpi=dpi,
-                         panels=panels)
-    on_page = min(overview.n, per_page)
-    ncols = _columns(on_page, max_columns)
-    nrows = math.ceil(on_page / ncols)
-    count = math.ceil(overview.n / per_page)
-    return (overview.sheet(i * per_page, min(overview.n, (i + 1) * per_page), ncols=ncols,
-                           nrows=nrows, page=(i + 1, count) if count > 1 else None)
-            for i in range(count))
+    overview = OverviewPlan(cube, display_from(colormap, stretch, clip), title=title, dpi=dpi,
+                            panels=panels)
+    ncols, nrows, pages = overview.pages(per_page, max_columns)
+    return (_sheet(overview, start, stop, ncols=ncols, nrows=nrows, page=page)
+            for start, stop, page in pages)
 
 
 def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
@@ -299,8 +203,8 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
     """
     display = display_from(colormap, stretch, clip, cmap=cmap, percentile=percentile)
     if path is None:
-        overview = _Overview(cube, display, title=title, dpi=dpi, panels=panels)
-        return overview.sheet(0, overview.n, ncols=_columns(overview.n, max_columns))
+        overview = OverviewPlan(cube, display, title=title, dpi=dpi, panels=panels)
+        return _sheet(overview, 0, overview.n, ncols=_columns(overview.n, max_columns))
     pages = overview_pages(cube, per_page=per_page, title=title, max_columns=max_columns,
                            dpi=dpi, panels=panels, **display.options())
     paths = page_paths(path, math.ceil(cube.shape[0] / _check_per_page(per_page)))

@@ -21,85 +21,30 @@ from matplotlib.colors import Colormap, Normalize
 from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 from matplotlib.text import Annotation
-from matplotlib.ticker import MaxNLocator
 
-from slicer.outputs.display_panels import PANEL_INCHES, _decimals
-
-#: Margins around each panel, inches: room for the y tick labels and axis label on its left,
-#: a gap on its right, its title above and the x tick labels and axis label below; the sheet
-#: title above the grid and the colour bar beside it.
-_LEFT, _GAP_X, _TOP, _GAP_TOP, _BELOW, _BAR_ROOM = 0.6, 0.15, 0.8, 0.25, 0.5, 1.3
-
-_TICK_POINTS, _TICK_FONT, _LABEL_FONT, _TITLE_FONT = 3.5, 7, 8, 9
-
-#: Room for the line of a panel's own colour range above its title (per-slice stretch), inches.
-_RANGE_ROOM = 0.15
-
-
-def _nice_length(width: float) -> float:
-    # A 1-2-5 round length close to a fifth of the panel width, for the scale bar.
-    target = width / 5
-    exponent = math.floor(math.log10(target))
-    for step in (5, 2, 1):
-        length = step * 10.0**exponent
-        if length <= target * 1.25:
-            return length
-    return 10.0**exponent
-
-
-def _length_label(length: float) -> str:
-    return f"{length * 100:g} cm" if length < 1 else f"{length:g} m"
-
-
-class Layout:
-    """Where everything of a sheet of ``nrows`` x ``ncols`` panels goes, in whole pixels.
-
-    Pixel rows count down from the top of the sheet, as in the saved image.
-    """
-
-    def __init__(self, nrows: int, ncols: int, aspect: float, dpi: float, *,
-                 gap_top: float = _GAP_TOP):
-        self.nrows, self.ncols, self.dpi = nrows, ncols, float(dpi)
-        panel_w = PANEL_INCHES if aspect <= 1 else PANEL_INCHES / aspect
-        px = self.px
-        self.pw, self.ph = max(1, px(panel_w)), max(1, px(panel_w * aspect))
-        self.step_x = px(_LEFT + _GAP_X) + self.pw
-        self.step_y = px(_BELOW + gap_top) + self.ph
-        self.left, self.top = px(_LEFT), px(_TOP + gap_top)
-        self.grid_w = (ncols - 1) * self.step_x + self.pw
-        self.grid_h = (nrows - 1) * self.step_y + self.ph
-        self.width = self.left + self.grid_w + px(_GAP_X + _BAR_ROOM)
-        self.height = self.top + self.grid_h + px(_BELOW)
-
-    def px(self, inches: float) -> int:
-        """Whole pixels of ``inches`` on the sheet."""
-        return round(inches * self.dpi)
-
-    def box(self, i: int) -> tuple[int, int]:
-        """Pixel column and row of the top-left corner of panel ``i``."""
-        row, col = divmod(i, self.ncols)
-        return self.left + col * self.step_x, self.top + row * self.step_y
-
-    def fx(self, column: float) -> float:
-        """Figure fraction of a pixel column."""
-        return column / self.width
-
-    def fy(self, row: float) -> float:
-        """Figure fraction of a pixel row (counted from the top)."""
-        return 1 - row / self.height
+from slicer.outputs.sheet_layout import (
+    _BELOW,
+    _GAP_X,
+    _LABEL_FONT,
+    _RANGE_ROOM,
+    _TICK_FONT,
+    _TICK_POINTS,
+    _TITLE_FONT,
+    Layout,
+    Scale,
+    _length_label,
+    _nice_length,
+    _ticks,
+    panel_pixels,
+    sheet_layout,
+)
 
 
 def _mosaic(drawn: list[np.ndarray], stride: int, cells: tuple[int, int], layout: Layout,
             colours: Colormap, norms: list[Normalize]) -> np.ndarray:
     """The panels resampled to their pixels (nearest cell) and colour-mapped, on a clear
     background: an RGBA ``uint8`` array of the grid's pixels."""
-    ny, nx = cells
-    # The grid spans ny x nx cells over ph x pw pixels; a pixel shows the drawn cell (every
-    # stride-th of the grid) nearest below its centre, as imshow's 'nearest' did.
-    rows = np.minimum(((np.arange(layout.ph) + 0.5) * ny / layout.ph) // stride,
-                      drawn[0].shape[0] - 1).astype(np.intp)
-    cols = np.minimum(((np.arange(layout.pw) + 0.5) * nx / layout.pw) // stride,
-                      drawn[0].shape[1] - 1).astype(np.intp)
+    rows, cols = panel_pixels(layout, cells, stride, drawn[0].shape)
     mosaic = np.zeros((layout.grid_h, layout.grid_w, 4), dtype=np.uint8)
     for i, (panel, norm) in enumerate(zip(drawn, norms, strict=True)):
         c, r = layout.box(i)
@@ -140,35 +85,6 @@ class _Picture(Artist):
         gc.restore()
 
 
-def _ticks(low: float, high: float) -> tuple[np.ndarray, list[str]]:
-    # Round positions (metres from the panel's low edge) and their labels.
-    values = MaxNLocator(nbins=4, steps=[1, 2, 2.5, 5, 10]).tick_values(low, high)
-    values = values[(values >= low - 1e-9 * abs(high - low)) & (values <= high)]
-    d = _decimals(values, 0, 4)
-    return values, [f"{v:.{d}f}" for v in values]
-
-
-class Scale:
-    """How the panels of a sheet are coloured: a colour map and one Normalize per panel.
-
-    ``ranges`` (per-slice stretch) holds each panel's range as a short text, written above the
-    panel; the colour bar then shows ``ticks`` labelled ``tick_labels`` (0-1 of each panel's
-    range) with ``caption`` added to its label.
-    """
-
-    def __init__(self, colours: Colormap, norms: list[Normalize], *,
-                 ranges: list[str] | None = None, ticks=None, tick_labels=None,
-                 caption: str = ""):
-        self.colours, self.norms, self.ranges = colours, norms, ranges
-        self.ticks, self.tick_labels, self.caption = ticks, tick_labels, caption
-
-    def page(self, start: int, stop: int) -> Scale:
-        """The scale of panels ``start:stop``."""
-        return Scale(self.colours, self.norms[start:stop],
-                     ranges=None if self.ranges is None else self.ranges[start:stop],
-                     ticks=self.ticks, tick_labels=self.tick_labels, caption=self.caption)
-
-
 def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str],
                ncols: int, scale: Scale, dpi: float, title: str, quantity: str,
                nrows: int | None = None, page: str | None = None) -> Figure:
@@ -185,8 +101,7 @@ def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str]
     nrows = math.ceil(n / ncols) if nrows is None else nrows
     per_slice = scale.ranges is not None
     # per-slice: a second title line, each panel's range, needs room above the panel
-    lay = Layout(nrows, ncols, frame.height / frame.width, dpi,
-                 gap_top=_GAP_TOP + (_RANGE_ROOM if per_slice else 0))
+    lay = sheet_layout(nrows, ncols, frame, dpi, per_slice=per_slice)
     figure = Figure(figsize=(lay.width / lay.dpi, lay.height / lay.dpi), dpi=lay.dpi)
     FigureCanvasAgg(figure)
     figure.add_artist(_Picture(_mosaic(drawn, stride, (frame.ny, frame.nx), lay, scale.colours,

@@ -385,32 +385,26 @@ def save_overview(template: xr.DataArray, panels: np.ndarray,
     """Draw the overview pages from decimated ``panels`` (see :func:`decimate`), save each as
     PNG to its path in ``pngs`` (one per page, as :func:`slicer.outputs.figures.page_paths`).
 
-    A module-level function of picklable arguments, so a worker process can run it.
-    ``where`` names the files in errors (the final names; ``pngs`` may be temporary ones).
+    The pages are the sheets :func:`slicer.outputs.figures.plot_overview` draws, drawn with
+    NumPy and Pillow as palette PNGs (:mod:`slicer.outputs.sheet_png`): no figure machinery
+    to import, nothing rendered twice. A module-level function of picklable arguments, so a
+    worker process can run it. ``where`` names the files in errors (the final names; ``pngs``
+    may be temporary ones).
     """
-    from slicer.outputs.figures import overview_pages  # matplotlib: only where drawn
-    pages = overview_pages(template, title=title, dpi=OVERVIEW_DPI, panels=list(panels),
-                           per_page=per_page, **(display or Display()).options())
-    # Pages are saved on two threads while the next is drawn here: one's PNG encoding (Pillow,
-    # outside the GIL) overlaps another's rendering. Separate figures on the Agg canvas, as
-    # matplotlib allows across threads; at most two are being saved at once.
-    saving: list = []
-    with concurrent.futures.ThreadPoolExecutor(max_workers=2) as pool:
-        for figure, png, name in zip(pages, pngs, where or [str(p) for p in pngs], strict=True):
-            if len(saving) == 2:
-                saving.pop(0).result()
-            saving.append(pool.submit(_save_page, figure, png, name))
-        for future in saving:
-            future.result()
-
-
-def _save_page(figure, png, name: str) -> None:
-    try:
-        # zlib level 1: a sheet of noisy slices hardly compresses further, and level 6 took
-        # longer than drawing it
-        figure.savefig(png, format="png", dpi=OVERVIEW_DPI, pil_kwargs={"compress_level": 1})
-    except OSError as exc:
-        raise OutputError(f"cannot save figure ({exc})", where=name) from None
+    from slicer.outputs.display import display_from
+    from slicer.outputs.overview_plan import OverviewPlan
+    from slicer.outputs.sheet_png import page_png
+    plan = OverviewPlan(template, display_from(**(display or Display()).options()),
+                        title=title, dpi=OVERVIEW_DPI, panels=list(panels))
+    ncols, nrows, pages = plan.pages(per_page)
+    for (start, stop, page), png, name in zip(pages, pngs, where or [str(p) for p in pngs],
+                                              strict=True):
+        data = page_png(plan.drawn[start:stop], **plan.page(start, stop, page=page),
+                        ncols=ncols, nrows=nrows)
+        try:
+            Path(png).write_bytes(data)
+        except OSError as exc:
+            raise OutputError(f"cannot save figure ({exc})", where=name) from None
 
 
 def decimate(values, row0: int, col0: int, stride: int) -> np.ndarray:

@@ -3,6 +3,8 @@ once."""
 
 from __future__ import annotations
 
+from pathlib import Path
+
 import dask.array as darray
 import matplotlib.image
 import numpy as np
@@ -10,7 +12,6 @@ import pyproj
 import pytest
 import rasterio
 import xarray as xr
-from matplotlib.figure import Figure
 
 from slicer.core.errors import OutputError, SettingsError
 from slicer.outputs.cube import empty_cube, new_cube, read_cube_netcdf, write_cube_netcdf
@@ -152,12 +153,15 @@ def test_an_error_keeps_an_earlier_build_intact(tmp_path):
 def test_a_failure_while_finishing_commits_nothing(tmp_path, monkeypatch):
     cube = make_cube()
 
-    def broken(self, target, **kwargs):
-        with open(target, "wb") as fh:
-            fh.write(b"\x89PNG partial")
+    write_bytes = Path.write_bytes
+
+    def broken(self, data):  # the overview's page: half written, then the disk is full
+        if self.suffix != ".png":
+            return write_bytes(self, data)
+        write_bytes(self, data[:100])
         raise OSError("disk full")
 
-    monkeypatch.setattr(Figure, "savefig", broken)
+    monkeypatch.setattr(Path, "write_bytes", broken)
     with pytest.raises(OutputError, match="disk full") as info:
         write_by_tiles(cube, tmp_path)
     assert info.value.where == str(tmp_path / "overview.png")
@@ -234,26 +238,31 @@ def test_output_path_that_is_a_file_is_refused(tmp_path):
 def test_overview_from_the_kept_panels_equals_one_drawn_from_the_cube(tmp_path, monkeypatch):
     # 1900 rows at 150 dpi: every 3rd cell is drawn, and 256-cell tiles do not start on a
     # multiple of 3, so the panels kept tile by tile must pick the same cells as the strided
-    # read of the finished cube that plot_overview does without them.
-    import slicer.outputs.figures as figures_module
+    # read of the finished cube that an overview drawn without them does.
+    import slicer.outputs.overview_plan as plan_module
     import slicer.outputs.sink as sink_module
-    from slicer.outputs.figures import panel_stride, plot_overview
+    from slicer.outputs.display import Display
+    from slicer.outputs.figures import panel_stride
+    from slicer.outputs.sheet_png import page_png
     cube = make_cube(shape=(3, 1900, 40), seed=5)
     assert panel_stride(cube, dpi=sink_module.OVERVIEW_DPI) == 3
     seen = {}
-    original = figures_module.overview_pages
+    original = plan_module.OverviewPlan
 
-    def spy(cube, **kwargs):
+    def spy(cube, display, **kwargs):
         seen["panels"] = kwargs["panels"]
-        return original(cube, **kwargs)
+        return original(cube, display, **kwargs)
 
-    monkeypatch.setattr(figures_module, "overview_pages", spy)  # sink imports it when drawing
+    monkeypatch.setattr(plan_module, "OverviewPlan", spy)  # sink imports it when drawing
     write_cube(cube, tmp_path / "out", progress=False, tile=256)
     for i, panel in enumerate(seen["panels"]):
         np.testing.assert_array_equal(panel, cube.values[i, ::3, ::3])
     ours = matplotlib.image.imread(tmp_path / "out" / "overview.png")
-    plot_overview(open_cube_zarr(tmp_path / "out" / "cube.zarr"), tmp_path / "ref.png",
-                  dpi=sink_module.OVERVIEW_DPI)
+    plan = original(open_cube_zarr(tmp_path / "out" / "cube.zarr"), Display(), title=None,
+                    dpi=sink_module.OVERVIEW_DPI, panels=None)
+    ncols, nrows, [(start, stop, page)] = plan.pages(99)
+    (tmp_path / "ref.png").write_bytes(page_png(plan.drawn, **plan.page(start, stop, page=page),
+                                                ncols=ncols, nrows=nrows))
     np.testing.assert_array_equal(ours, matplotlib.image.imread(tmp_path / "ref.png"))
 
 
