@@ -20,6 +20,9 @@ FORMATS = {"tif": f"{SLICES_DIR}/slice_*.tif", "zarr": ZARR_NAME, "nc": NETCDF_N
 RADARGRAMS_DIR, VIEWER_NAME = "radargrams", "viewer.html"
 #: The outputs :mod:`slicer.pipeline.view` writes, as names and patterns.
 VIEW_NAMES = (f"{RADARGRAMS_DIR}/*.png", VIEWER_NAME)
+#: Zarr format written by default (see :mod:`slicer.outputs.zarr_store` for why not 3).
+ZARR_FORMAT = 2
 
 __all__ = ["FORMATS", "NETCDF_NAME", "OUTPUT_NAMES", "OVERVIEW_NAME", "OVERVIEW_PAGES",
-           "RADARGRAMS_DIR", "SLICES_DIR", "VIEWER_NAME", "VIEW_NAMES", "ZARR_NAME"]
+           "RADARGRAMS_DIR", "SLICES_DIR", "VIEWER_NAME", "VIEW_NAMES", "ZARR_FORMAT",
+           "ZARR_NAME"]

@@ -46,10 +46,11 @@ from slicer.outputs.names import (
     NETCDF_NAME,
     OVERVIEW_NAME,
     SLICES_DIR,
+    ZARR_FORMAT,
     ZARR_NAME,
 )
 from slicer.outputs.viewer import page_slice, page_step
-from slicer.outputs.zarr_store import ZARR_FORMAT, create_cube_store, open_cube_zarr, read_slice
+from slicer.outputs.working_store import open_working_store, stages_in_memory
 
 #: Threads writing whole slice GeoTIFFs from the working store (DEFLATE runs outside the GIL).
 SLICE_THREADS = 4
@@ -170,8 +171,11 @@ class CubeSink:
             out.mkdir(parents=True, exist_ok=True)
             if "tif" in self.formats:
                 self._tiffs = self._slice_writer()
-            self._store = create_cube_store(out / ZARR_NAME, self.template, tile=self.tile,
-                                            zarr_format=self._zarr_format)
+            in_memory = stages_in_memory(int(np.prod(self.shape)), formats=self.formats,
+                                         offload=self._offload is not None)
+            self._store = open_working_store(out / ZARR_NAME, self.template, tile=self.tile,
+                                             zarr_format=self._zarr_format,
+                                             in_memory=in_memory)
         except BaseException:
             self._abort()
             raise
@@ -199,7 +203,7 @@ class CubeSink:
             pool.shutdown(wait=False)
 
     def _write_whole_slices(self) -> None:
-        store, name = self._store.path, self._store.name
+        store = self._store
 
         page = None if self._page_step is None else functools.partial(page_slice,
                                                                         step=self._page_step)
@@ -207,7 +211,7 @@ class CubeSink:
         def one(index: int):
             if self._stop.is_set():
                 return None
-            values = read_slice(store, index, name=name)
+            values = store.read(index)
             self._tiffs.write_slice(index, values)
             return None if page is None else page(values)
 
@@ -305,7 +309,7 @@ class CubeSink:
         out = self.out_dir
         if self._stream:
             self._tiffs.close()
-        first = read_slice(self._store.path, 0, name=self._store.name)
+        first = self._store.read(0)
         self.empty_cells = int(np.isnan(first).sum())
         # The slices and the NetCDF cube are written from the finished store (on other
         # threads, or by worker processes with ``offload``) while this thread draws the
@@ -467,6 +471,7 @@ def write_netcdf_from_store(store: str, target: str) -> None:
     level 4 made a file 1 % smaller and took longer.
     """
     with dask.config.set(scheduler="threads"):
+        from slicer.outputs.zarr_store import open_cube_zarr  # zarr: only where used
         _write_netcdf(open_cube_zarr(store), Path(target), title=None, source=None,
                       history=None, complevel=1)
 

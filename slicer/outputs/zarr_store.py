@@ -54,9 +54,7 @@ from slicer.outputs.cube import (
     prepared_for_writing,
     slice_axis,
 )
-
-#: Zarr format written by default (see the module docstring for why not 3).
-ZARR_FORMAT = 2
+from slicer.outputs.names import ZARR_FORMAT
 
 #: Files that mark a folder as a Zarr store (v2 group, v3 node).
 _STORE_MARKERS = (".zgroup", "zarr.json")
@@ -127,6 +125,10 @@ class CubeStore:
             self._array[:, row0:row0 + h, col0:col0 + w] = values
         except OSError as exc:
             raise OutputError(f"cannot write Zarr chunk ({exc})", where=str(self.target)) from None
+
+    def read(self, index: int) -> np.ndarray:
+        """Slice ``index`` as a float32 ``(ny, nx)`` array (:func:`read_slice`)."""
+        return read_slice(self.path, index, name=self.name)
 
     def finalize(self) -> Path:
         """Move the finished store to its final name, replacing an earlier store there.

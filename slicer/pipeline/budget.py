@@ -80,7 +80,8 @@ class Estimate:
 
 def estimate(*, n_traces: int, max_line_traces: int, n_samples: int, n_slices: int,
              grid_cells: int, tile: int, neighbours: float, workers: int,
-             cube_in_memory: bool) -> Estimate:
+             cube_in_memory: bool, formats: tuple[str, ...] = ("tif", "zarr", "nc")
+             ) -> Estimate:
     """Estimate a build's peak working memory.
 
     Parameters
@@ -97,12 +98,17 @@ def estimate(*, n_traces: int, max_line_traces: int, n_samples: int, n_slices: i
         Tasks running at once.
     cube_in_memory : bool
         Whether the whole cube is assembled in memory (rather than streamed to disk).
+    formats : tuple of str
+        The cube outputs written: a small cube written as GeoTIFFs alone is held in memory
+        while it is gridded (:func:`slicer.outputs.working_store.stages_in_memory`).
     """
     table = n_traces * (TRACE_BYTES + 4 * n_slices)
     lines = workers * max_line_traces * n_samples * LINE_BYTES_PER_SAMPLE
     cells = min(grid_cells, tile * tile)
     tiles = workers * int(cells * (neighbours * WEIGHT_BYTES + 12 * n_slices))
-    cube = 4 * n_slices * grid_cells if cube_in_memory else 0
+    from slicer.outputs.working_store import stages_in_memory
+    staged = stages_in_memory(n_slices * grid_cells, formats=formats, offload=False)
+    cube = 4 * n_slices * grid_cells if cube_in_memory or staged else 0
     # A streamed cube's writer keeps the overview's panels (at most MAX_SHEET_CELLS cells).
     from slicer.outputs.display import MAX_SHEET_CELLS  # no matplotlib: it loads elsewhere
     overview = 0 if cube_in_memory else 4 * min(n_slices * grid_cells, MAX_SHEET_CELLS)

@@ -302,7 +302,7 @@ def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
     est = estimate(n_traces=plan.n_traces, max_line_traces=plan.max_line_traces,
                    n_samples=info.n_samples, n_slices=n_slices, grid_cells=grid.size,
                    tile=TILE, neighbours=4 * along / step, workers=workers,
-                   cube_in_memory=cube_in_memory)
+                   cube_in_memory=cube_in_memory, formats=tuple(settings.formats.split(",")))
     if est.total > limit:
         given = f" ({settings.memory_limit})" if settings.memory_limit is not None else ""
         raise SettingsError(f"this build needs {est.describe()}, more than the memory limit of "

@@ -24,7 +24,6 @@ import xarray as xr
 from slicer.core.errors import InputFileError
 from slicer.outputs.names import FORMATS, RADARGRAMS_DIR, VIEW_NAMES, VIEWER_NAME
 from slicer.outputs.sink import cube_from_slices
-from slicer.outputs.zarr_store import open_cube_zarr
 
 
 def file_names(names: Sequence[str]) -> list[str]:
@@ -164,6 +163,7 @@ def open_result(template: xr.DataArray, files: list[Path]) -> xr.DataArray:
     """
     names = {f.name: f for f in files}
     if FORMATS["zarr"] in names:
+        from slicer.outputs.zarr_store import open_cube_zarr  # zarr: only where written
         return open_cube_zarr(names[FORMATS["zarr"]])
     slices = [f for f in files if f.parent.name == "slices" and f.suffix == ".tif"]
     if slices:

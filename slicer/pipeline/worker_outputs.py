@@ -40,7 +40,6 @@ from slicer.outputs.netcdf_chunks import (
 )
 from slicer.outputs.sink import CubeSink, decimate, save_overview
 from slicer.outputs.viewer import page_slice
-from slicer.outputs.zarr_store import read_slice, write_tile
 from slicer.processing.fk import release_operators
 
 
@@ -59,6 +58,7 @@ def grid_and_store(item: StoredTile) -> tuple[int, int, np.ndarray]:
     row0, col0, block = grid_tile(item.job)
     folder = Path(item.store).parent
     check_room(folder, block.nbytes, where=folder)
+    from slicer.outputs.zarr_store import write_tile  # zarr: imported by the fork server
     write_tile(item.store, row0, col0, block)
     return row0, col0, decimate(block, row0, col0, item.stride)
 
@@ -92,6 +92,7 @@ def write_slice_outputs(job: SliceOutputs) -> tuple[int, str | None,
     (:func:`slicer.outputs.viewer.page_slice`; None without ``job.page_step``), taken here
     where the slice is in memory anyway.
     """
+    from slicer.outputs.zarr_store import read_slice
     values = read_slice(job.store, job.index, name=job.name)
     folder = Path(job.store).parent
     check_room(folder, 2 * values.nbytes, where=folder)

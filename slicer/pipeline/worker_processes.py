@@ -28,7 +28,7 @@ PARENT_CHECK_INTERVAL = 0.5
 #: A worker would otherwise import them at its first task, about 1.4-1.6 s of a core after the
 #: calling process has planned the build; started at once, the imports overlap that work.
 WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
-                "slicer.pipeline.worker_outputs")
+                "slicer.pipeline.worker_outputs", "slicer.outputs.zarr_store")
 
 
 def worker_context() -> multiprocessing.context.BaseContext:

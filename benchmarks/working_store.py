@@ -1,0 +1,99 @@
+"""A build's slice GeoTIFFs written from a cube held in memory against one in a Zarr store.
+
+:class:`slicer.outputs.sink.CubeSink` grids into a working copy of the cube and writes the
+outputs from it at the end. Since 2026-12-03 a cube of at most 64 MiB written as GeoTIFFs
+alone, on threads of one process, is held in memory (:mod:`slicer.outputs.working_store`);
+before, always in a Zarr store in the build folder. This script times the sink both ways on
+the same cubes (24 slices of each ``--sizes`` grid, random values with a no-data corner, tiles
+of 256 cells), alternating, in one process: from entering the sink to its exit (store made,
+tiles written, slice COGs and overview written, store removed). It then times, in fresh
+processes, the import of the sink with and without the Zarr store's module (zarr-python and
+numcodecs), which a build in memory no longer imports.
+
+    python benchmarks/working_store.py [--sizes 400x400,835x835] [--repeat 5]
+"""
+
+from __future__ import annotations
+
+import argparse
+import statistics
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import _common  # noqa: F401 - first: one BLAS thread before numpy loads
+import numpy as np  # noqa: E402
+from _common import _f, _table  # noqa: E402
+
+import slicer.outputs.sink as sink_module  # noqa: E402
+from slicer.outputs.cube import new_cube  # noqa: E402
+from slicer.outputs.geotiff import tile_windows  # noqa: E402
+
+TILE, N_SLICES = 256, 24
+
+
+def make_cube(ny: int, nx: int):
+    rng = np.random.default_rng(1)
+    values = rng.gamma(2.0, 1.0, (N_SLICES, ny, nx)).astype(np.float32)
+    values[:, : ny // 5, : nx // 5] = np.nan
+    tops = 0.1 * np.arange(N_SLICES)
+    return new_cube(values, west=500000.0, north=4650000.0, cell=0.1, crs="EPSG:32633",
+                    top=tops, bottom=tops + 0.1, velocity=0.1)
+
+
+def run(cube, out: Path, *, memory: bool) -> float:
+    """Seconds from entering the sink to leaving it, GeoTIFFs alone."""
+    rule = sink_module.stages_in_memory
+    if not memory:  # the sink as it was: always a store on disk
+        sink_module.stages_in_memory = lambda *a, **k: False
+    try:
+        start = time.perf_counter()
+        with sink_module.CubeSink(out, cube, tile=TILE, progress=False, formats=("tif",)) as s:
+            for row0, col0, h, w in tile_windows(cube.shape, TILE):
+                s.write(row0, col0, cube.values[:, row0:row0 + h, col0:col0 + w])
+        return time.perf_counter() - start
+    finally:
+        sink_module.stages_in_memory = rule
+
+
+def import_seconds(code: str) -> float:
+    probe = f"import time; t = time.perf_counter(); {code}; print(time.perf_counter() - t)"
+    return float(subprocess.run([sys.executable, "-c", probe], check=True,
+                                capture_output=True, text=True).stdout)
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--sizes", default="400x400,835x835")
+    parser.add_argument("--repeat", type=int, default=5)
+    args = parser.parse_args(argv)
+    rows = []
+    with tempfile.TemporaryDirectory() as tmp:
+        for size in args.sizes.split(","):
+            nx, ny = (int(v) for v in size.lower().split("x"))
+            cube = make_cube(ny, nx)
+            run(cube, Path(tmp) / "warm", memory=True)  # fonts, GDAL, zarr's event loop
+            run(cube, Path(tmp) / "warm", memory=False)
+            times = {True: [], False: []}
+            for _ in range(args.repeat):
+                for memory in (False, True):
+                    times[memory].append(run(cube, Path(tmp) / f"out{memory}", memory=memory))
+            disk, memory = statistics.median(times[False]), statistics.median(times[True])
+            rows.append([f"{nx} x {ny}", _f(4 * cube.size / 2**20, 1), _f(disk),
+                         _f(min(times[False])), _f(memory), _f(min(times[True])),
+                         _f(disk / memory)])
+    print(f"{N_SLICES} slices, tiles of {TILE}; seconds, median and minimum of {args.repeat}")
+    print(_table(["grid", "cube MiB", "Zarr store", "min", "memory", "min", "store/memory"],
+                 rows))
+    sink = statistics.median(import_seconds("import slicer.outputs.sink") for _ in range(5))
+    both = statistics.median(import_seconds("import slicer.outputs.sink, "
+                                            "slicer.outputs.zarr_store") for _ in range(5))
+    print(f"imports in a fresh process (median of 5): slicer.outputs.sink {_f(sink)} s, "
+          f"with slicer.outputs.zarr_store {_f(both)} s")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())

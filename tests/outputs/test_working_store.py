@@ -1,0 +1,118 @@
+"""Tests of slicer.outputs.working_store: the cube held in memory or on disk while gridded.
+
+References: the slice GeoTIFFs read back with rasterio against the cube that went in, and the
+same sink writing through its Zarr store on disk.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import rasterio
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+import slicer.outputs.zarr_store as zarr_store
+from slicer.core.errors import OutputError, SettingsError
+from slicer.outputs.cube import new_cube
+from slicer.outputs.geotiff import tile_windows
+from slicer.outputs.sink import CubeSink
+from slicer.outputs.working_store import MEMORY_STAGING_BYTES, MemoryStore, stages_in_memory
+
+
+def make_cube(shape=(3, 70, 90), seed=2):
+    rng = np.random.default_rng(seed)
+    values = rng.random(shape).astype(np.float32)
+    values[:, :10, :7] = np.nan
+    tops = 0.1 * np.arange(shape[0])
+    return new_cube(values, west=500000.0, north=4650000.0, cell=0.1, crs="EPSG:32633",
+                    top=tops, bottom=tops + 0.1, velocity=0.1)
+
+
+def write(cube, out, formats, tile=32):
+    with CubeSink(out, cube, tile=tile, progress=False, formats=formats) as sink:
+        for row0, col0, h, w in tile_windows(cube.shape, tile):
+            sink.write(row0, col0, cube.values[:, row0:row0 + h, col0:col0 + w])
+    return sink.files
+
+
+def slices_of(files):
+    out = []
+    for f in files:
+        if f.suffix == ".tif":
+            with rasterio.open(f) as src:
+                out.append(src.read(1))
+    return np.stack(out)
+
+
+def test_geotiffs_alone_are_written_from_memory_with_the_values_that_went_in(tmp_path,
+                                                                             monkeypatch):
+    cube = make_cube()
+
+    def no_store(*args, **kwargs):
+        raise AssertionError("a Zarr store was made for GeoTIFFs alone")
+
+    monkeypatch.setattr(zarr_store, "create_cube_store", no_store)
+    files = write(cube, tmp_path / "out", ("tif",))
+    # Reference: rasterio reads each slice back; NaN where no value went in
+    np.testing.assert_array_equal(slices_of(files), cube.values)
+    assert not any(p.name.startswith(".cube.zarr") or p.name == "cube.zarr"
+                   for p in (tmp_path / "out").rglob("*"))
+
+
+def test_memory_and_disk_give_the_same_geotiffs(tmp_path):
+    cube = make_cube(seed=5)
+    in_memory = slices_of(write(cube, tmp_path / "a", ("tif",)))
+    on_disk = slices_of(write(cube, tmp_path / "b", ("tif", "zarr")))
+    np.testing.assert_array_equal(in_memory, on_disk)
+
+
+def test_the_zarr_and_netcdf_cubes_still_come_from_a_store_on_disk(tmp_path, monkeypatch):
+    made = []
+    create = zarr_store.create_cube_store
+
+    def spy(*args, **kwargs):
+        made.append(args[0])
+        return create(*args, **kwargs)
+
+    monkeypatch.setattr(zarr_store, "create_cube_store", spy)
+    write(make_cube(), tmp_path / "out", ("tif", "nc"))
+    assert len(made) == 1
+
+
+def test_the_rule_and_its_limit():
+    fits = MEMORY_STAGING_BYTES // 4
+    assert stages_in_memory(fits, formats=("tif",), offload=False)
+    assert not stages_in_memory(fits + 1, formats=("tif",), offload=False)
+    assert not stages_in_memory(10, formats=("tif",), offload=True)  # workers read a file
+    for formats in (("tif", "zarr"), ("tif", "nc"), ("nc",), ("zarr",)):
+        assert not stages_in_memory(10, formats=formats, offload=False)
+
+
+def test_a_memory_store_refuses_tiles_off_the_grid_and_work_after_discard():
+    store = MemoryStore((2, 20, 30), "envelope")
+    with pytest.raises(SettingsError):
+        store.write_tile(10, 25, np.zeros((2, 16, 16), dtype=np.float32))
+    with pytest.raises(OutputError):
+        store.finalize()
+    store.discard()
+    with pytest.raises(OutputError):
+        store.read(0)
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.integers(1, 3), st.integers(1, 40), st.integers(1, 40), st.integers(1, 17),
+       st.data())
+def test_tiles_written_anywhere_read_back_as_written(n, ny, nx, size, data):
+    rng = np.random.default_rng(0)
+    store = MemoryStore((n, ny, nx), "envelope")
+    expected = np.full((n, ny, nx), np.nan, dtype=np.float32)
+    for _ in range(data.draw(st.integers(1, 4))):
+        r = data.draw(st.integers(0, ny - 1))
+        c = data.draw(st.integers(0, nx - 1))
+        h, w = min(size, ny - r), min(size, nx - c)
+        block = rng.random((n, h, w)).astype(np.float32)
+        store.write_tile(r, c, block)
+        expected[:, r:r + h, c:c + w] = block
+    for i in range(n):
+        np.testing.assert_array_equal(store.read(i), expected[i])
