@@ -8,7 +8,9 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import importlib
 import math
+import threading
 import time
 import warnings
 from dataclasses import dataclass, field
@@ -385,6 +387,8 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         from slicer.pipeline.worker_outputs import WorkerSink
         stack.enter_context(folder)
         painter = stack.enter_context(RadargramPainter(folder.path))  # lines drawn on a thread
+        if engine.offloader() is not None:  # the workers' store: see _import_aside
+            _import_aside("distributed")
         warnings.simplefilter("always", SlicerWarning)
         r = _reduce(settings, engine, progress=progress, cube_in_memory=False,
                     on_image=painter.add)
@@ -441,6 +445,17 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         warnings.warn(message, SlicerWarning, stacklevel=2)
     return BuildResult(cube=open_result(template, files), record=r.record, files=files,
                        warnings=warned)
+
+
+def _import_aside(module: str) -> None:
+    """Import ``module`` on a daemon thread, if it is installed. The Zarr store the workers
+    grid into is created after the line tasks; dask's graph code imports dask.distributed
+    there (0.4 s, benchmarks/README.md), while the workers wait. Imported while they run the
+    line tasks, where this process has little to do, it is ready by then."""
+    def run() -> None:
+        with contextlib.suppress(ImportError):
+            importlib.import_module(module)
+    threading.Thread(target=run, name=f"slicer-import-{module}", daemon=True).start()
 
 
 def input_files(settings: BuildSettings) -> list[Path]:

@@ -333,3 +333,19 @@ def test_migration_sharpens_point_targets(small_survey):
 def test_migration_needs_a_velocity(small_survey):
     with pytest.raises(slicer.SettingsError, match="--migrate"):
         slicer.load_settings(small_survey.line_table, times="0:40:5", migrate="stolt")
+
+
+def test_a_module_imported_aside_that_is_not_installed_stops_nothing(monkeypatch):
+    # the build imports dask.distributed on a thread while the workers read lines; where it
+    # is not installed, that thread must end quietly (an exception there would reach
+    # threading.excepthook)
+    import threading
+
+    from slicer.pipeline.build import _import_aside
+    raised = []
+    monkeypatch.setattr(threading, "excepthook", lambda args: raised.append(args.exc_type))
+    _import_aside("slicer_no_such_module")
+    for thread in threading.enumerate():
+        if thread.name == "slicer-import-slicer_no_such_module":
+            thread.join(10)
+    assert raised == []
