@@ -2,15 +2,16 @@
 
 A cube larger than memory is produced one tile (a block of rows x columns of the grid, every
 slice) at a time. :class:`CubeSink` puts each tile into a Zarr store kept under a temporary
-name, its working store. Once every tile is in, the slice GeoTIFFs are written whole from the
-store, slice by slice on a few threads (the default; with ``stream_slices`` they are filled
-tile by tile as the tiles arrive and made COGs at the end), and the CF NetCDF cube, if asked
-for, is written from the store too (on a thread of this process, or by a worker process), while
-the overview sheet is drawn from decimated panels kept as the tiles went by. Only then is every
-file moved to its final name; the working store becomes ``cube.zarr`` if the Zarr cube was
-asked for and is deleted otherwise. If anything fails on the way, every temporary file is
-removed and the final names are left as they were, so a folder never holds a half-written
-output.
+name, its working store (a small cube written as GeoTIFFs alone is held in memory instead:
+:mod:`slicer.outputs.working_store`). Once every tile is in, the slice GeoTIFFs are written
+whole from the store, slice by slice on a few threads (the default; with ``stream_slices``
+they are filled tile by tile as the tiles arrive and made COGs at the end), and the CF NetCDF
+cube, if asked for, is written from the store too (on a thread of this process, or by a worker
+process), while the overview sheet is drawn from decimated panels kept as the tiles went by
+(with NumPy and Pillow, :func:`save_overview`). Only then is every file moved to its final
+name; the working store becomes ``cube.zarr`` if the Zarr cube was asked for and is deleted
+otherwise. If anything fails on the way, every temporary file is removed and the final names
+are left as they were, so a folder never holds a half-written output.
 
 Layout of ``out_dir`` (``formats`` chooses the first three)::
 

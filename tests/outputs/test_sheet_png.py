@@ -148,3 +148,44 @@ def test_panel_indices_are_the_nearest_colour_sample_and_nodata_for_nan(values, 
     level = got[~nan].astype(int) - (256 - PANEL_COLOURS - 1)
     assert np.all((level >= 0) & (level <= PANEL_COLOURS - 1))
     assert np.all(np.abs(level - x) <= 0.5 + 1e-3 * (PANEL_COLOURS - 1))
+
+
+def hostile_cube(kind: str):
+    rng = np.random.default_rng(11)
+    n, ny, nx = {"thin": (3, 1, 200), "tall": (2, 300, 1), "one cell": (1, 1, 1),
+                 "all nan": (4, 30, 40), "many": (30, 12, 16), "signed": (3, 40, 30),
+                 "constant": (2, 20, 20), "huge values": (2, 25, 25)}[kind]
+    data = rng.normal(size=(n, ny, nx)).astype(np.float32)
+    name = "envelope"
+    if kind == "all nan":
+        data[:] = np.nan
+    elif kind == "constant":
+        data[:] = 3.0
+    elif kind == "huge values":
+        data *= np.float32(1e30)
+    elif kind == "signed":
+        name = "signed_envelope"
+    else:
+        data = np.abs(data)
+    tops = 0.1 * np.arange(n)
+    return new_cube(data, west=WEST, north=NORTH, cell=CELL, crs="EPSG:32633", top=tops,
+                    bottom=tops + 0.1, name=name, velocity=0.1)
+
+
+@pytest.mark.parametrize("kind", ["thin", "tall", "one cell", "all nan", "many", "signed",
+                                  "constant", "huge values"])
+def test_hostile_cubes_give_pages_of_the_matplotlib_sheets_size(kind):
+    # Reference: matplotlib's figure of the same page, its size in pixels
+    cube = hostile_cube(kind)
+    for plan, kwargs, ncols, nrows, start, stop, png in pages_of(cube, dpi=60, per_page=12):
+        image = Image.open(io.BytesIO(png))
+        image.load()  # a whole, readable PNG
+        figure = draw_sheet(plan.drawn[start:stop], **kwargs, ncols=ncols, nrows=nrows)
+        w, h = figure.get_size_inches() * figure.dpi
+        assert image.size == (round(w), round(h))
+        if kind == "all nan":  # every panel shows the no-data colour only
+            lay = sheet_layout(nrows, ncols, plan.frame, plan.dpi, per_slice=False)
+            c0, r0 = lay.box(0)
+            inside = rgb(png)[r0 + 3:r0 + lay.ph - 3, c0 + lay.pw // 2]
+            grey = np.rint(np.array(to_rgb(NODATA_COLOUR)) * 255)
+            assert np.all(inside == grey)
