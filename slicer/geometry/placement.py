@@ -19,17 +19,29 @@ def place_line(line: xr.DataArray, entry: LineEntry) -> xr.DataArray:
 
     Adds per-trace coordinates ``x``, ``y`` (m, survey CRS) and ``distance`` (m from start).
     """
-    n = line.sizes[TRACE]
+    x, y, distance = even_positions(entry, line.sizes[TRACE])
+    return line.assign_coords({
+        X: (TRACE, x, {"units": "m", "long_name": "easting"}),
+        Y: (TRACE, y, {"units": "m", "long_name": "northing"}),
+        DISTANCE: (TRACE, distance, {"units": "m", "long_name": "distance along line"}),
+    })
+
+
+def even_positions(entry: LineEntry, n: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``x``, ``y`` and ``distance`` (m) of ``n`` traces spaced evenly from the entry's start
+    to its end: what :func:`place_line` gives them.
+
+    Raises
+    ------
+    InputFileError
+        Fewer than two traces.
+    """
     if n < 2:
         raise InputFileError(f"a line needs at least two traces, found {n}",
                              where=str(entry.file))
     frac = np.arange(n) / (n - 1)
     (sx, sy), (ex, ey) = entry.start, entry.end
-    return line.assign_coords({
-        X: (TRACE, sx + frac * (ex - sx), {"units": "m", "long_name": "easting"}),
-        Y: (TRACE, sy + frac * (ey - sy), {"units": "m", "long_name": "northing"}),
-        DISTANCE: (TRACE, frac * entry.length, {"units": "m", "long_name": "distance along line"}),
-    })
+    return sx + frac * (ex - sx), sy + frac * (ey - sy), frac * entry.length
 
 
 def ends_from_headers(entries: Sequence[LineEntry]) -> list[LineEntry]:

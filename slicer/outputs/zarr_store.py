@@ -221,10 +221,12 @@ def create_cube_store(path: str | os.PathLike, template: xr.DataArray, *, tile: 
         name = str(data.name)
         n_slices, ny, nx = data.shape
         chunks = (1, min(tile, ny), min(tile, nx))
-        # A lazy NaN array of the right chunks: to_zarr(compute=False) then writes the
-        # metadata and coordinates but no data chunk.
+        # A lazy NaN array: to_zarr(compute=False) then writes the metadata and coordinates
+        # but no data chunk. One dask chunk (the store's chunks come from the encoding): dask
+        # built a graph of every tile for nothing, 0.11-0.19 s against 0.06-0.08 s for a
+        # 24 x 2000 x 2000 cube, the same files written.
         data = data.copy(data=darray.full(data.shape, np.nan, dtype=np.float32,
-                                          chunks=chunks))
+                                          chunks=data.shape))
         ds = data.to_dataset()
         bnds = add_axis_bounds(ds, slice_axis(template))
         ds.attrs = global_attrs(template)

@@ -20,6 +20,7 @@ import xarray as xr
 
 from slicer.core.conventions import TRACE, TWT, X, Y
 from slicer.core.errors import InputFileError, SettingsError, SlicerWarning
+from slicer.geometry.placement import even_positions
 from slicer.geometry.positioning import positioned, source_of, track_crs
 from slicer.io.linetable import LineEntry
 from slicer.io.reading import header_positions
@@ -168,6 +169,11 @@ def trace_positions(entry: LineEntry, settings, n_traces: int) -> tuple[np.ndarr
 
     ``n_traces`` counts the entry's own traces (its channel's, for a swath).
     """
+    if source_of(entry, settings) == "table" and entry.marks is None and entry.channel is None:
+        # placed from its table row alone: place_line's own arithmetic, without a stub line
+        # (xarray's coordinates took 0.45 s of a 1 M-trace survey's 316 lines)
+        x, y, _ = even_positions(entry, n_traces)
+        return x, y
     placed = placed_stub(entry, settings, n_traces)
     return (np.asarray(placed[X].values, dtype=np.float64),
             np.asarray(placed[Y].values, dtype=np.float64))
