@@ -24,6 +24,7 @@ from slicer.processing.background import (
     parse_background,
     window_samples,
 )
+from slicer.processing.hilbert import envelope_core as _envelope_core
 
 
 def _per_trace(core, line: xr.DataArray, step: str, **kwargs) -> xr.DataArray:
@@ -369,30 +370,6 @@ def apply_gain(line: xr.DataArray, *, kind: str = "power", value: float = 1.0) -
 
 
 # ------------------------------------------------------------------------------------- envelope
-
-def _envelope_core(samples: np.ndarray) -> np.ndarray:
-    n = samples.shape[-1]
-    x = samples.astype(np.float32, copy=False)
-    # Zero-pad to at least twice the length: the FFT makes the trace periodic, and without
-    # padding the end of the record leaks into its start.
-    nfft = scipy.fft.next_fast_len(2 * n, real=False)
-    # The analytic signal x + i H[x] as scipy.signal.hilbert forms it (positive frequencies
-    # doubled, negative ones zeroed) has real part x, so only H[x] is computed: a real
-    # transform each way, -i for the positive frequencies, 0 for the DC term and (even
-    # length) the Nyquist term. Single precision: float32 samples need no more, and this is
-    # the largest step of a build.
-    spectrum = scipy.fft.rfft(x, n=nfft, axis=-1)
-    spectrum[..., 0] = 0
-    if nfft % 2 == 0:
-        spectrum[..., -1] = 0
-    spectrum *= np.complex64(-1j)
-    hilbert = scipy.fft.irfft(spectrum, n=nfft, axis=-1, overwrite_x=True)[..., :n]
-    # sqrt(x^2 + H^2) rather than np.hypot, which guards against overflow at three times
-    # the cost; float32 squares overflow only beyond 1.8e19, far above any recorded amplitude
-    out = np.square(x, dtype=np.float32)
-    out += np.square(hilbert, dtype=np.float32)
-    return np.sqrt(out, out=out)
-
 
 def envelope(line: xr.DataArray) -> xr.DataArray:
     """Amplitude envelope: magnitude of the analytic signal along ``twt``.
