@@ -7,7 +7,10 @@ spectrum stays in the processor's cache. This script times both on lines of synt
 traces (``--traces`` traces of 512 samples: a Ricker-like wavelet train in noise, made here)
 and several block sizes, in CPU seconds of this process (best of ``--repeat``), and checks that
 every way gives the same envelope as ``scipy.signal.hilbert`` (largest difference relative to
-the line's peak, float32 rounding). With ``--pair`` the timing runs in two processes at once,
+the line's peak, float32 rounding). A second table times the rest of the line chain before
+migration, dewow and the fitted (``"scaled"``) background removal
+(:func:`slicer.processing.steps._chain_core`), whole and by the default blocks, and checks that
+both give the same values. With ``--pair`` the timing runs in two processes at once,
 as a build's two workers do.
 
     python benchmarks/envelope_blocks.py [--traces 800,2000,3165] [--repeat 11] [--pair]
@@ -85,6 +88,29 @@ def run(n: int, repeat: int) -> list[str]:
             _f(times["whole"] / times["default"], 2), f"{worst / peak:.1e}"]
 
 
+def chain_row(n: int, repeat: int) -> list[str]:
+    """Dewow and the fitted background of a line: whole against the default blocks."""
+    from slicer.processing.steps import _chain_core
+    line = make_line(n)
+    kwargs = dict(size=39, background={"method": "scaled", "window": None}, factor=None,
+                  take_envelope=False)
+    out = {}
+    for name, block_bytes in (("whole", 1 << 40), ("blocks", hilbert.BLOCK_BYTES)):
+        saved, hilbert.BLOCK_BYTES = hilbert.BLOCK_BYTES, block_bytes
+        try:
+            best = np.inf
+            for _ in range(repeat):
+                start = time.process_time()
+                values = _chain_core(line, **kwargs)
+                best = min(best, time.process_time() - start)
+        finally:
+            hilbert.BLOCK_BYTES = saved
+        out[name] = (best, values)
+    same = np.array_equal(out["whole"][1], out["blocks"][1])
+    return [str(n), _f(1000 * out["whole"][0]), _f(1000 * out["blocks"][0]),
+            _f(out["whole"][0] / out["blocks"][0], 2), "yes" if same else "NO"]
+
+
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--traces", default="800,2000,3165")
@@ -104,6 +130,10 @@ def main(argv=None) -> int:
           + (", two processes at once (a row each)" if args.pair else ""))
     print(_table(["traces", "whole", *(f"blocks of {b}" for b in BLOCKS), "default block: ms",
                   "whole/default", "largest difference / peak"], rows))
+    print("dewow (39 samples) and the fitted background, ms of CPU (best of "
+          f"{args.repeat})")
+    print(_table(["traces", "whole", "blocks", "whole/blocks", "same values"],
+                 [chain_row(n, args.repeat) for n in sizes]))
     return 0
 
 

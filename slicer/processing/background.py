@@ -150,12 +150,17 @@ def median_trace(samples: np.ndarray) -> np.ndarray:
     return median
 
 
+def estimate_rows(n: int) -> slice:
+    """The traces (of ``n``) a median background is taken over: every k-th, k = n //
+    :data:`MEDIAN_TRACES`, starting with the first; all of a line of fewer than twice that."""
+    return slice(None, None, max(1, n // MEDIAN_TRACES))
+
+
 def background_median(samples: np.ndarray) -> np.ndarray:
     """The median trace a background removal subtracts: :func:`median_trace` of every k-th
     trace (axis -2), k = n // :data:`MEDIAN_TRACES`, starting with the first; all traces of a
     line of fewer than twice that many."""
-    step = max(1, samples.shape[-2] // MEDIAN_TRACES)
-    return median_trace(samples[..., ::step, :])
+    return median_trace(samples[..., estimate_rows(samples.shape[-2]), :])
 
 
 def _period_samples(background: np.ndarray) -> float:
@@ -187,6 +192,60 @@ def _taper(n: int, window: tuple[int, int], ramp: int) -> np.ndarray:
     return w
 
 
+@dataclass(frozen=True)
+class Removal:
+    """A line's background, ready to be taken off any block of its traces (:func:`remove`).
+
+    ``background`` is the trace subtracted (``(..., 1, twt)``, tapered to its window); for
+    ``"scaled"``, ``denominator`` is the sliding ``sum(b b)`` (plus its floor) and ``size`` the
+    fit's window (samples).
+    """
+
+    method: str
+    background: np.ndarray
+    denominator: np.ndarray | None = None
+    size: int = 0
+
+
+def removal_of(taken: np.ndarray, *, method: str, window: tuple[int, int] | None = None
+               ) -> Removal:
+    """The :class:`Removal` of a line from ``taken``, the traces it is estimated over: every
+    trace for ``"mean"``, the traces :func:`estimate_rows` picks for ``"median"`` and
+    ``"scaled"`` (``(..., trace, twt)``, dewowed as the traces it is taken off)."""
+    if method == "mean":  # accumulated in double: thousands of traces per line
+        background = taken.mean(axis=-2, dtype=np.float64).astype(np.float32)
+    else:
+        background = median_trace(taken)
+    period = None
+    if window is not None:
+        period = _period_samples(background)
+        background = background * _taper(taken.shape[-1], window, int(period / 2))
+    b = background[..., None, :].astype(np.float32)
+    if method != "scaled":
+        return Removal(method, b)
+    period = period or _period_samples(background)
+    size = max(3, int(round(FIT_PERIODS * period)) | 1)
+    bb = scipy.ndimage.uniform_filter1d(b * b, size, axis=-1, mode="nearest")
+    floor = np.float32(1e-6) * np.nanmax(bb, axis=-1, keepdims=True) + np.float32(1e-30)
+    return Removal(method, b, bb + floor, size)
+
+
+def remove(samples: np.ndarray, removal: Removal) -> np.ndarray:
+    """``samples`` (``(..., trace, twt)``, any of the line's traces) minus their background,
+    float32."""
+    b = removal.background
+    if removal.method != "scaled":
+        return np.subtract(samples, b, dtype=np.float32)
+    # a = <x b> / <b b> over a sliding window; the floor keeps `a` quiet where b is silent
+    xb = scipy.ndimage.uniform_filter1d(samples * b, removal.size, axis=-1, mode="nearest")
+    # in place on xb (float32, as the samples): the scale, then the fitted background
+    scale = xb.astype(np.float32, copy=False)
+    scale /= removal.denominator
+    np.clip(scale, 0.0, MAX_SCALE, out=scale)
+    scale *= b
+    return np.subtract(samples, scale, dtype=np.float32)
+
+
 def background_core(samples: np.ndarray, *, method: str,
                     window: tuple[int, int] | None = None) -> np.ndarray:
     """Samples ``(..., trace, twt)`` minus their background, float32.
@@ -194,29 +253,8 @@ def background_core(samples: np.ndarray, *, method: str,
     ``method`` is one of :data:`METHODS`; ``window`` limits the removal to samples
     ``[top, bottom)`` (indices along twt), tapered inside each end.
     """
-    if method == "mean":  # accumulated in double: thousands of traces per line
-        background = samples.mean(axis=-2, dtype=np.float64).astype(np.float32)
-    else:
-        background = background_median(samples)
-    period = None
-    if window is not None:
-        period = _period_samples(background)
-        background = background * _taper(samples.shape[-1], window, int(period / 2))
-    if method != "scaled":
-        return np.subtract(samples, background[..., None, :], dtype=np.float32)
-    period = period or _period_samples(background)
-    size = max(3, int(round(FIT_PERIODS * period)) | 1)
-    b = background[..., None, :].astype(np.float32)
-    # a = <x b> / <b b> over a sliding window; the floor keeps `a` quiet where b is silent
-    xb = scipy.ndimage.uniform_filter1d(samples * b, size, axis=-1, mode="nearest")
-    bb = scipy.ndimage.uniform_filter1d(b * b, size, axis=-1, mode="nearest")
-    floor = np.float32(1e-6) * np.nanmax(bb, axis=-1, keepdims=True) + np.float32(1e-30)
-    # in place on xb (float32, as the samples): the scale, then the fitted background
-    scale = xb.astype(np.float32, copy=False)
-    scale /= bb + floor
-    np.clip(scale, 0.0, MAX_SCALE, out=scale)
-    scale *= b
-    return np.subtract(samples, scale, dtype=np.float32)
+    taken = samples if method == "mean" else samples[..., estimate_rows(samples.shape[-2]), :]
+    return remove(samples, removal_of(taken, method=method, window=window))
 
 
 def window_samples(window: tuple[float, float] | None, *, dt: float, twt0: float
@@ -228,5 +266,6 @@ def window_samples(window: tuple[float, float] | None, *, dt: float, twt0: float
             int(math.floor((window[1] - twt0) / dt + 0.5)) + 1)
 
 
-__all__ = ["Background", "MEDIAN_TRACES", "METHODS", "background_core", "background_median",
-           "median_trace", "parse_background", "window_samples"]
+__all__ = ["Background", "MEDIAN_TRACES", "METHODS", "Removal", "background_core",
+           "background_median", "estimate_rows", "median_trace", "parse_background", "remove",
+           "removal_of", "window_samples"]

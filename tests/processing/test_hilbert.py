@@ -56,3 +56,41 @@ def test_a_block_holds_about_the_set_bytes_of_spectrum(samples):
     k = hilbert.block_traces(samples)
     assert k >= 1 and k * per_trace <= max(hilbert.BLOCK_BYTES, per_trace)
     assert (k + 1) * per_trace > hilbert.BLOCK_BYTES
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.integers(1, 30), st.sampled_from(["scaled", "median", "mean", None]),
+       st.booleans(), st.booleans(), st.booleans(), st.integers(1, 7), st.integers(0, 1))
+def test_the_chain_by_blocks_equals_the_steps_one_after_another(traces, method, windowed,
+                                                               dewow, envelope, block,
+                                                               leading):
+    # Reference: the single steps' cores applied in turn to the whole line (each tested
+    # against its own reference in test_steps.py), whatever the blocks cut the line into
+    from slicer.processing.background import background_core
+    from slicer.processing.steps import _chain_core, _dewow_core, gain_curve
+    rng = np.random.default_rng(traces)
+    x = rng.normal(size=(2,) * leading + (traces, 64)).astype(np.float32)
+    x += np.sin(np.arange(64) / 3.0).astype(np.float32)  # a background on every trace
+    twt = np.arange(64) * 0.1
+    background = None if method is None else {"method": method,
+                                              "window": (5, 40) if windowed else None}
+    factor = gain_curve(twt, kind="power", value=1.0)
+    expected = x
+    if dewow:
+        expected = _dewow_core(expected, size=7)
+    if background is not None:
+        expected = background_core(expected, **background)
+    expected = (expected * factor).astype(np.float32)
+    if envelope:
+        expected = hilbert.envelope_core(expected)
+    nfft = scipy.fft.next_fast_len(128, real=False)
+    saved = hilbert.BLOCK_BYTES
+    hilbert.BLOCK_BYTES = block * 8 * (nfft // 2 + 1)
+    try:
+        got = _chain_core(x, size=7 if dewow else None, background=background, factor=factor,
+                          take_envelope=envelope)
+    finally:
+        hilbert.BLOCK_BYTES = saved
+    # the same arithmetic on every sample; FFTs batched differently may round differently
+    peak = float(np.abs(expected).max())
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-6 * peak)
