@@ -105,3 +105,26 @@ def test_memory_mapped_segy_reads_what_segyio_reads_plainly(files):
     line = read_line(files["segy"])
     np.testing.assert_array_equal(line.values, plain)
     np.testing.assert_array_equal(line["header_x"].values, xs)  # scalar -100: centimetres
+
+
+@pytest.mark.parametrize(("content", "digest"), [
+    # FIPS 180-4 / its examples document (NIST): SHA-256 of "abc"
+    (b"abc", "ba7816bf8f01cfea414140de5dae2223b00361a396177a9cb410ff61f20015ad"),
+    # SHA-256 of the empty message (NIST's published value, quoted from memory)
+    (b"", "e3b0c44298fc1c149afbf4c8996fb92427ae41e4649b934ca495991b7852b855"),
+])
+def test_describe_file_gives_the_published_sha256(tmp_path, content, digest):
+    from slicer.io.reading import describe_file
+    path = tmp_path / "input.sgy"
+    path.write_bytes(content)
+    assert describe_file(path) == {"file": str(path), "bytes": len(content), "sha256": digest}
+
+
+def test_describe_file_of_a_large_file_is_that_of_its_bytes(tmp_path):
+    import hashlib
+
+    from slicer.io.reading import describe_file
+    data = np.random.default_rng(1).bytes(3 * 2**20 + 17)  # more than one read block
+    path = tmp_path / "big.sgy"
+    path.write_bytes(data)
+    assert describe_file(path)["sha256"] == hashlib.sha256(data).hexdigest()
