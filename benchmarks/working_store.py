@@ -1,14 +1,15 @@
-"""A build's slice GeoTIFFs written from a cube held in memory against one in a Zarr store.
+"""A build's slice GeoTIFFs written from a cube held in memory, in a raw file or in a Zarr store.
 
 :class:`slicer.outputs.sink.CubeSink` grids into a working copy of the cube and writes the
 outputs from it at the end. Since 2026-12-03 a cube of at most 64 MiB written as GeoTIFFs
-alone, on threads of one process, is held in memory (:mod:`slicer.outputs.working_store`);
-before, always in a Zarr store in the build folder. This script times the sink both ways on
-the same cubes (24 slices of each ``--sizes`` grid, random values with a no-data corner, tiles
-of 256 cells), alternating, in one process: from entering the sink to its exit (store made,
-tiles written, slice COGs and overview written, store removed). It then times, in fresh
+alone, on threads of one process, is held in memory, and a build on worker processes that
+writes the GeoTIFFs alone holds it in a raw float32 file (:mod:`slicer.outputs.working_store`);
+before, always in a Zarr store in the build folder. This script times the sink all three ways
+on the same cubes (24 slices of each ``--sizes`` grid, random values with a no-data corner,
+tiles of 256 cells), alternating, in one process: from entering the sink to its exit (store
+made, tiles written, slice COGs and overview written, store removed). It then times, in fresh
 processes, the import of the sink with and without the Zarr store's module (zarr-python and
-numcodecs), which a build in memory no longer imports.
+numcodecs), which a build without a Zarr store no longer imports.
 
     python benchmarks/working_store.py [--sizes 400x400,835x835] [--repeat 5]
 """
@@ -43,11 +44,11 @@ def make_cube(ny: int, nx: int):
                     top=tops, bottom=tops + 0.1, velocity=0.1)
 
 
-def run(cube, out: Path, *, memory: bool) -> float:
-    """Seconds from entering the sink to leaving it, GeoTIFFs alone."""
-    rule = sink_module.stages_in_memory
-    if not memory:  # the sink as it was: always a store on disk
-        sink_module.stages_in_memory = lambda *a, **k: False
+def run(cube, out: Path, *, kind: str) -> float:
+    """Seconds from entering the sink to leaving it, GeoTIFFs alone, the cube held as
+    ``kind`` says (``"zarr"``: the sink as it was)."""
+    rule = sink_module.working_kind
+    sink_module.working_kind = lambda *a, **k: kind
     try:
         start = time.perf_counter()
         with sink_module.CubeSink(out, cube, tile=TILE, progress=False, formats=("tif",)) as s:
@@ -55,7 +56,7 @@ def run(cube, out: Path, *, memory: bool) -> float:
                 s.write(row0, col0, cube.values[:, row0:row0 + h, col0:col0 + w])
         return time.perf_counter() - start
     finally:
-        sink_module.stages_in_memory = rule
+        sink_module.working_kind = rule
 
 
 def import_seconds(code: str) -> float:
@@ -74,19 +75,21 @@ def main(argv=None) -> int:
         for size in args.sizes.split(","):
             nx, ny = (int(v) for v in size.lower().split("x"))
             cube = make_cube(ny, nx)
-            run(cube, Path(tmp) / "warm", memory=True)  # fonts, GDAL, zarr's event loop
-            run(cube, Path(tmp) / "warm", memory=False)
-            times = {True: [], False: []}
+            kinds = ("zarr", "file", "memory")
+            for kind in kinds:  # warm-up: fonts, GDAL, zarr's event loop
+                run(cube, Path(tmp) / "warm", kind=kind)
+            times = {kind: [] for kind in kinds}
             for _ in range(args.repeat):
-                for memory in (False, True):
-                    times[memory].append(run(cube, Path(tmp) / f"out{memory}", memory=memory))
-            disk, memory = statistics.median(times[False]), statistics.median(times[True])
-            rows.append([f"{nx} x {ny}", _f(4 * cube.size / 2**20, 1), _f(disk),
-                         _f(min(times[False])), _f(memory), _f(min(times[True])),
-                         _f(disk / memory)])
-    print(f"{N_SLICES} slices, tiles of {TILE}; seconds, median and minimum of {args.repeat}")
-    print(_table(["grid", "cube MiB", "Zarr store", "min", "memory", "min", "store/memory"],
-                 rows))
+                for kind in kinds:
+                    times[kind].append(run(cube, Path(tmp) / f"out_{kind}", kind=kind))
+            median = {kind: statistics.median(t) for kind, t in times.items()}
+            rows.append([f"{nx} x {ny}", _f(4 * cube.size / 2**20, 1),
+                         *(f"{_f(median[k])} ({_f(min(times[k]))})" for k in kinds),
+                         _f(median["zarr"] / median["file"]),
+                         _f(median["zarr"] / median["memory"])])
+    print(f"{N_SLICES} slices, tiles of {TILE}; seconds, median (minimum) of {args.repeat}")
+    print(_table(["grid", "cube MiB", "Zarr store", "raw file", "memory", "Zarr/file",
+                  "Zarr/memory"], rows))
     sink = statistics.median(import_seconds("import slicer.outputs.sink") for _ in range(5))
     both = statistics.median(import_seconds("import slicer.outputs.sink, "
                                             "slicer.outputs.zarr_store") for _ in range(5))

@@ -51,7 +51,7 @@ from slicer.outputs.names import (
     ZARR_NAME,
 )
 from slicer.outputs.viewer import page_slice, page_step
-from slicer.outputs.working_store import open_working_store, stages_in_memory
+from slicer.outputs.working_store import open_working_store, working_kind
 
 #: Threads writing whole slice GeoTIFFs from the working store (DEFLATE runs outside the GIL).
 SLICE_THREADS = 4
@@ -172,11 +172,10 @@ class CubeSink:
             out.mkdir(parents=True, exist_ok=True)
             if "tif" in self.formats:
                 self._tiffs = self._slice_writer()
-            in_memory = stages_in_memory(int(np.prod(self.shape)), formats=self.formats,
-                                         offload=self._offload is not None)
+            kind = working_kind(int(np.prod(self.shape)), formats=self.formats,
+                                offload=self._offload is not None)
             self._store = open_working_store(out / ZARR_NAME, self.template, tile=self.tile,
-                                             zarr_format=self._zarr_format,
-                                             in_memory=in_memory)
+                                             zarr_format=self._zarr_format, kind=kind)
         except BaseException:
             self._abort()
             raise

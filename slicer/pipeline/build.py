@@ -388,8 +388,8 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         from slicer.pipeline.worker_outputs import WorkerSink
         stack.enter_context(folder)
         painter = stack.enter_context(RadargramPainter(folder.path))  # lines drawn on a thread
-        if engine.offloader() is not None:  # the workers' store: see _import_aside
-            _import_aside("distributed")
+        if engine.offloader() is not None and {"zarr", "nc"} & set(formats):
+            _import_aside("distributed")  # for the workers' Zarr store: see _import_aside
         warnings.simplefilter("always", SlicerWarning)
         r = _reduce(settings, engine, progress=progress, cube_in_memory=False,
                     on_image=painter.add)
@@ -450,9 +450,10 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
 
 def _import_aside(module: str) -> None:
     """Import ``module`` on a daemon thread, if it is installed. The Zarr store the workers
-    grid into is created after the line tasks; dask's graph code imports dask.distributed
-    there (0.4 s, benchmarks/README.md), while the workers wait. Imported while they run the
-    line tasks, where this process has little to do, it is ready by then."""
+    grid into (when ``cube.zarr`` or ``cube.nc`` is asked for) is created after the line
+    tasks; dask's graph code imports dask.distributed there (0.4 s, benchmarks/README.md),
+    while the workers wait. Imported while they run the line tasks, where this process has
+    little to do, it is ready by then."""
     def run() -> None:
         with contextlib.suppress(ImportError):
             importlib.import_module(module)

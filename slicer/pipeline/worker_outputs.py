@@ -30,7 +30,7 @@ import numpy as np
 
 from slicer.core.atomic import GuardedFile, check_room, temp_file
 from slicer.gridding.grid import TileJob, grid_tile
-from slicer.outputs.geotiff import SliceFileJob, SliceTiffWriter, write_slice_file
+from slicer.outputs.geotiff import SliceFileJob, SliceTiffWriter, tile_windows, write_slice_file
 from slicer.outputs.names import NETCDF_NAME, SLICES_DIR
 from slicer.outputs.netcdf_chunks import (
     ChunkLayout,
@@ -40,6 +40,7 @@ from slicer.outputs.netcdf_chunks import (
 )
 from slicer.outputs.sink import CubeSink, decimate, save_overview
 from slicer.outputs.viewer import page_slice
+from slicer.outputs.working_store import FileStore
 from slicer.processing.fk import release_operators
 
 
@@ -48,7 +49,7 @@ class StoredTile:
     """A tile to grid and the temporary store it goes into (picklable)."""
 
     job: TileJob
-    store: str
+    store: str | FileStore
     stride: int
 
 
@@ -56,10 +57,14 @@ def grid_and_store(item: StoredTile) -> tuple[int, int, np.ndarray]:
     """Grid one tile, write it into the store: ``(row0, col0, decimated tile)``."""
     release_operators()  # the lines are done: a worker's migration operators (100 MB at 1 M)
     row0, col0, block = grid_tile(item.job)
-    folder = Path(item.store).parent
-    check_room(folder, block.nbytes, where=folder)
-    from slicer.outputs.zarr_store import write_tile  # zarr: imported by the fork server
-    write_tile(item.store, row0, col0, block)
+    if isinstance(item.store, FileStore):
+        check_room(item.store.path.parent, block.nbytes, where=item.store.path.parent)
+        item.store.write_tile(row0, col0, block)
+    else:
+        folder = Path(item.store).parent
+        check_room(folder, block.nbytes, where=folder)
+        from slicer.outputs.zarr_store import write_tile  # zarr: imported by the fork server
+        write_tile(item.store, row0, col0, block)
     return row0, col0, decimate(block, row0, col0, item.stride)
 
 
@@ -67,7 +72,7 @@ def grid_and_store(item: StoredTile) -> tuple[int, int, np.ndarray]:
 class SliceOutputs:
     """One slice's GeoTIFF to write and/or NetCDF chunks to compress (picklable)."""
 
-    store: str
+    store: str | FileStore
     index: int
     #: Name of the cube array in the store.
     name: str
@@ -92,9 +97,12 @@ def write_slice_outputs(job: SliceOutputs) -> tuple[int, str | None,
     (:func:`slicer.outputs.viewer.page_slice`; None without ``job.page_step``), taken here
     where the slice is in memory anyway.
     """
-    from slicer.outputs.zarr_store import read_slice
-    values = read_slice(job.store, job.index, name=job.name)
-    folder = Path(job.store).parent
+    if isinstance(job.store, FileStore):
+        values, folder = job.store.read(job.index), job.store.path.parent
+    else:
+        from slicer.outputs.zarr_store import read_slice
+        values = read_slice(job.store, job.index, name=job.name)
+        folder = Path(job.store).parent
     check_room(folder, 2 * values.nbytes, where=folder)
     if job.tiff is not None:
         write_slice_file(job.tiff, values)
@@ -173,13 +181,26 @@ class WorkerSink(CubeSink):
 
     def grid(self, jobs: Iterable[TileJob], *, count: int) -> None:
         """Grid and store every tile on the workers, keeping the overview's panels."""
-        store = self._worker_path(self._store.path)
+        store = self._for_workers()
         items = (StoredTile(job, store, self._stride) for job in jobs)
+        written = set()
         for row0, col0, part in self._engine.map(grid_and_store, items, desc="gridding",
                                                  unit="tile", progress=False,
                                                  weights=[1] * count):
             self._put_panels(row0, col0, part)
+            written.add((row0, col0))
             self._bar.update(1)
+        if isinstance(self._store, FileStore):  # a raw file starts as zeros, not NaN
+            for row0, col0, h, w in tile_windows(self.shape, self.tile):
+                if (row0, col0) not in written:
+                    self._store.fill_nan(row0, col0, h, w)
+
+    def _for_workers(self):
+        """The store as the workers open it: the raw file's store itself (picklable), else
+        the Zarr store's absolute path."""
+        if isinstance(self._store, FileStore):
+            return self._store
+        return self._worker_path(self._store.path)
 
     def _keep_pages(self, pages: list) -> None:
         if self._page_step is not None:
@@ -215,10 +236,11 @@ class WorkerSink(CubeSink):
         return future
 
     def _write_slices(self, target) -> None:
-        store = self._worker_path(self._store.path)
+        store = self._for_workers()
 
         def job(i: int, layout=None, parts=None) -> SliceOutputs:
-            tiff = self._tiffs.slice_job(i, store) if self._tiffs is not None else None
+            tiff = (self._tiffs.slice_job(i, self._worker_path(self._store.path))
+                    if self._tiffs is not None else None)
             return SliceOutputs(store, i, self._store.name, tiff, layout,
                                 None if parts is None else str(parts / f"slice_{i}.bin"),
                                 self._page_step)

@@ -17,7 +17,13 @@ from slicer.core.errors import OutputError, SettingsError
 from slicer.outputs.cube import new_cube
 from slicer.outputs.geotiff import tile_windows
 from slicer.outputs.sink import CubeSink
-from slicer.outputs.working_store import MEMORY_STAGING_BYTES, MemoryStore, stages_in_memory
+from slicer.outputs.working_store import (
+    MEMORY_STAGING_BYTES,
+    FileStore,
+    MemoryStore,
+    stages_in_memory,
+    working_kind,
+)
 
 
 def make_cube(shape=(3, 70, 90), seed=2):
@@ -116,3 +122,62 @@ def test_tiles_written_anywhere_read_back_as_written(n, ny, nx, size, data):
         expected[:, r:r + h, c:c + w] = block
     for i in range(n):
         np.testing.assert_array_equal(store.read(i), expected[i])
+
+
+def test_each_build_gets_the_store_its_outputs_and_workers_need():
+    assert working_kind(10, formats=("tif",), offload=False) == "memory"
+    assert working_kind(MEMORY_STAGING_BYTES, formats=("tif",), offload=False) == "zarr"
+    assert working_kind(10, formats=("tif",), offload=True) == "file"
+    for formats in (("tif", "zarr"), ("tif", "nc"), ("nc",)):
+        for offload in (False, True):
+            assert working_kind(10, formats=formats, offload=offload) == "zarr"
+
+
+def _write_in_another_process(store: FileStore, row0: int, col0: int, block) -> None:
+    store.write_tile(row0, col0, block)
+
+
+def test_a_raw_file_store_takes_tiles_from_other_processes(tmp_path):
+    # as a build's workers use it: pickled to a spawned process, which writes a tile that
+    # this process then reads; tiles never written are marked as having no data
+    import concurrent.futures
+    import multiprocessing
+    store = FileStore.create(tmp_path, (3, 40, 50), "envelope")
+    assert store.path.parent == tmp_path.resolve() and store.path.name.startswith(".cube.")
+    block = np.random.default_rng(3).random((3, 32, 32)).astype(np.float32)
+    context = multiprocessing.get_context("spawn")
+    with concurrent.futures.ProcessPoolExecutor(1, mp_context=context) as pool:
+        pool.submit(_write_in_another_process, store, 0, 32, block[:, :, :18]).result()
+    store.write_tile(32, 0, block[:, :8, :])
+    store.fill_nan(0, 0, 32, 32)
+    store.fill_nan(32, 32, 8, 18)
+    expected = np.full((3, 40, 50), np.nan, dtype=np.float32)
+    expected[:, 0:32, 32:50] = block[:, :, :18]
+    expected[:, 32:40, 0:32] = block[:, :8, :]
+    for i in range(3):
+        np.testing.assert_array_equal(store.read(i), expected[i])
+    store.discard()
+    assert not store.path.exists()
+    store.discard()  # twice: nothing to remove, no error
+
+
+def test_a_raw_file_store_cut_short_is_an_output_error(tmp_path):
+    store = FileStore.create(tmp_path, (2, 10, 10), "envelope")
+    with open(store.path, "r+b") as f:
+        f.truncate(100)
+    with pytest.raises(OutputError, match="shorter"):
+        store.read(1)
+    with pytest.raises(SettingsError):
+        store.write_tile(5, 5, np.zeros((2, 16, 16), dtype=np.float32))
+
+
+def test_geotiffs_through_a_raw_file_store_equal_those_through_zarr(tmp_path, monkeypatch):
+    import slicer.outputs.sink as sink_module
+    cube = make_cube(seed=7)
+    monkeypatch.setattr(sink_module, "working_kind", lambda *a, **k: "file")
+    through_file = slices_of(write(cube, tmp_path / "a", ("tif",)))
+    assert not list((tmp_path / "a").glob(".cube.*"))  # the raw file is removed
+    monkeypatch.setattr(sink_module, "working_kind", lambda *a, **k: "zarr")
+    through_zarr = slices_of(write(cube, tmp_path / "b", ("tif",)))
+    np.testing.assert_array_equal(through_file, through_zarr)
+    np.testing.assert_array_equal(through_file, cube.values)
