@@ -17,6 +17,7 @@ for a 1 M-trace cube (24 x 1575 x 1582 cells, 1176 chunks; benchmarks/working_st
 
 from __future__ import annotations
 
+import errno
 import os
 from collections.abc import Collection
 from pathlib import Path
@@ -108,12 +109,24 @@ class FileStore:
     @classmethod
     def create(cls, folder: Path, shape: tuple[int, int, int], name: str) -> FileStore:
         """A new file in ``folder`` (the build's stage), sized for ``shape``."""
+        size = 4 * int(np.prod(shape))
+        path = None
         try:
             path = temp_file(folder, prefix=".cube.", suffix=".raw")
-            os.truncate(path, 4 * int(np.prod(shape)))
+            with open(path, "r+b") as f:
+                try:
+                    # the disk space reserved now: a write through a memory map into a file
+                    # the disk cannot hold is a SIGBUS that kills the writer, not an error
+                    os.posix_fallocate(f.fileno(), 0, size)
+                except OSError as exc:
+                    if exc.errno not in (errno.EOPNOTSUPP, errno.EINVAL, errno.ENOSYS):
+                        raise
+                    f.truncate(size)  # a file system that cannot reserve: sparse
         except OSError as exc:
-            raise OutputError(f"cannot create the working cube ({exc.strerror or exc})",
-                              where=str(folder)) from None
+            if path is not None:
+                path.unlink(missing_ok=True)
+            raise OutputError(f"cannot create the working cube of {size / 2**20:.0f} MiB "
+                              f"({exc.strerror or exc})", where=str(folder)) from None
         return cls(path, shape, name)
 
     def write_tile(self, row0: int, col0: int, block) -> None:

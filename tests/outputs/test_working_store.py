@@ -181,3 +181,33 @@ def test_geotiffs_through_a_raw_file_store_equal_those_through_zarr(tmp_path, mo
     through_zarr = slices_of(write(cube, tmp_path / "b", ("tif",)))
     np.testing.assert_array_equal(through_file, through_zarr)
     np.testing.assert_array_equal(through_file, cube.values)
+
+
+def test_a_disk_without_room_for_the_raw_file_is_one_output_error(tmp_path, monkeypatch):
+    # the space is reserved when the file is made (a memory-mapped write into a file the disk
+    # cannot hold would kill the writer with SIGBUS); ENOSPC there names the folder
+    import errno
+    import os
+
+    def full(fd, offset, length):
+        raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+
+    monkeypatch.setattr(os, "posix_fallocate", full)
+    with pytest.raises(OutputError, match="No space left") as info:
+        FileStore.create(tmp_path, (2, 10, 10), "envelope")
+    assert info.value.where == str(tmp_path)
+    assert list(tmp_path.iterdir()) == []  # nothing left behind
+
+
+def test_a_file_system_that_cannot_reserve_gets_a_sparse_file(tmp_path, monkeypatch):
+    import errno
+    import os
+
+    def unsupported(fd, offset, length):
+        raise OSError(errno.EOPNOTSUPP, os.strerror(errno.EOPNOTSUPP))
+
+    monkeypatch.setattr(os, "posix_fallocate", unsupported)
+    store = FileStore.create(tmp_path, (2, 10, 12), "envelope")
+    assert store.path.stat().st_size == 4 * 2 * 10 * 12
+    store.write_tile(0, 0, np.ones((2, 10, 12), dtype=np.float32))
+    np.testing.assert_array_equal(store.read(1), np.ones((10, 12), dtype=np.float32))
