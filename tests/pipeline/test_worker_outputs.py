@@ -79,11 +79,14 @@ def test_worker_written_outputs_equal_the_threaded_ones(threaded, tmp_path, sche
     assert (out / "viewer.html").read_text() == (reference / "viewer.html").read_text()
 
 
-@pytest.mark.parametrize("formats", ["tif", "nc"])
-def test_workers_write_only_the_formats_asked_for(threaded, tmp_path, formats):
+@pytest.mark.parametrize(("formats", "scheduler"), [("tif", "processes"), ("nc", "processes"),
+                                                    ("tif", "local:2")])
+def test_workers_write_only_the_formats_asked_for(threaded, tmp_path, formats, scheduler):
+    # GeoTIFFs alone: the workers (a process pool, or a LocalCluster's) share the cube through
+    # one raw file in the stage folder; the NetCDF cube through a Zarr store
     settings, reference = threaded
     out = tmp_path / "o"
-    result = slicer.build(settings.replace(scheduler="processes", out=out, formats=formats),
+    result = slicer.build(settings.replace(scheduler=scheduler, out=out, formats=formats),
                           progress=False)
     pictures = [f"radargrams/{p.name}" for p in (out / "radargrams").iterdir()]
     assert len(pictures) == 6  # one per line of the small survey
