@@ -2,15 +2,17 @@
 
 On a process pool or a LocalCluster the workers share this machine's files, so the calling
 process need not touch the cube's values at all. Each tile task grids its tile and writes it
-straight into the temporary Zarr store (:func:`grid_and_store`); only a decimated copy for the
-overview comes back. Once every tile is stored, one task per slice reads it back, writes its
-GeoTIFF (:func:`slicer.outputs.geotiff.write_slice_file`) and, when the NetCDF cube is asked
-for, compresses its NetCDF chunks (:mod:`slicer.outputs.netcdf_chunks`), which a thread of the
-calling process stores in the NetCDF file as they come; one more task draws the overview. The
-store becomes ``cube.zarr`` only if the Zarr cube is asked for (``formats``). Everything stays under
-temporary names until all is done, as with :class:`slicer.outputs.sink.CubeSink`. The compression of
-the outputs, which a build otherwise does in its own process, is then shared by the workers:
-with N workers a build uses N cores, and its time falls as workers are added.
+straight into the working store (:func:`grid_and_store`): one raw float32 file when the
+GeoTIFFs alone are asked for, else a temporary Zarr store (:mod:`slicer.outputs.working_store`);
+only a decimated copy for the overview comes back. Once every tile is stored, one task per
+slice reads it back, writes its GeoTIFF (:func:`slicer.outputs.geotiff.write_slice_file`) and,
+when the NetCDF cube is asked for, compresses its NetCDF chunks
+(:mod:`slicer.outputs.netcdf_chunks`), which a thread of the calling process stores in the
+NetCDF file as they come; one more task draws the overview. A Zarr store becomes
+``cube.zarr`` only if the Zarr cube is asked for (``formats``). Everything stays under
+temporary names until all is done, as with :class:`slicer.outputs.sink.CubeSink`. The
+compression of the outputs, which a build otherwise does in its own process, is then shared by
+the workers: with N workers a build uses N cores, and its time falls as workers are added.
 
 A remote cluster's workers may not see the output folder, so they use :class:`CubeSink`.
 """
