@@ -24,6 +24,7 @@ import numpy as np
 from slicer.outputs.display import NODATA_COLOUR
 from slicer.outputs.radargram_frame import (
     FRAME_COLOURS,
+    LABEL_PAD_PT,
     LABEL_PT,
     FrameDrawer,
     _box,
@@ -212,8 +213,11 @@ def _colour_bar(canvas: np.ndarray, lay: Layout, scale: Scale, quantity: str,
         wide = max(wide, ink.shape[1])
         _put(canvas, ink, b1 + line + tick + pad, y, "left", "center")
     label_ink = np.rot90(_lines(draw, label, LABEL_PT))
-    _put(canvas, label_ink, b1 + line + tick + 2 * pad + wide, (r0 + r1) / 2, "left",
-         "center")
+    # matplotlib's label pad from the tick labels, kept inside the page: a two-line label of
+    # a per-slice stretch reached past its right edge
+    x = min(b1 + line + tick + pad + wide + round(draw.px(LABEL_PAD_PT)),
+            canvas.shape[1] - label_ink.shape[1] - round(draw.px(2)))
+    _put(canvas, label_ink, x, (r0 + r1) / 2, "left", "center")
     return b0, b1, r0, r1
 
 

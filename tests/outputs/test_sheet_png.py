@@ -189,3 +189,15 @@ def test_hostile_cubes_give_pages_of_the_matplotlib_sheets_size(kind):
             inside = rgb(png)[r0 + 3:r0 + lay.ph - 3, c0 + lay.pw // 2]
             grey = np.rint(np.array(to_rgb(NODATA_COLOUR)) * 255)
             assert np.all(inside == grey)
+
+
+@pytest.mark.parametrize("stretch", ["shared", "per-slice"])
+@pytest.mark.parametrize("dpi", [60, 80, 150])
+def test_no_text_runs_off_the_page(stretch, dpi):
+    # a label cut by the page's edge leaves ink in its outermost pixels; the two-line label of
+    # a per-slice colour bar reached past the right edge (common practice: nothing clipped)
+    cube, _ = block_cube()
+    for *_, png in pages_of(cube, dpi=dpi, display=Display(stretch=stretch)):
+        page = rgb(png)
+        for edge in (page[:, -1], page[:, 0], page[0], page[-1]):
+            assert (edge == 255).all()
