@@ -49,7 +49,8 @@ from slicer.outputs.overview_plan import (
     _columns,
     _quantity,
 )
-from slicer.outputs.sheet import _length_label, _nice_length, draw_sheet
+from slicer.outputs.sheet import draw_sheet
+from slicer.outputs.sheet_layout import length_label, nice_length
 
 
 def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
@@ -68,8 +69,8 @@ def shared_limits(cube: xr.DataArray, percentile: tuple[float, float] = (2, 98)
 
 
 def _decorate(ax: Axes, frame: Frame) -> None:
-    length = _nice_length(frame.width)
-    bar = AnchoredSizeBar(ax.transData, length, _length_label(length), loc="lower left",
+    length = nice_length(frame.width)
+    bar = AnchoredSizeBar(ax.transData, length, length_label(length), loc="lower left",
                           pad=0.4, borderpad=0.4, sep=3, frameon=True,
                           size_vertical=frame.height / 80, fontproperties={"size": 7})
     bar.patch.set_alpha(0.7)

@@ -22,22 +22,8 @@ from matplotlib.figure import Figure
 from matplotlib.patches import Rectangle
 from matplotlib.text import Annotation
 
-from slicer.outputs.sheet_layout import (
-    _BELOW,
-    _GAP_X,
-    _LABEL_FONT,
-    _RANGE_ROOM,
-    _TICK_FONT,
-    _TICK_POINTS,
-    _TITLE_FONT,
-    Layout,
-    Scale,
-    _length_label,
-    _nice_length,
-    _ticks,
-    panel_pixels,
-    sheet_layout,
-)
+from slicer.outputs import sheet_layout as sl
+from slicer.outputs.sheet_layout import Layout, Scale, panel_pixels, sheet_layout
 
 
 def _mosaic(drawn: list[np.ndarray], stride: int, cells: tuple[int, int], layout: Layout,
@@ -110,9 +96,9 @@ def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str]
                                 lay.fx(lay.left + lay.grid_w), lay.fy(lay.top))))
 
     (west, east, south, north) = frame.extent
-    xt, xlabels = _ticks(west, east)
-    yt, ylabels = _ticks(south, north)
-    tick = lay.px(_TICK_POINTS / 72)
+    xt, xlabels = sl.axis_ticks(west, east)
+    yt, ylabels = sl.axis_ticks(south, north)
+    tick = lay.px(sl.TICK_POINTS / 72)
     pad = lay.px(2 / 72)
     segments = []
     for i, label in enumerate(labels):
@@ -124,10 +110,10 @@ def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str]
         above = r - pad * 2
         if per_slice:
             figure.text(lay.fx(c + lay.pw / 2), lay.fy(above), scale.ranges[i], ha="center",
-                        va="bottom", fontsize=_TICK_FONT, color="0.3", gid=f"range {label}")
-            above -= lay.px(_RANGE_ROOM)
+                        va="bottom", fontsize=sl.TICK_FONT, color="0.3", gid=f"range {label}")
+            above -= lay.px(sl.RANGE_ROOM)
         figure.text(lay.fx(c + lay.pw / 2), lay.fy(above), label, ha="center",
-                    va="bottom", fontsize=_TITLE_FONT)
+                    va="bottom", fontsize=sl.TITLE_FONT)
         xs = c + (xt - west) / (east - west) * lay.pw
         ys = r + lay.ph - (yt - south) / (north - south) * lay.ph
         bottom = r + lay.ph
@@ -137,15 +123,15 @@ def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str]
         if row == nrows - 1 or i + ncols >= n:  # nothing below: label the easting
             for x, text in zip(xs, xlabels, strict=True):
                 figure.text(lay.fx(x), lay.fy(bottom + tick + pad), text, ha="center",
-                            va="top", fontsize=_TICK_FONT, gid="tick label")
-            figure.text(lay.fx(c + lay.pw / 2), lay.fy(r + lay.ph + lay.px(_BELOW) - pad),
-                        frame.xlabel(), ha="center", va="bottom", fontsize=_LABEL_FONT)
+                            va="top", fontsize=sl.TICK_FONT, gid="tick label")
+            figure.text(lay.fx(c + lay.pw / 2), lay.fy(r + lay.ph + lay.px(sl.BELOW) - pad),
+                        frame.xlabel(), ha="center", va="bottom", fontsize=sl.LABEL_FONT)
         if col == 0:
             for y, text in zip(ys, ylabels, strict=True):
                 figure.text(lay.fx(c - tick - pad), lay.fy(y), text, ha="right",
-                            va="center", fontsize=_TICK_FONT, gid="tick label")
+                            va="center", fontsize=sl.TICK_FONT, gid="tick label")
             figure.text(lay.fx(pad), lay.fy(r + lay.ph / 2), frame.ylabel(), ha="left",
-                        va="center", rotation=90, fontsize=_LABEL_FONT)
+                        va="center", rotation=90, fontsize=sl.LABEL_FONT)
     figure.add_artist(LineCollection(segments, colors="black", linewidths=0.8,
                                      transform=figure.transFigure))
     _scale_bar(figure, lay, frame)
@@ -160,7 +146,7 @@ def draw_sheet(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str]
 
 def _colour_bar(figure: Figure, lay: Layout, scale: Scale, quantity: str) -> None:
     # The colour bar beside the grid, 0.8 of its height.
-    cax = figure.add_axes((lay.fx(lay.left + lay.grid_w + lay.px(_GAP_X + 0.3)),
+    cax = figure.add_axes((lay.fx(lay.left + lay.grid_w + lay.px(sl.GAP_X + 0.3)),
                            lay.fy(lay.top + 0.9 * lay.grid_h), lay.px(0.18) / lay.width,
                            0.8 * lay.grid_h / lay.height), label="<colorbar>")
     norm = scale.norms[0] if scale.ranges is None else Normalize(0.0, 1.0)
@@ -175,11 +161,11 @@ def _colour_bar(figure: Figure, lay: Layout, scale: Scale, quantity: str) -> Non
 
 def _scale_bar(figure: Figure, lay: Layout, frame) -> None:
     """A round length on the first panel's lower-left corner, labelled below, on a pale box."""
-    length = _nice_length(frame.width)
+    length = sl.nice_length(frame.width)
     c, r = lay.box(0)
     bar_w = length / frame.width * lay.pw
     bar_h = max(2, lay.ph // 80)
-    pad, sep, text_h = lay.px(4 / 72), lay.px(3 / 72), lay.px(_TICK_FONT / 72)
+    pad, sep, text_h = lay.px(4 / 72), lay.px(3 / 72), lay.px(sl.TICK_FONT / 72)
     box_w = max(bar_w, lay.px(0.4)) + 2 * pad
     box_h = bar_h + sep + text_h + 2 * pad
     x0, y1 = c + pad, r + lay.ph - pad  # the box's left and bottom pixel
@@ -190,8 +176,8 @@ def _scale_bar(figure: Figure, lay: Layout, frame) -> None:
     figure.add_artist(Rectangle((lay.fx(x0 + pad), lay.fy(y1 - pad - text_h - sep)),
                                 bar_w / lay.width, bar_h / lay.height, transform=trans,
                                 fc="black", ec="none"))
-    figure.text(lay.fx(x0 + pad + bar_w / 2), lay.fy(y1 - pad), _length_label(length),
-                ha="center", va="bottom", fontsize=_TICK_FONT)
+    figure.text(lay.fx(x0 + pad + bar_w / 2), lay.fy(y1 - pad), sl.length_label(length),
+                ha="center", va="bottom", fontsize=sl.TICK_FONT)
 
 
 def _north_arrow(figure: Figure, lay: Layout) -> None:

@@ -17,15 +17,16 @@ if TYPE_CHECKING:
 #: Margins around each panel, inches: room for the y tick labels and axis label on its left,
 #: a gap on its right, its title above and the x tick labels and axis label below; the sheet
 #: title above the grid and the colour bar beside it.
-_LEFT, _GAP_X, _TOP, _GAP_TOP, _BELOW, _BAR_ROOM = 0.6, 0.15, 0.8, 0.25, 0.5, 1.3
+LEFT, GAP_X, TOP, GAP_TOP, BELOW, BAR_ROOM = 0.6, 0.15, 0.8, 0.25, 0.5, 1.3
 
-_TICK_POINTS, _TICK_FONT, _LABEL_FONT, _TITLE_FONT = 3.5, 7, 8, 9
+#: Tick length (points) and the font sizes of tick labels, axis labels and panel titles.
+TICK_POINTS, TICK_FONT, LABEL_FONT, TITLE_FONT = 3.5, 7, 8, 9
 
 #: Room for the line of a panel's own colour range above its title (per-slice stretch), inches.
-_RANGE_ROOM = 0.15
+RANGE_ROOM = 0.15
 
 
-def _nice_length(width: float) -> float:
+def nice_length(width: float) -> float:
     # A 1-2-5 round length close to a fifth of the panel width, for the scale bar.
     target = width / 5
     exponent = math.floor(math.log10(target))
@@ -36,7 +37,7 @@ def _nice_length(width: float) -> float:
     return 10.0**exponent
 
 
-def _length_label(length: float) -> str:
+def length_label(length: float) -> str:
     return f"{length * 100:g} cm" if length < 1 else f"{length:g} m"
 
 
@@ -47,18 +48,18 @@ class Layout:
     """
 
     def __init__(self, nrows: int, ncols: int, aspect: float, dpi: float, *,
-                 gap_top: float = _GAP_TOP):
+                 gap_top: float = GAP_TOP):
         self.nrows, self.ncols, self.dpi = nrows, ncols, float(dpi)
         panel_w = PANEL_INCHES if aspect <= 1 else PANEL_INCHES / aspect
         px = self.px
         self.pw, self.ph = max(1, px(panel_w)), max(1, px(panel_w * aspect))
-        self.step_x = px(_LEFT + _GAP_X) + self.pw
-        self.step_y = px(_BELOW + gap_top) + self.ph
-        self.left, self.top = px(_LEFT), px(_TOP + gap_top)
+        self.step_x = px(LEFT + GAP_X) + self.pw
+        self.step_y = px(BELOW + gap_top) + self.ph
+        self.left, self.top = px(LEFT), px(TOP + gap_top)
         self.grid_w = (ncols - 1) * self.step_x + self.pw
         self.grid_h = (nrows - 1) * self.step_y + self.ph
-        self.width = self.left + self.grid_w + px(_GAP_X + _BAR_ROOM)
-        self.height = self.top + self.grid_h + px(_BELOW)
+        self.width = self.left + self.grid_w + px(GAP_X + BAR_ROOM)
+        self.height = self.top + self.grid_h + px(BELOW)
 
     def px(self, inches: float) -> int:
         """Whole pixels of ``inches`` on the sheet."""
@@ -96,10 +97,10 @@ def sheet_layout(nrows: int, ncols: int, frame, dpi: float, *, per_slice: bool) 
     """The layout of a sheet of ``frame``'s panels (:class:`slicer.outputs.display_panels.Frame`);
     ``per_slice``: room above each panel for its own colour range."""
     return Layout(nrows, ncols, frame.height / frame.width, dpi,
-                  gap_top=_GAP_TOP + (_RANGE_ROOM if per_slice else 0))
+                  gap_top=GAP_TOP + (RANGE_ROOM if per_slice else 0))
 
 
-def _ticks(low: float, high: float) -> tuple[np.ndarray, list[str]]:
+def axis_ticks(low: float, high: float) -> tuple[np.ndarray, list[str]]:
     # Round positions (metres from the panel's low edge) and their labels.
     from matplotlib.ticker import MaxNLocator  # light: no figure machinery
     values = MaxNLocator(nbins=4, steps=[1, 2, 2.5, 5, 10]).tick_values(low, high)
@@ -127,3 +128,8 @@ class Scale:
         return Scale(self.colours, self.norms[start:stop],
                      ranges=None if self.ranges is None else self.ranges[start:stop],
                      ticks=self.ticks, tick_labels=self.tick_labels, caption=self.caption)
+
+
+__all__ = ["BAR_ROOM", "BELOW", "GAP_TOP", "GAP_X", "LABEL_FONT", "LEFT", "RANGE_ROOM",
+           "TICK_FONT", "TICK_POINTS", "TITLE_FONT", "TOP", "Layout", "Scale", "axis_ticks",
+           "length_label", "nice_length", "panel_pixels", "sheet_layout"]

@@ -21,6 +21,7 @@ import math
 
 import numpy as np
 
+from slicer.outputs import sheet_layout as sl
 from slicer.outputs.display import NODATA_COLOUR
 from slicer.outputs.radargram_frame import (
     FRAME_COLOURS,
@@ -35,22 +36,7 @@ from slicer.outputs.radargram_frame import (
     tick_labels,
     tick_values,
 )
-from slicer.outputs.sheet_layout import (
-    _BELOW,
-    _GAP_X,
-    _LABEL_FONT,
-    _RANGE_ROOM,
-    _TICK_FONT,
-    _TICK_POINTS,
-    _TITLE_FONT,
-    Layout,
-    Scale,
-    _length_label,
-    _nice_length,
-    _ticks,
-    panel_pixels,
-    sheet_layout,
-)
+from slicer.outputs.sheet_layout import Layout, Scale, panel_pixels, sheet_layout
 
 #: Palette entries of the colour map; the last entry of the 256 is the no-data colour.
 PANEL_COLOURS = 256 - FRAME_COLOURS - 1
@@ -122,9 +108,9 @@ def page_png(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str], 
     draw = _drawer(lay.dpi)
     canvas = np.full((lay.height, lay.width), 255, dtype=np.uint8)
     west, east, south, north = frame.extent
-    xt, xlabels = _ticks(west, east)
-    yt, ylabels = _ticks(south, north)
-    tick, pad = lay.px(_TICK_POINTS / 72), lay.px(2 / 72)
+    xt, xlabels = sl.axis_ticks(west, east)
+    yt, ylabels = sl.axis_ticks(south, north)
+    tick, pad = lay.px(sl.TICK_POINTS / 72), lay.px(2 / 72)
     line = max(1, round(lay.dpi * 0.8 / 72))
     for i, label in enumerate(labels):
         c, r = lay.box(i)
@@ -132,10 +118,10 @@ def page_png(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str], 
         _box(canvas, r, r + lay.ph, c, c + lay.pw, line)
         above = r - pad * 2
         if per_slice:
-            _put(canvas, draw.text(scale.ranges[i], _TICK_FONT), c + lay.pw / 2, above,
+            _put(canvas, draw.text(scale.ranges[i], sl.TICK_FONT), c + lay.pw / 2, above,
                  "center", "bottom", strength=0.7)
-            above -= lay.px(_RANGE_ROOM)
-        _put(canvas, draw.text(label, _TITLE_FONT), c + lay.pw / 2, above, "center", "bottom")
+            above -= lay.px(sl.RANGE_ROOM)
+        _put(canvas, draw.text(label, sl.TITLE_FONT), c + lay.pw / 2, above, "center", "bottom")
         xs = c + (xt - west) / (east - west) * lay.pw
         ys = r + lay.ph - (yt - south) / (north - south) * lay.ph
         bottom = r + lay.ph
@@ -145,14 +131,14 @@ def page_png(drawn: list[np.ndarray], *, stride: int, frame, labels: list[str], 
             canvas[_across(y, line), max(0, c - tick):c] = 0
         if row == nrows - 1 or i + ncols >= n:  # nothing below: label the easting
             for x, text in zip(xs, xlabels, strict=True):
-                _put(canvas, draw.text(text, _TICK_FONT), x, bottom + tick + pad, "center",
+                _put(canvas, draw.text(text, sl.TICK_FONT), x, bottom + tick + pad, "center",
                      "top")
-            _put(canvas, draw.text(frame.xlabel(), _LABEL_FONT), c + lay.pw / 2,
-                 r + lay.ph + lay.px(_BELOW) - pad, "center", "bottom")
+            _put(canvas, draw.text(frame.xlabel(), sl.LABEL_FONT), c + lay.pw / 2,
+                 r + lay.ph + lay.px(sl.BELOW) - pad, "center", "bottom")
         if col == 0:
             for y, text in zip(ys, ylabels, strict=True):
-                _put(canvas, draw.text(text, _TICK_FONT), c - tick - pad, y, "right", "center")
-            _put(canvas, draw.text(frame.ylabel(), _LABEL_FONT, rotated=True), pad,
+                _put(canvas, draw.text(text, sl.TICK_FONT), c - tick - pad, y, "right", "center")
+            _put(canvas, draw.text(frame.ylabel(), sl.LABEL_FONT, rotated=True), pad,
                  r + lay.ph / 2, "left", "center")
     _put(canvas, _lines(draw, title, 11), lay.width / 2, lay.px(0.1), "center", "top")
     if page is not None:
@@ -191,7 +177,7 @@ def _colour_bar(canvas: np.ndarray, lay: Layout, scale: Scale, quantity: str,
                 draw: FrameDrawer, tick: int, line: int) -> tuple[int, int, int, int]:
     """The colour bar's frame, ticks and labels beside the grid, 0.8 of its height, with the
     triangles of the colours below and above the range; returns its columns and rows."""
-    b0 = lay.left + lay.grid_w + lay.px(_GAP_X + 0.3)
+    b0 = lay.left + lay.grid_w + lay.px(sl.GAP_X + 0.3)
     b1 = b0 + lay.px(0.18)
     r0, r1 = lay.top + round(0.1 * lay.grid_h), lay.top + round(0.9 * lay.grid_h)
     _box(canvas, r0, r1, b0, b1, line)
@@ -240,18 +226,18 @@ def _extensions(indices: np.ndarray, b0: int, b1: int, r0: int, r1: int, line: i
 def _scale_bar(indices: np.ndarray, lay: Layout, frame, draw: FrameDrawer) -> None:
     """A round length on the first panel's lower-left corner, labelled below, on a white
     box (the matplotlib page's box is translucent)."""
-    length = _nice_length(frame.width)
+    length = sl.nice_length(frame.width)
     c, r = lay.box(0)
     bar_w = round(length / frame.width * lay.pw)
     bar_h = max(2, lay.ph // 80)
-    pad, sep, text_h = lay.px(4 / 72), lay.px(3 / 72), lay.px(_TICK_FONT / 72)
+    pad, sep, text_h = lay.px(4 / 72), lay.px(3 / 72), lay.px(sl.TICK_FONT / 72)
     box_w = max(bar_w, lay.px(0.4)) + 2 * pad
     box_h = bar_h + sep + text_h + 2 * pad
     x0, y1 = c + pad, r + lay.ph - pad  # the box's left and bottom pixel
     indices[max(r, y1 - box_h):y1, x0:min(c + lay.pw, x0 + box_w)] = WHITE
     top = y1 - pad - text_h - sep - bar_h
     indices[top:top + bar_h, x0 + pad:x0 + pad + bar_w] = BLACK
-    _put(indices, draw.text(_length_label(length), _TICK_FONT), x0 + pad + bar_w / 2,
+    _put(indices, draw.text(sl.length_label(length), sl.TICK_FONT), x0 + pad + bar_w / 2,
          y1 - pad, "center", "bottom", white=WHITE)
 
 

@@ -395,11 +395,10 @@ def save_overview(template: xr.DataArray, panels: np.ndarray,
     worker process can run it. ``where`` names the files in errors (the final names; ``pngs``
     may be temporary ones).
     """
-    from slicer.outputs.display import display_from
     from slicer.outputs.overview_plan import OverviewPlan
     from slicer.outputs.sheet_png import page_png
-    plan = OverviewPlan(template, display_from(**(display or Display()).options()),
-                        title=title, dpi=OVERVIEW_DPI, panels=list(panels))
+    plan = OverviewPlan(template, display or Display(), title=title, dpi=OVERVIEW_DPI,
+                        panels=list(panels))
     ncols, nrows, pages = plan.pages(per_page)
     for (start, stop, page), png, name in zip(pages, pngs, where or [str(p) for p in pngs],
                                               strict=True):

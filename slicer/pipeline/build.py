@@ -333,10 +333,11 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
     ``settings.radargrams`` is off) and ``record.json`` (every setting and input, with
     checksums; ``radargrams`` lists each line's picture and ends). The cube is gridded tile
     by tile into a Zarr working store in the build folder, so memory does not grow with the
-    grid (a cube of at most 64 MiB written as GeoTIFFs alone on threads is held in memory
-    instead, :mod:`slicer.outputs.working_store`); the slices and the NetCDF cube are written
-    from it once it is complete, and it becomes ``cube.zarr`` or, if the Zarr cube was not
-    asked for, is deleted before the commit (and with the build folder on any failure).
+    grid (with GeoTIFFs alone, a cube of at most 64 MiB on threads is held in memory instead,
+    and on worker processes in one raw file: :mod:`slicer.outputs.working_store`); the slices
+    and the NetCDF cube are written from it once it is complete, and it becomes ``cube.zarr``
+    or, if the Zarr cube was not asked for, is deleted before the commit (and with the build
+    folder on any failure).
     Everything is written into a folder beside ``settings.out`` and switched in whole at the
     end (:mod:`slicer.core.commit`): a build that fails or is stopped leaves the earlier
     build, or the new one, whole. With ``overwrite`` the earlier build's outputs are

@@ -9,7 +9,7 @@ length) the Nyquist term. Single precision: float32 samples need no more.
 Traces go through in blocks whose spectra take about :data:`BLOCK_BYTES`, so each block's
 spectrum stays in the processor's cache between the transform, the product and the inverse:
 a whole 3165-trace line's spectrum (13 MB) went to memory and back at each of them, and the
-envelope of such a line took 19.2 ms whole against 11.7 ms in blocks of 256 traces
+envelope of such a line took 15.5 ms whole against 11.1 ms in blocks of 255 traces
 (benchmarks/envelope_blocks.py).
 """
 

@@ -25,13 +25,13 @@ from slicer.core.errors import OutputError, SettingsError
 from slicer.outputs.cube import new_cube
 from slicer.outputs.figures import (
     NODATA_COLOUR,
-    _nice_length,
     plot_overview,
     plot_slice,
     range_labels,
     sample_stride,
     shared_limits,
 )
+from slicer.outputs.sheet_layout import nice_length
 
 WEST, NORTH, CELL = 500000.0, 4649776.0, 0.05
 
@@ -156,7 +156,7 @@ def test_scale_bar_and_north_arrow_on_first_panel():
 @settings(max_examples=50, deadline=None)
 @given(width=st.floats(0.05, 5000))
 def test_scale_bar_length_is_round_and_about_a_fifth(width):
-    length = _nice_length(width)
+    length = nice_length(width)
     mantissa = length / 10 ** np.floor(np.log10(length) + 1e-9)
     assert min(abs(mantissa - m) for m in (1, 2, 5)) < 1e-9
     assert width / 10 <= length <= width / 4
