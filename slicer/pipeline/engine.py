@@ -56,6 +56,7 @@ from dataclasses import dataclass
 from slicer.core.atomic import current_umask
 from slicer.core.errors import SettingsError
 from slicer.core.progress import bar_for
+from slicer.pipeline.task_warnings import replay, run_capturing
 from slicer.pipeline.worker_processes import (
     start_worker,
     start_workers,
@@ -283,7 +284,9 @@ class Engine:
         in flight (and ``items``, which may be a generator, is consumed only that far ahead),
         so memory stays bounded by the size of a task, not by the number of items.
         ``weights`` (e.g. traces per line) make the progress bar count work rather than
-        tasks; with a generator they give the total.
+        tasks; with a generator they give the total. Warnings a task raises in a worker
+        process are raised again here as its result is taken
+        (:mod:`slicer.pipeline.task_warnings`), as they are from a task on a thread.
         """
         weights = list(weights) if weights is not None else None
         total = sum(weights) if weights is not None else None
@@ -296,6 +299,12 @@ class Engine:
         tasks = iter(items) if batch == 1 else _batches(items, batch, count=count,
                                                          workers=self.workers)
         task_func = func if batch == 1 else functools.partial(_run_batch, func)
+        # a task in another process warns there: its warnings come back with its result
+        elsewhere = self._client is not None or isinstance(
+            self._pool, concurrent.futures.ProcessPoolExecutor)
+        if elsewhere:
+            task_func = functools.partial(run_capturing, task_func)
+        registry: dict = {}
         with contextlib.ExitStack() as stack, bar_for(enabled=progress, total=total, desc=desc,
                                                       unit=unit) as bar:
             submit = self._submitter(stack)
@@ -311,6 +320,9 @@ class Engine:
                         raise SettingsError(WORKER_LOST, where="--scheduler") from None
                     for task in itertools.islice(tasks, 1):
                         pending.append(submit(task_func, task))
+                    if elsewhere:
+                        results, caught = results
+                        replay(caught, registry)
                     for result in ([results] if batch == 1 else results):
                         bar.update(weights[done] if weights is not None else 1)
                         done += 1

@@ -349,3 +349,31 @@ def test_a_module_imported_aside_that_is_not_installed_stops_nothing(monkeypatch
         if thread.name == "slicer-import-slicer_no_such_module":
             thread.join(10)
     assert raised == []
+
+
+@pytest.mark.parametrize("scheduler", ["threads", "processes"])
+def test_a_line_task_warning_reaches_the_record_from_worker_processes(small_survey, tmp_path,
+                                                                      scheduler):
+    # A line with NaN samples is read in a line task: on worker processes its warning was
+    # raised in the worker and missing from the record and the caller's warnings.
+    from slicer.core.errors import SlicerWarning
+    from slicer.io.linefile import write_line_netcdf
+    from slicer.io.reading import read_line
+    entries = small_survey.line_table.read_text().splitlines()
+    rows = [entries[0]]
+    for k, text in enumerate(entries[1:]):
+        name = text.split(",")[0]
+        line = read_line(small_survey.line_table.parent / name, sample_interval_ns=0.1)
+        if k == 2:
+            line.values[4, 200:207] = np.nan
+        write_line_netcdf(tmp_path / f"L{k}.nc", line)
+        rows.append(text.replace(name, f"L{k}.nc", 1))
+    (tmp_path / "lines.csv").write_text("\n".join(rows) + "\n")
+    settings = slicer.load_settings(tmp_path / "lines.csv", sample_interval=0.1, time_zero=3.0,
+                                    velocity=0.1, depths="0:2.4:0.1", cell=0.1,
+                                    out=tmp_path / "out", scheduler=scheduler)
+    with pytest.warns(SlicerWarning, match=r"L2\.nc: 7 NaN or infinite sample\(s\) set to 0"):
+        result = slicer.build(settings, progress=False)
+    assert result.record["engine"].startswith(scheduler)
+    assert [w for w in result.record["warnings"] if "NaN" in w] == \
+        [f"{tmp_path / 'L2.nc'}: 7 NaN or infinite sample(s) set to 0"]

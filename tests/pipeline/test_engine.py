@@ -118,6 +118,44 @@ def test_process_workers_take_the_callers_umask_and_environment_of_now(monkeypat
     assert states == {("now", 0o037, True)}  # and the task modules were imported already
 
 
+def _warning_task(item):
+    import warnings
+
+    from slicer.core.errors import SlicerWarning
+    if item % 3 == 0:
+        warnings.warn(f"item {item} is odd", SlicerWarning, stacklevel=1)
+    if item == 4:
+        warnings.warn("a divisor is zero", RuntimeWarning, stacklevel=1)
+    return item * 2
+
+
+@pytest.mark.parametrize("scheduler", ["threads", "processes", "local:2"])
+def test_warnings_of_tasks_reach_the_caller_from_any_engine(scheduler):
+    # A warning raised by a task in a worker process went to that worker's stderr, and a
+    # build's record (collected with catch_warnings in the calling process) never had it.
+    import warnings
+    with Engine(parse_scheduler(scheduler, workers=2)) as engine, \
+            warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        got = list(engine.map(_warning_task, range(10), desc="w", progress=False))
+    assert got == [2 * i for i in range(10)]
+    texts = sorted(str(w.message) for w in caught)
+    assert texts == sorted(["a divisor is zero", *(f"item {i} is odd" for i in (0, 3, 6, 9))])
+    from slicer.core.errors import SlicerWarning
+    assert {w.category for w in caught} == {SlicerWarning, RuntimeWarning}
+    assert all(w.filename.endswith("test_engine.py") for w in caught)  # where it was raised
+
+
+def test_a_warning_from_workers_is_shown_once_under_the_default_filter():
+    # as Python's "default" action shows a warning once per place, per map here
+    import warnings
+    with Engine(parse_scheduler("processes", workers=2)) as engine, \
+            warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("default")
+        list(engine.map(_warning_task, [4, 4, 4, 1], desc="w", progress=False))
+    assert [str(w.message) for w in caught] == ["a divisor is zero"]
+
+
 @settings(max_examples=100, deadline=None)
 @given(count=st.integers(0, 400), size=st.integers(1, 8), workers=st.integers(1, 8))
 def test_batches_keep_every_item_in_order_and_shrink_at_the_end(count, size, workers):
