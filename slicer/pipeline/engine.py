@@ -14,7 +14,9 @@ Engines, as ``--scheduler`` spells them:
 ``processes``
     a pool of one worker process per core (no GIL contention; arguments and results are
     pickled), forked by a fork server that has imported the task modules
-    (:mod:`slicer.pipeline.worker_processes`).
+    (:mod:`slicer.pipeline.worker_processes`). Until the first workers are up (the server's
+    imports take about a second), :meth:`Engine.map` runs its tasks in the calling process,
+    one at a time, on the core the server leaves free.
 ``local:N``
     a ``dask.distributed.LocalCluster`` of N single-threaded worker processes, started for the
     build and closed after it.
@@ -200,6 +202,8 @@ class Engine:
         self._client = None
         self._cluster = None
         self._pool = None
+        #: Set once a ``processes`` engine's workers have started (None: nothing starts).
+        self._starting: threading.Event | None = None
 
     def __enter__(self) -> Engine:
         if self.spec.kind == "threads":
@@ -212,7 +216,9 @@ class Engine:
                 initargs=(os.getpid(), current_umask(), dict(os.environ)))
             # one task per worker starts every worker now, importing what the tasks need;
             # from a thread, as a fork server answers only once it has imported them
-            threading.Thread(target=start_workers, args=(self._pool, self.spec.workers),
+            self._starting = threading.Event()  # set once they are up
+            threading.Thread(target=start_workers,
+                             args=(self._pool, self.spec.workers, self._starting),
                              name="slicer-start-workers", daemon=True).start()
         if self.spec.kind in ("local", "remote"):
             try:
@@ -268,6 +274,12 @@ class Engine:
             self._cluster.close()
         self._client = self._cluster = None
 
+    def wait_for_workers(self, timeout: float | None = None) -> bool:
+        """Wait until a ``processes`` engine's workers have started (or failed to); True if
+        they have (always for other engines), False after ``timeout`` seconds. Until then
+        :meth:`map` runs its tasks in this process."""
+        return self._starting is None or self._starting.wait(timeout)
+
     @property
     def workers(self) -> int:
         """How many tasks run at once."""
@@ -296,8 +308,7 @@ class Engine:
             total = count
         batch = self._batch_size(count)
         window = max(2, 2 * self.workers)
-        tasks = iter(items) if batch == 1 else _batches(items, batch, count=count,
-                                                         workers=self.workers)
+        items, done = iter(items), 0
         task_func = func if batch == 1 else functools.partial(_run_batch, func)
         # a task in another process warns there: its warnings come back with its result
         elsewhere = self._client is not None or isinstance(
@@ -307,12 +318,24 @@ class Engine:
         registry: dict = {}
         with contextlib.ExitStack() as stack, bar_for(enabled=progress, total=total, desc=desc,
                                                       unit=unit) as bar:
+            # while the worker processes start (the fork server imports the task modules,
+            # about a second, and a submit waits for it), the tasks run here, one at a time
+            while self._starting is not None and not self._starting.is_set():
+                item = next(items, _END)
+                if item is _END:
+                    return
+                result = func(item)
+                bar.update(weights[done] if weights is not None else 1)
+                done += 1
+                yield result
+            left = None if count is None else count - done
+            tasks = items if batch == 1 else _batches(items, batch, count=left,
+                                                      workers=self.workers)
             submit = self._submitter(stack)
             pending: collections.deque = collections.deque()
             try:
                 for task in itertools.islice(tasks, window):
                     pending.append(submit(task_func, task))
-                done = 0
                 while pending:
                     try:
                         results = pending.popleft().result()
@@ -393,6 +416,10 @@ def _batches(items: Iterable, size: int, *, count: int | None = None,
         if left is not None:
             left -= len(batch)
         yield batch
+
+
+#: The end of the items (a sentinel no item can be).
+_END = object()
 
 
 def _run_batch(func: Callable, batch: list) -> list:

@@ -58,16 +58,20 @@ def _process_handles() -> bool:
     return True
 
 
-def start_workers(pool: concurrent.futures.Executor, count: int) -> None:
+def start_workers(pool: concurrent.futures.Executor, count: int,
+                  started: threading.Event | None = None) -> None:
     """Start ``count`` workers of ``pool``, each importing :data:`WARM_MODULES` (a task of
-    its own, so every worker starts at once). A pool shut down meanwhile starts none."""
+    its own, so every worker starts at once), then set ``started``: when they have, or could
+    not. A pool shut down meanwhile starts none."""
     try:
-        for _ in range(count):
-            pool.submit(_warm_up, WARM_MODULES)
+        concurrent.futures.wait([pool.submit(_warm_up, WARM_MODULES) for _ in range(count)])
     except (RuntimeError, OSError, EOFError):
         # shut down meanwhile (the build failed while planning), or no process could start:
         # the build's own first task meets that again and says so (engine.Engine.map)
         pass
+    finally:
+        if started is not None:
+            started.set()
 
 
 def _warm_up(modules: Sequence[str]) -> None:

@@ -112,6 +112,7 @@ def test_process_workers_take_the_callers_umask_and_environment_of_now(monkeypat
     old = os.umask(0o037)
     try:
         with Engine(parse_scheduler("processes", workers=2)) as engine:
+            assert engine.wait_for_workers(60)  # else the first tasks run in this process
             states = set(engine.map(_process_state, range(4), desc="state", progress=False))
     finally:
         os.umask(old)
@@ -154,6 +155,45 @@ def test_a_warning_from_workers_is_shown_once_under_the_default_filter():
         warnings.simplefilter("default")
         list(engine.map(_warning_task, [4, 4, 4, 1], desc="w", progress=False))
     assert [str(w.message) for w in caught] == ["a divisor is zero"]
+
+
+#: The engine whose workers the next task waits for (set in the calling process only).
+_WAITING_ENGINE = None
+
+
+def _pid_after(item):
+    if item == 3 and _WAITING_ENGINE is not None:  # run here: let the workers come up first
+        assert _WAITING_ENGINE.wait_for_workers(60)
+    return item, os.getpid()
+
+
+def test_tasks_run_here_until_the_workers_have_started(monkeypatch):
+    # The fork server imports the task modules before the first worker exists (about a
+    # second), and a submit waits for it: meanwhile the calling process takes the tasks in
+    # turn, so that the core the server leaves free is not idle. Held back until item 2 ran,
+    # the workers cannot take items 0-2; item 3 waits for them, so they take the rest.
+    import threading
+
+    import slicer.pipeline.engine as engine_module
+    gate, real = threading.Event(), engine_module.start_workers
+
+    def held(pool, count, started):
+        gate.wait(60)
+        real(pool, count, started)
+
+    monkeypatch.setattr(engine_module, "start_workers", held)
+    with Engine(parse_scheduler("processes", workers=2)) as engine:
+        globals()["_WAITING_ENGINE"] = engine
+        try:
+            got = []
+            for item, pid in engine.map(_pid_after, range(12), desc="t", progress=False):
+                got.append((item, pid))
+                if item == 2:
+                    gate.set()
+        finally:
+            globals()["_WAITING_ENGINE"] = None
+    assert [item for item, _ in got] == list(range(12))
+    assert [pid == os.getpid() for _, pid in got] == [True] * 4 + [False] * 8
 
 
 @settings(max_examples=100, deadline=None)

@@ -237,6 +237,7 @@ CHILD = textwrap.dedent("""
 
     if __name__ == "__main__":
         with Engine(parse_scheduler(sys.argv[1], workers=2)) as engine:
+            engine.wait_for_workers(60)  # else the first tasks run in this process
             pids = set(engine.map(worker_pid, range(16), desc="pids", progress=False))
             with open(sys.argv[2] + ".part", "w") as f:
                 f.write(" ".join(map(str, pids)))
@@ -290,6 +291,7 @@ def test_a_worker_that_ends_mid_task_is_one_clear_error():
     # concurrent.futures raises BrokenProcessPool (its documented behaviour when a worker
     # ends abruptly); the engine names the scheduler and the causes instead
     with Engine(parse_scheduler("processes", workers=1)) as engine:
+        assert engine.wait_for_workers(60)  # else the first tasks run in this process
         with pytest.raises(SettingsError, match="worker process ended") as caught:
             list(engine.map(_end_this_process, [1, 2], desc="ending", progress=False))
     assert caught.value.where == "--scheduler"
@@ -306,6 +308,7 @@ def test_a_worker_process_that_cannot_start_is_one_clear_error(monkeypatch):
 
     monkeypatch.setattr(concurrent.futures.ProcessPoolExecutor, "_spawn_process", refuse)
     with Engine(parse_scheduler("processes", workers=2)) as engine:
+        assert engine.wait_for_workers(60)  # tried and failed; else the tasks run here
         with pytest.raises(SettingsError, match="cannot start a worker process") as caught:
             list(engine.map(abs, [1, 2], desc="starting", progress=False))
     assert caught.value.where == "--scheduler" and "\n" not in str(caught.value)
