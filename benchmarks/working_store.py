@@ -11,6 +11,11 @@ made, tiles written, slice COGs and overview written, store removed). It then ti
 processes, the import of the sink with and without the Zarr store's module (zarr-python and
 numcodecs), which a build without a Zarr store no longer imports.
 
+Last, the raw file's tile writes alone: every tile of each cube written through a memory map of
+the cube's ``(slice, y, x)`` layout (the raw file's layout until 2026-12-03 evening) against
+:class:`slicer.outputs.working_store.FileStore`, which keeps each tile whole and writes it in
+one ``os.pwrite``; ms per tile, median (minimum) of ``--repeat``, each into a new file.
+
     python benchmarks/working_store.py [--sizes 400x400,835x835] [--repeat 5]
 """
 
@@ -59,6 +64,35 @@ def run(cube, out: Path, *, kind: str) -> float:
         sink_module.working_kind = rule
 
 
+def mapped_tiles(cube, folder: Path) -> float:
+    """Seconds to write every tile of ``cube`` into a new raw ``(slice, y, x)`` file through a
+    memory map, as the raw file was written before it kept tiles whole."""
+    import os
+    path = folder / "mapped.raw"
+    with open(path, "wb") as f:
+        os.posix_fallocate(f.fileno(), 0, cube.values.nbytes)
+    start = time.perf_counter()
+    for row0, col0, h, w in tile_windows(cube.shape, TILE):
+        mapped = np.memmap(path, dtype=np.float32, mode="r+", shape=cube.shape)
+        mapped[:, row0:row0 + h, col0:col0 + w] = cube.values[:, row0:row0 + h, col0:col0 + w]
+        del mapped
+    seconds = time.perf_counter() - start
+    path.unlink()
+    return seconds
+
+
+def whole_tiles(cube, folder: Path) -> float:
+    """Seconds to write every tile of ``cube`` into a new FileStore."""
+    from slicer.outputs.working_store import FileStore
+    store = FileStore.create(folder, cube.shape, "envelope", tile=TILE)
+    start = time.perf_counter()
+    for row0, col0, h, w in tile_windows(cube.shape, TILE):
+        store.write_tile(row0, col0, cube.values[:, row0:row0 + h, col0:col0 + w])
+    seconds = time.perf_counter() - start
+    store.discard()
+    return seconds
+
+
 def import_seconds(code: str) -> float:
     probe = f"import time; t = time.perf_counter(); {code}; print(time.perf_counter() - t)"
     return float(subprocess.run([sys.executable, "-c", probe], check=True,
@@ -70,7 +104,7 @@ def main(argv=None) -> int:
     parser.add_argument("--sizes", default="400x400,835x835")
     parser.add_argument("--repeat", type=int, default=5)
     args = parser.parse_args(argv)
-    rows = []
+    rows, tile_rows = [], []
     with tempfile.TemporaryDirectory() as tmp:
         for size in args.sizes.split(","):
             nx, ny = (int(v) for v in size.lower().split("x"))
@@ -87,6 +121,16 @@ def main(argv=None) -> int:
                          *(f"{_f(median[k])} ({_f(min(times[k]))})" for k in kinds),
                          _f(median["zarr"] / median["file"]),
                          _f(median["zarr"] / median["memory"])])
+            n_tiles = sum(1 for _ in tile_windows(cube.shape, TILE))
+            ways = {"memory map": [], "whole tiles": []}
+            for _ in range(args.repeat):
+                ways["memory map"].append(mapped_tiles(cube, Path(tmp)) / n_tiles)
+                ways["whole tiles"].append(whole_tiles(cube, Path(tmp)) / n_tiles)
+            mid = {k: statistics.median(v) for k, v in ways.items()}
+            tile_rows.append([f"{nx} x {ny}", str(n_tiles),
+                              *(f"{_f(1000 * mid[k], 1)} ({_f(1000 * min(ways[k]), 1)})"
+                                for k in ways),
+                              _f(mid["memory map"] / mid["whole tiles"])])
     print(f"{N_SLICES} slices, tiles of {TILE}; seconds, median (minimum) of {args.repeat}")
     print(_table(["grid", "cube MiB", "Zarr store", "raw file", "memory", "Zarr/file",
                   "Zarr/memory"], rows))
@@ -95,6 +139,9 @@ def main(argv=None) -> int:
                                             "slicer.outputs.zarr_store") for _ in range(5))
     print(f"imports in a fresh process (median of 5): slicer.outputs.sink {_f(sink)} s, "
           f"with slicer.outputs.zarr_store {_f(both)} s")
+    print(f"raw file, ms per tile of {N_SLICES} slices, median (minimum) of {args.repeat}")
+    print(_table(["grid", "tiles", "memory map of (slice, y, x)", "whole tiles (FileStore)",
+                  "map/whole"], tile_rows))
     return 0
 
 

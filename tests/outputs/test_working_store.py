@@ -142,7 +142,7 @@ def test_a_raw_file_store_takes_tiles_from_other_processes(tmp_path):
     # this process then reads; tiles never written are marked as having no data
     import concurrent.futures
     import multiprocessing
-    store = FileStore.create(tmp_path, (3, 40, 50), "envelope")
+    store = FileStore.create(tmp_path, (3, 40, 50), "envelope", tile=32)
     assert store.path.parent == tmp_path.resolve() and store.path.name.startswith(".cube.")
     block = np.random.default_rng(3).random((3, 32, 32)).astype(np.float32)
     context = multiprocessing.get_context("spawn")
@@ -162,7 +162,7 @@ def test_a_raw_file_store_takes_tiles_from_other_processes(tmp_path):
 
 
 def test_a_raw_file_store_cut_short_is_an_output_error(tmp_path):
-    store = FileStore.create(tmp_path, (2, 10, 10), "envelope")
+    store = FileStore.create(tmp_path, (2, 10, 10), "envelope", tile=8)
     with open(store.path, "r+b") as f:
         f.truncate(100)
     with pytest.raises(OutputError, match="shorter"):
@@ -194,7 +194,7 @@ def test_a_disk_without_room_for_the_raw_file_is_one_output_error(tmp_path, monk
 
     monkeypatch.setattr(os, "posix_fallocate", full)
     with pytest.raises(OutputError, match="No space left") as info:
-        FileStore.create(tmp_path, (2, 10, 10), "envelope")
+        FileStore.create(tmp_path, (2, 10, 10), "envelope", tile=8)
     assert info.value.where == str(tmp_path)
     assert list(tmp_path.iterdir()) == []  # nothing left behind
 
@@ -207,7 +207,36 @@ def test_a_file_system_that_cannot_reserve_gets_a_sparse_file(tmp_path, monkeypa
         raise OSError(errno.EOPNOTSUPP, os.strerror(errno.EOPNOTSUPP))
 
     monkeypatch.setattr(os, "posix_fallocate", unsupported)
-    store = FileStore.create(tmp_path, (2, 10, 12), "envelope")
+    store = FileStore.create(tmp_path, (2, 10, 12), "envelope", tile=16)
     assert store.path.stat().st_size == 4 * 2 * 10 * 12
     store.write_tile(0, 0, np.ones((2, 10, 12), dtype=np.float32))
     np.testing.assert_array_equal(store.read(1), np.ones((10, 12), dtype=np.float32))
+
+
+@settings(max_examples=40, deadline=None)
+@given(n=st.integers(1, 4), ny=st.integers(1, 70), nx=st.integers(1, 70),
+       tile=st.sampled_from([16, 32, 48]), seed=st.integers(0, 2**16))
+def test_a_raw_file_store_gives_back_every_slice_from_tiles_in_any_order(n, ny, nx, tile, seed):
+    # the file holds whole tiles one after another; a slice is gathered from all of them
+    import tempfile
+    from pathlib import Path
+    rng = np.random.default_rng(seed)
+    cube = rng.standard_normal((n, ny, nx)).astype(np.float32)
+    windows = list(tile_windows(cube.shape, tile))
+    with tempfile.TemporaryDirectory() as folder:
+        store = FileStore.create(Path(folder), cube.shape, "envelope", tile=tile)
+        for k in rng.permutation(len(windows)):
+            row0, col0, h, w = windows[k]
+            store.write_tile(row0, col0, cube[:, row0:row0 + h, col0:col0 + w])
+        assert store.path.stat().st_size == cube.nbytes  # the cells and nothing else
+        for i in range(n):
+            np.testing.assert_array_equal(store.read(i), cube[i])
+
+
+def test_a_raw_file_store_takes_only_tiles_of_its_grid(tmp_path):
+    store = FileStore.create(tmp_path, (2, 40, 40), "envelope", tile=16)
+    for row0, col0, h, w in [(8, 0, 16, 16), (0, 16, 16, 8), (32, 32, 4, 8)]:
+        with pytest.raises(SettingsError, match="not a tile"):
+            store.write_tile(row0, col0, np.zeros((2, h, w), dtype=np.float32))
+    store.write_tile(32, 32, np.ones((2, 8, 8), dtype=np.float32))  # the corner tile
+    assert store.read(1)[32:, 32:].tolist() == np.ones((8, 8)).tolist()
