@@ -176,3 +176,28 @@ def test_max_cells_is_exact():
 def test_count_text():
     assert count_text(4097) == "4097" and count_text(4096.2) == "4097"
     assert count_text(1e301) == "1e+301" and count_text(float("inf")) == "countless"
+
+
+@settings(max_examples=60, deadline=None)
+@given(n_lines=st.integers(1, 6), spacing=st.floats(0.2, 1.5), step=st.floats(0.03, 0.3),
+       radius=st.floats(0.12, 1.2), cell=st.sampled_from([0.05, 0.1, 0.25]),
+       seed=st.integers(0, 2**16))
+def test_a_cell_is_empty_when_it_has_no_weight_or_no_trace_within_the_radius(
+        n_lines, spacing, step, radius, cell, seed):
+    # With no gap bridged (max_gap 0), a cell is NaN exactly when no weight reaches it or no
+    # trace lies within the radius: checked against every cell-trace distance (brute force).
+    rng = np.random.default_rng(seed)
+    x, y, ids = parallel_lines(n_lines=n_lines, spacing=spacing, length=3.0, step=step,
+                               x0=512000.0 + rng.random(), y0=4650000.0 + rng.random())
+    drop = rng.random(x.size) < 0.2  # holes along the lines too
+    if drop.all():
+        drop[0] = False
+    x, y, ids = x[~drop], y[~drop], ids[~drop]
+    g = grid_for(x, y, cell=cell)
+    w = neighbour_weights(g, x, y, ids, radius=radius, max_gap=0.0)
+    gx, gy = (a.ravel() for a in np.meshgrid(g.x, g.y))
+    nearest = np.sqrt(((gx[:, None] - x) ** 2 + (gy[:, None] - y) ** 2).min(axis=1))
+    weight = np.asarray(w.matrix.sum(axis=1)).ravel()
+    expected = (weight <= 0) | (nearest > radius)
+    tie = np.abs(nearest - radius) < 1e-9  # the tree's bound at exactly the radius
+    np.testing.assert_array_equal(w.empty[~tie], expected[~tie])
