@@ -386,7 +386,9 @@ def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
                                 distance_upper_bound=frame.radius)
         empty[ask] = ~np.isfinite(nearest)
     scale = np.where(total > 0, 1.0 / np.where(total > 0, total, 1.0), 0.0)
-    return (scipy.sparse.diags_array(scale) @ matrix).tocsr(), empty
+    # each row by its scale, in place: the product diag(scale) @ matrix, without making one
+    matrix.data *= np.repeat(scale, np.diff(matrix.indptr))
+    return matrix, empty
 
 
 def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray, *,
