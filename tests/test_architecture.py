@@ -115,7 +115,19 @@ def test_the_build_does_load_them():
     heavy stack (``slicer.build`` itself defers them, so its workers start sooner)."""
     loaded = _modules_after(None, "import slicer\nslicer.build\n"
                                   "import slicer.pipeline.worker_outputs")
-    assert {"dask", "h5py", "rasterio"} <= loaded
+    assert {"dask", "rasterio", "segyio"} <= loaded
+
+
+def test_a_build_without_netcdf_or_zarr_does_not_load_their_libraries():
+    """What a GeoTIFF build's processes import (the calling process's writers, and what its
+    workers' fork server imports) leaves out the NetCDF and Zarr writers' libraries and
+    dask.array: 0.5 s of every worker's start (benchmarks/startup.py)."""
+    from slicer.pipeline.worker_processes import WARM_MODULES
+    loaded = _modules_after(None, "import slicer\nslicer.build\n"
+                                  "import slicer.pipeline.view, slicer.outputs.sink\n"
+                                  + "".join(f"import {m}\n" for m in WARM_MODULES))
+    assert set(WARM_MODULES) <= loaded
+    assert [m for m in ("h5py", "h5netcdf", "netCDF4", "zarr", "dask.array") if m in loaded] == []
 
 
 def test_a_builds_worker_does_not_load_the_drawing_libraries():

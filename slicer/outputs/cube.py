@@ -17,7 +17,6 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 
 import dask
-import dask.array as darray
 import numpy as np
 import pyproj
 import xarray as xr
@@ -231,6 +230,7 @@ def empty_cube(shape: tuple[int, int, int], *, tile: int = TILE, **kwargs) -> xr
     if len(shape) != 3:
         raise SettingsError(f"a cube shape is (n_slices, ny, nx), got {shape}", where="shape")
     tile = _check_tile_size(tile)
+    import dask.array as darray  # here: 0.13-0.4 s to import, which a worker need not pay
     values = darray.full(shape, np.nan, dtype=np.float32, chunks=(1, tile, tile))
     return new_cube(values, **kwargs)
 

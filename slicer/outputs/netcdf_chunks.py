@@ -15,11 +15,13 @@ from __future__ import annotations
 import zlib
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import dask.array as darray
-import h5py
 import numpy as np
 import xarray as xr
+
+if TYPE_CHECKING:
+    import h5py
 
 from slicer.core.errors import OutputError
 
@@ -43,6 +45,7 @@ def write_skeleton(template: xr.DataArray, target: str | Path, *, tile: int) -> 
     Chunks are ``(1, tile, tile)``, as in the Zarr store (:func:`expected_layout`).
     """
     import dask
+    import dask.array as darray  # here: builds without NetCDF never import it
 
     from slicer.outputs.cube import _write_netcdf
     layout = expected_layout(template, tile=tile)
@@ -73,6 +76,7 @@ def chunk_layout(path: str | Path, name: str) -> ChunkLayout:
     OutputError
         The variable is not chunked, or uses a filter other than shuffle and deflate.
     """
+    import h5py  # here: builds without NetCDF never import it
     with h5py.File(path, "r") as f:
         d = f[name]
         if d.chunks is None or d.compression != "gzip" or d.fletcher32 or d.scaleoffset:

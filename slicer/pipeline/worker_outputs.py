@@ -65,7 +65,7 @@ def grid_and_store(item: StoredTile) -> tuple[int, int, np.ndarray]:
     else:
         folder = Path(item.store).parent
         check_room(folder, block.nbytes, where=folder)
-        from slicer.outputs.zarr_store import write_tile  # zarr: imported by the fork server
+        from slicer.outputs.zarr_store import write_tile  # zarr: only where a store is
         write_tile(item.store, row0, col0, block)
     return row0, col0, decimate(block, row0, col0, item.stride)
 

@@ -27,8 +27,10 @@ PARENT_CHECK_INTERVAL = 0.5
 #: what the line and tile tasks need, imported once by the fork server (:func:`worker_context`).
 #: A worker would otherwise import them at its first task, about 1.4-1.6 s of a core after the
 #: calling process has planned the build; started at once, the imports overlap that work.
+#: Not the Zarr store's module (zarr and dask.array, 0.14-0.28 s): only builds writing
+#: ``cube.zarr`` or ``cube.nc`` use it, and their workers import it at their first tile.
 WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
-                "slicer.pipeline.worker_outputs", "slicer.outputs.zarr_store")
+                "slicer.pipeline.worker_outputs")
 
 
 def worker_context() -> multiprocessing.context.BaseContext:
