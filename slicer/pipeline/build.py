@@ -8,12 +8,13 @@ from __future__ import annotations
 
 import contextlib
 import datetime as _dt
+import functools
 import importlib
 import math
 import threading
 import time
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -38,6 +39,7 @@ from slicer.io.reading import describe_file, line_info
 from slicer.outputs.names import FORMATS, OVERVIEW_NAME, OVERVIEW_PAGES, VIEW_NAMES
 from slicer.pipeline.bounds import check_bounds
 from slicer.pipeline.budget import DEFAULT_LIMIT, Estimate, estimate, human, parse_bytes
+from slicer.pipeline.build_result import BuildResult
 from slicer.pipeline.engine import Engine, parse_scheduler
 from slicer.pipeline.line_chain import processing_summary
 from slicer.pipeline.line_tasks import nice_number, reduce_survey
@@ -154,16 +156,6 @@ def default_cell(x: np.ndarray, y: np.ndarray, line: np.ndarray) -> float:
     spacing = np.nanmedian(line_spacings(x, y, line))
     base = spacing / 4 if math.isfinite(spacing) else 4 * trace_spacing(x, y, line)
     return nice_number(base)
-
-
-@dataclass
-class BuildResult:
-    """What a build made: the cube, the files written and the record of how."""
-
-    cube: xr.DataArray
-    record: dict
-    files: list[Path] = field(default_factory=list)
-    warnings: list[str] = field(default_factory=list)
 
 
 @dataclass
@@ -361,10 +353,11 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
     Returns
     -------
     BuildResult
-        ``cube`` is the committed cube, opened lazily (dask) from the output folder: from
-        ``cube.zarr`` when written, else from the slice GeoTIFFs (rioxarray, stacked along
-        the slice dim; windows, coordinates and attrs as the build made them), else from
-        ``cube.nc``. It stays valid after the call, as long as those files do.
+        ``cube`` is the committed cube, opened from the output folder the first time it is
+        asked for, lazily (dask): from ``cube.zarr`` when written, else from the slice
+        GeoTIFFs (rioxarray, stacked along the slice dim; windows, coordinates and attrs as
+        the build made them), else from ``cube.nc``. It stays valid after the call, as long
+        as those files do.
 
     Raises
     ------
@@ -445,8 +438,8 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
     for message in warned:  # the caller sees them too
         warnings.warn(message, SlicerWarning, stacklevel=2)
-    return BuildResult(cube=open_result(template, files), record=r.record, files=files,
-                       warnings=warned)
+    return BuildResult(cube=functools.partial(open_result, template, files), record=r.record,
+                       files=files, warnings=warned)
 
 
 def _import_aside(module: str) -> None:

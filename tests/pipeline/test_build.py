@@ -377,3 +377,25 @@ def test_a_line_task_warning_reaches_the_record_from_worker_processes(small_surv
     assert result.record["engine"].startswith(scheduler)
     assert [w for w in result.record["warnings"] if "NaN" in w] == \
         [f"{tmp_path / 'L2.nc'}: 7 NaN or infinite sample(s) set to 0"]
+
+
+def test_the_built_cube_is_opened_when_first_asked_for(small_survey, tmp_path, monkeypatch):
+    # the command line never asks for it; opening the slice files took 0.3 s of a build
+    import slicer.pipeline.view as view_module
+    opened = []
+    real = view_module.open_result
+
+    def counting(*args):
+        opened.append(args)
+        return real(*args)
+
+    monkeypatch.setattr(view_module, "open_result", counting)
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1, time_zero=3.0,
+                                    velocity=0.1, depths="0:2.4:0.1", cell=0.1,
+                                    out=tmp_path / "out")
+    result = slicer.build(settings, progress=False)
+    assert opened == [] and "not opened yet" in repr(result)
+    cube = result.cube
+    assert len(opened) == 1 and result.cube is cube  # once, then kept
+    with rasterio.open(result.files[0]) as first:
+        np.testing.assert_array_equal(cube.isel({cube.dims[0]: 0}).values, first.read(1))
