@@ -165,37 +165,43 @@ def _window_means_core(samples: np.ndarray, *, twt: np.ndarray, t_top: np.ndarra
                        t_bottom: np.ndarray) -> np.ndarray:
     """Exact mean of the piecewise-linear traces over each ``[t_top, t_bottom)`` (last axis).
 
-    The integral from the first sample to sample ``k`` is ``dt * (S_k - (y_0 + y_k) / 2)``
-    with ``S_k`` the sum of samples 0 to ``k`` (the trapezoid rule, exact for a
-    piecewise-linear trace). Only the ``S_k`` at the windows' ends are needed: sums of the
-    runs of samples between them (one pass, in double precision), summed up.
+    The mean over a window is linear in the samples: ``samples @ W``, with ``W`` the weights
+    of :func:`window_weights`, one matrix product (BLAS) for every trace and window. Float32
+    samples are summed in float32 (a relative rounding of about 1e-7 of the values, as the
+    float32 result keeps anyway; 2.0 against 5.3 ms for a 3165-trace line's 24 windows
+    summed in float64 by runs of samples before: benchmarks/window_means.py); others in
+    float64.
     """
     y = np.asarray(samples)
-    n = y.shape[-1]
-    dt = float(twt[1] - twt[0])
-
-    def position(t: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        pos = (t - twt[0]) / dt
-        k = np.clip(np.floor(pos).astype(int), 0, n - 2)
-        return k, pos - k
-
-    (k_top, u_top), (k_bottom, u_bottom) = position(t_top), position(t_bottom)
-    ends = np.unique(np.concatenate([k_top, k_bottom]) + 1)  # S_k is the sum of y[:k + 1]
-    runs = np.add.reduceat(y, np.concatenate([[0], ends]), axis=-1, dtype=np.float64)
-    sums = np.cumsum(runs[..., :-1], axis=-1)  # sums[..., i]: sum of y[:ends[i]]
-    first = y[..., :1].astype(np.float64)
-
-    def integral_to(k: np.ndarray, u: np.ndarray) -> np.ndarray:
-        y0 = y[..., k].astype(np.float64)
-        y1 = y[..., k + 1]
-        s_k = sums[..., np.searchsorted(ends, k + 1)]
-        return dt * (s_k - 0.5 * (first + y0) + u * y0 + 0.5 * u * u * (y1 - y0))
-
-    means = ((integral_to(k_bottom, u_bottom) - integral_to(k_top, u_top))
-             / (t_bottom - t_top))
+    dtype = np.float32 if y.dtype == np.float32 else np.float64
+    weights = window_weights(twt, t_top, t_bottom).astype(dtype, copy=False)
+    means = y.astype(dtype, copy=False) @ weights
     outside = (t_top < twt[0] - 1e-9) | (t_bottom > twt[-1] + 1e-9)
     means[..., outside] = np.nan  # a window the record does not reach has no value
-    return means.astype(np.float32)
+    return means.astype(np.float32, copy=False)
+
+
+def window_weights(twt: np.ndarray, t_top: np.ndarray, t_bottom: np.ndarray) -> np.ndarray:
+    """Weights ``(samples, windows)``, float64: the mean over ``[t_top, t_bottom)`` of a trace
+    sampled on the even axis ``twt`` and linear between samples is the weighted sum of its
+    samples.
+
+    The linear trace is the sum of its samples times hat functions (1 at their sample, 0 at
+    the next ones); the weight of sample ``k`` is the hat's integral over the window,
+    ``dt (F((t_bottom - t_k) / dt) - F((t_top - t_k) / dt))``, over the window's length,
+    with ``F`` the hat's integral from its left end (the trapezoid rule, exact for such a
+    trace).
+    """
+    twt = np.asarray(twt, dtype=np.float64)
+    dt = float(twt[1] - twt[0])
+    t_k = twt[0] + dt * np.arange(twt.size)[:, None]  # an even axis, as the traces are
+
+    def hat_integral(t: np.ndarray) -> np.ndarray:
+        u = np.clip((np.asarray(t, dtype=np.float64)[None, :] - t_k) / dt, -1.0, 1.0)
+        return np.where(u <= 0, 0.5 * (1 + u) ** 2, 1 - 0.5 * (1 - u) ** 2)
+
+    return (hat_integral(t_bottom) - hat_integral(t_top)) * (
+        dt / (np.asarray(t_bottom, dtype=np.float64) - np.asarray(t_top, dtype=np.float64)))
 
 
 def _limits_along(line: xr.DataArray, windows: Windows, velocity, separation: float = 0.0

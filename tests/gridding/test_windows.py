@@ -146,3 +146,27 @@ def test_thickness_a_rounding_error_above_the_range_gives_one_window():
     # the 1e-9 tolerance), which once gave no window at all
     w = make_windows(0.0, 9007199200697795.0, 1.0, thickness=9007199200697798.0, axis="twt")
     assert len(w) == 1 and w.top[0] == 0.0
+
+
+@settings(max_examples=80, deadline=None)
+@given(n=st.integers(2, 300), dt=st.floats(0.01, 2.0), start=st.floats(-50, 50),
+       seed=st.integers(0, 2**16), dtype=st.sampled_from([np.float32, np.float64]))
+def test_window_means_equal_the_trapezoid_integral_of_the_linear_trace(n, dt, start, seed,
+                                                                       dtype):
+    # Reference: numpy.interp's linear trace at the window's ends and the samples inside it,
+    # integrated by numpy.trapezoid (exact for a piecewise-linear function), over the length.
+    from slicer.gridding.windows import _window_means_core
+    rng = np.random.default_rng(seed)
+    twt = start + dt * np.arange(n)
+    samples = (rng.standard_normal((3, n)) * 10 + 5).astype(dtype)
+    ends = np.sort(rng.uniform(twt[0], twt[-1], size=(6, 2)), axis=1)
+    ends[:, 1] = np.maximum(ends[:, 1], ends[:, 0] + 1e-3 * dt)  # no empty window
+    ends = ends[ends[:, 1] <= twt[-1]]
+    got = _window_means_core(samples, twt=twt, t_top=ends[:, 0], t_bottom=ends[:, 1])
+    for j, (a, b) in enumerate(ends):
+        inside = twt[(twt > a) & (twt < b)]
+        t = np.concatenate([[a], inside, [b]])
+        for i in range(3):
+            want = np.trapezoid(np.interp(t, twt, samples[i].astype(np.float64)), t) / (b - a)
+            tol = (2e-6 if dtype == np.float32 else 1e-12) * np.abs(samples[i]).max() + 1e-12
+            assert abs(got[i, j] - want) <= tol + 1e-6 * abs(want), (got[i, j], want)
