@@ -280,7 +280,8 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
                f"{steps.min():g}-{steps.max():g} m/ns (layered)"))
 
     def apply(samples: np.ndarray) -> np.ndarray:
-        out = np.array(samples, dtype=np.float32, copy=True)
+        out = np.empty(np.shape(samples), dtype=np.float32)
+        out[..., :start] = samples[..., :start]  # above the surface: passed through
         out[..., start:] = core(samples[..., start:], dx=dx, dt=dt, t_first=t_first,
                                 taper=taper, pad=int(pad), band=band, frequency=frequency,
                                 **kwargs)
