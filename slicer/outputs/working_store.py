@@ -10,8 +10,8 @@ store to create, no chunks to compress and read back. The sink of a 24 x 400 x 4
 (benchmarks/working_store.py).
 
 A build on worker processes that writes the GeoTIFFs alone holds the cube in one raw float32
-file (:class:`FileStore`): the workers write their tiles into it through a memory map and read
-it back a slice at a time. Zarr's chunk files cost 1.3 s of CPU to write and 0.8 s to read back
+file (:class:`FileStore`): the workers write each tile whole into it (one ``os.pwrite``) and
+read it back a slice at a time. Zarr's chunk files cost 1.3 s of CPU to write and 0.8 s to read back
 for a 1 M-trace cube (24 x 1575 x 1582 cells, 1176 chunks; benchmarks/working_store.py).
 """
 
