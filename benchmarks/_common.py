@@ -31,6 +31,28 @@ except ModuleNotFoundError as missing:  # a checkout, not installed: the package
     sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 
+def compile_slicer(folder: Path | None = None) -> int:
+    """Byte-compile slicer's modules (those of the package in ``folder``, default the one
+    imported) into their ``__pycache__`` folders, as ``pip install .`` does at install time;
+    returns how many were compiled anew.
+
+    A checkout installed with ``pip install -e .`` under ``PYTHONDONTWRITEBYTECODE=1`` (set on
+    this machine) never caches its byte code, so every process of a build compiled all of
+    slicer's modules again (about 0.3 s of a 3 s build at 65 k traces), while the libraries it
+    is compared with were compiled when pip installed them. Python still reads cached byte code
+    under that setting; it only does not write it.
+    """
+    import compileall
+    import io
+    if folder is None:
+        import slicer as package
+        folder = Path(package.__file__).parent
+    before = sum(1 for _ in folder.rglob("__pycache__/*.pyc"))
+    with contextlib.redirect_stdout(io.StringIO()):
+        compileall.compile_dir(folder, quiet=1)
+    return sum(1 for _ in folder.rglob("__pycache__/*.pyc")) - before
+
+
 def _f(value, digits: int = 2) -> str:
     return "-" if value is None or not math.isfinite(value) else f"{value:.{digits}f}"
 

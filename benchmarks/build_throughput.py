@@ -48,6 +48,7 @@ from _common import (  # noqa: E402
     _f,
     _memory_mib,
     _table,
+    compile_slicer,
     in_fresh_process,
     square_patch,
 )
@@ -317,6 +318,7 @@ def parse_args(argv=None):
 
 def main(argv=None) -> int:
     args = parse_args(argv)
+    compile_slicer()  # as pip install does (see _common)
     begun = time.perf_counter()
     if args.keep is not None:
         root = args.keep.resolve()

@@ -44,7 +44,7 @@ from pathlib import Path
 import _common  # noqa: F401 - first: one BLAS thread before numpy loads
 import numpy as np  # noqa: E402 - after the thread settings
 import scipy.fft  # noqa: E402 - after the thread settings
-from _common import _f, _table  # noqa: E402
+from _common import _f, _table, compile_slicer  # noqa: E402
 
 import slicer  # noqa: E402 - after the thread settings
 import slicer.synthetic as syn  # noqa: E402 - after the thread settings
@@ -352,6 +352,7 @@ def _load() -> str:
 
 def main(argv=None) -> int:
     args = parse_args(argv)
+    compile_slicer()  # as pip install does (see _common)
     versions = ", ".join(f"{p} {md.version(p)}" for p in ("numpy", "scipy"))
     print(f"# migration benchmark, {_dt.datetime.now():%Y-%m-%d %H:%M}, {os.cpu_count()} CPUs, "
           f"Python {platform.python_version()}, {versions}, slicer from "
