@@ -130,6 +130,18 @@ def test_a_build_without_netcdf_or_zarr_does_not_load_their_libraries():
     assert [m for m in ("h5py", "h5netcdf", "netCDF4", "zarr", "dask.array") if m in loaded] == []
 
 
+def test_a_build_without_a_terminal_does_not_load_tqdm():
+    """Bars are drawn on a terminal only (slicer.core.progress); elsewhere tqdm, whose import
+    looks up its installed version (about 60 ms a process), is not loaded at all."""
+    from slicer.pipeline.worker_processes import WARM_MODULES
+    loaded = _modules_after(None, "import slicer.pipeline.view, slicer.outputs.sink\n"
+                                  + "".join(f"import {m}\n" for m in WARM_MODULES)
+                                  + "from slicer.core.progress import bar_for, progress_bar\n"
+                                  "assert list(progress_bar(range(3))) == [0, 1, 2]\n"
+                                  "with bar_for(total=2) as bar:\n    bar.update(2)\n")
+    assert "slicer.core.progress" in loaded and "tqdm" not in loaded
+
+
 def test_a_builds_worker_does_not_load_the_drawing_libraries():
     """A build's worker process imports its task modules (worker_processes.WARM_MODULES) and never
     draws: matplotlib (about 0.5 s of its start) and scipy.signal (0.6-0.7 s) stay out
