@@ -142,6 +142,23 @@ def test_a_build_without_a_terminal_does_not_load_tqdm():
     assert "slicer.core.progress" in loaded and "tqdm" not in loaded
 
 
+def test_reading_a_builds_settings_does_not_load_the_array_libraries(tmp_path):
+    """slicer.load_settings reads and checks a line table with the standard library, numpy and
+    pyproj: xarray (with pandas and dask), scipy and the file readers come with the build,
+    which can start its worker processes' imports first."""
+    (tmp_path / "lines.csv").write_text(
+        "file,start_x,start_y,end_x,end_y\nL1.sgy,0,0,10,0\nL2.sgy,0,1,10,1\n")
+    loaded = _modules_after(None, (
+        "import slicer\n"
+        f"s = slicer.load_settings({str(tmp_path / 'lines.csv')!r}, crs='EPSG:32633', "
+        "sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.1, depths='0:2.4:0.1', "
+        "background='scaled', out='out')\n"
+        "assert s.cell == 0.1 and len(s.lines) == 2\n"))
+    assert "slicer.pipeline.settings" in loaded and "pyproj" in loaded
+    assert [m for m in ("xarray", "pandas", "dask", "scipy", "segyio", "rasterio")
+            if m in loaded] == []
+
+
 def test_a_builds_worker_does_not_load_the_drawing_libraries():
     """A build's worker process imports its task modules (worker_processes.WARM_MODULES) and never
     draws: matplotlib (about 0.5 s of its start) and scipy.signal (0.6-0.7 s) stay out

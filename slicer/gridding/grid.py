@@ -31,6 +31,7 @@ import scipy.sparse
 import scipy.spatial
 
 from slicer.core.errors import SettingsError, warn
+from slicer.gridding.cells import check_cell as check_cell  # re-exported
 from slicer.gridding.neighbours import (
     line_directions,
     side_distances,
@@ -73,18 +74,6 @@ class Grid:
     @property
     def size(self) -> int:
         return self.nx * self.ny
-
-
-def check_cell(cell: float, *, where: str = "--cell") -> float:
-    """Return the cell size (m) if it is a positive finite number."""
-    try:
-        c = float(cell)
-    except (TypeError, ValueError):
-        raise SettingsError(f"cell size must be a number of metres, got {cell!r}",
-                            where=where) from None
-    if not math.isfinite(c) or c <= 0:
-        raise SettingsError(f"cell size must be positive, got {c:g} m", where=where)
-    return c
 
 
 #: Cells :func:`grid_for` lays out at most, whatever else allows: a last guard (a build checks

@@ -10,13 +10,16 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import DEPTH, ELEVATION, SLICE, TWT
 from slicer.core.errors import SettingsError
 from slicer.core.physics import check_velocity, time_from_depth
+
+if TYPE_CHECKING:  # xarray where it is used: a build's settings are read without it
+    import xarray as xr
 
 
 @dataclass(frozen=True)
@@ -264,6 +267,7 @@ def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
 
 def _reduce_along(line: xr.DataArray, dim: str, lo: np.ndarray, hi: np.ndarray,
                   windows: Windows) -> xr.DataArray:
+    import xarray as xr
     twt = line[dim].values
     t_top, t_bottom = lo, hi
     data = line.chunk({dim: -1}) if line.chunks is not None else line

@@ -28,7 +28,7 @@ import pyproj
 
 from slicer.core.errors import LineTableError, SettingsError
 from slicer.core.physics import check_velocity, velocity_from_permittivity
-from slicer.gridding.grid import check_cell
+from slicer.gridding.cells import check_cell
 from slicer.gridding.windows import Windows, make_windows, parse_range
 from slicer.io.linetable import (
     POSITION_SOURCES,

@@ -44,8 +44,6 @@ import re
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.fft
-import scipy.ndimage
 
 from slicer.core.errors import SettingsError
 
@@ -166,6 +164,7 @@ def background_median(samples: np.ndarray) -> np.ndarray:
 def _period_samples(background: np.ndarray) -> float:
     """The period, in samples, of the peak of the background trace's amplitude spectrum
     (averaged over any leading axes); 8 samples when it has no clear peak."""
+    import scipy.fft  # here, not at module level: a build's settings are read without scipy
     flat = background.reshape(-1, background.shape[-1]).astype(np.float64)
     spectrum = np.abs(scipy.fft.rfft(np.nan_to_num(flat), axis=-1)).mean(axis=0)
     spectrum[0] = 0.0
@@ -225,6 +224,7 @@ def removal_of(taken: np.ndarray, *, method: str, window: tuple[int, int] | None
         return Removal(method, b)
     period = period or _period_samples(background)
     size = max(3, int(round(FIT_PERIODS * period)) | 1)
+    import scipy.ndimage
     bb = scipy.ndimage.uniform_filter1d(b * b, size, axis=-1, mode="nearest")
     floor = np.float32(1e-6) * np.nanmax(bb, axis=-1, keepdims=True) + np.float32(1e-30)
     return Removal(method, b, bb + floor, size)
@@ -237,6 +237,7 @@ def remove(samples: np.ndarray, removal: Removal) -> np.ndarray:
     if removal.method != "scaled":
         return np.subtract(samples, b, dtype=np.float32)
     # a = <x b> / <b b> over a sliding window; the floor keeps `a` quiet where b is silent
+    import scipy.ndimage
     xb = scipy.ndimage.uniform_filter1d(samples * b, removal.size, axis=-1, mode="nearest")
     # in place on xb (float32, as the samples): the scale, then the fitted background
     scale = xb.astype(np.float32, copy=False)

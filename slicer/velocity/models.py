@@ -30,13 +30,16 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import C_M_PER_NS, DEPTH, TRACE, TWT, X, Y
 from slicer.core.errors import SettingsError
 from slicer.core.physics import check_velocity, velocity_from_permittivity
+
+if TYPE_CHECKING:  # xarray where it is used: a build's settings are read without it
+    import xarray as xr
 
 #: Core dim of the per-trace layer velocities passed to the depth-conversion core.
 LAYER = "layer"
@@ -448,6 +451,7 @@ def to_depth_axis(line: xr.DataArray, model: VelocityModel, *, depths) -> xr.Dat
     else:
         tops, v, _ = model.profile()
         v = np.broadcast_to(v, (line.sizes[TRACE], v.size))
+    import xarray as xr
     velocities = xr.DataArray(np.ascontiguousarray(v), dims=(TRACE, LAYER))
     data = line
     if line.chunks is not None:
