@@ -48,7 +48,7 @@ from _common import _f, _table  # noqa: E402
 import slicer.outputs.geotiff as _geotiff  # noqa: E402 - after the thread settings
 from slicer.outputs.cube import new_cube  # noqa: E402
 
-WINDOW = 256  # the build's tile edge (slicer.pipeline.build.TILE)
+WINDOW = 256  # the build's tile edge (slicer.pipeline.cube_build.TILE)
 
 
 def make_cube(size: int, n: int, seed: int = 11):

@@ -71,7 +71,7 @@ def _store_netcdf_on_workers() -> None:
     """Process builds: a worker writes cube.nc from the finished store (no hand compression)."""
     from slicer.outputs.geotiff import write_slice_file
     from slicer.outputs.sink import CubeSink, write_netcdf_from_store
-    from slicer.pipeline import build as _build
+    from slicer.pipeline import worker_outputs
     from slicer.pipeline.worker_outputs import WorkerSink
 
     class StoreNetCDF(WorkerSink):
@@ -89,7 +89,7 @@ def _store_netcdf_on_workers() -> None:
             pool.shutdown(wait=False)
             return _Both(netcdf, tiffs)
 
-    _build.WorkerSink = StoreNetCDF
+    worker_outputs.WorkerSink = StoreNetCDF  # build() imports it from there at each call
 
 
 def build_with(table: str, out: str, scheduler: str, mode: str) -> dict:

@@ -52,8 +52,9 @@ IMPORTS = {
     "import slicer": "import slicer",
     "a build's worker": ("import slicer.pipeline.line_tasks, slicer.outputs.radargram, "
                          "slicer.pipeline.worker_outputs"),
-    "a build's writers": ("import slicer.pipeline.build, slicer.outputs.sink, "
-                          "slicer.pipeline.view, slicer.pipeline.worker_outputs"),
+    "a build's writers": ("import slicer.pipeline.build, slicer.pipeline.cube_build, "
+                          "slicer.outputs.sink, slicer.pipeline.view, "
+                          "slicer.pipeline.worker_outputs"),
 }
 
 

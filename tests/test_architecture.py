@@ -159,6 +159,33 @@ def test_reading_a_builds_settings_does_not_load_the_array_libraries(tmp_path):
             if m in loaded] == []
 
 
+def test_a_build_opens_its_engine_before_importing_the_array_stack(small_survey, tmp_path):
+    """slicer.build chooses and opens its engine (``scheduler = "auto"`` counts the traces in
+    the SEG-Y headers) before it imports xarray, scipy and the writers, so a ``processes``
+    engine's fork server imports the task modules while the calling process imports its own
+    (benchmarks/README.md, peers.py). The engine is watched as the build opens it."""
+    loaded = _modules_after(None, (
+        "import slicer\nimport slicer.pipeline.build as b\n"
+        "real = b.open_engine\n"
+        "def watch(settings):\n"
+        "    engine = real(settings)\n"
+        "    print('engine', engine.spec.kind, file=sys.stderr)\n"
+        "    print('\\n'.join(sys.modules), file=sys.stderr)\n"
+        "    raise SystemExit(0)\n"
+        "b.open_engine = watch\n"
+        f"s = slicer.load_settings({str(small_survey.line_table)!r}, crs='EPSG:32633', "
+        "sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.1, depths='0:2:0.25', "
+        f"scheduler='auto', out={str(tmp_path / 'out')!r})\n"
+        "slicer.build(s, progress=False)\n"
+        "print('not stopped', file=sys.stderr)\n"))
+    assert "engine" in loaded and "threads" in loaded and "stopped" not in loaded
+    assert "segyio" in loaded  # the trace count was read from the headers
+    assert [m for m in ("xarray", "pandas", "dask", "scipy", "rasterio", "matplotlib",
+                        "slicer.pipeline.cube_build", "slicer.pipeline.line_tasks")
+            if m in loaded] == []
+    assert not (tmp_path / "out").exists()
+
+
 def test_a_builds_worker_does_not_load_the_drawing_libraries():
     """A build's worker process imports its task modules (worker_processes.WARM_MODULES) and never
     draws: matplotlib (about 0.5 s of its start) and scipy.signal (0.6-0.7 s) stay out

@@ -10,12 +10,15 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import TRACE, TWT, UNITS
 from slicer.core.errors import InputFileError, OutputError, SettingsError, warn
+
+if TYPE_CHECKING:  # imported where used (see slicer.io.reading)
+    import xarray as xr
 
 #: Suffixes (lower case) and the format each one selects.
 SEGY_SUFFIXES = (".sgy", ".segy")
@@ -131,6 +134,8 @@ def _make_line(data: np.ndarray, *, interval_ns: float, path: Path, name: str | 
         for key, values in zip(("header_x", "header_y"), header_xy, strict=True):
             coords[key] = (TRACE, np.asarray(values, dtype=np.float64),
                            {"units": "m", "long_name": f"{key[-1]} stored in the file"})
+    import xarray as xr
+
     return xr.DataArray(
         np.asarray(data, dtype=np.float32), dims=(TRACE, TWT), coords=coords, name="amplitude",
         attrs={"line": name if name is not None else path.stem, "source": str(path),
@@ -161,6 +166,8 @@ def _line_xy(line: xr.DataArray) -> tuple[np.ndarray, np.ndarray] | None:
 
 def _check_line(line: xr.DataArray, where: str) -> None:
     """Refuse anything a writer cannot store as a line."""
+    import xarray as xr
+
     if not isinstance(line, xr.DataArray) or set(line.dims) != {TRACE, TWT}:
         dims = getattr(line, "dims", None)
         raise OutputError(f"a line must be a DataArray with dims (trace, twt), got {dims}",

@@ -10,13 +10,16 @@ from __future__ import annotations
 
 import os
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.errors import InputFileError
-from slicer.io import linefile, segy
+from slicer.io import segy
 from slicer.io.lines import NETCDF_SUFFIXES, SEGY_SUFFIXES, LineInfo
+
+if TYPE_CHECKING:  # xarray and the NetCDF reader where used: a build's engine is chosen
+    import xarray as xr  # from the headers before the heavy stack is imported
 
 __all__ = ["NETCDF_SUFFIXES", "SEGY_SUFFIXES", "LineInfo", "describe_file", "header_positions",
            "line_info", "read_line"]
@@ -53,6 +56,7 @@ def line_info(path: str | os.PathLike) -> LineInfo:
     path = Path(path)
     if _kind(path) == "segy":
         return segy.segy_line_info(path)
+    from slicer.io import linefile
     return linefile.netcdf_line_info(path)
 
 
@@ -65,6 +69,7 @@ def header_positions(path: str | os.PathLike) -> tuple[np.ndarray, np.ndarray] |
     path = Path(path)
     if _kind(path) == "segy":
         return segy.segy_header_positions(path)
+    from slicer.io import linefile
     return linefile.netcdf_header_positions(path)
 
 
@@ -120,6 +125,7 @@ def read_line(path: str | os.PathLike, *, sample_interval_ns: float | None = Non
     if _kind(path) == "segy":
         return segy.read_segy_line(path, sample_interval_ns=sample_interval_ns, name=name,
                                    coordinates=coordinates)
+    from slicer.io import linefile
     return linefile.read_line_netcdf(path, sample_interval_ns=sample_interval_ns, name=name,
                                      coordinates=coordinates)
 

@@ -19,10 +19,10 @@ import struct
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
 import segyio
-import xarray as xr
 
 from slicer.core.atomic import atomic_path
 from slicer.core.conventions import TRACE, TWT
@@ -39,6 +39,9 @@ from slicer.io.lines import (
     _plausible_interval,
     _zero_nonfinite,
 )
+
+if TYPE_CHECKING:  # hints only (see slicer.io.reading)
+    import xarray as xr
 
 _TEXT_BYTES = 3200
 _HEADERS_BYTES = 3600  # textual + binary header

@@ -4,8 +4,10 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import xarray as xr
+if TYPE_CHECKING:
+    import xarray as xr
 
 
 class BuildResult:

@@ -17,7 +17,7 @@ from pathlib import Path
 
 import numpy as np
 
-from slicer.pipeline.build import build_cube
+from slicer.pipeline.cube_build import build_cube
 from slicer.pipeline.settings import load_settings
 
 DATA = Path(__file__).parent / "data"

@@ -16,7 +16,7 @@ import numpy as np
 import pytest
 
 from slicer.core.conventions import C_M_PER_NS
-from slicer.pipeline.build import build_cube
+from slicer.pipeline.cube_build import build_cube
 from slicer.pipeline.settings import load_settings
 
 DATA = Path(__file__).parent / "data"

@@ -46,7 +46,7 @@ def no_work(monkeypatch):
     """Fail the test if the build gets as far as reading and processing its lines."""
     def read(*args, **kwargs):
         raise AssertionError("a line was read before the refusal")
-    monkeypatch.setattr("slicer.pipeline.build.reduce_survey", read)
+    monkeypatch.setattr("slicer.pipeline.cube_build.reduce_survey", read)
 
 
 def refused(capsys, out, *argv, match):

@@ -10,7 +10,7 @@ from rasterio.transform import from_origin
 
 from slicer.cli import main
 from slicer.core.errors import InputFileError, LineTableError, SettingsError
-from slicer.pipeline.build import build_cube
+from slicer.pipeline.cube_build import build_cube
 from slicer.pipeline.settings import load_settings
 
 WEST, SOUTH = 512000.0, 4650000.0  # the small survey's corner (tests/conftest.py)

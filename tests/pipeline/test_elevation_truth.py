@@ -11,7 +11,7 @@ import json
 import numpy as np
 import pytest
 
-from slicer.pipeline.build import build_cube
+from slicer.pipeline.cube_build import build_cube
 from slicer.pipeline.settings import load_settings
 
 BASE = {"crs": "EPSG:32633", "track_crs": "EPSG:32633", "velocity": 0.1, "time_zero": 3.0,

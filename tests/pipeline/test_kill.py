@@ -161,7 +161,7 @@ def earlier(small_survey, tmp_path_factory):
 
 #: Where each child is killed, and which build the folder must hold after the kill.
 PHASES = {
-    "start-up": ("slicer.pipeline.build:_reduce", "before", "earlier"),
+    "start-up": ("slicer.pipeline.cube_build:reduce_and_plan", "before", "earlier"),
     "reading": ("slicer.pipeline.line_tasks:reduce_line", "before", "earlier"),
     "tiles": ("slicer.outputs.sink:CubeSink.write", "after", "earlier"),
     "netcdf": ("slicer.outputs.sink:write_netcdf_from_store", "before", "earlier"),

@@ -11,7 +11,7 @@ import pytest
 import slicer
 from slicer.cli import _settings_from_args, make_parser
 from slicer.core.errors import SettingsError
-from slicer.pipeline.build import build_cube
+from slicer.pipeline.cube_build import build_cube
 
 FAST = dict(sample_interval=0.1, time_zero=3.0, velocity=0.1, cell=0.1, depths="0.4:0.6:0.2",
             dewow="off", migrate="off", scheduler="threads")

@@ -7,7 +7,8 @@ import pytest
 
 from slicer.cli import main
 from slicer.core.errors import InputFileError
-from slicer.pipeline.build import build, build_cube
+from slicer.pipeline.build import build
+from slicer.pipeline.cube_build import build_cube
 from slicer.pipeline.results import open_build
 from slicer.pipeline.settings import load_settings
 

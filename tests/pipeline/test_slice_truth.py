@@ -15,7 +15,7 @@ import math
 import numpy as np
 import pytest
 
-from slicer.pipeline.build import build_cube
+from slicer.pipeline.cube_build import build_cube
 from slicer.pipeline.settings import load_settings
 from slicer.synthetic import Ground, Radar, grid_lines, write_survey
 from slicer.synthetic.forward import LineTarget
