@@ -39,6 +39,10 @@ Nothing hangs and nothing is left behind:
   (dask.distributed keeps a pipe from each to its parent open, and a worker exits when it
   closes).
 
+While ``threads`` or ``processes`` tasks run, every process running them uses BLAS on one
+thread (:func:`slicer.pipeline.worker_processes.one_blas_thread`): one task per core already
+keeps the cores busy. A LocalCluster's workers are set so by dask.distributed itself.
+
 Every refusal is a :class:`~slicer.core.errors.SettingsError` naming ``--scheduler``.
 """
 
@@ -58,8 +62,10 @@ from dataclasses import dataclass
 from slicer.core.atomic import current_umask
 from slicer.core.errors import SettingsError
 from slicer.core.progress import bar_for
+from slicer.pipeline.remote_scheduler import ask_scheduler, one_line
 from slicer.pipeline.task_warnings import replay, run_capturing
 from slicer.pipeline.worker_processes import (
+    one_blas_thread,
     start_worker,
     start_workers,
     worker_context,
@@ -189,9 +195,9 @@ class Engine:
     """
 
     #: Seconds a remote scheduler has to be reached (and 2 more to answer; see
-    #: :func:`_ask_scheduler`), then again to take this client: it bounds every wait on the
-    #: address. Across a WAN a reply takes well under a second; a scheduler that has not
-    #: answered in 10 s is not there or not dask.
+    #: :func:`~slicer.pipeline.remote_scheduler.ask_scheduler`), then again to take this
+    #: client: it bounds every wait on the address. Across a WAN a reply takes well under a
+    #: second; a scheduler that has not answered in 10 s is not there or not dask.
     connect_timeout = 10
 
     def __init__(self, spec: EngineSpec, *, memory_limit: int | None = None):
@@ -202,10 +208,13 @@ class Engine:
         self._client = None
         self._cluster = None
         self._pool = None
+        self._blas = None  # BLAS limited to one thread while tasks run here (see __enter__)
         #: Set once a ``processes`` engine's workers have started (None: nothing starts).
         self._starting: threading.Event | None = None
 
     def __enter__(self) -> Engine:
+        if self.spec.kind in ("threads", "processes"):  # this process runs tasks too
+            self._blas = one_blas_thread()
         if self.spec.kind == "threads":
             self._pool = concurrent.futures.ThreadPoolExecutor(max_workers=self.spec.workers)
         if self.spec.kind == "processes":
@@ -257,17 +266,20 @@ class Engine:
         ever), so first the scheduler is asked who it is, in a bounded wait.
         """
         address, timeout = self.spec.address, self.connect_timeout
-        _ask_scheduler(address, timeout)
+        ask_scheduler(address, timeout)
         try:
             return client_class(address, timeout=timeout)
         except (OSError, ValueError) as exc:  # TimeoutError is an OSError
             raise SettingsError(f"cannot reach the dask scheduler at {address} within "
-                                f"{timeout:g} s ({_one_line(exc)})", where="--scheduler") from None
+                                f"{timeout:g} s ({one_line(exc)})", where="--scheduler") from None
 
     def __exit__(self, *exc_info) -> None:
         if self._pool is not None:
             self._pool.shutdown(cancel_futures=True)
             self._pool = None
+        if self._blas is not None:
+            self._blas.restore_original_limits()
+            self._blas = None
         if self._client is not None:
             self._client.close()
         if self._cluster is not None:
@@ -425,70 +437,6 @@ _END = object()
 def _run_batch(func: Callable, batch: list) -> list:
     """Run ``func`` on every item of one batch, in a worker (module level: picklable)."""
     return [func(item) for item in batch]
-
-
-def _ask_scheduler(address: str, timeout: float) -> None:
-    """Check that a dask scheduler answers at ``address``, waiting at most ``timeout + 5`` s.
-
-    Runs dask.distributed's own connection (which retries for ``timeout`` seconds) and its
-    ``identity`` call, bounded as a whole by ``asyncio.wait_for`` at ``timeout + 2`` s, on an
-    event loop of its own in a daemon thread (the caller may be inside a running loop, e.g. a
-    notebook). The thread is waited for 3 s more and then left behind: closing its loop also
-    waits for a host-name lookup, which only the system's resolver bounds.
-
-    Raises
-    ------
-    SettingsError
-        Nothing listens there (or the host is unknown), something listens that does not
-        answer as dask in time or at all, or it is a dask worker rather than a scheduler.
-    """
-    import asyncio
-
-    from distributed.core import rpc
-
-    async def identity() -> dict:
-        async with rpc(address, timeout=timeout) as scheduler:
-            return await scheduler.identity()
-
-    answer: concurrent.futures.Future = concurrent.futures.Future()
-
-    def ask() -> None:
-        try:
-            answer.set_result(asyncio.run(asyncio.wait_for(identity(), timeout + 2)))
-        except BaseException as exc:  # noqa: BLE001 - handed to the caller's thread
-            answer.set_exception(exc)
-
-    def refuse(why: str) -> SettingsError:
-        return SettingsError(f"cannot reach the dask scheduler at {address}: {why}",
-                             where="--scheduler")
-
-    threading.Thread(target=ask, name="slicer-connect", daemon=True).start()
-    try:
-        info = answer.result(timeout + 5)
-    except TimeoutError:
-        if not answer.done():  # the lookup of the host name hangs
-            raise refuse(f"no answer within {timeout + 5:g} s") from None
-        # connected, then no reply (dask's own timeout on connecting ends in an OSError)
-        raise refuse(f"something listens there but did not answer as dask within "
-                     f"{timeout + 2:g} s") from None
-    except OSError as exc:
-        detail, cause = "", exc.__cause__
-        while cause is not None:  # the last attempt's error: refused, unknown host...
-            if isinstance(cause, OSError) and not isinstance(cause, TimeoutError):
-                detail = f" ({_one_line(cause)})"
-            cause = cause.__cause__
-        raise refuse(f"nothing answered within {timeout:g} s{detail}") from None
-    except Exception:  # noqa: BLE001 - whatever a server that is not dask sends
-        raise refuse("something listens there but does not speak dask") from None
-    kind = info.get("type") if isinstance(info, dict) else None
-    if kind != "Scheduler":
-        raise refuse(f"it is a dask {kind or 'server'}, not a scheduler")
-
-
-def _one_line(exc: BaseException) -> str:
-    """An exception's message on one line, at most 200 characters."""
-    text = " ".join(str(exc).split()) or type(exc).__name__
-    return text if len(text) <= 200 else text[:197] + "..."
 
 
 @contextlib.contextmanager

@@ -86,13 +86,29 @@ def _warm_up(modules: Sequence[str]) -> None:
 def start_worker(pool_process: int, umask: int, environ: dict[str, str]) -> None:
     """Initialise a ``processes`` worker: the umask and environment of the pool's process
     now (a worker forked by the fork server would have the server's, from when it started:
-    files written with another mode, GDAL settings missed), then :func:`exit_with_parent`.
+    files written with another mode, GDAL settings missed), BLAS on one thread
+    (:func:`one_blas_thread`), then :func:`exit_with_parent`.
     """
     os.umask(umask)
     for name in set(os.environ) - set(environ):
         del os.environ[name]
     os.environ.update(environ)
+    import numpy  # noqa: F401 - loaded by the fork server already; spawned, its BLAS now
+    one_blas_thread()  # for the worker's life
     exit_with_parent(pool_process)
+
+
+def one_blas_thread():
+    """Limit every BLAS library loaded in this process to one thread (threadpoolctl); the
+    limiter, whose ``restore_original_limits()`` undoes it.
+
+    A build runs one task per core. A BLAS call in a task (the window means are one matrix
+    product per line) would otherwise start the library's own thread per core, which then
+    spin waiting for more work: OpenBLAS's spinning took a third of a 400 k build's CPU
+    time, and the build 1.5 times as long (benchmarks/README.md, peers.py).
+    """
+    from threadpoolctl import threadpool_limits
+    return threadpool_limits(limits=1, user_api="blas")
 
 
 def exit_with_parent(pool_process: int) -> None:

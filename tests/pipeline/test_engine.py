@@ -94,6 +94,32 @@ def test_map_error_is_raised_and_stops_the_rest():
         list(e.map(lambda x: 1 / x, [3, 2, 1, 0, 1, 2], desc="t", progress=False))
 
 
+def _blas_threads(_item=None) -> tuple[int, ...]:
+    """The thread count of every BLAS library loaded where this runs (threadpoolctl)."""
+    from threadpoolctl import threadpool_info
+    return tuple(i["num_threads"] for i in threadpool_info() if i["user_api"] == "blas")
+
+
+@pytest.mark.parametrize("scheduler", ["threads", "processes"])
+def test_tasks_use_blas_on_one_thread_and_the_caller_gets_its_own_back(scheduler):
+    # One task per core already fills the machine; a BLAS call in a task (a line's window
+    # means) started OpenBLAS's thread per core, which spun waiting for work: a third of a
+    # 400 k build's CPU (perf), the build 1.5x as long. Measured with threadpoolctl, the
+    # library a user would reach for; the caller's setting (2 here, whatever this machine's
+    # default) comes back when the engine closes.
+    from threadpoolctl import threadpool_limits
+    with threadpool_limits(limits=2, user_api="blas"):
+        before = _blas_threads()
+        assert before and set(before) == {2}  # numpy's BLAS is loaded and not on one thread
+        with Engine(parse_scheduler(scheduler, workers=2)) as engine:
+            assert engine.wait_for_workers(60)  # else the tasks run in this process
+            in_tasks = set(engine.map(_blas_threads, range(6), desc="b", progress=False))
+            here = _blas_threads()
+        assert _blas_threads() == before
+    assert in_tasks and all(t and set(t) == {1} for t in in_tasks)  # 2 on CI's 2 cores
+    assert set(here) == {1}  # the calling process runs tasks too (processes: until workers)
+
+
 def _process_state(_item):
     import os
 
