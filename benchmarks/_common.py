@@ -20,8 +20,12 @@ from pathlib import Path
 # floor are single-threaded, and griddata's point location makes thousands of tiny LAPACK calls:
 # with OpenBLAS threads on 2 busy cores those calls were seen to run 10-100x slower, erratically,
 # which would flatter slicer's gridding speed-up (see benchmarks/README.md).
-for _variable in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_variable, "1")
+# A process started by in_fresh_process(..., blas_default=True) keeps the libraries' defaults,
+# as a user's process has them.
+BLAS_VARIABLES = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+if not os.environ.get("SLICER_BENCH_BLAS_DEFAULT"):
+    for _variable in BLAS_VARIABLES:
+        os.environ.setdefault(_variable, "1")
 
 try:
     import slicer  # noqa: F401 - imported for the scripts, after the thread settings
@@ -76,11 +80,26 @@ def _memory_mib() -> tuple[float, float, str]:
         return math.nan, peak, "ru_maxrss"
 
 
-def in_fresh_process(function, *args):
-    """Run ``function(*args)`` in a new spawned interpreter, so its peak memory is its own."""
+def in_fresh_process(function, *args, blas_default: bool = False):
+    """Run ``function(*args)`` in a new spawned interpreter, so its peak memory is its own.
+
+    ``blas_default``: without this module's one-BLAS-thread variables (a user's environment).
+    """
     context = multiprocessing.get_context("spawn")
-    with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool:
-        return pool.submit(function, *args).result()
+    saved = dict(os.environ)
+    if blas_default:  # the child is started, with this environment, by the submit below
+        for name in BLAS_VARIABLES:
+            os.environ.pop(name, None)
+        os.environ["SLICER_BENCH_BLAS_DEFAULT"] = "1"
+    try:
+        with concurrent.futures.ProcessPoolExecutor(max_workers=1, mp_context=context) as pool:
+            future = pool.submit(function, *args)
+            os.environ.clear()
+            os.environ.update(saved)
+            return future.result()
+    finally:
+        os.environ.clear()
+        os.environ.update(saved)
 
 
 def _table(header: list[str], rows: list[list[str]]) -> str:

@@ -263,7 +263,10 @@ def measure_size(root: Path, n: int, use_verde: bool) -> list[list[str]]:
     if use_verde:
         peers.append(("verde k-NN", run_verde))
     for name, run in peers:
-        result = in_fresh_process(run, str(table), str(folder / name.split()[0]))
+        # slicer in a user's environment (BLAS threads at the libraries' defaults: it limits
+        # them itself); the peers with one BLAS thread, their best (benchmarks/README.md)
+        result = in_fresh_process(run, str(table), str(folder / name.split()[0]),
+                                  blas_default=run is run_slicer)
         med, worst = placement(result["cube"], targets)
         label = f"{name} ({result['engine']})" if "engine" in result else name
         rows.append([f"{traces}", label, _f(result["seconds"]), _f(result["seconds"] / floor),
