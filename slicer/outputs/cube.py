@@ -65,7 +65,8 @@ def _as_text(value: str | Sequence[str]) -> str:
 def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
              axis: str = DEPTH, velocity: float | None = None,
              processing: str | Sequence[str] = "", name: str = "envelope",
-             units: str = "1", vertical_datum: str | None = None) -> xr.DataArray:
+             units: str = "1", vertical_datum: str | None = None,
+             accessor: bool = True) -> xr.DataArray:
     """Build a cube DataArray following the data model in DEVELOPERS.md.
 
     Parameters
@@ -98,14 +99,18 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
     vertical_datum : str, optional
         The datum elevations refer to, as the user named it (``attrs["vertical_datum"]``);
         required for elevation slices, refused for others.
+    accessor : bool
+        Register rioxarray's ``.rio`` accessor (imports rioxarray: 0.1 s the first time).
+        False for a cube only slicer's writers see, such as a build's template.
 
     Returns
     -------
     xarray.DataArray
         Dims ``(axis, y, x)``, float32, NaN as nodata (``encoding["_FillValue"]``, which
         rioxarray reads as ``cube.rio.nodata``); the ``.rio`` accessor of rioxarray is
-        registered. The slice dim carries a :class:`slicer.outputs.cube_index.WindowIndex`:
-        ``cube.sel(depth=v)`` picks the slice whose window ``[top, bottom)`` holds ``v``.
+        registered (with ``accessor``). The slice dim carries a
+        :class:`slicer.outputs.cube_index.WindowIndex`: ``cube.sel(depth=v)`` picks the slice
+        whose window ``[top, bottom)`` holds ``v``.
 
     Raises
     ------
@@ -188,7 +193,7 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
         coords[GRID_MAPPING] = cf.grid_mapping_variable(pcrs, transform)
         attrs["grid_mapping"] = GRID_MAPPING
     cube = xr.DataArray(values, dims=(axis, Y, X), coords=coords, attrs=attrs, name=name)
-    return for_python(cube)
+    return for_python(cube) if accessor else _with_windows_and_nodata(cube)
 
 
 def for_python(cube: xr.DataArray) -> xr.DataArray:
@@ -202,6 +207,10 @@ def for_python(cube: xr.DataArray) -> xr.DataArray:
     # quick commands' path pays for it (tests/test_architecture.py).
     import rioxarray  # noqa: F401  (registers the .rio accessor)
 
+    return _with_windows_and_nodata(cube)
+
+
+def _with_windows_and_nodata(cube: xr.DataArray) -> xr.DataArray:
     cube = index_windows(cube)
     # NaN marks empty cells (DEVELOPERS.md); as an encoded fill value rioxarray reports it as
     # both encoded_nodata and nodata, and every writer stores it as _FillValue.
@@ -214,7 +223,8 @@ def empty_cube(shape: tuple[int, int, int], *, tile: int = TILE, **kwargs) -> xr
 
     It describes a cube before its values exist: the grid, CRS, windows and attrs of
     :func:`new_cube`, with nothing allocated, so it can stand for a cube larger than memory
-    (e.g. as the template of :class:`slicer.outputs.sink.CubeSink`).
+    (e.g. as the template of :class:`slicer.outputs.sink.CubeSink`, made with
+    ``accessor=False``).
 
     Parameters
     ----------

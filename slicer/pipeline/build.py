@@ -112,8 +112,8 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         gridding = time.perf_counter()
         table = r.reduced.table
         template = with_depth_error(
-            empty_cube(r.layout.shape(table.sizes["slice"]), tile=TILE, **r.kwargs), settings,
-            table)
+            empty_cube(r.layout.shape(table.sizes["slice"]), tile=TILE, accessor=False,
+                       **r.kwargs), settings, table)
         out = folder.path  # written whole, then switched in by folder.commit
         tags = {"PROCESSING": r.record["processing"], "SOURCE": str(settings.source)}
         common = dict(tags=tags, tile=TILE, progress=progress, title=settings.title,

@@ -481,3 +481,25 @@ cube.rio.to_raster(sys.argv[2], recalc_transform=False)
             np.testing.assert_allclose(src.transform[:6], exact[:6], rtol=1e-9, atol=1e-6)
             if tif.name == "kept.tif":
                 assert src.transform == exact
+
+
+def test_a_template_for_the_writers_leaves_rioxarray_unloaded():
+    # a build's template (empty_cube, accessor=False) carries the same grid, windows and
+    # nodata without importing rioxarray (0.1 s); a cube handed out has .rio (rioxarray's own
+    # reading of the CRS and transform)
+    import subprocess
+    import sys
+    code = (
+        "import sys, numpy as np\nfrom slicer.outputs.cube import empty_cube, new_cube\n"
+        "kw = dict(west=500000.0, north=4100000.0, cell=0.5, crs='EPSG:32633', "
+        "top=np.array([0.0, 0.1]), bottom=np.array([0.1, 0.2]))\n"
+        "t = empty_cube((2, 3, 4), tile=2, accessor=False, **kw)\n"
+        "print('rioxarray' in sys.modules, t.encoding['_FillValue'], float(t.sel(depth=0.15)"
+        "['depth_top']))\n"
+        "c = new_cube(np.zeros((2, 3, 4)), **kw)\n"
+        "print(c.rio.crs.to_epsg(), tuple(c.rio.transform())[:6])\n")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=120, check=True)
+    first, second = done.stdout.splitlines()
+    assert first.split() == ["False", "nan", "0.1"]
+    assert second == "32633 (0.5, 0.0, 500000.0, 0.0, -0.5, 4100000.0)"

@@ -10,6 +10,7 @@ import dataclasses
 import importlib.metadata as md
 import json
 import math
+import subprocess
 import sys
 from decimal import Decimal
 
@@ -173,3 +174,13 @@ def test_environment_names_the_libraries_a_build_runs_on():
     assert env["hdf5"] == h5py.version.hdf5_version
     for name in ("zarr", "numcodecs", "rioxarray", "h5py", "numpy"):
         assert env[name] == md.version(name)
+
+
+def test_environment_leaves_h5py_unloaded_when_the_build_did_not_use_it():
+    # a build of GeoTIFFs from SEG-Y lines never touches HDF5: its record says None rather
+    # than import h5py (0.09 s) to report a library the build did not run on
+    code = ("import sys\nfrom slicer.pipeline.record import environment\n"
+            "env = environment()\nprint(env['hdf5'], 'h5py' in sys.modules, env['gdal'])")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=120, check=True)
+    assert done.stdout.split() == ["None", "False", rasterio.__gdal_version__]
