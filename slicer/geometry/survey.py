@@ -6,11 +6,14 @@ import math
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 
+import numpy as np
 import xarray as xr
 
+from slicer.core.conventions import DISTANCE, TWT
 from slicer.core.errors import InputFileError, SettingsError
-from slicer.geometry.placement import place_line
+from slicer.geometry.placement import even_positions, place_line
 from slicer.geometry.positioning import channel_traces, positioned, source_of
+from slicer.io.lines import AMPLITUDE_UNITS, SEGY_SUFFIXES
 from slicer.io.linetable import LineEntry
 from slicer.io.reading import LineInfo, line_info, read_line
 
@@ -120,3 +123,53 @@ def load_line(entry: LineEntry, settings, *, sample_interval_ns: float | None = 
     line = read_line(entry.file, sample_interval_ns=sample_interval_ns,
                      coordinates=source_of(entry, settings) == "headers")
     return positioned(line, entry, settings)
+
+
+@dataclass(frozen=True)
+class PlacedSamples:
+    """A placed line as plain arrays: what a build's line task takes from :func:`load_line`.
+
+    ``values`` (traces, samples) float32; ``twt`` (ns); ``x``, ``y`` (m, survey CRS);
+    ``distance`` (m along the line) and ``height`` (m, a GNSS track's) where the line has
+    them, else None; ``attrs`` the line's attrs.
+    """
+
+    values: np.ndarray
+    twt: np.ndarray
+    x: np.ndarray
+    y: np.ndarray
+    distance: np.ndarray | None
+    height: np.ndarray | None
+    attrs: dict
+
+    @classmethod
+    def of(cls, line: xr.DataArray) -> PlacedSamples:
+        """The arrays of a placed Line DataArray."""
+        def coord(name):
+            return line[name].values if name in line.coords else None
+        return cls(line.values, line[TWT].values, line["x"].values, line["y"].values,
+                   coord(DISTANCE), coord("height"), dict(line.attrs))
+
+
+def load_line_samples(entry: LineEntry, settings, *, sample_interval_ns: float | None = None
+                      ) -> PlacedSamples:
+    """:func:`load_line` as plain arrays (the same samples, positions and attrs).
+
+    A SEG-Y line placed evenly from its table row (no channel of a swath, no distance marks,
+    no resampling to a trace spacing) is read without building a DataArray: 2-3 ms of a
+    line task's CPU less (1.3 against 3.1 ms for a line of 800 traces, 2.9 against 5.8 ms for
+    2000), most of it holding the GIL, which a threads build's tasks share. Any other line
+    goes through :func:`load_line`.
+    """
+    if (entry.file.suffix.lower() in SEGY_SUFFIXES and source_of(entry, settings) == "table"
+            and entry.channel is None and entry.marks is None
+            and settings.trace_spacing is None):
+        from slicer.io.segy import read_segy_samples
+        values, interval = read_segy_samples(entry.file, sample_interval_ns=sample_interval_ns)
+        x, y, distance = even_positions(entry, values.shape[0])
+        twt = interval * np.arange(values.shape[1], dtype=np.float64)
+        return PlacedSamples(values, twt, x, y, distance, None, {
+            "line": entry.file.stem, "source": str(entry.file),
+            "sample_interval_ns": float(interval), "time_zero_ns": 0.0, "history": "",
+            "units": AMPLITUDE_UNITS})
+    return PlacedSamples.of(load_line(entry, settings, sample_interval_ns=sample_interval_ns))

@@ -219,6 +219,21 @@ def read_segy_line(path: str | os.PathLike, *, sample_interval_ns: float | None 
         No usable interval in the header and none given (``where="--sample-interval"``).
     """
     path = Path(path)
+    data, interval, header_xy = _read(path, sample_interval_ns, coordinates=coordinates)
+    return _make_line(data, interval_ns=interval, path=path, name=name, header_xy=header_xy)
+
+
+def read_segy_samples(path: str | os.PathLike, *, sample_interval_ns: float | None = None
+                      ) -> tuple[np.ndarray, float]:
+    """The samples of a SEG-Y line and its sample interval (ns), as :func:`read_segy_line`
+    reads them (same checks, non-finite samples set to 0), without building the DataArray:
+    ``(traces, samples)`` float32. For a build's line tasks (:mod:`slicer.geometry.survey`).
+    """
+    data, interval, _ = _read(Path(path), sample_interval_ns, coordinates=False)
+    return data, interval
+
+
+def _read(path: Path, sample_interval_ns: float | None, *, coordinates: bool):
     layout = _inspect(path)
     interval = _choose_interval(path, layout.interval_ns, sample_interval_ns,
                                 "the SEG-Y header")
@@ -226,8 +241,7 @@ def read_segy_line(path: str | os.PathLike, *, sample_interval_ns: float | None 
         data = np.asarray(f.trace.raw[:], dtype=np.float32).reshape(layout.n_traces,
                                                                     layout.n_samples)
         header_xy = _header_coordinates(f, path) if coordinates else None
-    return _make_line(_zero_nonfinite(data, path), interval_ns=interval, path=path, name=name,
-                      header_xy=header_xy)
+    return _zero_nonfinite(data, path), interval, header_xy
 
 
 def segy_header_positions(path: str | os.PathLike) -> tuple[np.ndarray, np.ndarray] | None:

@@ -121,21 +121,22 @@ def elevation_model(path) -> ElevationModel:
     return _model(str(path), st.st_mtime_ns, st.st_size)
 
 
-def line_surface(line, entry, settings) -> np.ndarray:
-    """Ground elevation (m above the datum) at every trace of a placed ``line``.
+def line_surface(x: np.ndarray, y: np.ndarray, entry, settings, *,
+                 height: np.ndarray | None = None) -> np.ndarray:
+    """Ground elevation (m above the datum) at every trace of a placed line.
 
-    ``line`` has ``x``, ``y`` (survey CRS) and, for ``terrain = gnss``, the track's ``height``
-    coordinate (:func:`slicer.geometry.positions.positions_from_track`).
+    ``x``, ``y`` (m, survey CRS) are its traces' positions and, for ``terrain = gnss``,
+    ``height`` the track's (the ``height`` coordinate of
+    :func:`slicer.geometry.positions.positions_from_track`; None when the track has none).
     """
     terrain = check_terrain(settings.terrain)
-    x, y = np.asarray(line["x"].values), np.asarray(line["y"].values)
+    x, y = np.asarray(x), np.asarray(y)
     where = str(entry.track or entry.file)
     if terrain == "gnss":
-        if "height" not in line.coords:
+        if height is None:
             raise InputFileError("the GNSS track has no height column; elevation slices from "
                                  "GNSS need trace,x,y,height (or lon,lat,height)", where=where)
-        return surface_from_heights(line["height"].values,
-                                    gnss_height=settings.gnss_height, where=where)
+        return surface_from_heights(height, gnss_height=settings.gnss_height, where=where)
     if terrain == "table":
         return surface_from_ends(x, y, start=entry.start, end=entry.end,
                                  start_elevation=entry.start_elevation,
@@ -154,7 +155,9 @@ def survey_surface(settings, info) -> tuple[float, float]:
     from slicer.pipeline.position_checks import placed_stub
     low, high = math.inf, -math.inf
     for entry, line in zip(settings.lines, info.lines, strict=True):
-        z = line_surface(placed_stub(entry, settings, line.n_traces), entry, settings)
+        stub = placed_stub(entry, settings, line.n_traces)
+        z = line_surface(stub["x"].values, stub["y"].values, entry, settings,
+                         height=stub["height"].values if "height" in stub.coords else None)
         low, high = min(low, float(np.min(z))), max(high, float(np.max(z)))
     return low, high
 

@@ -21,9 +21,9 @@ from dataclasses import dataclass, field
 import numpy as np
 import xarray as xr
 
-from slicer.core.conventions import DEPTH, DISTANCE, ELEVATION, TRACE, TWT
+from slicer.core.conventions import DEPTH, ELEVATION, TRACE, TWT
 from slicer.core.errors import SettingsError, SlicerWarning
-from slicer.geometry.survey import SurveyInfo, load_line, survey_info
+from slicer.geometry.survey import SurveyInfo, load_line, load_line_samples, survey_info
 from slicer.gridding.elevation import elevation_limits, window_means_varying
 from slicer.gridding.windows import (
     Windows,
@@ -127,13 +127,13 @@ def reduce_line(job: LineJob) -> dict:
         record: taken here, where the file is read anyway, so the process that builds never
         reads the survey a second time; None for the second and later channels of a swath).
     """
-    line = load_line(job.entry, job.settings, sample_interval_ns=job.interval_ns)
+    line = load_line_samples(job.entry, job.settings, sample_interval_ns=job.interval_ns)
     settings = job.settings
     signed = settings.attribute == "signed"
     # from here on plain arrays: the same cores as the labelled steps, one DataArray per line
     done = process_samples(
-        line.values, line[TWT].values, settings, dewow_ns=job.dewow_ns, keep_trace=signed,
-        distance=line[DISTANCE].values if DISTANCE in line.coords else None,
+        line.values, line.twt, settings, dewow_ns=job.dewow_ns, keep_trace=signed,
+        distance=line.distance,
         time_zero_ns=float(line.attrs.get("time_zero_ns", 0.0)),
         history=line.attrs.get("history", ""), frequency=job.frequency,
         where=str(line.attrs.get("source", line.attrs.get("line", "line"))))
@@ -149,14 +149,14 @@ def reduce_line(job: LineJob) -> dict:
     separation = settings.antenna_separation or 0.0
     model = _resampling_model(job.windows, job.velocity)
     # elevation slices: each trace's windows at its own depth below its own ground
-    surface = (line_surface(line, job.entry, settings) if job.windows.axis == ELEVATION
-               else None)
+    surface = (line_surface(line.x, line.y, job.entry, settings, height=line.height)
+               if job.windows.axis == ELEVATION else None)
     image = None
     if settings.radargrams:  # the processed line as its radargram shows it, decimated
         from slicer.outputs.radargram import PAGE_CELLS, image_of_samples  # matplotlib: here
         constant = job.velocity is not None and not hasattr(job.velocity, "profile")
         image = image_of_samples(
-            trace if signed else env, line["x"].values, line["y"].values, twt,
+            trace if signed else env, line.x, line.y, twt,
             name=line_name(job.entry, line.attrs), most=PAGE_CELLS,
             attrs={"line": line_name(job.entry, line.attrs),  # and how to draw it:
                    "velocity": job.velocity if constant and job.windows.axis != TWT else None,
@@ -166,8 +166,8 @@ def reduce_line(job: LineJob) -> dict:
     axis = twt
     if model is not None:  # as depth_axis_for: onto a depth axis before cutting windows
         deepest = _deepest(job.windows, surface)
-        env, axis = _to_depth(env, twt, deepest, model, line)
-        trace = _to_depth(trace, twt, deepest, model, line)[0] if signed else None
+        env, axis = _to_depth(env, twt, deepest, model, line.x, line.y)
+        trace = _to_depth(trace, twt, deepest, model, line.x, line.y)[0] if signed else None
     if surface is not None:
         lo, hi = elevation_limits(job.windows, surface, velocity=job.velocity,
                                   separation=separation, in_depth=model is not None)
@@ -181,8 +181,8 @@ def reduce_line(job: LineJob) -> dict:
         signs = leading_lobe_signs_core(trace, env, axis_values=axis, top=lo, bottom=hi)
         values = values * signs * done.polarity
     return {"values": np.asarray(values, dtype=np.float32),
-            "x": line["x"].values, "y": line["y"].values, "line": job.number,
-            "file": str(job.entry.file), "traces": line.sizes[TRACE],
+            "x": line.x, "y": line.y, "line": job.number,
+            "file": str(job.entry.file), "traces": line.values.shape[0],
             "time_zero_ns": time_zero_ns, "history": history, "image": image,
             "input": describe_file(job.entry.file) if job.entry.channel_index == 0 else None}
 
@@ -222,15 +222,15 @@ def _deepest(windows: Windows, surface) -> float:
     return float(np.nanmax(surface)) - float(windows.bottom.min())
 
 
-def _to_depth(samples: np.ndarray, twt: np.ndarray, deepest: float, model, line
-              ) -> tuple[np.ndarray, np.ndarray]:
+def _to_depth(samples: np.ndarray, twt: np.ndarray, deepest: float, model, x: np.ndarray,
+              y: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """``samples`` resampled to the depth axis of :func:`depth_axis_for` down to ``deepest``
-    (m), and that axis (m)."""
+    (m), and that axis (m); ``x``, ``y`` (m) place the traces in a lateral model."""
     from slicer.velocity.models import _to_depth_core
     step = float(np.min(model.velocity)) * float(twt[1] - twt[0]) / 2
     depths = np.arange(0.0, max(deepest, 0.0) + 2 * step, step)
     if getattr(model, "lateral", False):
-        tops, v, _ = model.profile(line["x"].values, line["y"].values)
+        tops, v, _ = model.profile(x, y)
     else:
         tops, v, _ = model.profile()
         v = np.broadcast_to(v, (samples.shape[0], v.size))

@@ -24,9 +24,11 @@ import xarray as xr
 import slicer
 from slicer.core.errors import InputFileError, SettingsError
 from slicer.geometry.survey import (
+    PlacedSamples,
     SurveyInfo,
     iter_lines,
     load_line,
+    load_line_samples,
     position_line,
     survey_info,
 )
@@ -203,3 +205,39 @@ def test_load_line_reads_header_coordinates_only_for_header_positions(small_surv
     np.testing.assert_array_equal(headers.values, table.values)
     # the synthetic file's header positions lie on the table's line, to half a centimetre
     np.testing.assert_allclose(headers["x"].values, table["x"].values, atol=0.005)
+
+
+def _same(a: PlacedSamples, b: PlacedSamples) -> None:
+    for name in ("values", "twt", "x", "y", "distance", "height"):
+        got, want = getattr(a, name), getattr(b, name)
+        assert (got is None) == (want is None), name
+        if want is not None:
+            np.testing.assert_array_equal(got, want, err_msg=name)
+            assert got.dtype == want.dtype, name
+    assert a.attrs == b.attrs
+
+
+@pytest.mark.parametrize("positions", ["table", "headers"])
+def test_the_plain_arrays_of_a_line_are_those_of_its_dataarray(small_survey, positions):
+    # a build's line task reads a table-placed SEG-Y line without a DataArray; it must get
+    # exactly what load_line gives (the labelled reader is the reference here), and any other
+    # line goes through load_line itself
+    entry = slicer.load_settings(small_survey.line_table).lines[2]
+    settings = types.SimpleNamespace(positions=positions, trace_spacing=None)
+    plain = load_line_samples(entry, settings, sample_interval_ns=0.1)
+    _same(plain, PlacedSamples.of(load_line(entry, settings, sample_interval_ns=0.1)))
+    assert plain.values.dtype == np.float32 and plain.distance is not None
+
+
+def test_the_plain_reader_refuses_what_the_labelled_one_refuses(small_survey, tmp_path):
+    # the same checks: a file whose header holds no interval needs one given, and a
+    # truncated file is an input error naming it
+    entry = slicer.load_settings(small_survey.line_table).lines[0]
+    settings = types.SimpleNamespace(positions="table", trace_spacing=None)
+    cut = tmp_path / "cut.sgy"
+    cut.write_bytes(entry.file.read_bytes()[:-7])
+    short = LineEntry(file=cut, start=entry.start, end=entry.end, where="lines.csv:2")
+    for reader in (load_line, load_line_samples):
+        with pytest.raises(InputFileError, match="truncated") as caught:
+            reader(short, settings, sample_interval_ns=0.1)
+        assert caught.value.where == str(cut)
