@@ -215,6 +215,14 @@ class Engine:
     def __enter__(self) -> Engine:
         if self.spec.kind in ("threads", "processes"):  # this process runs tasks too
             self._blas = one_blas_thread()
+        try:
+            self._open()
+        except BaseException:
+            self.__exit__(None, None, None)  # the BLAS setting back, anything opened closed
+            raise
+        return self
+
+    def _open(self) -> None:
         if self.spec.kind == "threads":
             self._pool = concurrent.futures.ThreadPoolExecutor(max_workers=self.spec.workers)
         if self.spec.kind == "processes":
@@ -244,7 +252,6 @@ class Engine:
                 self._client = Client(self._cluster)
             else:
                 self._client = self._connect(Client)
-        return self
 
     def _check_memory(self) -> None:
         """Refuse a LocalCluster whose workers cannot all have their memory on this machine."""

@@ -120,6 +120,24 @@ def test_tasks_use_blas_on_one_thread_and_the_caller_gets_its_own_back(scheduler
     assert set(here) == {1}  # the calling process runs tasks too (processes: until workers)
 
 
+def test_an_engine_that_fails_to_open_gives_the_blas_setting_back(monkeypatch):
+    # the limit is taken first (this process runs tasks too); a pool that cannot start
+    # must not leave the caller's BLAS on one thread
+    from threadpoolctl import threadpool_limits
+
+    import slicer.pipeline.engine as engine_module
+
+    def broken():
+        raise OSError("no process can start here")
+
+    monkeypatch.setattr(engine_module, "worker_context", broken)
+    with threadpool_limits(limits=2, user_api="blas"):
+        with pytest.raises(OSError, match="no process"), \
+                Engine(parse_scheduler("processes", workers=2)):
+            pass
+        assert set(_blas_threads()) == {2}
+
+
 def _process_state(_item):
     import os
 
