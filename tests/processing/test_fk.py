@@ -82,3 +82,29 @@ def test_released_operators_are_rebuilt_to_the_same_image():
     release_operators()
     assert stolt_operator.cache_info().currsize == 0
     np.testing.assert_array_equal(stolt_core(data, **kwargs), first)
+
+
+def test_threads_asking_for_one_operator_at_once_build_it_once():
+    # a threads build's first lines, one per worker, meet the cold cache together: each had
+    # built its own operator (functools.lru_cache does not hold back a second caller); now
+    # one builds it and the other finds it, the same object
+    import threading
+
+    from slicer.processing.fk import stolt_operator
+    stolt_operator.cache_clear()
+    args = (484, 972, 160, 0.05, 0.1, 0.1, 0.2, 25.6)  # a 401-trace line's sizes (27-45 ms)
+    start, got = threading.Barrier(4), []
+
+    def ask():
+        start.wait()
+        got.append(stolt_operator(*args))
+
+    threads = [threading.Thread(target=ask) for _ in range(4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    info = stolt_operator.cache_info()
+    assert (info.misses, info.hits) == (1, 3)
+    assert all(g is got[0] for g in got)
+    stolt_operator.cache_clear()
