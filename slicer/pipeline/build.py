@@ -1,9 +1,9 @@
 """The pipeline: survey lines in, georeferenced slices, cube, overview and record out.
 
 :func:`build` opens its engine first (:mod:`slicer.pipeline.build_engine`), then imports the
-cube building (:mod:`slicer.pipeline.cube_build`) and the writers: a ``processes`` engine's
-fork server imports the task modules (about 1.2 s of a core) while this process imports its
-own half (0.65 s), where one after the other they held up the first line tasks.
+cube building (:mod:`slicer.pipeline.cube_build`) and the writers, so that a ``processes``
+engine's fork server imports the task modules (about 1.2 s of a core) while this process
+imports its own (0.65 s). One after the other, the two held up the first line tasks.
 """
 
 from __future__ import annotations
