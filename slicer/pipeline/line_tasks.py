@@ -6,10 +6,12 @@ only one line per worker is ever in memory. The first line runs first, alone: it
 which slice windows fit, and with ``dewow = "auto"`` its dominant frequency sets the dewow
 window of every line (one filter for the whole survey).
 
-Inside a task the line is one DataArray as read and placed; from there on it is plain arrays
-(:func:`slicer.pipeline.line_chain.process_samples`, then the window core): the same NumPy
-cores as the labelled steps, which the tests hold it equal to, without building a DataArray
-for every step (that glue had cost more than the floor of reading and taking envelopes).
+Inside a task the line is plain arrays from the start (:func:`slicer.geometry.survey.
+load_line_samples`: a table-placed SEG-Y line is read without a DataArray, any other line
+through one), then :func:`slicer.pipeline.line_chain.process_samples` and the window core: the
+same NumPy cores as the labelled steps, which the tests hold it equal to, without building a
+DataArray for every step (that glue had cost more than the floor of reading and taking
+envelopes).
 """
 
 from __future__ import annotations
@@ -130,7 +132,7 @@ def reduce_line(job: LineJob) -> dict:
     line = load_line_samples(job.entry, job.settings, sample_interval_ns=job.interval_ns)
     settings = job.settings
     signed = settings.attribute == "signed"
-    # from here on plain arrays: the same cores as the labelled steps, one DataArray per line
+    # plain arrays throughout: the same cores as the labelled steps
     done = process_samples(
         line.values, line.twt, settings, dewow_ns=job.dewow_ns, keep_trace=signed,
         distance=line.distance,
