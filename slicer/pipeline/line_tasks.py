@@ -6,12 +6,12 @@ only one line per worker is ever in memory. The first line runs first, alone: it
 which slice windows fit, and with ``dewow = "auto"`` its dominant frequency sets the dewow
 window of every line (one filter for the whole survey).
 
-Inside a task the line is plain arrays from the start (:func:`slicer.geometry.survey.
-load_line_samples`: a table-placed SEG-Y line is read without a DataArray, any other line
-through one), then :func:`slicer.pipeline.line_chain.process_samples` and the window core: the
-same NumPy cores as the labelled steps, which the tests hold it equal to, without building a
-DataArray for every step (that glue had cost more than the floor of reading and taking
-envelopes).
+Inside a task the line is plain arrays from the start
+(:func:`slicer.geometry.survey.load_line_samples`: a table-placed SEG-Y line is read without a
+DataArray, any other line through one), then
+:func:`slicer.pipeline.line_chain.process_samples` and the window core: the same NumPy cores as
+the labelled steps, which the tests hold it equal to, without building a DataArray for every
+step (that glue had cost more than the floor of reading and taking envelopes).
 """
 
 from __future__ import annotations
