@@ -124,10 +124,11 @@ def reduce_line(job: LineJob) -> dict:
     dict
         ``values`` (traces, slices) float32, ``x``, ``y`` (m), ``line`` (the job number),
         ``time_zero_ns``, ``history``, ``image`` (the processed envelope, or signed trace,
-        decimated for its radargram by :func:`slicer.outputs.radargram.image_of_samples`;
-        None with ``settings.radargrams`` off) and ``input`` (the file's size and SHA-256, for the
-        record: taken here, where the file is read anyway, so the process that builds never
-        reads the survey a second time; None for the second and later channels of a swath).
+        decimated for its radargram: a :class:`slicer.outputs.radargram.LineImage`, plain
+        arrays; None with ``settings.radargrams`` off) and ``input`` (the file's size and
+        SHA-256, for the record: taken here, where the file is read anyway, so the process
+        that builds never reads the survey a second time; None for the second and later
+        channels of a swath).
     """
     line = load_line_samples(job.entry, job.settings, sample_interval_ns=job.interval_ns)
     settings = job.settings
@@ -155,9 +156,9 @@ def reduce_line(job: LineJob) -> dict:
                if job.windows.axis == ELEVATION else None)
     image = None
     if settings.radargrams:  # the processed line as its radargram shows it, decimated
-        from slicer.outputs.radargram import PAGE_CELLS, image_of_samples  # matplotlib: here
+        from slicer.outputs.radargram import PAGE_CELLS, line_image
         constant = job.velocity is not None and not hasattr(job.velocity, "profile")
-        image = image_of_samples(
+        image = line_image(
             trace if signed else env, line.x, line.y, twt,
             name=line_name(job.entry, line.attrs), most=PAGE_CELLS,
             attrs={"line": line_name(job.entry, line.attrs),  # and how to draw it:
@@ -327,8 +328,9 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
     progress : bool
         Show a progress bar (on a terminal).
     on_image : callable, optional
-        Called with each line's ``image`` (see :func:`reduce_line`) as its task returns, in
-        line order; without it the images are dropped.
+        Called with each line's ``image`` (see :func:`reduce_line`), as the DataArray of
+        :func:`slicer.outputs.radargram.display_image`, as its task returns, in line order;
+        without it the images are dropped.
     """
     if engine is None:
         with Engine(parse_scheduler("threads")) as own:
@@ -383,7 +385,7 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
                         progress=progress, weights=sizes):
         image = r.pop("image")  # handed on as it comes: never every line's image at once
         if image is not None and on_image is not None:
-            on_image(image)
+            on_image(image.labelled())  # labelled here: see LineImage
         table.add(r)  # the line's values, x and y go into the table, and from the result
         results.append(r)
     from slicer.processing.fk import release_operators

@@ -241,3 +241,59 @@ def test_migration_operators_are_released_once_the_lines_are_done(small_survey, 
     reduce_survey(settings, progress=False)
     assert held and held[-1] >= 1  # the lines were migrated here, with an operator kept
     assert fk.stolt_operator.cache_info().currsize == 0
+
+
+def test_line_task_image_is_plain_arrays_that_label_as_display_image(small_survey):
+    """The radargram image a line task returns (a LineImage: plain arrays, so a worker never
+    builds a DataArray) labels as image_of_samples labels the same processed line, at a page's
+    size (display_image's, with a page's cells)."""
+    from slicer.outputs.radargram import PAGE_CELLS, LineImage, image_of_samples
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1,
+                                    time_zero=3.0, depths="0:2.4:0.1", velocity=0.1,
+                                    dewow=1.5, background="median", migrate="off")
+    job = LineJob(2, settings.lines[2], settings, settings.requested_windows, 0.1, 0.1, None)
+    image = reduce_line(job)["image"]
+    assert isinstance(image, LineImage)
+    assert not any(isinstance(v, xr.DataArray) for v in vars(image).values())
+    line = correct_time_zero(load_line(settings.lines[2], settings, sample_interval_ns=0.1),
+                             time_zero=3.0)
+    env = envelope(apply_gain(remove_background(dewow(line, window_ns=1.5), method="median"),
+                              kind="power", value=1.0))
+    env = env.transpose("trace", "twt")
+    expected = image_of_samples(env.values, env["x"].values, env["y"].values, env["twt"].values,
+                                most=PAGE_CELLS)
+    got = image.labelled()
+    assert got.shape == (81, 256)  # 81 traces kept, 512 samples in blocks of 2
+    assert got.dims == expected.dims == ("distance", "twt")
+    np.testing.assert_allclose(got.values, expected.values, rtol=1e-5,
+                               atol=1e-6 * float(np.nanmax(expected.values)))
+    for name in ("distance", "x", "y", "twt"):
+        np.testing.assert_allclose(got[name].values, expected[name].values, rtol=1e-12)
+        assert got[name].attrs == expected[name].attrs
+    assert got.attrs["line_start"] == expected.attrs["line_start"]
+    assert got.attrs["line_end"] == expected.attrs["line_end"]
+
+
+def test_a_line_task_leaves_dask_array_unloaded(small_survey):
+    """A worker process runs line tasks without importing dask.array, which xarray's first
+    DataArray imports (0.10-0.14 s of CPU in every worker; slicer.outputs.radargram.LineImage).
+    Run in a fresh process with the worker's modules; the check fails if the task builds a
+    DataArray (as it did)."""
+    import subprocess
+    import sys
+    code = (
+        "import sys\n"
+        "from slicer.pipeline.worker_processes import WARM_MODULES\n"
+        "for m in WARM_MODULES: __import__(m)\n"
+        "import slicer\n"
+        "from slicer.pipeline.line_tasks import LineJob, reduce_line\n"
+        f"s = slicer.load_settings({str(small_survey.line_table)!r}, sample_interval=0.1, "
+        "time_zero=3.0, depths='0:2.4:0.1', velocity=0.1, dewow=1.5)\n"
+        "r = reduce_line(LineJob(0, s.lines[0], s, s.requested_windows, 0.1, 0.1, 1.5, "
+        "None, 0.4))\n"
+        "print(type(r['image']).__name__, r['values'].shape, 'dask.array' in sys.modules)\n")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=120)
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split()[0] == "LineImage"
+    assert done.stdout.split()[-1] == "False"
