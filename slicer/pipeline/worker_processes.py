@@ -31,6 +31,9 @@ PARENT_CHECK_INTERVAL = 0.5
 #: ``cube.zarr`` or ``cube.nc`` use it, and their workers import it at their first tile.
 WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
                 "slicer.pipeline.worker_outputs")
+#: What the fork server imports before :data:`WARM_MODULES`: BLAS libraries then load on one
+#: thread in the server and its workers (:mod:`slicer.pipeline.server_start`).
+SERVER_START = "slicer.pipeline.server_start"
 
 
 def worker_context() -> multiprocessing.context.BaseContext:
@@ -46,7 +49,8 @@ def worker_context() -> multiprocessing.context.BaseContext:
     if not _process_handles() or "forkserver" not in multiprocessing.get_all_start_methods():
         return multiprocessing.get_context("spawn")  # see exit_with_parent
     context = multiprocessing.get_context("forkserver")
-    context.set_forkserver_preload(list(WARM_MODULES))  # used when the server first starts
+    # used when the server first starts; SERVER_START before numpy loads (see there)
+    context.set_forkserver_preload([SERVER_START, *WARM_MODULES])
     return context
 
 

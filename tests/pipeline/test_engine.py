@@ -3,6 +3,7 @@ processes and a LocalCluster (failures: test_engine_failures.py)."""
 
 import math
 import os
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -118,6 +119,46 @@ def test_tasks_use_blas_on_one_thread_and_the_caller_gets_its_own_back(scheduler
         assert _blas_threads() == before
     assert in_tasks and all(t and set(t) == {1} for t in in_tasks)  # 2 on CI's 2 cores
     assert set(here) == {1}  # the calling process runs tasks too (processes: until workers)
+
+
+def _native_threads(_item=None) -> int:
+    """Threads of this process that Python did not start (BLAS libraries' own), after a BLAS
+    call."""
+    import os
+    import threading
+
+    import numpy as np
+    a = np.ones((300, 300), dtype=np.float32)
+    a @ a
+    return len(os.listdir("/proc/self/task")) - threading.active_count()
+
+
+@pytest.mark.skipif(not Path("/proc/self/task").is_dir(), reason="no /proc")
+def test_process_workers_start_without_blas_threads():
+    # The fork server sets OPENBLAS_NUM_THREADS=1 before its modules load numpy
+    # (slicer.pipeline.server_start): OpenBLAS then starts no thread of its own, where it
+    # started one per core less one per library (numpy's, scipy's), each spinning a while at
+    # start and after each call: 2 such threads per worker on 2 cores, none now (checked).
+    with Engine(parse_scheduler("processes", workers=2)) as engine:
+        assert engine.wait_for_workers(60)
+        counts = set(engine.map(_native_threads, range(6), desc="b", progress=False))
+    assert counts == {0}
+
+
+def test_the_fork_servers_first_module_puts_blas_on_one_thread_as_it_loads():
+    # in a fresh process, as the fork server imports it: before numpy, no limit taken after
+    import subprocess
+    import sys
+    code = ("import slicer.pipeline.server_start\n"
+            "import numpy, scipy.linalg\n"
+            "from threadpoolctl import threadpool_info\n"
+            "print(sorted({i['num_threads'] for i in threadpool_info() "
+            "if i['user_api'] == 'blas'}))\n")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=120, env={k: v for k, v in os.environ.items()
+                                            if not k.endswith("_NUM_THREADS")})
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.strip() == "[1]"
 
 
 def test_an_engine_that_fails_to_open_gives_the_blas_setting_back(monkeypatch):
