@@ -30,13 +30,22 @@ Peak memory: ``VmHWM`` of the process that ran the method (a fresh one); for sli
 largest sum of the resident memory of that process and its worker processes, sampled every
 50 ms during the build (:class:`TreeMemory`).
 
-Run ``python benchmarks/peers.py [--sizes 65000,400000] [--keep DIR]``; see benchmarks/README.md.
+Rounds: the floor, slicer and the griddata script run ``--repeat`` times (default 3) in turn,
+each time in a fresh process; the table gives each one's median and range, and the ratios are
+of the medians (each round's slicer/floor and slicer/griddata ratios are printed too). This
+machine's speed drifts by a fifth within minutes, so one run of each, minutes apart, says
+little (a 400 k ratio of 2.06 and, a quarter of an hour later, 2.73). verde and the earlier
+floor run once.
+
+Run ``python benchmarks/peers.py [--sizes 65000,400000] [--repeat 3] [--keep DIR]``; see
+benchmarks/README.md.
 """
 
 from __future__ import annotations
 
 import argparse
 import math
+import statistics
 import sys
 import time
 from pathlib import Path
@@ -124,7 +133,7 @@ def _rss_mib(pid: int) -> float:
     return 0.0
 
 
-def run_slicer(table: str, out: str) -> dict:
+def run_slicer(table: str, out: str, place: bool = True) -> dict:
     import slicer
     with TreeMemory() as tree:
         # the line table read and checked inside the time, as the scripts read theirs
@@ -133,9 +142,11 @@ def run_slicer(table: str, out: str) -> dict:
         result = slicer.build(settings, progress=False)
         seconds = time.perf_counter() - started
     peaks = {**_peaks(), "tree_peak": tree.peak}  # before the untimed build below
-    cube = slicer.build_cube(settings, progress=False).cube  # for placement, not timed
-    return {"seconds": seconds, "engine": result.record["engine"], **peaks,
-            "cube": _plain(cube.values, cube["x"].values, cube["y"].values)}
+    done = {"seconds": seconds, "engine": result.record["engine"], **peaks}
+    if place:  # for placement, not timed (the same every round: asked for once)
+        cube = slicer.build_cube(settings, progress=False).cube
+        done["cube"] = _plain(cube.values, cube["x"].values, cube["y"].values)
+    return done
 
 
 def run_floor(table: str, kind: str = "real") -> dict:
@@ -187,7 +198,7 @@ def _write_tifs(cube, gx, gy, folder: Path) -> None:
             dst.write(band.astype(np.float32), 1)
 
 
-def run_griddata(table: str, out: str) -> dict:
+def run_griddata(table: str, out: str, place: bool = True) -> dict:
     started = time.perf_counter()  # its imports timed, as slicer.build's are (lazy)
     import scipy.interpolate
     import scipy.spatial
@@ -201,10 +212,11 @@ def run_griddata(table: str, out: str) -> dict:
     cube = np.moveaxis(grid, -1, 0)
     cube[:, far] = np.nan
     _write_tifs(cube, gx, gy, Path(out))
-    return {"seconds": time.perf_counter() - started, **_peaks(), "cube": _plain(cube, gx, gy)}
+    seconds = time.perf_counter() - started
+    return {"seconds": seconds, **_peaks(), **({"cube": _plain(cube, gx, gy)} if place else {})}
 
 
-def run_verde(table: str, out: str) -> dict:
+def run_verde(table: str, out: str, place: bool = True) -> dict:
     started = time.perf_counter()  # its imports timed, as slicer.build's are (lazy)
     import verde as vd
     x, y, values = _values_per_trace(Path(table))
@@ -216,7 +228,8 @@ def run_verde(table: str, out: str) -> dict:
         gridder = vd.KNeighbors(k=4).fit((x, y), values[:, k])
         cube[k] = np.where(mask, gridder.predict((mx, my)), np.nan)
     _write_tifs(cube, gx, gy, Path(out))
-    return {"seconds": time.perf_counter() - started, **_peaks(), "cube": _plain(cube, gx, gy)}
+    seconds = time.perf_counter() - started
+    return {"seconds": seconds, **_peaks(), **({"cube": _plain(cube, gx, gy)} if place else {})}
 
 
 def _plain(values, x, y) -> dict:
@@ -243,35 +256,63 @@ def placement(cube: dict, targets: list[tuple[float, float, float]]) -> tuple[fl
 
 # --- the run -----------------------------------------------------------------------------------
 
-def measure_size(root: Path, n: int, use_verde: bool) -> list[list[str]]:
+def measure_size(root: Path, n: int, use_verde: bool, rounds: int = 1) -> list[list[str]]:
+    """Rows of the table for one size: the tuned floor, slicer and the griddata script run
+    ``rounds`` times in turn (floor, slicer, griddata, floor, ...; each in a fresh process),
+    their medians and ranges; the earlier floor and verde once. The ratios are of medians:
+    this machine's speed drifts by a fifth within minutes (benchmarks/README.md), and one run
+    of each, minutes apart, moved the 400 k ratio from 2.1 to 2.7."""
     import build_throughput as bt
     folder = root / f"traces_{n}"
     table, files, made, reused = bt.make_survey(folder / "survey", n)
     lines = bt.plan(n)
     targets = [(t.x, t.y, t.depth) for t in bt.ground_for(lines).targets
                if t.kind == "point"]
-    traces = n
-    rows = []
     _read_once(table)  # every method then finds the files in the page cache, as the first did
-    measured = in_fresh_process(run_floor, str(table))
-    floor = measured["seconds"]
-    rows.append([f"{traces}", "tuned floor", _f(floor), "1.00", "-", "-", _memory(measured)])
+    timed = [("tuned floor", None), ("slicer build", run_slicer),
+             ("griddata script", run_griddata)]
+    runs: dict[str, list[dict]] = {name: [] for name, _ in timed}
+    for k in range(rounds):
+        for name, run in timed:
+            if run is None:
+                runs[name].append(in_fresh_process(run_floor, str(table)))
+                continue
+            # slicer in a user's environment (BLAS threads at the libraries' defaults: it
+            # limits them itself); the peers with one BLAS thread, their best
+            # (benchmarks/README.md)
+            runs[name].append(in_fresh_process(run, str(table), str(folder / name.split()[0]),
+                                               k == 0, blas_default=run is run_slicer))
+    floor = statistics.median(r["seconds"] for r in runs["tuned floor"])
+    rows = [_row(n, "tuned floor", runs["tuned floor"], floor, None)]
     earlier = in_fresh_process(run_floor, str(table), "complex")
-    rows.append([f"{traces}", "complex-FFT floor (to 2026-12-02)", _f(earlier["seconds"]),
-                 _f(earlier["seconds"] / floor), "-", "-", _memory(earlier)])
-    peers = [("slicer build", run_slicer), ("griddata script", run_griddata)]
-    if use_verde:
-        peers.append(("verde k-NN", run_verde))
-    for name, run in peers:
-        # slicer in a user's environment (BLAS threads at the libraries' defaults: it limits
-        # them itself); the peers with one BLAS thread, their best (benchmarks/README.md)
-        result = in_fresh_process(run, str(table), str(folder / name.split()[0]),
-                                  blas_default=run is run_slicer)
-        med, worst = placement(result["cube"], targets)
-        label = f"{name} ({result['engine']})" if "engine" in result else name
-        rows.append([f"{traces}", label, _f(result["seconds"]), _f(result["seconds"] / floor),
-                     _f(med, 3), _f(worst, 3), _memory(result)])
+    rows.append(_row(n, "complex-FFT floor (to 2026-12-02)", [earlier], floor, None))
+    for name, _ in timed[1:]:
+        rows.append(_row(n, name, runs[name], floor, targets))
+    if use_verde:  # far behind the others: once
+        rows.append(_row(n, "verde k-NN", [in_fresh_process(
+            run_verde, str(table), str(folder / "verde"))], floor, targets))
+    if rounds > 1:
+        per_round = [s["seconds"] / f["seconds"] for s, f in
+                     zip(runs["slicer build"], runs["tuned floor"], strict=True)]
+        ahead = [s["seconds"] / g["seconds"] for s, g in
+                 zip(runs["slicer build"], runs["griddata script"], strict=True)]
+        print(f"{n} traces, each round: slicer / floor "
+              f"{', '.join(f'{r:.2f}' for r in per_round)}; slicer / griddata "
+              f"{', '.join(f'{r:.2f}' for r in ahead)}", flush=True)
     return rows
+
+
+def _row(n: int, name: str, results: list[dict], floor: float, targets) -> list[str]:
+    """One table row: the median time of ``results``, its range, the ratio of the median to
+    ``floor``, the placement of the first result's cube (``targets`` given) and its memory."""
+    seconds = [r["seconds"] for r in results]
+    median = statistics.median(seconds)
+    first = results[0]
+    place = ["-", "-"] if targets is None else [_f(v, 3) for v in placement(first["cube"],
+                                                                            targets)]
+    label = f"{name} ({first['engine']})" if "engine" in first else name
+    spread = f"{min(seconds):.2f}-{max(seconds):.2f}" if len(seconds) > 1 else "-"
+    return [f"{n}", label, _f(median), spread, _f(median / floor), *place, _memory(first)]
 
 
 def _read_once(table: Path) -> None:
@@ -297,6 +338,8 @@ def main(argv=None) -> int:
     p.add_argument("--sizes", default="65000,400000,1000000",
                    help="approximate trace counts, comma separated")
     p.add_argument("--keep", type=Path, help="write (and reuse) surveys and outputs here")
+    p.add_argument("--repeat", type=int, default=3,
+                   help="rounds of floor, slicer and griddata, in turn (default 3; verde once)")
     args = p.parse_args(argv)
     try:
         import verde  # noqa: F401
@@ -309,9 +352,9 @@ def main(argv=None) -> int:
     with work_folder(args.keep, "slicer-peers-") as root:
         rows = []
         for n in (int(s) for s in args.sizes.split(",")):
-            rows += measure_size(root, n, use_verde)
-            print(_table(["traces", "method", "s", "x floor", "median miss m", "worst miss m",
-                          "peak MiB"], rows), flush=True)
+            rows += measure_size(root, n, use_verde, max(1, args.repeat))
+            print(_table(["traces", "method", "s (median)", "range s", "x floor",
+                          "median miss m", "worst miss m", "peak MiB"], rows), flush=True)
     return 0
 
 

@@ -139,7 +139,7 @@ def add_build_options(p: argparse.ArgumentParser) -> None:
                         "spacing; 0 bridges nothing)")
     g = p.add_argument_group("engine")
     g.add_argument("--scheduler", metavar="auto|threads|processes|local:N|tcp://HOST:PORT",
-                   help="where the work runs: auto (default: threads below 300 000 traces, "
+                   help="where the work runs: auto (default: threads below 50 000 traces, "
                         "processes above), dask threads, dask processes, a LocalCluster of N "
                         "workers, or an existing dask.distributed cluster")
     g.add_argument("--memory-limit", metavar="SIZE",

@@ -8,7 +8,7 @@ window of a few per worker (:meth:`Engine.map`).
 Engines, as ``--scheduler`` spells them:
 
 ``auto`` (default)
-    ``threads`` below 300 000 traces, ``processes`` from there on.
+    ``threads`` below 50 000 traces, ``processes`` from there on.
 ``threads``
     a pool of one thread per core on this machine.
 ``processes``
@@ -99,10 +99,14 @@ class EngineSpec:
 
 
 #: From this many traces ``auto`` uses processes, whose workers (and not the calling process)
-#: then write every output (:mod:`slicer.pipeline.worker_outputs`). Measured by benchmarks/scale.py
-#: on 2 cores (2026-12-02): threads 9.1 s and processes 10.1 s at 200 k traces (starting and
-#: importing in the workers costs 2-3 s), threads 28.8 s and processes 24.4 s at 1 M.
-AUTO_PROCESSES_TRACES = 300_000
+#: then write every output (:mod:`slicer.pipeline.worker_outputs`). Builds of the surveys of
+#: benchmarks/build_throughput.py on 2 cores, each in a fresh process, the two in turn
+#: (2026-12-03, once the fork server and its workers started without BLAS threads and line
+#: tasks without dask.array): medians of 4, threads against processes, 15 k traces 1.93 and
+#: 2.31 s (3 pairs), 30 k 2.72 and 2.82 s (3), 45 k 3.30 and 3.41 s, 65 k 4.05 and 3.66 s
+#: (processes ahead in 7 pairs of 8). It had been 300 000 (threads 9.1 s against processes
+#: 10.1 s at 200 k on 2026-12-02, when each worker imported everything itself).
+AUTO_PROCESSES_TRACES = 50_000
 
 #: Most worker processes per core: tasks are single-threaded numpy work and file reads, so more
 #: workers than cores only help while some wait on a disk; beyond a few per core they add

@@ -59,6 +59,10 @@ def test_auto_scheduler_by_survey_size():
     assert parse_scheduler("auto", traces=10, workers=2).kind == "threads"
     assert parse_scheduler("auto", traces=10**6, workers=2).kind == "processes"
     assert parse_scheduler("auto", traces=10**6, workers=1).kind == "threads"
+    # the boundary, measured (slicer.pipeline.engine.AUTO_PROCESSES_TRACES): threads ahead up
+    # to 45 k traces, processes at 65 k
+    assert parse_scheduler("auto", traces=49_999, workers=2).kind == "threads"
+    assert parse_scheduler("auto", traces=50_000, workers=2).kind == "processes"
 
 
 @pytest.mark.parametrize("scheduler", ["threads", "processes"])
