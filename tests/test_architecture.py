@@ -130,6 +130,19 @@ def test_a_build_without_netcdf_or_zarr_does_not_load_their_libraries():
     assert [m for m in ("h5py", "h5netcdf", "netCDF4", "zarr", "dask.array") if m in loaded] == []
 
 
+def test_the_process_that_plans_a_build_does_not_load_scipy_spatial():
+    """On worker processes the calling process never grids, so the modules it imports for a
+    build leave scipy.spatial (the gridding's KD-tree, imported where it grids: 0.13 s) to the
+    workers' fork server, which imports it with the task modules."""
+    from slicer.pipeline.worker_processes import WARM_MODULES
+    loaded = _modules_after(None, "import slicer\nslicer.build\n"
+                                  "import slicer.pipeline.cube_build, slicer.pipeline.view\n"
+                                  "import slicer.outputs.sink, slicer.pipeline.worker_outputs\n")
+    assert "slicer.pipeline.cube_build" in loaded and "slicer.gridding.grid" in loaded
+    assert "scipy.spatial" not in loaded
+    assert "scipy.spatial" in WARM_MODULES
+
+
 def test_a_build_without_a_terminal_does_not_load_tqdm():
     """Bars are drawn on a terminal only (slicer.core.progress); elsewhere tqdm, whose import
     looks up its installed version (about 60 ms a process), is not loaded at all."""

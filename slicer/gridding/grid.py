@@ -28,7 +28,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import scipy.sparse
-import scipy.spatial
 
 from slicer.core.errors import SettingsError, warn
 from slicer.gridding.cells import check_cell as check_cell  # re-exported
@@ -370,7 +369,10 @@ def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
     empty = total <= 0
     ask = np.flatnonzero(~empty & ~between)
     if ask.size:
-        tree = scipy.spatial.cKDTree(np.column_stack([x, y]))
+        # imported here: the process that plans a build on worker processes never grids, and
+        # scipy.spatial loads scipy's BLAS (0.13 s, and its threads' spin: benchmarks/README.md)
+        from scipy.spatial import cKDTree
+        tree = cKDTree(np.column_stack([x, y]))
         nearest, _ = tree.query(np.column_stack([xc[ask % nx], yc[ask // nx]]), k=1,
                                 distance_upper_bound=frame.radius)
         empty[ask] = ~np.isfinite(nearest)
