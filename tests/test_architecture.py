@@ -115,7 +115,7 @@ def test_the_build_does_load_them():
     heavy stack (``slicer.build`` itself defers them, so its workers start sooner)."""
     loaded = _modules_after(None, "import slicer\nslicer.build\n"
                                   "import slicer.pipeline.worker_outputs")
-    assert {"dask", "rasterio", "segyio"} <= loaded
+    assert {"dask", "xarray", "segyio", "scipy.fft"} <= loaded
 
 
 def test_a_build_without_netcdf_or_zarr_does_not_load_their_libraries():
@@ -130,16 +130,18 @@ def test_a_build_without_netcdf_or_zarr_does_not_load_their_libraries():
     assert [m for m in ("h5py", "h5netcdf", "netCDF4", "zarr", "dask.array") if m in loaded] == []
 
 
-def test_the_process_that_plans_a_build_does_not_load_scipy_spatial():
-    """On worker processes the calling process never grids, so the modules it imports for a
-    build leave scipy.spatial (the gridding's KD-tree, imported where it grids: 0.13 s) to the
-    workers' fork server, which imports it with the task modules."""
+def test_the_process_that_plans_a_build_does_not_load_scipy_spatial_or_rasterio():
+    """On worker processes the calling process never grids and writes no GeoTIFF, so the
+    modules it imports for a build leave scipy.spatial (the gridding's KD-tree, imported where
+    it grids: 0.13 s) to the workers' fork server, which imports it with the task modules, and
+    rasterio (0.13 s) to where a file is written (the record reads GDAL's version on a thread
+    while the workers grid)."""
     from slicer.pipeline.worker_processes import WARM_MODULES
     loaded = _modules_after(None, "import slicer\nslicer.build\n"
                                   "import slicer.pipeline.cube_build, slicer.pipeline.view\n"
                                   "import slicer.outputs.sink, slicer.pipeline.worker_outputs\n")
     assert "slicer.pipeline.cube_build" in loaded and "slicer.gridding.grid" in loaded
-    assert "scipy.spatial" not in loaded
+    assert "scipy.spatial" not in loaded and "rasterio" not in loaded
     assert "scipy.spatial" in WARM_MODULES
 
 

@@ -16,17 +16,14 @@ import ctypes
 import errno
 import os
 import shutil
+import sys
 import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-import rasterio
 import xarray as xr
-from rasterio._err import CPLE_BaseError  # what a failed GDAL copy raises (rasterio 1.4)
-from rasterio.crs import CRS as RasterioCRS
-from rasterio.windows import Window
 
 from slicer.core.atomic import temp_file
 from slicer.core.conventions import DEPTH, ELEVATION, TWT, UNITS
@@ -85,13 +82,26 @@ def _tag_text(value) -> str:
     return str(value)
 
 
-def _rasterio_crs(cube: xr.DataArray) -> RasterioCRS | None:
+def _rasterio_crs(cube: xr.DataArray) -> str | None:
+    """The cube's CRS as rasterio takes it in a profile (``CRS.from_user_input``): its EPSG
+    code, which gives GDAL a plain ProjectedCRSGeoKey, or else its full WKT. A string, not a
+    ``rasterio.crs.CRS``: the profiles are made where no file may be written (a build's
+    calling process, which leaves rasterio to its workers)."""
     pcrs = cube_crs(cube)
     if pcrs is None:
         return None
-    # An EPSG code gives GDAL a plain ProjectedCRSGeoKey; otherwise hand over the full WKT.
     code = pcrs.to_epsg()
-    return RasterioCRS.from_epsg(code) if code else RasterioCRS.from_wkt(pcrs.to_wkt())
+    return f"EPSG:{code}" if code else pcrs.to_wkt()
+
+
+def _write_errors() -> tuple[type[BaseException], ...]:
+    """What a failed GeoTIFF write raises: OSError, and rasterio's and GDAL's errors once
+    rasterio is loaded (none can be raised before)."""
+    if "rasterio" not in sys.modules:
+        return (OSError,)
+    from rasterio._err import CPLE_BaseError  # what a failed GDAL copy raises (rasterio 1.4)
+    from rasterio.errors import RasterioError
+    return (OSError, RasterioError, CPLE_BaseError)
 
 
 _QUIET = threading.Lock()
@@ -126,6 +136,7 @@ def _quiet_libtiff():
     loaded is found in ``/proc/self/maps``; elsewhere nothing changes). Nested and concurrent
     uses share one muting.
     """
+    import rasterio  # noqa: F401 - loads GDAL and its libtiff first, so that they are found
     with _QUIET:
         if _quiet["depth"] == 0:
             _quiet["saved"] = [(setter, setter(None)) for setter in _libtiff_setters()]
@@ -232,7 +243,8 @@ class SliceTiffWriter:
                     continue
                 self._staged.append(temp_file(self.folder, prefix=f".{path.stem}.",
                                               suffix=f".part{path.suffix}"))
-                with self._naming(path):
+                with self._naming(path, gdal=True):
+                    import rasterio
                     self._datasets.append(rasterio.open(self._staged[-1], "w", **self._staging))
                     _label(self._datasets[-1], tags, description, self._units)
         except BaseException:
@@ -256,12 +268,14 @@ class SliceTiffWriter:
 
     @staticmethod
     @contextlib.contextmanager
-    def _naming(path: Path):
-        # A failing write names the final file, which is what the user knows of.
+    def _naming(path: Path, *, gdal: bool = False):
+        # A failing write names the final file, which is what the user knows of. With
+        # ``gdal`` the block writes through GDAL, whose libtiff is muted (_quiet_libtiff); a
+        # rename alone needs neither.
         try:
-            with _quiet_libtiff():
+            with _quiet_libtiff() if gdal else contextlib.nullcontext():
                 yield
-        except (OSError, rasterio.errors.RasterioError, CPLE_BaseError) as exc:
+        except _write_errors() as exc:
             reason = str(exc)
             with contextlib.suppress(OSError):  # libtiff's own words were muted: say them
                 if shutil.disk_usage(path if path.is_dir() else path.parent).free == 0:
@@ -280,7 +294,8 @@ class SliceTiffWriter:
             raise SettingsError(f"a band window is 2-D, got shape {values.shape}", where="tile")
         check_tile(values[None], (1, *self.shape[1:]), row0, col0)
         h, w = values.shape
-        with self._naming(self.paths[index]):
+        from rasterio.windows import Window
+        with self._naming(self.paths[index], gdal=True):
             self._datasets[index].write(np.ascontiguousarray(values), 1,
                                         window=Window(int(col0), int(row0), w, h))
 
@@ -317,7 +332,8 @@ class SliceTiffWriter:
         try:
             # deferred: no datasets, the files were written whole by slice jobs
             for i, (path, dst) in enumerate(zip(self.paths, self._datasets, strict=False)):
-                with self._naming(path):
+                with self._naming(path, gdal=True):
+                    import rasterio
                     with rasterio.Env():  # GDAL's errors to rasterio, not printed on stderr
                         dst.close()  # flushes the last blocks
                     copy_to_cog(self._staged[i], self._temps[i], self._profile)
@@ -349,10 +365,13 @@ class SliceTiffWriter:
             return
         self._state = "aborted"
         # Under an Env, GDAL's errors (a full disk: one per file) go to rasterio, not stderr.
-        with _quiet_libtiff(), rasterio.Env():
-            for dst in self._datasets:
-                with contextlib.suppress(Exception):
-                    dst.close()
+        # Without datasets (a deferred writer, or none opened yet) GDAL has nothing to close.
+        if self._datasets:
+            import rasterio
+            with _quiet_libtiff(), rasterio.Env():
+                for dst in self._datasets:
+                    with contextlib.suppress(Exception):
+                        dst.close()
         self._remove([*self._temps, *self._staged])
         for folder in self._created:  # innermost first; only folders this writer made
             with contextlib.suppress(OSError):
@@ -400,7 +419,7 @@ def write_slice_file(job: SliceFileJob, values: np.ndarray | None = None) -> str
     if values is None:
         from slicer.outputs.zarr_store import read_slice
         values = read_slice(job.store, job.index)
-    with SliceTiffWriter._naming(Path(job.final)):
+    with SliceTiffWriter._naming(Path(job.final), gdal=True):
         write_cog(job.temp, values, job.profile,
                   label=lambda dst: _label(dst, job.tags, job.description, job.units))
     return job.temp

@@ -104,6 +104,10 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         warnings.simplefilter("always", SlicerWarning)
         r = reduce_and_plan(settings, engine, progress=progress, cube_in_memory=False,
                             on_image=painter.add)
+        # read while the tiles are gridded: on workers this process writes no GeoTIFF, and
+        # the versions need rasterio (0.13 s) and the packages' metadata
+        from slicer.pipeline.record import environment
+        versions = _aside(environment)
         r.record["inputs"] = None  # filled in below, in this place of the record
         if command is not None:
             r.record["command"] = command
@@ -142,6 +146,7 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         r.record["inputs"] = [describe_file(p) for p in _side_inputs(settings)] + \
             r.reduced.inputs
         r.record["grid"]["empty_cells"] = sink.empty_cells
+        r.record["environment"] = versions()
         r.record["warnings"] = [str(w.message) for w in caught
                                 if issubclass(w.category, SlicerWarning)]
         r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
@@ -157,6 +162,29 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         warnings.warn(message, SlicerWarning, stacklevel=2)
     return BuildResult(cube=functools.partial(open_result, template, files), record=r.record,
                        files=files, warnings=warned)
+
+
+def _aside(function):
+    """Call ``function()`` on a thread of its own; returns a callable that waits for its
+    result (or raises what it raised)."""
+    done: dict = {}
+
+    def run() -> None:
+        try:
+            done["result"] = function()
+        except BaseException as exc:  # handed to the caller, in its thread
+            done["error"] = exc
+
+    thread = threading.Thread(target=run, name="slicer-aside", daemon=True)
+    thread.start()
+
+    def result():
+        thread.join()
+        if "error" in done:
+            raise done["error"]
+        return done["result"]
+
+    return result
 
 
 def _import_aside(module: str) -> None:

@@ -166,7 +166,9 @@ class Reduction:
 def reduce_and_plan(settings: BuildSettings, engine: Engine, *, progress: bool,
                     cube_in_memory: bool, on_image=None) -> Reduction:
     """Place, check the memory budget, reduce every line (on ``engine``), correct zigzag
-    and level as asked, and plan the grid: everything before the tiles are gridded.
+    and level as asked, and plan the grid: everything before the tiles are gridded. The
+    record's ``environment`` is left None for the caller
+    (:func:`slicer.pipeline.record.environment`).
 
     ``on_image`` takes each line's radargram as its task returns it.
     """
@@ -210,7 +212,9 @@ def reduce_and_plan(settings: BuildSettings, engine: Engine, *, progress: bool,
         "ties": reduced.ties,
         "zigzag": zigzag,
         "seconds": {"read_and_process": round(read_s, 3)},
-        "environment": environment(),
+        # filled in by the caller (record.environment): a build on workers reads it while they
+        # grid, so that the calling process does not load rasterio before handing them tiles
+        "environment": None,
     }
     return Reduction(reduced, layout, kwargs, record, started)
 
@@ -241,6 +245,7 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
             return build_cube(settings, progress=progress, engine=own)
     from slicer.outputs.cube import new_cube
     r = reduce_and_plan(settings, engine, progress=progress, cube_in_memory=True)
+    r.record["environment"] = environment()
     gridding = time.perf_counter()
     values = r.layout.assemble(r.reduced.table.values, engine=engine, progress=progress)
     cube = with_depth_error(new_cube(values, **r.kwargs), settings, r.reduced.table)

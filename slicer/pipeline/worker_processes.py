@@ -27,11 +27,12 @@ PARENT_CHECK_INTERVAL = 0.5
 #: what the line and tile tasks need, imported once by the fork server (:func:`worker_context`).
 #: A worker would otherwise import them at its first task, about 1.4-1.6 s of a core after the
 #: calling process has planned the build; started at once, the imports overlap that work.
-#: scipy.spatial is the tiles' (the gridding imports it where it grids, not at the top).
+#: scipy.spatial (the tiles' KD-tree) and rasterio (the slices' writer) are imported where
+#: the gridding and the writers use them, not at the top, for the calling process's sake.
 #: Not the Zarr store's module (zarr and dask.array, 0.14-0.28 s): only builds writing
 #: ``cube.zarr`` or ``cube.nc`` use it, and their workers import it at their first tile.
 WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
-                "slicer.pipeline.worker_outputs", "scipy.spatial")
+                "slicer.pipeline.worker_outputs", "scipy.spatial", "rasterio.shutil")
 #: What the fork server imports before :data:`WARM_MODULES`: BLAS libraries then load on one
 #: thread in the server and its workers (:mod:`slicer.pipeline.server_start`).
 SERVER_START = "slicer.pipeline.server_start"

@@ -221,7 +221,7 @@ def test_failed_write_keeps_existing_file(tmp_path, monkeypatch):
             self.dst.write(*args, **kwargs)
             raise OSError("No space left on device")
 
-    monkeypatch.setattr(_geotiff.rasterio, "open", FailingWriter)
+    monkeypatch.setattr(rasterio, "open", FailingWriter)  # the one module every writer uses
     with pytest.raises(OutputError, match="No space left") as info:
         write_slice_geotiffs(cube * 2, tmp_path, progress=False)
     assert info.value.where == str(path)
