@@ -140,8 +140,9 @@ def add_build_options(p: argparse.ArgumentParser) -> None:
     g = p.add_argument_group("engine")
     g.add_argument("--scheduler", metavar="auto|threads|processes|local:N|tcp://HOST:PORT",
                    help="where the work runs: auto (default: threads below 50 000 traces, "
-                        "processes above), dask threads, dask processes, a LocalCluster of N "
-                        "workers, or an existing dask.distributed cluster")
+                        "processes above; 300 000 where workers are spawned), dask threads, "
+                        "dask processes, a LocalCluster of N workers, or an existing "
+                        "dask.distributed cluster")
     g.add_argument("--memory-limit", metavar="SIZE",
                    help="memory budget of the build's working data, e.g. 2GB (default 1GiB); "
                         "a build that cannot fit is refused before it starts")

@@ -8,7 +8,8 @@ window of a few per worker (:meth:`Engine.map`).
 Engines, as ``--scheduler`` spells them:
 
 ``auto`` (default)
-    ``threads`` below 50 000 traces, ``processes`` from there on.
+    ``threads`` below 50 000 traces, ``processes`` from there on (300 000 where workers are
+    spawned rather than forked by a fork server).
 ``threads``
     a pool of one thread per core on this machine.
 ``processes``
@@ -65,6 +66,7 @@ from slicer.core.progress import bar_for
 from slicer.pipeline.remote_scheduler import ask_scheduler, one_line
 from slicer.pipeline.task_warnings import replay, run_capturing
 from slicer.pipeline.worker_processes import (
+    forked_workers,
     one_blas_thread,
     start_worker,
     start_workers,
@@ -104,9 +106,14 @@ class EngineSpec:
 #: (2026-12-03, once the fork server and its workers started without BLAS threads and line
 #: tasks without dask.array): medians of 4, threads against processes, 15 k traces 1.93 and
 #: 2.31 s (3 pairs), 30 k 2.72 and 2.82 s (3), 45 k 3.30 and 3.41 s, 65 k 4.05 and 3.66 s
-#: (processes ahead in 7 pairs of 8). It had been 300 000 (threads 9.1 s against processes
-#: 10.1 s at 200 k on 2026-12-02, when each worker imported everything itself).
+#: (processes ahead in 7 pairs of 8). Where workers are spawned, each importing everything
+#: itself (no fork server: :func:`~slicer.pipeline.worker_processes.forked_workers`), the
+#: switch stays at :data:`AUTO_PROCESSES_TRACES_SPAWNED`.
 AUTO_PROCESSES_TRACES = 50_000
+#: The switch where workers are spawned: measured when every worker imported the task modules
+#: itself (benchmarks/scale.py, 2 cores, 2026-12-02): threads 9.1 s and processes 10.1 s at
+#: 200 k traces (starting and importing in the workers cost 2-3 s), 28.8 s and 24.4 s at 1 M.
+AUTO_PROCESSES_TRACES_SPAWNED = 300_000
 
 #: Most worker processes per core: tasks are single-threaded numpy work and file reads, so more
 #: workers than cores only help while some wait on a disk; beyond a few per core they add
@@ -132,7 +139,8 @@ def parse_scheduler(text: str | None, *, workers: int | None = None,
     n = workers or os.cpu_count() or 1
     text = (text or "threads").strip()
     if text == "auto":
-        text = "processes" if (traces or 0) >= AUTO_PROCESSES_TRACES and n > 1 else "threads"
+        switch = AUTO_PROCESSES_TRACES if forked_workers() else AUTO_PROCESSES_TRACES_SPAWNED
+        text = "processes" if (traces or 0) >= switch and n > 1 else "threads"
     if text == "threads":
         return EngineSpec(text, n)
     if text == "processes":

@@ -48,12 +48,18 @@ def worker_context() -> multiprocessing.context.BaseContext:
     as the calling process, for every later build. Spawn where there is no fork server
     (Windows) or no process descriptor to watch the calling process by (before Linux 5.3).
     """
-    if not _process_handles() or "forkserver" not in multiprocessing.get_all_start_methods():
+    if not forked_workers():
         return multiprocessing.get_context("spawn")  # see exit_with_parent
     context = multiprocessing.get_context("forkserver")
     # used when the server first starts; SERVER_START before numpy loads (see there)
     context.set_forkserver_preload([SERVER_START, *WARM_MODULES])
     return context
+
+
+def forked_workers() -> bool:
+    """Whether ``processes`` workers are forked by a fork server here (:func:`worker_context`),
+    rather than spawned, each importing the task modules itself."""
+    return _process_handles() and "forkserver" in multiprocessing.get_all_start_methods()
 
 
 @functools.cache

@@ -65,6 +65,16 @@ def test_auto_scheduler_by_survey_size():
     assert parse_scheduler("auto", traces=50_000, workers=2).kind == "processes"
 
 
+def test_auto_scheduler_where_workers_are_spawned(monkeypatch):
+    # spawned workers (no fork server: Windows, Linux before 5.3) each import the task modules
+    # themselves, 1.4-1.6 s of a core: the switch stays where it was measured for them
+    import slicer.pipeline.engine as engine_module
+    monkeypatch.setattr(engine_module, "forked_workers", lambda: False)
+    assert parse_scheduler("auto", traces=65_000, workers=2).kind == "threads"
+    assert parse_scheduler("auto", traces=299_999, workers=2).kind == "threads"
+    assert parse_scheduler("auto", traces=300_000, workers=2).kind == "processes"
+
+
 @pytest.mark.parametrize("scheduler", ["threads", "processes"])
 def test_map_of_a_generator_in_batches_keeps_order(scheduler):
     # 300 items on 2 process workers go as batches of 8; a generator is consumed lazily.
