@@ -13,7 +13,7 @@ from slicer.core.conventions import DISTANCE, TWT
 from slicer.core.errors import InputFileError, SettingsError
 from slicer.geometry.placement import even_positions, place_line
 from slicer.geometry.positioning import channel_traces, positioned, source_of
-from slicer.io.lines import AMPLITUDE_UNITS, SEGY_SUFFIXES
+from slicer.io.lines import SEGY_SUFFIXES, line_attrs
 from slicer.io.linetable import LineEntry
 from slicer.io.reading import LineInfo, line_info, read_line
 
@@ -168,8 +168,6 @@ def load_line_samples(entry: LineEntry, settings, *, sample_interval_ns: float |
         values, interval = read_segy_samples(entry.file, sample_interval_ns=sample_interval_ns)
         x, y, distance = even_positions(entry, values.shape[0])
         twt = interval * np.arange(values.shape[1], dtype=np.float64)
-        return PlacedSamples(values, twt, x, y, distance, None, {
-            "line": entry.file.stem, "source": str(entry.file),
-            "sample_interval_ns": float(interval), "time_zero_ns": 0.0, "history": "",
-            "units": AMPLITUDE_UNITS})
+        return PlacedSamples(values, twt, x, y, distance, None,
+                             line_attrs(entry.file, interval_ns=interval))
     return PlacedSamples.of(load_line(entry, settings, sample_interval_ns=sample_interval_ns))

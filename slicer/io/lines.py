@@ -138,10 +138,19 @@ def _make_line(data: np.ndarray, *, interval_ns: float, path: Path, name: str | 
 
     return xr.DataArray(
         np.asarray(data, dtype=np.float32), dims=(TRACE, TWT), coords=coords, name="amplitude",
-        attrs={"line": name if name is not None else path.stem, "source": str(path),
-               "sample_interval_ns": float(interval_ns), "time_zero_ns": float(time_zero_ns),
-               "history": history, "units": units},
+        attrs=line_attrs(path, interval_ns=interval_ns, name=name, time_zero_ns=time_zero_ns,
+                         history=history, units=units),
     )
+
+
+def line_attrs(path: Path, *, interval_ns: float, name: str | None = None,
+               time_zero_ns: float = 0.0, history: str = "",
+               units: str = AMPLITUDE_UNITS) -> dict:
+    """The attrs of a Line read from ``path`` (:func:`_make_line`; also a build's line task,
+    which reads a line's samples without the DataArray)."""
+    return {"line": name if name is not None else path.stem, "source": str(path),
+            "sample_interval_ns": float(interval_ns), "time_zero_ns": float(time_zero_ns),
+            "history": history, "units": units}
 
 
 def _line_interval(line: xr.DataArray, where: str) -> float:

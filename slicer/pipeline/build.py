@@ -8,6 +8,7 @@ imports its own (0.65 s). One after the other, the two held up the first line ta
 
 from __future__ import annotations
 
+import concurrent.futures
 import contextlib
 import functools
 import importlib
@@ -107,7 +108,9 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         # read while the tiles are gridded: on workers this process writes no GeoTIFF, and
         # the versions need rasterio (0.13 s) and the packages' metadata
         from slicer.pipeline.record import environment
-        versions = _aside(environment)
+        aside = concurrent.futures.ThreadPoolExecutor(1, thread_name_prefix="slicer-versions")
+        versions = aside.submit(environment)
+        aside.shutdown(wait=False)
         r.record["inputs"] = None  # filled in below, in this place of the record
         if command is not None:
             r.record["command"] = command
@@ -146,7 +149,7 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         r.record["inputs"] = [describe_file(p) for p in _side_inputs(settings)] + \
             r.reduced.inputs
         r.record["grid"]["empty_cells"] = sink.empty_cells
-        r.record["environment"] = versions()
+        r.record["environment"] = versions.result()
         r.record["warnings"] = [str(w.message) for w in caught
                                 if issubclass(w.category, SlicerWarning)]
         r.record["seconds"]["grid_and_write"] = round(time.perf_counter() - gridding, 3)
@@ -162,29 +165,6 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         warnings.warn(message, SlicerWarning, stacklevel=2)
     return BuildResult(cube=functools.partial(open_result, template, files), record=r.record,
                        files=files, warnings=warned)
-
-
-def _aside(function):
-    """Call ``function()`` on a thread of its own; returns a callable that waits for its
-    result (or raises what it raised)."""
-    done: dict = {}
-
-    def run() -> None:
-        try:
-            done["result"] = function()
-        except BaseException as exc:  # handed to the caller, in its thread
-            done["error"] = exc
-
-    thread = threading.Thread(target=run, name="slicer-aside", daemon=True)
-    thread.start()
-
-    def result():
-        thread.join()
-        if "error" in done:
-            raise done["error"]
-        return done["result"]
-
-    return result
 
 
 def _import_aside(module: str) -> None:

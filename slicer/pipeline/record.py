@@ -53,8 +53,9 @@ def environment() -> dict:
 
     ``gdal`` and ``rasterio_proj`` are the GDAL and PROJ that rasterio runs on, ``proj`` the
     PROJ of pyproj (the wheels bring their own, and they can differ), ``hdf5`` the HDF5 of
-    h5py when the build used it (NetCDF lines or a NetCDF or Zarr cube), else None: a build
-    loads rasterio and pyproj anyway, but h5py only for those (0.09 s to import).
+    h5py when the build used it (NetCDF lines or a NetCDF or Zarr cube), else None: every
+    build writes through rasterio and places with pyproj, but loads h5py only for those (0.09 s
+    to import). A build on workers calls this on a thread while they grid.
     """
     import importlib.metadata as md
 
