@@ -116,10 +116,9 @@ def check_room(folder: str | os.PathLike, need: int, *, where: str | os.PathLike
     OutputError
         Less than ``need`` bytes free; ``where`` (the output file or folder) is named.
     """
-    from dask.utils import format_bytes
-
     free = shutil.disk_usage(folder).free
     if free < need:
+        from dask.utils import format_bytes  # here: a worker checks without importing dask
         raise OutputError(f"the disk is full: {format_bytes(free)} free, and the next part of the "
                           f"outputs may take {format_bytes(need)}", where=str(where))
 

@@ -23,13 +23,16 @@ import math
 import os
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import DISTANCE, TRACE, TWT, X, Y
 from slicer.core.errors import InputFileError, SettingsError
 from slicer.geometry.localgrid import _float_field, _read_table
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 #: Dimension of channels in a swath.
 CHANNEL = "channel"
@@ -191,6 +194,7 @@ def _names(values) -> list[str]:
 
 def _split(swath) -> tuple[list[xr.DataArray], list[str], str]:
     """Per-channel lines (still at the reference point), their names, and the swath's name."""
+    import xarray as xr
     if isinstance(swath, xr.DataArray):
         if set(swath.dims) != {CHANNEL, TRACE, TWT}:
             raise InputFileError(f"a swath must have dims (channel, trace, twt), got "

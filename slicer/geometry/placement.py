@@ -4,14 +4,17 @@ the line table or from the file's own first and last trace-header positions."""
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import DISTANCE, TRACE, X, Y
 from slicer.core.errors import InputFileError
 from slicer.io.linetable import LineEntry, with_ends
 from slicer.io.reading import header_positions
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 
 def place_line(line: xr.DataArray, entry: LineEntry) -> xr.DataArray:

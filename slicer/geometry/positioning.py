@@ -38,10 +38,9 @@ from __future__ import annotations
 import dataclasses
 import math
 from collections.abc import Sequence
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pyproj
-import xarray as xr
 
 from slicer.core.conventions import TRACE
 from slicer.core.errors import InputFileError, SettingsError
@@ -49,6 +48,10 @@ from slicer.geometry.channels import _offset, _travel_direction, _with_positions
 from slicer.geometry.localgrid import _float_field, _read_table
 from slicer.geometry.placement import ends_from_headers, place_line
 from slicer.io.linetable import LineEntry, with_ends
+
+if TYPE_CHECKING:
+    import pyproj
+    import xarray as xr
 
 #: Path length (m) over which the direction of travel is taken for channel offsets.
 SMOOTHING_M = 1.0
@@ -86,10 +89,13 @@ def prepare_survey(settings):
 
 def track_crs(settings) -> pyproj.CRS:
     """The CRS of the GNSS fixes: ``track_crs``, else WGS 84 longitude/latitude."""
+    import pyproj
     return pyproj.CRS.from_user_input(settings.track_crs or "EPSG:4326")
 
 
 def _ends_from_track(entry: LineEntry, settings) -> LineEntry:
+    import pyproj
+
     from slicer.geometry.positions import read_track
     from slicer.io.reading import line_info
     if settings.crs is None:

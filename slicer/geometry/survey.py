@@ -5,9 +5,9 @@ from __future__ import annotations
 import math
 from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import DISTANCE, TWT
 from slicer.core.errors import InputFileError, SettingsError
@@ -16,6 +16,9 @@ from slicer.geometry.positioning import channel_traces, positioned, source_of
 from slicer.io.lines import SEGY_SUFFIXES, line_attrs
 from slicer.io.linetable import LineEntry
 from slicer.io.reading import LineInfo, line_info, read_line
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 
 @dataclass(frozen=True)

@@ -15,12 +15,15 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import SLICE, TRACE, X, Y
 from slicer.core.errors import SettingsError
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 #: Lines within this angle (degrees) of each other are parallel neighbours.
 PARALLEL_DEGREES = 15.0
@@ -173,6 +176,7 @@ def side_distances(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, limit: flo
 def table_arrays(table: xr.DataArray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The values ``(trace, slice)``, ``x``, ``y`` (m) and ``line`` of a trace x slice table,
     checked (a :class:`~slicer.core.errors.SettingsError` naming ``table`` otherwise)."""
+    import xarray as xr
     if not isinstance(table, xr.DataArray) or set(table.dims) != {TRACE, SLICE}:
         raise SettingsError("expected a trace x slice table (DataArray with dims 'trace' and "
                             "'slice')", where="table")

@@ -8,13 +8,16 @@ Appendix F, laid out as rioxarray and GDAL read it), the ``<axis>_bnds`` cell-bo
 from __future__ import annotations
 
 from datetime import UTC, datetime
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pyproj
-import xarray as xr
 from affine import Affine
 
 from slicer.core.conventions import DEPTH, ELEVATION, TWT, UNITS, X
+
+if TYPE_CHECKING:
+    import pyproj
+    import xarray as xr
 
 #: Name of the scalar grid-mapping coordinate (the name rioxarray and GDAL expect).
 GRID_MAPPING = "spatial_ref"
@@ -62,6 +65,8 @@ def grid_mapping_variable(pcrs: pyproj.CRS, transform: Affine) -> xr.Variable:
     ``long_name``: compliance-checker's cf:1.8 suite refuses an int64 variable (its reading of
     CF 1.8 section 2.2, data types) and asks for a ``long_name`` (section 3.3).
     """
+    import pyproj
+    import xarray as xr
     try:
         attrs: dict[str, object] = dict(pcrs.to_cf())
     except (KeyError, pyproj.exceptions.CRSError):
@@ -81,6 +86,7 @@ def add_axis_bounds(ds: xr.Dataset, axis: str) -> str:
     ``(axis, 2)`` variable named in the axis coordinate's ``bounds`` attribute; its ``units``,
     which section 7.1 allows, are the coordinate's. Returns its name.
     """
+    import xarray as xr
     name = f"{axis}_bnds"
     tops = np.asarray(ds[f"{axis}_top"].values, dtype=np.float64)
     bottoms = np.asarray(ds[f"{axis}_bottom"].values, dtype=np.float64)

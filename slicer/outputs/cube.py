@@ -15,11 +15,9 @@ import math
 import os
 from collections.abc import Mapping, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import dask
 import numpy as np
-import pyproj
-import xarray as xr
 from affine import Affine
 
 from slicer.core.atomic import GuardedFile, atomic_path
@@ -27,7 +25,10 @@ from slicer.core.conventions import C_M_PER_NS, DEPTH, ELEVATION, TWT, UNITS, X,
 from slicer.core.errors import InputFileError, OutputError, SettingsError
 from slicer.outputs import cf
 from slicer.outputs.cf import GRID_MAPPING
-from slicer.outputs.cube_index import index_windows
+
+if TYPE_CHECKING:
+    import pyproj
+    import xarray as xr
 
 #: The slice dims a cube may have.
 AXES = (DEPTH, TWT, ELEVATION)
@@ -117,6 +118,9 @@ def new_cube(data, *, west: float, north: float, cell: float, crs, top, bottom,
     SettingsError
         If the cell, windows, velocity, CRS or shapes are invalid.
     """
+    import dask
+    import pyproj
+    import xarray as xr
     axis = _check_axis(axis)
     lazy = dask.is_dask_collection(data)
     values = data.astype(np.float32) if lazy else np.asarray(data, dtype=np.float32)
@@ -203,14 +207,14 @@ def for_python(cube: xr.DataArray) -> xr.DataArray:
     through here, so ``cube.rio.crs``, ``cube.rio.to_raster(...)`` and ``cube.rio.nodata``
     work without the caller importing rioxarray, and selection by depth follows the windows.
     """
-    # rioxarray loads rasterio: imported here, not at module level, so that nothing on the
-    # quick commands' path pays for it (tests/test_architecture.py).
+    # here: rioxarray loads rasterio, which the quick commands never pay for (test_architecture)
     import rioxarray  # noqa: F401  (registers the .rio accessor)
 
     return _with_windows_and_nodata(cube)
 
 
 def _with_windows_and_nodata(cube: xr.DataArray) -> xr.DataArray:
+    from slicer.outputs.cube_index import index_windows  # an xarray Index: xarray loaded
     cube = index_windows(cube)
     # NaN marks empty cells (DEVELOPERS.md); as an encoded fill value rioxarray reports it as
     # both encoded_nodata and nodata, and every writer stores it as _FillValue.
@@ -288,11 +292,10 @@ def check_tile(block, shape: tuple[int, ...], row0: int, col0: int) -> np.ndarra
 
 def _grid_attr(cube: xr.DataArray, key: str) -> float:
     try:
-        value = float(cube.attrs[key])
+        return float(cube.attrs[key])
     except (KeyError, TypeError, ValueError):
         raise SettingsError(f"cube has no numeric attrs[{key!r}] (needed for the grid)",
                             where="cube") from None
-    return value
 
 
 def cube_transform(cube: xr.DataArray) -> Affine:
@@ -314,6 +317,7 @@ def _grid_mapping_name(cube: xr.DataArray) -> str:
 
 def cube_crs(cube: xr.DataArray) -> pyproj.CRS | None:
     """Return the CRS of ``cube`` from its grid-mapping coordinate, or None for a local grid."""
+    import pyproj
     name = _grid_mapping_name(cube)
     if name not in cube.coords:
         return None
@@ -334,9 +338,7 @@ def prepared_for_writing(cube: xr.DataArray) -> xr.DataArray:
     that is lazy (dask) stays lazy.
     """
     slice_axis(cube)
-    name = str(cube.name or "envelope")
-    data = cube.astype(np.float32)
-    data.name = name
+    data = cube.astype(np.float32).rename(str(cube.name or "envelope"))
     grid_mapping = cube.attrs.get("grid_mapping") or cube.encoding.get("grid_mapping")
     data.attrs.pop("grid_mapping", None)
     data.encoding = {}
@@ -451,6 +453,7 @@ def read_cube_netcdf(path: str | os.PathLike, *, name: str | None = None) -> xr.
     InputFileError
         If the file cannot be opened or holds no cube.
     """
+    import xarray as xr
     path = Path(path)
     try:
         ds = xr.open_dataset(path, engine="h5netcdf", decode_timedelta=False)

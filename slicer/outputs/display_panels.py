@@ -10,13 +10,16 @@ from __future__ import annotations
 import math
 import os
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import TWT, UNITS
 from slicer.outputs.cube import cube_transform, slice_axis
 from slicer.outputs.display import MAX_SHEET_CELLS
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 #: Panel edge of the overview, inches, along the longer side of the grid.
 PANEL_INCHES = 3.0

@@ -21,9 +21,9 @@ import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.atomic import temp_file
 from slicer.core.conventions import DEPTH, ELEVATION, TWT, UNITS
@@ -37,6 +37,9 @@ from slicer.outputs.cog import (
     write_cog,
 )
 from slicer.outputs.cube import check_tile, cube_crs, cube_transform, slice_axis
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 #: Decimals of the window bounds in file names and band descriptions (mm, hundredths of ns).
 _DECIMALS = {DEPTH: 3, TWT: 2, ELEVATION: 3}

@@ -18,10 +18,10 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 if TYPE_CHECKING:
     import h5py
+    import xarray as xr
 
 from slicer.core.errors import OutputError
 

@@ -22,7 +22,6 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.atomic import atomic_path
 from slicer.core.conventions import TRACE, TWT, X, Y
@@ -30,6 +29,7 @@ from slicer.core.errors import OutputError, SettingsError
 from slicer.core.physics import depth_from_time, time_from_depth
 
 if TYPE_CHECKING:
+    import xarray as xr
     from matplotlib.figure import Figure
 
 #: Largest decimated image drawn: traces (columns) and samples (rows).
@@ -131,6 +131,7 @@ class LineImage:
 
     def labelled(self) -> xr.DataArray:
         """The image as :func:`display_image` gives it."""
+        import xarray as xr
         out = xr.DataArray(self.values, dims=("distance", TWT), name=self.name,
                            coords={"distance": ("distance", self.distance, {"units": "m"}),
                                    X: ("distance", self.x, {"units": "m"}),

@@ -30,10 +30,9 @@ import os
 import threading
 from collections.abc import Callable, Collection, Mapping, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import dask
 import numpy as np
-import xarray as xr
 
 from slicer.core.atomic import atomic_path, check_room
 from slicer.core.errors import OutputError, SettingsError
@@ -52,6 +51,9 @@ from slicer.outputs.names import (
 )
 from slicer.outputs.viewer import page_slice, page_step
 from slicer.outputs.working_store import open_working_store, working_kind
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 #: Threads writing whole slice GeoTIFFs from the working store (DEFLATE runs outside the GIL).
 SLICE_THREADS = 4
@@ -469,6 +471,7 @@ def write_netcdf_from_store(store: str, target: str) -> None:
     A module-level function of two paths, so a worker process can run it. zlib level 1:
     level 4 made a file 1 % smaller and took longer.
     """
+    import dask
     with dask.config.set(scheduler="threads"):
         from slicer.outputs.zarr_store import open_cube_zarr  # zarr: only where used
         _write_netcdf(open_cube_zarr(store), Path(target), title=None, source=None,

@@ -27,15 +27,18 @@ import os
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.atomic import atomic_path
 from slicer.core.conventions import X, Y
 from slicer.core.errors import SettingsError
 from slicer.outputs.cube import slice_axis
 from slicer.outputs.radargram import PLOT_AREA
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 #: Longest side of a slice on the page, cells.
 MAX_SIDE = 600

@@ -21,14 +21,17 @@ import errno
 import os
 from collections.abc import Collection
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.atomic import temp_file
 from slicer.core.errors import OutputError, SettingsError
 from slicer.outputs.cube import check_tile
 from slicer.outputs.geotiff import tile_windows
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 #: Largest cube (bytes of float32 values) kept in memory while it is gridded: a 64 MiB cube is
 #: 24 slices of 835 x 835 cells, more than a 400 k-trace survey at a 0.1 m cell.

@@ -4,9 +4,9 @@ removal, migration, gain and envelope, each as the build's settings say."""
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import C_M_PER_NS
 from slicer.core.errors import SettingsError, warn
@@ -14,6 +14,9 @@ from slicer.pipeline.settings import BuildSettings
 from slicer.processing.background import parse_background
 from slicer.processing.steps import correct_time_zero, envelope, process_chain
 from slicer.velocity.models import ConstantVelocity
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 
 def dewow_window(settings: BuildSettings, dewow_ns: float | None) -> float | str | None:

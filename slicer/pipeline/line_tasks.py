@@ -19,9 +19,9 @@ from __future__ import annotations
 import math
 import warnings
 from dataclasses import dataclass, field
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import DEPTH, ELEVATION, TRACE, TWT
 from slicer.core.errors import SettingsError, SlicerWarning
@@ -45,6 +45,9 @@ from slicer.processing.steps import (
     dominant_frequency,
 )
 from slicer.velocity.models import ConstantVelocity
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 
 def nice_number(value: float) -> float:
@@ -408,6 +411,7 @@ def assemble_table(results: list[dict], windows: Windows) -> xr.DataArray:
 
 
 def _table(values, x, y, line, windows: Windows) -> xr.DataArray:
+    import xarray as xr
     u = windows.units
     return xr.DataArray(
         values, dims=(TRACE, "slice"), name="value",

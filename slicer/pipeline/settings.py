@@ -22,9 +22,9 @@ import math
 import os
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import numpy as np
-import pyproj
 
 from slicer.core.errors import LineTableError, SettingsError
 from slicer.core.physics import check_velocity, velocity_from_permittivity
@@ -46,6 +46,9 @@ from slicer.pipeline.options import OPTIONS, check_option
 from slicer.pipeline.survey_file import LineGroup, read_survey_file, to_crs
 from slicer.velocity.model_file import read_velocity_model
 from slicer.velocity.models import ConstantVelocity
+
+if TYPE_CHECKING:
+    import pyproj
 
 #: Build options that a TOML survey file may set, with their meaning (for the docs); their
 #: types and limits are in :data:`slicer.pipeline.options.OPTIONS`.
@@ -191,6 +194,7 @@ class BuildSettings:
             parse_bytes(self.memory_limit, where="--memory-limit")
 
     def _check_geometry(self) -> None:
+        import pyproj
         for name in ("antenna_along", "antenna_across"):
             value = getattr(self, name)
             if value is not None and not _finite(value):
@@ -311,6 +315,7 @@ class BuildSettings:
 
 def check_crs(crs) -> pyproj.CRS:
     """The CRS for ``crs`` (EPSG code, WKT or PROJ string) if it is known and projected."""
+    import pyproj
     try:
         parsed = pyproj.CRS.from_user_input(crs)
     except pyproj.exceptions.CRSError:

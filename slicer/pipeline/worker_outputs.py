@@ -8,7 +8,9 @@ only a decimated copy for the overview comes back. Once every tile is stored, on
 slice reads it back, writes its GeoTIFF (:func:`slicer.outputs.geotiff.write_slice_file`) and,
 when the NetCDF cube is asked for, compresses its NetCDF chunks
 (:mod:`slicer.outputs.netcdf_chunks`), which a thread of the calling process stores in the
-NetCDF file as they come; one more task draws the overview. A Zarr store becomes
+NetCDF file as they come, while this process draws the overview from those decimated copies
+(drawn from the cube's template, a DataArray: the workers never import xarray, pandas or
+dask, :data:`slicer.pipeline.worker_processes.WARM_MODULES`). A Zarr store becomes
 ``cube.zarr`` only if the Zarr cube is asked for (``formats``). Everything stays under
 temporary names until all is done, as with :class:`slicer.outputs.sink.CubeSink`. The
 compression of the outputs, which a build otherwise does in its own process, is then shared by
@@ -40,7 +42,7 @@ from slicer.outputs.netcdf_chunks import (
     store_chunks,
     write_skeleton,
 )
-from slicer.outputs.sink import CubeSink, decimate, save_overview
+from slicer.outputs.sink import CubeSink, decimate
 from slicer.outputs.viewer import page_slice
 from slicer.outputs.working_store import FileStore
 from slicer.processing.fk import release_operators
@@ -212,14 +214,6 @@ class WorkerSink(CubeSink):
     def _worker_path(path) -> str:
         # absolute: a worker need not share this process's working folder
         return str(Path(path).resolve())
-
-    def _draw_overview(self, pngs):
-        # on a worker too: rendering and encoding the sheet took about 5 s of a core at 1 M
-        # traces, which the workers writing the slices would otherwise lose
-        return self._offload(save_overview, self.template, self._panels,
-                             [self._worker_path(p) for p in pngs], title=self._title,
-                             display=self._display, per_page=self._per_page,
-                             where=[str(p) for p in self.overview_paths()])
 
     def _start_netcdf(self, target):
         return self._start_slice_tasks(target)

@@ -31,6 +31,8 @@ PARENT_CHECK_INTERVAL = 0.5
 #: the gridding and the writers use them, not at the top, for the calling process's sake.
 #: Not the Zarr store's module (zarr and dask.array, 0.14-0.28 s): only builds writing
 #: ``cube.zarr`` or ``cube.nc`` use it, and their workers import it at their first tile.
+#: Nor xarray, pandas, dask or pyproj (0.3-0.4 s of the server's CPU): none of these modules
+#: imports them at the top, and no line, tile or slice task uses them (DEVELOPERS.md, Tests).
 WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
                 "slicer.pipeline.worker_outputs", "scipy.spatial", "rasterio.shutil")
 #: What the fork server imports before :data:`WARM_MODULES`: BLAS libraries then load on one

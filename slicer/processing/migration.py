@@ -29,15 +29,18 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from typing import TYPE_CHECKING
 
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import DISTANCE, TRACE, TWT
 from slicer.core.errors import SettingsError, warn
 from slicer.core.physics import check_velocity
 from slicer.processing.fk import phase_shift_core, stolt_core
 from slicer.processing.steps import _add_history
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 __all__ = ["interval_velocity", "migrate", "migration_plan", "spacing_of", "trace_spacing"]
 
@@ -209,6 +212,7 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
         Unknown method, velocity not between 0 and c, layered velocity with ``stolt``, a line
         without ``distance`` or with no sample at or after time zero, or a bad taper or pad.
     """
+    import xarray as xr
     dx = trace_spacing(line)
     apply, how, v_const = migration_plan(
         np.asarray(line[TWT].values, dtype=float), dx=dx, velocity=velocity, method=method,

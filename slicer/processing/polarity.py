@@ -21,12 +21,16 @@ air-filled pipe read opposite signs.
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 import numpy as np
-import xarray as xr
 
 from slicer.core.conventions import TRACE, TWT
 from slicer.core.errors import SettingsError
 from slicer.processing.background import median_trace
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 
 def leading_lobe_signs_core(samples: np.ndarray, envelope: np.ndarray, *,

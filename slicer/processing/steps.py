@@ -9,11 +9,11 @@ same code runs eagerly or on dask arrays (chunked along ``trace``; ``twt`` in on
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING
 
 import numpy as np
 import scipy.fft
 import scipy.ndimage
-import xarray as xr
 
 from slicer.core.conventions import C_M_PER_NS, TRACE, TWT
 from slicer.core.errors import SettingsError
@@ -27,12 +27,17 @@ from slicer.processing.background import (
     remove,
     window_samples,
 )
+from slicer.processing.gain import gain_core, gain_curve
 from slicer.processing.hilbert import block_traces
 from slicer.processing.hilbert import envelope_core as _envelope_core
+
+if TYPE_CHECKING:
+    import xarray as xr
 
 
 def _per_trace(core, line: xr.DataArray, step: str, **kwargs) -> xr.DataArray:
     """Apply ``core(samples, **kwargs)`` (last axis = twt) to every trace of ``line``."""
+    import xarray as xr
     data = line
     if data.chunks is not None:
         data = data.chunk({TWT: -1})
@@ -244,8 +249,8 @@ def time_zero_of(samples: np.ndarray, twt: np.ndarray, *, time_zero: float | str
 def _wow_window(line, dt: float, window_ns: float | None = None) -> int:
     """Samples (odd) of the dewow window: ``window_ns``, else 1.5 periods of the dominant
     frequency of ``line`` (a DataArray or plain samples)."""
-    if window_ns is None:
-        window_ns = 1.5 / (dominant_frequency(line) if isinstance(line, xr.DataArray)
+    if window_ns is None:  # a DataArray, or plain samples (NumPy, dask): no xarray for those
+        window_ns = 1.5 / (dominant_frequency(line) if hasattr(line, "coords")
                            else dominant_frequency_of(line, dt=dt))
     if not math.isfinite(window_ns) or window_ns <= 0:
         raise SettingsError(f"dewow window must be positive, got {window_ns:g} ns",
@@ -292,6 +297,7 @@ def remove_background(line: xr.DataArray, *, method: str | Background = "scaled"
         under strong reflectors), ``"median"`` or ``"mean"`` (subtracted as they are), each
         optionally limited to a time window, ``"median:0-12"`` (ns).
     """
+    import xarray as xr
     # Not NaN-aware: readers have set non-finite samples to 0, and NaN-aware medians loop in
     # Python over every sample (a third of a build's time when it was used)
     spec = _check_background(method)
@@ -322,39 +328,6 @@ def _background_kwargs(spec: Background, twt: np.ndarray) -> dict:
 
 # ----------------------------------------------------------------------------------------- gain
 
-def _gain_core(samples: np.ndarray, *, factor: np.ndarray) -> np.ndarray:
-    return (samples * factor).astype(np.float32, copy=False)
-
-
-#: Largest gain (dB) a curve may reach: 10^15 in amplitude. float32 holds 7 significant digits
-#: and overflows near 10^38, so a larger gain only amplifies rounding noise into infinities.
-MAX_GAIN_DB = 300.0
-
-
-def gain_curve(twt_ns: np.ndarray, *, kind: str, value: float) -> np.ndarray:
-    """Gain factor against two-way time (ns since time zero).
-
-    ``kind="power"``: ``(t / 1 ns) ** value`` for ``t > 0`` (compensates geometric spreading
-    for ``value = 1``); ``kind="exp"``: ``10 ** (value * t / 20)`` with ``value`` in dB/ns
-    (compensates attenuation). Samples at or before time zero keep gain 1.
-    """
-    t = np.clip(np.asarray(twt_ns, dtype=np.float64), 1.0, None)
-    # Gains in dB, computed in logs so that no value overflows before it is judged.
-    if kind == "power":
-        decibels = 20.0 * value * np.log10(t)
-    elif kind == "exp":
-        decibels = value * (t - 1.0)
-    else:
-        raise SettingsError(f"gain must be 'none', 'power:P' or 'exp:DB_PER_NS', got {kind!r}",
-                            where="--gain")
-    top = float(np.max(decibels, initial=0.0))
-    if not math.isfinite(top) or top > MAX_GAIN_DB:
-        raise SettingsError(f"{kind}:{value:g} reaches {top:.3g} dB at {float(t.max()):g} ns, "
-                            f"more than the {MAX_GAIN_DB:g} dB a float32 trace can carry "
-                            "usefully; choose a smaller gain", where="--gain")
-    return (10.0 ** (decibels / 20.0)).astype(np.float32)
-
-
 def apply_gain(line: xr.DataArray, *, kind: str = "power", value: float = 1.0) -> xr.DataArray:
     """Multiply every trace by a gain curve of two-way time (see :func:`gain_curve`).
 
@@ -370,7 +343,7 @@ def apply_gain(line: xr.DataArray, *, kind: str = "power", value: float = 1.0) -
     if not math.isfinite(value) or value < 0:
         raise SettingsError(f"gain value must be finite and >= 0, got {value:g}", where="--gain")
     factor = gain_curve(line[TWT].values, kind=kind, value=value)
-    return _per_trace(_gain_core, line, f"gain {kind} {value:g}", factor=factor)
+    return _per_trace(gain_core, line, f"gain {kind} {value:g}", factor=factor)
 
 
 # ------------------------------------------------------------------------------------- envelope
@@ -438,9 +411,12 @@ def _chain_core(samples: np.ndarray, *, size: int | None, background: dict | Non
                 x, size = _dewow_core(x, size=size), None
             taken = x
         else:
-            taken = x[..., estimate_rows(x.shape[-2]), :]
+            rows = estimate_rows(x.shape[-2])
+            taken = x[..., rows, :]
             if size is not None:
                 taken = _dewow_core(taken, size=size)
+                if rows.step == 1:  # every trace: dewowed once, not again by blocks
+                    x, size = taken, None
         removal = removal_of(taken, **background)
     out = np.empty(x.shape, dtype=np.float32)
     step = block_traces(x.shape[-1])
@@ -451,7 +427,7 @@ def _chain_core(samples: np.ndarray, *, size: int | None, background: dict | Non
         if removal is not None:
             block = remove(block, removal)
         if factor is not None:
-            block = _gain_core(block, factor=factor)
+            block = gain_core(block, factor=factor)
         if take_envelope:
             block = _envelope_core(block)
         out[..., i:i + step, :] = block
@@ -482,6 +458,7 @@ def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
     take_envelope : bool
         End with the envelope (named ``envelope``).
     """
+    import xarray as xr
     core, steps = chain_plan(line.data, line[TWT].values, dewow_ns=dewow_ns,
                              background=background, gain=gain, take_envelope=take_envelope)
     if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array

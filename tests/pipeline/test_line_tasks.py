@@ -274,26 +274,35 @@ def test_line_task_image_is_plain_arrays_that_label_as_display_image(small_surve
     assert got.attrs["line_end"] == expected.attrs["line_end"]
 
 
-def test_a_line_task_leaves_dask_array_unloaded(small_survey):
-    """A worker process runs line tasks without importing dask.array, which xarray's first
-    DataArray imports (0.10-0.14 s of CPU in every worker; slicer.outputs.radargram.LineImage).
-    Run in a fresh process with the worker's modules; the check fails if the task builds a
-    DataArray (as it did)."""
+def test_a_line_task_leaves_the_array_libraries_unloaded(small_survey, tmp_path):
+    """A worker process runs a line task (migrated, as by default) without importing xarray,
+    pandas, dask or pyproj: the fork server's modules leave them out (0.3-0.4 s of its CPU,
+    benchmarks/README.md) and a line task works on plain arrays (its radargram image included,
+    slicer.outputs.radargram.LineImage). The job is made here and unpickled in a fresh process
+    holding the worker's modules, as a worker receives it. The check fails with any of them
+    imported at the top of a module the task uses (checked with slicer.processing.migration's
+    xarray import put back)."""
+    import pickle
     import subprocess
     import sys
+
+    from slicer.pipeline.line_tasks import LineJob
+    s = slicer.load_settings(small_survey.line_table, sample_interval=0.1, time_zero=3.0,
+                             depths="0:2.4:0.1", velocity=0.1, dewow=1.5)
+    assert s.migrate == "auto"
+    job = tmp_path / "job.pickle"
+    job.write_bytes(pickle.dumps(LineJob(0, s.lines[0], s, s.requested_windows, 0.1, 0.1, 1.5,
+                                         None, 0.4)))
     code = (
-        "import sys\n"
-        "from slicer.pipeline.worker_processes import WARM_MODULES\n"
-        "for m in WARM_MODULES: __import__(m)\n"
-        "import slicer\n"
-        "from slicer.pipeline.line_tasks import LineJob, reduce_line\n"
-        f"s = slicer.load_settings({str(small_survey.line_table)!r}, sample_interval=0.1, "
-        "time_zero=3.0, depths='0:2.4:0.1', velocity=0.1, dewow=1.5)\n"
-        "r = reduce_line(LineJob(0, s.lines[0], s, s.requested_windows, 0.1, 0.1, 1.5, "
-        "None, 0.4))\n"
-        "print(type(r['image']).__name__, r['values'].shape, 'dask.array' in sys.modules)\n")
+        "import pickle, sys\n"
+        "from slicer.pipeline.worker_processes import SERVER_START, WARM_MODULES\n"
+        "for m in (SERVER_START, *WARM_MODULES): __import__(m)\n"
+        "from slicer.pipeline.line_tasks import reduce_line\n"
+        f"r = reduce_line(pickle.loads(open({str(job)!r}, 'rb').read()))\n"
+        "print(type(r['image']).__name__, r['values'].shape, 'Stolt' in r['history'],\n"
+        "      [m for m in ('xarray', 'pandas', 'dask', 'pyproj') if m in sys.modules])\n")
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           timeout=120)
     assert done.returncode == 0, done.stderr
     assert done.stdout.split()[0] == "LineImage"
-    assert done.stdout.split()[-1] == "False"
+    assert done.stdout.split()[-2:] == ["True", "[]"]

@@ -175,3 +175,54 @@ def test_a_full_disk_while_the_chunks_are_stored_ends_in_one_error(threaded, tmp
     import h5py
     assert [i for i in h5py.h5f.get_obj_ids(types=h5py.h5f.OBJ_FILE)
             if str(tmp_path) in i.name.decode()] == []
+
+
+#: Run as a fresh process's main script: every worker imports it again as ``__mp_main__``
+#: (multiprocessing prepares a forked-server worker so) and from then on notes each import of
+#: the array libraries in the log.
+PROBE = '''
+import os, sys
+LOG = sys.argv[2]
+WATCHED = ("xarray", "pandas", "dask", "pyproj", "matplotlib")
+
+class Note:
+    def find_spec(self, name, path=None, target=None):
+        if name in WATCHED and name not in sys.modules:
+            with open(LOG, "a") as f:
+                f.write(f"{os.getpid()} import {name}\\n")
+        return None
+
+if __name__ == "__mp_main__":  # a worker
+    with open(LOG, "a") as f:
+        f.write(f"{os.getpid()} worker " + " ".join(m for m in WATCHED if m in sys.modules)
+                + "\\n")
+    sys.meta_path.insert(0, Note())
+
+if __name__ == "__main__":
+    import slicer
+    settings = slicer.load_settings(sys.argv[1], sample_interval=0.1, time_zero=3.0,
+                                    velocity=0.1, depths="0:2.4:0.1", cell=0.1,
+                                    scheduler="processes", out=sys.argv[3])
+    slicer.build(settings, progress=False)
+'''
+
+
+def test_a_builds_workers_never_import_the_array_or_drawing_libraries(small_survey, tmp_path):
+    """A GeoTIFF build's workers grid the tiles and write the slices without xarray, pandas,
+    dask, pyproj or matplotlib: the fork server does not import them (0.3-0.4 s of its CPU)
+    and no task does; the overview, drawn from the cube's DataArray template, is drawn by the
+    calling process. Every worker notes what it finds loaded as it starts and each import
+    after (a meta path finder, PROBE); the check fails with the overview drawn on a worker
+    (checked)."""
+    import subprocess
+    import sys
+    probe, log, out = tmp_path / "probe.py", tmp_path / "imports.log", tmp_path / "out"
+    probe.write_text(PROBE)
+    done = subprocess.run([sys.executable, str(probe), str(small_survey.line_table), str(log),
+                           str(out)], capture_output=True, text=True, timeout=300)
+    assert done.returncode == 0, done.stderr
+    notes = log.read_text().splitlines()
+    started = [n for n in notes if n.split()[1] == "worker"]
+    assert started and all(n.split()[2:] == [] for n in started), notes
+    assert [n for n in notes if n.split()[1] == "import"] == []
+    assert list(out.glob("overview*.png")) and len(list((out / "slices").glob("*.tif"))) == 24
