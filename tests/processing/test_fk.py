@@ -108,3 +108,41 @@ def test_threads_asking_for_one_operator_at_once_build_it_once():
     assert (info.misses, info.hits) == (1, 3)
     assert all(g is got[0] for g in got)
     stolt_operator.cache_clear()
+
+
+@pytest.mark.parametrize("nk", [63, 64])
+def test_every_operator_row_is_the_stolt_mapping_of_its_own_wavenumber(nk):
+    """Each row of the Stolt operator, for negative wavenumbers too (the operator takes them
+    from their mirrors, kx -> -kx), holds the mapping worked out here entry by entry from the
+    docstring's definition: output (kx, w') reads the input at w = sqrt(w'^2 + (v kx / 2)^2)
+    through the polynomial of the TAPS nearest frequency samples (numpy's polyfit through
+    them, not slicer's Lagrange weights), times w' / w, the taper and the phase of the
+    reference time. Odd and even nk (an even one has a Nyquist row of its own)."""
+    from slicer.processing.fk import kx_taper, stolt_operator
+    ntp, nw, dx, dt, v, taper, centre = 256, 48, 0.05, 0.2, 0.1, 0.2, 10.0
+    op = stolt_operator.__wrapped__.__wrapped__(nk, ntp, nw, dx, dt, v, taper, centre)
+    dw = 2 * np.pi / (ntp * dt)
+    kx, weight = kx_taper(nk, dx, taper)
+    rng = np.random.default_rng(3)
+    checked = 0
+    for k in [*rng.choice(nk, 12, replace=False), nk - 1, nk // 2, 1]:
+        for jj in rng.choice(nw, 8, replace=False):
+            got = op[[k * nw + jj], :].toarray().ravel()
+            w_out = jj * dw
+            w_in = math.hypot(w_out, 0.5 * v * kx[k])
+            pos = w_in / dw
+            if pos > nw - 1 or weight[k] == 0:
+                assert not got.any()
+                continue
+            first = min(max(math.floor(pos) - (TAPS // 2 - 1), 0), nw - TAPS)
+            nodes = first + np.arange(TAPS)
+            # each node's weight: the interpolating polynomial of that node's unit vector
+            basis = [poly.polyval(pos - first, poly.polyfit(np.arange(TAPS), np.eye(TAPS)[m],
+                                                            TAPS - 1)) for m in range(TAPS)]
+            scale = (w_out / w_in if w_in > 0 else 1.0) * weight[k]
+            expected = np.zeros(nk * nw, dtype=complex)
+            expected[k * nw + nodes] = (np.array(basis) * scale
+                                        * np.exp(1j * centre * (nodes * dw - w_in)))
+            np.testing.assert_allclose(got, expected, rtol=0, atol=2e-5 * max(1, abs(scale)))
+            checked += 1
+    assert checked > 40
