@@ -241,14 +241,6 @@ class CubeSink:
         """The overview's files in ``out_dir``: ``overview.png``, or numbered pages."""
         return page_paths(self.out_dir / OVERVIEW_NAME, -(-self.shape[0] // self._per_page))
 
-    def _draw_overview(self, pngs: list[Path]):
-        """Draw and save the overview pages to ``pngs`` (temporary paths); a future if done
-        elsewhere."""
-        save_overview(self.template, self._panels, pngs, title=self._title,
-                      display=self._display, per_page=self._per_page,
-                      where=[str(p) for p in self.overview_paths()])
-        return None
-
     def write(self, row0: int, col0: int, block) -> None:
         """Write one tile: ``block`` (n_slices, h, w) of every slice at grid ``row0, col0``.
 
@@ -322,8 +314,10 @@ class CubeSink:
             if "nc" in self.formats:
                 netcdf = self._start_netcdf(stack.enter_context(atomic_path(out / NETCDF_NAME)))
             started = [netcdf, self._start_slices()]
-            try:
-                started.append(self._draw_overview(pngs))
+            try:  # drawn here, from the template (a DataArray): workers never import xarray
+                save_overview(self.template, self._panels, pngs, title=self._title,
+                              display=self._display, per_page=self._per_page,
+                              where=[str(p) for p in self.overview_paths()])
             finally:  # waits: every file is complete or failed
                 errors = self._wait(started)
             if isinstance(errors[0], OSError):
