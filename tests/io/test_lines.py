@@ -14,10 +14,14 @@ from __future__ import annotations
 import dataclasses
 import os
 import warnings
+from pathlib import Path
 
+import hypothesis.extra.numpy as hnp
+import hypothesis.strategies as st
 import numpy as np
 import pytest
 import xarray as xr
+from hypothesis import given, settings
 
 from slicer.core.errors import InputFileError, OutputError, SettingsError, SlicerWarning
 from slicer.io.lines import (
@@ -141,6 +145,28 @@ def test_finite_samples_pass_without_a_warning(tmp_path):
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
+
+
+def test_finite_samples_whose_sum_overflows_pass_unchanged(tmp_path):
+    # float32 holds values up to 3.4e38 (IEEE 754): four of 1e38 sum to infinity, yet every
+    # sample is finite, so nothing is zeroed and nothing is said
+    data = np.full((2, 2), 1e38, dtype=np.float32)
+    assert not np.isfinite(data.sum())
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
+
+
+@settings(max_examples=60, deadline=None)
+@given(values=hnp.arrays(np.float32, hnp.array_shapes(min_dims=2, max_dims=2, max_side=40),
+                         elements=st.floats(width=32, allow_nan=True, allow_infinity=True)))
+def test_zeroing_is_numpys_finite_mask_for_any_samples(values):
+    # numpy.isfinite as the reference: every NaN and infinity becomes 0, nothing else changes
+    expected = np.where(np.isfinite(values), values, np.float32(0))
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        out = _zero_nonfinite(values.copy(), Path("a.nc"))
+    np.testing.assert_array_equal(out, expected)
 
 
 # --- the returned Line -----------------------------------------------------------------------

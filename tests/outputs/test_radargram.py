@@ -4,10 +4,13 @@ from __future__ import annotations
 
 import math
 
+import hypothesis.extra.numpy as hnp
+import hypothesis.strategies as st
 import matplotlib.image
 import numpy as np
 import pytest
 import xarray as xr
+from hypothesis import given, settings
 
 from slicer.core.errors import SettingsError
 from slicer.outputs.radargram import (
@@ -139,3 +142,25 @@ def test_fast_pages_refuse_an_empty_line(tmp_path):
                              np.arange(5.0))
     with pytest.raises(SettingsError):
         RadargramPages().save(image, tmp_path / "x.png")
+
+
+@settings(max_examples=40, deadline=None)
+@given(cells=hnp.arrays(np.float32, hnp.array_shapes(min_dims=2, max_dims=2, max_side=12),
+                        elements=st.floats(0, 2, width=32) | st.just(np.float32("nan"))),
+       rows=st.integers(1, 30), cols=st.integers(1, 30))
+def test_fast_pages_take_the_cell_under_each_pixel_centre(cells, rows, cols):
+    """Each data-area pixel shows the cell its centre falls in, as imshow spreads cells evenly
+    over the area (matplotlib's nearest interpolation, common practice for image display):
+    pixel (r, c) shows distance cell floor((c + 0.5) n_d / cols) and time cell
+    floor((r + 0.5) n_t / rows), checked pixel by pixel against the cells' own colour."""
+    from slicer.outputs.radargram_pages import FRAME_COLOURS, RadargramPages
+    area = RadargramPages._colour(cells, 1.0, False, rows, cols)
+    own = RadargramPages._colour(cells, 1.0, False, cells.shape[1], cells.shape[0])
+    assert area.shape == (rows, cols)
+    n_d, n_t = cells.shape
+    for r in range(rows):
+        for c in range(cols):
+            i, j = int((c + 0.5) * n_d / cols), int((r + 0.5) * n_t / rows)
+            assert area[r, c] == own[j, i]
+            if np.isnan(cells[i, j]):
+                assert area[r, c] == FRAME_COLOURS - 1  # white
