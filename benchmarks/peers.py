@@ -7,7 +7,8 @@ inside its time, as ``slicer.build`` imports lazily), on the same files:
 
 * **slicer**: ``slicer.load_settings`` and ``slicer.build`` with the contract settings (0.1 m
   cells, 24 depth slices of 0.1 m, velocity 0.1 m/ns, time zero 3 ns) and everything else at
-  its defaults;
+  its defaults; and the same build with ``migrate="off"``, so that what migration (on by
+  default) adds to a build is measured in the same run, on the same files;
 * **tuned floor**: every trace read once through a memory map (``segyio``'s ``f.mmap()``) and
   its envelope taken in float32 by real FFTs (``rfft``, times -i, ``irfft``: the Hilbert
   transform; ``scipy.fft``, buffers reused between lines): the least work any envelope build
@@ -30,9 +31,10 @@ Peak memory: ``VmHWM`` of the process that ran the method (a fresh one); for sli
 largest sum of the resident memory of that process and its worker processes, sampled every
 50 ms during the build (:class:`TreeMemory`).
 
-Rounds: the floor, slicer and the griddata script run ``--repeat`` times (default 3) in turn,
-each time in a fresh process; the table gives each one's median and range, and the ratios are
-of the medians (each round's slicer/floor and slicer/griddata ratios are printed too). This
+Rounds: the floor, slicer (migrated, then not) and the griddata script run ``--repeat`` times
+(default 3) in turn, each time in a fresh process; the table gives each one's median and
+range, and the ratios are of the medians (each round's slicer/floor and slicer/griddata
+ratios, and what migration added, are printed too). This
 machine's speed drifts by a fifth within minutes, so one run of each, minutes apart, says
 little (a 400 k ratio of 2.06 and, a quarter of an hour later, 2.73). verde and the earlier
 floor run once.
@@ -133,12 +135,13 @@ def _rss_mib(pid: int) -> float:
     return 0.0
 
 
-def run_slicer(table: str, out: str, place: bool = True) -> dict:
+def run_slicer(table: str, out: str, place: bool = True, migrate: str = "auto") -> dict:
     import slicer
     with TreeMemory() as tree:
         # the line table read and checked inside the time, as the scripts read theirs
         started = time.perf_counter()
-        settings = slicer.load_settings(table, **SETTINGS, out=out, overwrite=True)
+        settings = slicer.load_settings(table, **SETTINGS, out=out, overwrite=True,
+                                        migrate=migrate)
         result = slicer.build(settings, progress=False)
         seconds = time.perf_counter() - started
     peaks = {**_peaks(), "tree_peak": tree.peak}  # before the untimed build below
@@ -147,6 +150,12 @@ def run_slicer(table: str, out: str, place: bool = True) -> dict:
         cube = slicer.build_cube(settings, progress=False).cube
         done["cube"] = _plain(cube.values, cube["x"].values, cube["y"].values)
     return done
+
+
+def run_slicer_unmigrated(table: str, out: str, place: bool = False) -> dict:
+    """:func:`run_slicer` with ``migrate="off"``; no placement (the migrated build's is
+    printed)."""
+    return run_slicer(table, out, False, "off")
 
 
 def run_floor(table: str, kind: str = "real") -> dict:
@@ -270,6 +279,7 @@ def measure_size(root: Path, n: int, use_verde: bool, rounds: int = 1) -> list[l
                if t.kind == "point"]
     _read_once(table)  # every method then finds the files in the page cache, as the first did
     timed = [("tuned floor", None), ("slicer build", run_slicer),
+             ("slicer build, migrate off", run_slicer_unmigrated),
              ("griddata script", run_griddata)]
     runs: dict[str, list[dict]] = {name: [] for name, _ in timed}
     for k in range(rounds):
@@ -280,14 +290,17 @@ def measure_size(root: Path, n: int, use_verde: bool, rounds: int = 1) -> list[l
             # slicer in a user's environment (BLAS threads at the libraries' defaults: it
             # limits them itself); the peers with one BLAS thread, their best
             # (benchmarks/README.md)
-            runs[name].append(in_fresh_process(run, str(table), str(folder / name.split()[0]),
-                                               k == 0, blas_default=run is run_slicer))
+            slicer_run = run in (run_slicer, run_slicer_unmigrated)
+            out = folder / name.replace(",", "").replace(" ", "_")
+            runs[name].append(in_fresh_process(run, str(table), str(out), k == 0,
+                                               blas_default=slicer_run))
     floor = statistics.median(r["seconds"] for r in runs["tuned floor"])
     rows = [_row(n, "tuned floor", runs["tuned floor"], floor, None)]
     earlier = in_fresh_process(run_floor, str(table), "complex")
     rows.append(_row(n, "complex-FFT floor (to 2026-12-02)", [earlier], floor, None))
-    for name, _ in timed[1:]:
-        rows.append(_row(n, name, runs[name], floor, targets))
+    for name, run in timed[1:]:
+        rows.append(_row(n, name, runs[name], floor,
+                         None if run is run_slicer_unmigrated else targets))
     if use_verde:  # far behind the others: once
         rows.append(_row(n, "verde k-NN", [in_fresh_process(
             run_verde, str(table), str(folder / "verde"))], floor, targets))
@@ -296,9 +309,16 @@ def measure_size(root: Path, n: int, use_verde: bool, rounds: int = 1) -> list[l
                      zip(runs["slicer build"], runs["tuned floor"], strict=True)]
         ahead = [s["seconds"] / g["seconds"] for s, g in
                  zip(runs["slicer build"], runs["griddata script"], strict=True)]
+        added = [s["seconds"] / o["seconds"] - 1.0 for s, o in
+                 zip(runs["slicer build"], runs["slicer build, migrate off"], strict=True)]
         print(f"{n} traces, each round: slicer / floor "
               f"{', '.join(f'{r:.2f}' for r in per_round)}; slicer / griddata "
-              f"{', '.join(f'{r:.2f}' for r in ahead)}", flush=True)
+              f"{', '.join(f'{r:.2f}' for r in ahead)}; migration adds "
+              f"{', '.join(f'{100 * r:+.0f} %' for r in added)}", flush=True)
+    migrated, unmigrated = (statistics.median(r["seconds"] for r in runs[name])
+                            for name in ("slicer build", "slicer build, migrate off"))
+    print(f"{n} traces: migration adds {100 * (migrated / unmigrated - 1):+.1f} % to the "
+          "build (medians)", flush=True)
     return rows
 
 
@@ -339,7 +359,8 @@ def main(argv=None) -> int:
                    help="approximate trace counts, comma separated")
     p.add_argument("--keep", type=Path, help="write (and reuse) surveys and outputs here")
     p.add_argument("--repeat", type=int, default=3,
-                   help="rounds of floor, slicer and griddata, in turn (default 3; verde once)")
+                   help="rounds of floor, slicer (migrated and not) and griddata, in turn "
+                        "(default 3; verde once)")
     args = p.parse_args(argv)
     try:
         import verde  # noqa: F401
