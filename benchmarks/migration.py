@@ -7,6 +7,8 @@ this script measures, in one run on the same files:
   velocity, depth slices), alternating, several rounds: the median wall and CPU times and their
   ratio. ``slicer.build_cube`` (read, process, grid; nothing written) is the strict measure;
   ``slicer.build`` (every output written, as ``slicer build`` does) the one a user sees. The
+  demo's lines are short (401 traces); on array-density surveys, whose lines hold thousands of
+  traces, migration weighs far more: ``peers.py`` measures it there, in the same run. The
   Stolt operator cache is cleared before every build, so each pays its set-up as a fresh
   ``slicer build`` process does;
 * migration's share of a migrated build: the thread CPU time spent in the migration cores
