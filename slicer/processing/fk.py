@@ -51,28 +51,33 @@ def x_length(nx: int, dx: float, t_end: float, velocity: float) -> int:
     return scipy.fft.next_fast_len(nx + reach, real=False)
 
 
-#: Frequency samples each Stolt output sample is interpolated from (a polynomial through them).
-TAPS = 6
+#: Frequency samples each Stolt output sample is read from (its weights: :func:`spectral_weights`).
+TAPS = 8
 
 
-def lagrange_weights(u: np.ndarray, n: int) -> np.ndarray:
-    """Weights ``(len(u), n)`` of the polynomial through nodes ``0 .. n-1``, evaluated at ``u``.
+def spectral_weights(u: np.ndarray, n: int, theta: float) -> np.ndarray:
+    """Weights ``(len(u), n)`` that read a spectrum at ``u`` from its samples at nodes ``0 .. n-1``.
 
-    Lagrange's form: weight ``i`` is ``prod_{j != i} (u - j) / (i - j)``, the product of the
-    factors before ``i`` and of those after it (running products along the nodes).
+    The spectrum is that of a signal lasting from ``-T`` to ``T`` about its reference time, and
+    ``theta`` is ``T`` times the spacing of the nodes (rad/ns x ns). Such a spectrum at ``u`` is
+    ``sum_t s(t) exp(-i u dw t)``; the weights make ``sum_m c_m exp(-i m dw t)`` the best
+    approximation to ``exp(-i u dw t)`` in the least-squares sense over ``|t| <= T``, so every
+    signal within those times is read with the smallest error on average. The normal equations
+    have integrals in closed form, ``int exp(i k dw t) dt = 2 sin(k theta) / k``: one small
+    symmetric system, the same for every ``u``.
+
+    A polynomial through the nodes (Lagrange) is exact only for times near the reference and
+    worsens toward the ends; over the whole record these weights err far less, so the spectrum
+    may be sampled more coarsely (less zero padding in time) for the same accuracy. Read
+    between the two middle nodes, the worst relative error over the record's times is 1.7 %
+    (RMS 0.3 %) with 8 nodes and the record padded to 1.5 times its length, against 5.0 %
+    (RMS 1.0 %) for a polynomial through 6 nodes with twice the record
+    (tests/processing/test_fk.py).
     """
-    factors = [u - j for j in range(n)]
-    before = [np.ones_like(u)]
-    for j in range(n - 1):
-        before.append(before[-1] * factors[j])
-    after = [np.ones_like(u)]
-    for j in range(n - 1, 0, -1):
-        after.append(after[-1] * factors[j])
-    weights = np.empty((u.size, n))
-    for i in range(n):
-        denominator = math.prod(i - j for j in range(n) if j != i)
-        weights[:, i] = before[i] * after[n - 1 - i] / denominator
-    return weights
+    m = np.arange(n, dtype=float)
+    gram = 2.0 * theta * np.sinc((m[:, None] - m[None, :]) * (theta / np.pi))
+    right = 2.0 * theta * np.sinc((np.asarray(u, dtype=float)[:, None] - m) * (theta / np.pi))
+    return np.linalg.solve(gram, right.T).T
 
 
 def band_columns(spectrum: np.ndarray, *, nt: int, ntp: int, dt: float,
@@ -120,17 +125,18 @@ def _built_once(cached):
 @_built_once
 @functools.lru_cache(maxsize=8)
 def stolt_operator(nk: int, ntp: int, nw: int, dx: float, dt: float, velocity: float,
-                   taper: float, centre: float) -> scipy.sparse.csr_array:
+                   taper: float, centre: float, reach: float) -> scipy.sparse.csr_array:
     """The Stolt mapping of the first ``nw`` frequency samples of an ``(nk, ntp)``-point
     spectrum as one sparse matrix.
 
     Output sample ``(kx, w')`` takes the input spectrum at ``w = sqrt(w'^2 + (v kx / 2)^2)``,
-    read by the polynomial through the :data:`TAPS` nearest frequency samples, times the
-    Jacobian ``w' / w`` and the wavenumber taper. The input is referenced to time ``centre``
-    (about the middle of the record), where the spectrum varies slowly along ``w`` and the
-    polynomial is accurate; the reference is removed again at the exact ``w``. :data:`TAPS`
-    entries per output sample, so that the mapping of a line is one sparse product
-    (``scipy.sparse``); lines whose lengths round to one FFT length share it (cached).
+    read from the :data:`TAPS` nearest frequency samples (:func:`spectral_weights`, for a
+    signal within ``reach`` ns of the time ``centre``), times the Jacobian ``w' / w`` and the
+    wavenumber taper. The input is referenced to time ``centre`` (the middle of its record),
+    so that the signal lies within ``-reach .. reach`` of it, as the weights assume; the
+    reference is removed again at the exact ``w``. :data:`TAPS` entries per output sample, so
+    that the mapping of a line is one sparse product (``scipy.sparse``); lines whose lengths
+    round to one FFT length share it (cached).
     """
     dw = 2.0 * np.pi / (ntp * dt)
     w = dw * np.arange(nw)
@@ -154,7 +160,7 @@ def stolt_operator(nk: int, ntp: int, nw: int, dx: float, dt: float, velocity: f
     # phase exp(i centre (w_node - w_in)) = exp(i a (first - pos)) exp(i a m), m the node
     a = centre * dw
     row = (scale * np.exp(1j * a * (first - pos))).astype(np.complex64)
-    values = lagrange_weights(pos - first, TAPS).astype(np.float32) * row[:, None]
+    values = spectral_weights(pos - first, TAPS, reach * dw).astype(np.float32) * row[:, None]
     values *= np.exp(1j * a * np.arange(TAPS)).astype(np.complex64)
     # every wavenumber's entries: those of its mirror among the first half, in row order
     mirror = np.minimum(np.arange(nk), nk - np.arange(nk))
@@ -181,9 +187,10 @@ def release_operators() -> None:
 
 
 def stolt_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, velocity: float,
-               taper: float, pad: int, band: float | None,
+               taper: float, pad: float, band: float | None,
                frequency: float | None = None) -> np.ndarray:
-    """Stolt migration of ``data`` (traces, samples) whose first sample lies at ``t_first``.
+    """Stolt migration of ``data`` (traces, samples) whose first sample lies at ``t_first``,
+    zero-padded in time to ``pad`` times the record.
 
     Single precision throughout (float32 samples, complex64 spectra): float32 data carry no
     more, and rounding stays near 1e-6 of the peak. Frequencies above the band
@@ -191,7 +198,7 @@ def stolt_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, veloci
     """
     nx, nt = data.shape
     nk = x_length(nx, dx, t_first + nt * dt, velocity)
-    ntp = scipy.fft.next_fast_len(max(pad * nt, 2 * TAPS), real=True)
+    ntp = scipy.fft.next_fast_len(max(math.ceil(pad * nt), 2 * TAPS), real=True)
     # along time first, on the traces alone; then along the line, padded with zero traces
     spectrum = scipy.fft.rfft(np.asarray(data, dtype=np.float32), n=ntp, axis=1)
     nw = max(TAPS, band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=band,
@@ -203,7 +210,7 @@ def stolt_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, veloci
         low = low * shift.conj()
     low = scipy.fft.fft(low, n=nk, axis=0, overwrite_x=shift is not None)
     operator = stolt_operator(nk, ntp, nw, float(dx), float(dt), float(velocity),
-                              float(taper), 0.5 * nt * dt)
+                              float(taper), 0.5 * nt * dt, 0.5 * nt * dt)
     migrated = (operator @ low.ravel()).reshape(low.shape)
     if shift is not None:  # and back
         migrated *= shift
@@ -217,7 +224,7 @@ MAX_LAYERS = 16
 
 
 def phase_shift_core(data: np.ndarray, *, dx: float, dt: float, t_first: float,
-                     velocities: np.ndarray, taper: float, pad: int,
+                     velocities: np.ndarray, taper: float, pad: float,
                      band: float | None, frequency: float | None = None) -> np.ndarray:
     """Phase-shift migration; ``velocities[j]`` is the interval velocity below output sample j.
 
@@ -236,7 +243,7 @@ def phase_shift_core(data: np.ndarray, *, dx: float, dt: float, t_first: float,
 
 
 def layers_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, tops: np.ndarray,
-                velocities: np.ndarray, taper: float, pad: int,
+                velocities: np.ndarray, taper: float, pad: float,
                 band: float | None, frequency: float | None = None) -> np.ndarray:
     """Migration through flat layers: output samples ``tops[i]`` on have ``velocities[i]``.
 
@@ -248,10 +255,17 @@ def layers_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, tops:
     mapped from ``w`` onto ``kz``: Stolt's mapping at the layer's velocity
     (:func:`stolt_operator`). With one layer this is :func:`stolt_core`; Gazdag's sample
     steps (:func:`gazdag_core`) give the same image up to Stolt's interpolation.
+
+    Continued down to a layer's top, the field reaches back above the surface by that top's
+    time, so the record is padded to ``pad`` plus the deepest top's share of the record, and
+    to at least twice its length (as :func:`gazdag_core`: with less, layered images moved
+    away from Gazdag's padded four times, 0.018 against 0.011 relative RMS on the layered
+    line of the tests, while a single velocity's came closer).
     """
     nx, nt = data.shape
     nk = x_length(nx, dx, t_first + nt * dt, float(np.max(velocities)))
-    ntp = scipy.fft.next_fast_len(max(pad * nt, 2 * TAPS), real=True)
+    room = max(2.0, pad + float(tops[-1]) / nt)
+    ntp = scipy.fft.next_fast_len(max(math.ceil(room * nt), 2 * TAPS), real=True)
     spectrum = scipy.fft.rfft(np.asarray(data, dtype=np.float32), n=ntp, axis=1)
     nw = max(TAPS, band_columns(spectrum, nt=nt, ntp=ntp, dt=dt, band=band,
                                       frequency=frequency))
@@ -273,7 +287,7 @@ def layers_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, tops:
             top_time = below
         # the field's energy lies between -top_time and the end of the record, about
         operator = stolt_operator(nk, ntp, nw, float(dx), float(dt), float(v), float(taper),
-                                  0.5 * (nt * dt - top_time))
+                                  0.5 * (nt * dt - top_time), 0.5 * (nt * dt + top_time))
         image = (operator @ field.ravel()).reshape(field.shape)
         lag = t_first + first * dt - top_time  # time of output sample `first` after the top
         if lag:

@@ -2,8 +2,10 @@
 are checked through slicer.processing.migration.migrate in test_migration.py).
 
 Sources named beside the checks:
-- Lagrange interpolation through n nodes reproduces every polynomial of degree below n exactly
-  (any numerical-analysis text), checked against ``numpy.polynomial.polynomial.polyval``.
+- Least squares (any numerical-analysis text): the weights that read a spectrum between its
+  samples minimise the squared error over the record's times; checked against
+  ``numpy.linalg.lstsq`` on the times sampled finely, and the spectrum they read against the
+  discrete-time Fourier transform summed by its definition.
 - The zero-offset constant-velocity migration of one impulse at time t is a semicircle of
   radius v t / 2 (Stolt 1978, Geophysics 43:23-48, the impulse response of the mapping): no
   energy may land farther along the line, so none may wrap around the padded FFT either.
@@ -15,28 +17,81 @@ import numpy as np
 import numpy.polynomial.polynomial as poly
 import pytest
 import scipy.fft
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from slicer.processing.fk import (
     TAPS,
     band_columns,
-    lagrange_weights,
+    spectral_weights,
     stolt_core,
     x_length,
 )
 
 
-@pytest.mark.parametrize("n", [2, 4, TAPS, 8])
-def test_lagrange_weights_reproduce_polynomials_below_their_order(n):
-    rng = np.random.default_rng(n)
-    coefficients = rng.normal(size=n)  # degree n - 1
-    u = rng.uniform(-0.5, n - 0.5, 200)
-    weights = lagrange_weights(u, n)
-    assert weights.shape == (200, n)
-    at_nodes = poly.polyval(np.arange(n), coefficients)
-    np.testing.assert_allclose(weights @ at_nodes, poly.polyval(u, coefficients),
-                               rtol=1e-10, atol=1e-10)
-    np.testing.assert_allclose(lagrange_weights(np.arange(n, dtype=float), n), np.eye(n),
-                               atol=1e-12)
+def least_squares_weights(u: float, n: int, theta: float) -> np.ndarray:
+    """The weights worked out by numpy's least squares on the record's times: the c_m with
+    sum_m c_m exp(i (u - m) th) closest to 1 for -theta <= th <= theta, the integral of the
+    squared error taken by 200-point Gauss-Legendre quadrature (numpy's leggauss; exact for
+    polynomials of degree 399, so for these smooth integrands to rounding)."""
+    nodes, quad = np.polynomial.legendre.leggauss(200)
+    th, root = theta * nodes, np.sqrt(theta * quad)[:, None]
+    basis = root * np.exp(1j * (u - np.arange(n))[None, :] * th[:, None])
+    stacked = np.vstack([basis.real, basis.imag])  # real weights: both parts at once
+    return np.linalg.lstsq(stacked, np.concatenate([root[:, 0], np.zeros(th.size)]),
+                           rcond=None)[0]
+
+
+@pytest.mark.parametrize(("n", "pad"), [(4, 2.0), (6, 1.5), (TAPS, 1.5), (TAPS, 1.25), (8, 3.0)])
+def test_spectral_weights_are_the_least_squares_ones(n, pad):
+    theta = np.pi / pad  # a record lasting 1 / pad of the padded period, about its middle
+    for u in np.linspace(-0.5, n - 0.5, 13):
+        np.testing.assert_allclose(spectral_weights(np.array([u]), n, theta)[0],
+                                   least_squares_weights(u, n, theta), atol=1e-7)
+
+
+def _worst_error(weights: np.ndarray, u: np.ndarray, n: int, theta: float) -> float:
+    th = np.linspace(-theta, theta, 2001)
+    read = (weights[:, :, None]
+            * np.exp(1j * (u[:, None, None] - np.arange(n)[None, :, None]) * th)).sum(axis=1)
+    return float(np.abs(read - 1).max())
+
+
+def test_least_squares_read_the_record_better_with_less_padding_than_a_polynomial():
+    # between the two middle nodes, over every time of the record: 8 weights with the record
+    # padded to 1.5 times its length err less than the polynomial through 6 nodes (numpy's
+    # polyfit) with twice the record, and the figures in spectral_weights' docstring hold
+    u = np.linspace(TAPS / 2 - 1, TAPS / 2, 41)
+    ours = _worst_error(spectral_weights(u, TAPS, np.pi / 1.5), u, TAPS, np.pi / 1.5)
+    v = np.linspace(2, 3, 41)
+    polynomial = np.array([[poly.polyval(x, poly.polyfit(np.arange(6), np.eye(6)[m], 5))
+                            for m in range(6)] for x in v])
+    theirs = _worst_error(polynomial, v, 6, np.pi / 2)
+    assert 0.016 < ours < 0.0175 and 0.049 < theirs < 0.051
+
+
+@settings(max_examples=60, deadline=None)
+@given(nt=st.integers(24, 300), u=st.floats(TAPS / 2 - 1, TAPS / 2),
+       echoes=st.lists(st.tuples(st.floats(0, 1), st.floats(-1, 1)), min_size=1, max_size=4),
+       seed=st.integers(0, 2 ** 32 - 1))
+def test_the_spectrum_of_any_record_is_read_within_the_bound(nt, u, echoes, seed):
+    # a record of nt samples holding a few echoes anywhere (the record's ends included, where
+    # reading is hardest), zero-padded to 1.5 times its length: its spectrum read between
+    # samples equals the discrete-time Fourier transform there (summed by its definition,
+    # about the record's middle) within the worst error of the weights (under 1.75 %) times
+    # the record's sum of absolute values; the bound follows from the triangle inequality
+    s = np.zeros(nt)
+    for where, amplitude in echoes:
+        s[min(nt - 1, int(where * nt))] += amplitude
+    ntp = scipy.fft.next_fast_len(math.ceil(1.5 * nt), real=False)
+    centre = nt / 2
+    spectrum = np.fft.fft(s, n=ntp) * np.exp(2j * np.pi * np.arange(ntp) * centre / ntp)
+    first = int(np.random.default_rng(seed).integers(0, ntp - TAPS + 1))
+    w = 2 * np.pi * (first + u) / ntp  # rad per sample
+    exact = np.sum(s * np.exp(-1j * w * (np.arange(nt) - centre)))
+    theta = np.pi * nt / ntp
+    read = spectral_weights(np.array([u]), TAPS, theta)[0] @ spectrum[first:first + TAPS]
+    assert abs(read - exact) <= 0.0175 * np.abs(s).sum() + 1e-9
 
 
 @pytest.mark.parametrize("frequency", [0.25, 0.4, 0.9])
@@ -92,7 +147,7 @@ def test_threads_asking_for_one_operator_at_once_build_it_once():
 
     from slicer.processing.fk import stolt_operator
     stolt_operator.cache_clear()
-    args = (484, 972, 160, 0.05, 0.1, 0.1, 0.2, 25.6)  # a 401-trace line's sizes (27-45 ms)
+    args = (484, 729, 128, 0.05, 0.1, 0.1, 0.2, 24.1, 24.1)  # a 401-trace line's sizes
     start, got = threading.Barrier(4), []
 
     def ask():
@@ -115,12 +170,13 @@ def test_every_operator_row_is_the_stolt_mapping_of_its_own_wavenumber(nk):
     """Each row of the Stolt operator, for negative wavenumbers too (the operator takes them
     from their mirrors, kx -> -kx), holds the mapping worked out here entry by entry from the
     docstring's definition: output (kx, w') reads the input at w = sqrt(w'^2 + (v kx / 2)^2)
-    through the polynomial of the TAPS nearest frequency samples (numpy's polyfit through
-    them, not slicer's Lagrange weights), times w' / w, the taper and the phase of the
-    reference time. Odd and even nk (an even one has a Nyquist row of its own)."""
+    from the TAPS nearest frequency samples with least-squares weights for a signal within
+    ``reach`` of the reference time (numpy's lstsq, not slicer's closed form), times w' / w,
+    the taper and the phase of the reference time. Odd and even nk (an even one has a
+    Nyquist row of its own)."""
     from slicer.processing.fk import kx_taper, stolt_operator
-    ntp, nw, dx, dt, v, taper, centre = 256, 48, 0.05, 0.2, 0.1, 0.2, 10.0
-    op = stolt_operator.__wrapped__.__wrapped__(nk, ntp, nw, dx, dt, v, taper, centre)
+    ntp, nw, dx, dt, v, taper, centre, reach = 256, 48, 0.05, 0.2, 0.1, 0.2, 10.0, 12.0
+    op = stolt_operator.__wrapped__.__wrapped__(nk, ntp, nw, dx, dt, v, taper, centre, reach)
     dw = 2 * np.pi / (ntp * dt)
     kx, weight = kx_taper(nk, dx, taper)
     rng = np.random.default_rng(3)
@@ -136,9 +192,7 @@ def test_every_operator_row_is_the_stolt_mapping_of_its_own_wavenumber(nk):
                 continue
             first = min(max(math.floor(pos) - (TAPS // 2 - 1), 0), nw - TAPS)
             nodes = first + np.arange(TAPS)
-            # each node's weight: the interpolating polynomial of that node's unit vector
-            basis = [poly.polyval(pos - first, poly.polyfit(np.arange(TAPS), np.eye(TAPS)[m],
-                                                            TAPS - 1)) for m in range(TAPS)]
+            basis = least_squares_weights(pos - first, TAPS, reach * dw)
             scale = (w_out / w_in if w_in > 0 else 1.0) * weight[k]
             expected = np.zeros(nk * nw, dtype=complex)
             expected[k * nw + nodes] = (np.array(basis) * scale

@@ -111,7 +111,9 @@ def test_a_diffractor_near_the_end_of_the_record_focuses():
     # phase-shift recursion interpolates nothing and is exact for one velocity (run here by a
     # velocity that changes by 1e-9 m/ns per ns, so that every sample has its own): the two
     # must agree, and the hyperbola must still collapse to its apex (check-values.md: peak
-    # within 1 trace and 2 samples, focused energy fraction > 0.9).
+    # within 1 trace and 2 samples, focused energy fraction > 0.9). Measured 0.012 relative
+    # RMS with the least-squares weights and 1.5 times the record; a polynomial through
+    # 6 samples with twice the record (slicer until 2026-12-03) gave 0.022.
     x = DX * np.arange(TRACES)
     times, amplitudes = _forward.arrivals(x, np.zeros_like(x), (PointTarget(X0, 0.0, 4.8),),
                                           velocity=V, pattern_exponent=0.0)
@@ -120,7 +122,7 @@ def test_a_diffractor_near_the_end_of_the_record_focuses():
     phase = migrate(line, velocity=lambda t: V + 1e-9 * t,
                     method="phase-shift").values.astype(float)
     difference = stolt.values.astype(float) - phase
-    assert np.sqrt((difference ** 2).sum() / (phase ** 2).sum()) < 0.03
+    assert np.sqrt((difference ** 2).sum() / (phase ** 2).sum()) < 0.015
     x_peak, t_peak, fraction, _ = focus(stolt, x0=X0, t0=2 * 4.8 / V)
     assert abs(x_peak - X0) <= DX + 1e-9 and abs(t_peak - 96.0) <= 2 * DT + 1e-9
     assert fraction > 0.9
