@@ -204,12 +204,15 @@ def process_samples(samples: np.ndarray, twt: np.ndarray, settings: BuildSetting
         out = migrated(out)
         steps.append(how)
     trace = None
-    if not last:
+    if not last:  # after migration: gain and envelope, block by block unless the trace is kept
         core, done = chain_plan(out, twt, dewow_ns="off", background=None,
-                                gain=settings.gain_curve, take_envelope=False)
-        trace = _chain_core(out, **core)
-        steps += [*done, "envelope"]
-        out = _envelope_core(trace)
+                                gain=settings.gain_curve, take_envelope=not keep_trace)
+        if keep_trace:
+            trace = _chain_core(out, **core)
+            out, done = _envelope_core(trace), [*done, "envelope"]
+        else:
+            out = _chain_core(out, **core)
+        steps += done
     return ProcessedSamples(out, twt, trace if keep_trace else None, polarity,
                             time_zero_ns + t0, "; ".join(steps))
 

@@ -186,7 +186,7 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
         Fraction (0-1) of the wavenumber band, below the trace spacing's Nyquist wavenumber
         ``pi / dx``, over which a cosine taper fades steep, possibly aliased dips to zero.
     pad : float
-        Zero-padding factor of the time axis (1.25 to 8): more is more accurate for Stolt's
+        Zero-padding factor of the time axis (1.25 to 4): more is more accurate for Stolt's
         reading of the spectrum between its samples (:func:`slicer.processing.fk.spectral_weights`,
         least squares over the record on the eight nearest samples) and costs more. With the
         default 1.5 a diffractor's image is as close to Gazdag's sample steps as a polynomial
@@ -253,8 +253,8 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
     if not 0 <= taper < 1:
         raise SettingsError(f"wavenumber taper must be in [0, 1), got {taper!r}",
                             where="--migration")
-    if not (isinstance(pad, int | float | np.integer | np.floating) and 1.25 <= pad <= 8):
-        raise SettingsError(f"time padding must be a factor from 1.25 to 8, got {pad!r}",
+    if not (isinstance(pad, int | float | np.integer | np.floating) and 1.25 <= pad <= 4):
+        raise SettingsError(f"time padding must be a factor from 1.25 to 4, got {pad!r}",
                             where="--migration")
     if band is not None and not (isinstance(band, int | float) and math.isfinite(band)
                                  and band >= 1):

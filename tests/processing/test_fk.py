@@ -42,12 +42,16 @@ def least_squares_weights(u: float, n: int, theta: float) -> np.ndarray:
                            rcond=None)[0]
 
 
-@pytest.mark.parametrize(("n", "pad"), [(4, 2.0), (6, 1.5), (TAPS, 1.5), (TAPS, 1.25), (8, 3.0)])
-def test_spectral_weights_are_the_least_squares_ones(n, pad):
+@pytest.mark.parametrize(("n", "pad", "atol"), [(4, 2.0, 1e-7), (6, 1.5, 1e-7), (TAPS, 1.5, 1e-7),
+                                               (TAPS, 1.25, 1e-7), (8, 4.0, 1e-6)])
+def test_spectral_weights_are_the_least_squares_ones(n, pad, atol):
+    # (at 4 times the record, the most allowed, the normal equations' condition number is
+    # 3.5e9, and the two ways agree to 1e-6 of the weight or 1e-6: about what the float32
+    # operator entries keep)
     theta = np.pi / pad  # a record lasting 1 / pad of the padded period, about its middle
     for u in np.linspace(-0.5, n - 0.5, 13):
         np.testing.assert_allclose(spectral_weights(np.array([u]), n, theta)[0],
-                                   least_squares_weights(u, n, theta), atol=1e-7)
+                                   least_squares_weights(u, n, theta), rtol=atol, atol=atol)
 
 
 def _worst_error(weights: np.ndarray, u: np.ndarray, n: int, theta: float) -> float:
