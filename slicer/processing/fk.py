@@ -263,8 +263,9 @@ def layers_core(data: np.ndarray, *, dx: float, dt: float, t_first: float, tops:
     ``kz^2 <= 0`` are evanescent and dropped). Within the layer the image at times ``T`` after
     its top, ``sum_w P(kx, w) exp(i T kz)``, is an inverse FFT over ``kz`` once the spectrum is
     mapped from ``w`` onto ``kz``: Stolt's mapping at the layer's velocity
-    (:func:`stolt_operator`). With one layer this is :func:`stolt_core`; Gazdag's sample
-    steps (:func:`gazdag_core`) give the same image up to Stolt's interpolation.
+    (:func:`stolt_operator`). With one layer this is :func:`stolt_core`'s mapping (there
+    with less padding); Gazdag's sample steps (:func:`gazdag_core`) give the same image up to
+    Stolt's interpolation.
 
     Continued down to a layer's top, the field reaches back above the surface by that top's
     time, so the record is padded to ``pad`` plus the deepest top's share of the record, and

@@ -193,7 +193,8 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
         through six samples came with twice the record, or closer (0.012 against 0.022
         relative RMS near the end of the record), for about three quarters of the work.
         ``phase-shift`` pads its layers the same way, plus the deepest layer top's share of the
-        record; stepped sample by sample, it always pads to twice the record.
+        record, and to at least twice the record; stepped sample by sample, it always pads to
+        twice the record.
     band : float or None
         Migrate the frequencies up to ``band`` times the line's dominant frequency (the peak
         of its mean amplitude spectrum); those above pass through unchanged. A radar wavelet
