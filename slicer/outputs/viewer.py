@@ -13,7 +13,9 @@ script, the style, the slices and the radargrams are all inside it) that any bro
 Slices are decimated for the page (block means down to at most :data:`MAX_SIDE` cells on the
 longer side, so the file stays small for any survey) and stored as one byte per cell: 0 for no
 data, 1-255 spread linearly between each slice's 0.5th and 99.5th percentiles. The read-out is
-therefore the value to within half a step of that range (a 254th of it), and the page says so.
+therefore the value to within half a step of that range (a 254th of it), and the page says so;
+the cells beyond the range (a hundredth of them, the strongest anomalies among them) are kept
+exactly as well (float32), so that their read-out is their value, not the range's end.
 The page draws the bytes through a 256-colour table taken from a matplotlib colour map.
 """
 
@@ -113,12 +115,19 @@ def page_step(ny: int, nx: int) -> int:
 @dataclass(frozen=True)
 class PageSlice:
     """One slice as the page holds it (:func:`page_slice`): its bytes (base64), the values
-    (the cube's units) of bytes 1 and 255, and its ``(rows, columns)`` on the page."""
+    (the cube's units) of bytes 1 and 255, its ``(rows, columns)`` on the page, and the cells
+    beyond ``lo .. hi`` with their values (base64 pairs of little-endian int32 cell index,
+    row by row, and float32 value, ascending by index)."""
 
     lo: float
     hi: float
     data: str
     shape: tuple[int, int]
+    beyond: str = ""
+
+
+#: One cell beyond a slice's display range, as the page stores it (:class:`PageSlice`).
+BEYOND = np.dtype([("cell", "<i4"), ("value", "<f4")])
 
 
 def page_slice(values: np.ndarray, step: int) -> PageSlice:
@@ -127,8 +136,15 @@ def page_slice(values: np.ndarray, step: int) -> PageSlice:
     A build computes it where each slice is written anyway (its GeoTIFF writer), so that the
     page does not read the slices back; :func:`viewer_data` does the same from a cube.
     """
-    q, lo, hi = _quantise(_decimate(np.asarray(values, dtype=np.float64), step))
-    return PageSlice(lo, hi, base64.b64encode(q.tobytes()).decode("ascii"), q.shape)
+    page = _decimate(np.asarray(values, dtype=np.float64), step)
+    q, lo, hi = _quantise(page)
+    flat = page.ravel()
+    with np.errstate(invalid="ignore"):  # NaN is neither
+        cells = np.flatnonzero((flat < lo) | (flat > hi))
+    beyond = np.empty(cells.size, dtype=BEYOND)
+    beyond["cell"], beyond["value"] = cells, flat[cells]
+    return PageSlice(lo, hi, base64.b64encode(q.tobytes()).decode("ascii"), q.shape,
+                     base64.b64encode(beyond.tobytes()).decode("ascii"))
 
 
 def viewer_data(cube: xr.DataArray, *, lines: Sequence[LineImage] = (),
@@ -154,7 +170,7 @@ def viewer_data(cube: xr.DataArray, *, lines: Sequence[LineImage] = (),
         raise ValueError(f"{len(slices)} page slices for a cube of {cube.sizes[axis]}")
     shape = slices[-1].shape
     slices = [{"label": f"{tops[i]:g}-{bottoms[i]:g} {unit}", "lo": s.lo, "hi": s.hi,
-               "bytes": s.data} for i, s in enumerate(slices)]
+               "bytes": s.data, "beyond": s.beyond} for i, s in enumerate(slices)]
     return {
         "title": title or f"{cube.name or 'slices'}: {axis} slices",
         "west": float(x[0] - cell / 2), "north": float(y[0] + cell / 2),
@@ -244,7 +260,8 @@ body { font: 14px sans-serif; margin: 12px; color: #222; background: #fafafa; }
  <label>high <input id="high" type="range" min="1" max="255" value="255"></label>
 </div>
 <p class="note">Arrow keys step through the slices. Values read to within 1/254 of each
-slice's display range. Click the plan to see the nearest line's radargram.</p>
+slice's display range, and exactly beyond it.
+Click the plan to see the nearest line's radargram.</p>
 <canvas id="plan"></canvas>
 <div id="readout"></div>
 <div id="linename"></div>
@@ -261,7 +278,28 @@ canvas.style.width = (D.width * zoom) + "px"; canvas.style.height = (D.height * 
 const slider = document.getElementById("slider");
 const low = document.getElementById("low"), high = document.getElementById("high");
 slider.max = D.slices.length - 1;
-const cells = D.slices.map(s => Uint8Array.from(atob(s.bytes), c => c.charCodeAt(0)));
+const bytes = b64 => Uint8Array.from(atob(b64), c => c.charCodeAt(0));
+const cells = D.slices.map(s => bytes(s.bytes));
+// the cells beyond each slice's display range: (int32 cell, float32 value) pairs, little-endian
+const beyond = D.slices.map(s => {
+  const b = bytes(s.beyond), v = new DataView(b.buffer), n = b.length / 8;
+  const at = new Int32Array(n), value = new Float32Array(n);
+  for (let i = 0; i < n; i++) {
+    at[i] = v.getInt32(8 * i, true);
+    value[i] = v.getFloat32(8 * i + 4, true);
+  }
+  return {at, value};
+});
+function exact(k, cell) {  // the value of a cell beyond the range, or null
+  const {at, value} = beyond[k];
+  let a = 0, b = at.length - 1;
+  while (a <= b) {
+    const m = (a + b) >> 1;
+    if (at[m] === cell) return value[m];
+    if (at[m] < cell) a = m + 1; else b = m - 1;
+  }
+  return null;
+}
 let current = 0;
 function draw() {
   const q = cells[current], img = ctx.createImageData(D.width, D.height);
@@ -296,8 +334,9 @@ function where(e) {
 canvas.addEventListener("mousemove", e => {
   const p = where(e), s = D.slices[current];
   if (p.col < 0 || p.row < 0 || p.col >= D.width || p.row >= D.height) return;
-  const q = cells[current][p.row * D.width + p.col];
-  const v = q === 0 ? "no data" : (s.lo + (q - 1) / 254 * (s.hi - s.lo)).toPrecision(4);
+  const cell = p.row * D.width + p.col, q = cells[current][cell], known = exact(current, cell);
+  const v = q === 0 ? "no data" : (known !== null ? known : s.lo + (q - 1) / 254 * (s.hi - s.lo))
+    .toPrecision(4);
   document.getElementById("readout").textContent =
     `x ${p.x.toFixed(2)}  y ${p.y.toFixed(2)}  ${s.label}  value ${v} ${D.units}`;
 });

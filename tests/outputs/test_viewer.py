@@ -57,6 +57,31 @@ def test_data_bytes_quantise_and_decimate():
     assert max(big["width"], big["height"]) <= MAX_SIDE
 
 
+def test_cells_beyond_the_display_range_keep_their_values():
+    # The bytes saturate at the 0.5th and 99.5th percentiles, so a strong anomaly's cells
+    # would read as the range's end; the page keeps those cells' values (float32) beside the
+    # bytes. Reference: the slice's own values, to float32 rounding.
+    import base64
+
+    from slicer.outputs.viewer import BEYOND
+    cube = small_cube()
+    values = cube.values.copy()
+    values[2, 30, 31] = 35.16  # far above the 99.5th percentile
+    values[2, 31, 50] = -7.25  # far below the 0.5th
+    data = viewer_data(cube.copy(data=values))
+    s = data["slices"][2]
+    pairs = np.frombuffer(base64.b64decode(s["beyond"]), BEYOND)
+    flat = values[2].ravel()
+    expected = np.flatnonzero(np.isfinite(flat) & ((flat < s["lo"]) | (flat > s["hi"])))
+    np.testing.assert_array_equal(pairs["cell"], expected)
+    np.testing.assert_array_equal(pairs["value"], flat[expected].astype(np.float32))
+    assert {30 * 60 + 31, 31 * 60 + 50} <= set(pairs["cell"].tolist())
+    assert s["hi"] < 35.16 and s["lo"] > -7.25  # the bytes alone could not say it
+    # no cell beyond a range that holds every value
+    assert np.frombuffer(base64.b64decode(data["slices"][0]["beyond"]), BEYOND).size <= \
+        np.isfinite(cube.values[0]).sum() // 100 + 2
+
+
 def test_slices_given_already_quantised_make_the_same_page_data():
     from slicer.outputs.viewer import page_slice, page_step
     cube = small_cube(nx=1300, ny=70, n=3)
@@ -147,6 +172,27 @@ def test_the_page_works_in_a_browser(tmp_path, browser):
     assert float(marker.get_attribute("data-fraction")) == pytest.approx(4.25 / 6, abs=0.02)
     assert browser.find_element(By.ID, "radarimg").get_attribute("src").startswith(
         "data:image/png;base64,")
+    assert [e for e in browser.get_log("browser") if e["level"] == "SEVERE"] == []
+
+
+def test_the_read_out_of_a_cell_beyond_the_range_is_its_value(tmp_path, browser):
+    from selenium.webdriver.common.action_chains import ActionChains
+    from selenium.webdriver.common.by import By
+    cube = small_cube()
+    values = cube.values.copy()
+    values[0, 20, 42] = 35.16  # one strong cell, above the slice's 99.5th percentile
+    page = write_viewer(cube.copy(data=values), tmp_path / "viewer.html")
+    browser.get(page.as_uri())
+    plan = browser.find_element(By.ID, "plan")
+
+    def read(col, row):
+        dx = ((col + 0.5) / 60 - 0.5) * plan.size["width"]
+        dy = ((row + 0.5) / 40 - 0.5) * plan.size["height"]
+        ActionChains(browser).move_to_element_with_offset(plan, dx, dy).perform()
+        return browser.find_element(By.ID, "readout").text
+
+    assert "value 35.16 " in read(42, 20)
+    assert "value 0.000 " in read(43, 20)  # inside the range: the bytes' value (0 here)
     assert [e for e in browser.get_log("browser") if e["level"] == "SEVERE"] == []
 
 
