@@ -215,8 +215,25 @@ def plot_overview(cube: xr.DataArray, path: str | os.PathLike | None = None, *,
     return paths
 
 
+def figure_format(path: str | os.PathLike) -> str:
+    """The format matplotlib writes ``path`` in, from its suffix (PNG when it has none).
+
+    Raises
+    ------
+    OutputError
+        If matplotlib writes no such format (a name ending in ``.txt``, say).
+    """
+    from matplotlib.backend_bases import FigureCanvasBase
+    fmt = Path(path).suffix.lstrip(".").lower() or "png"
+    known = FigureCanvasBase.get_supported_filetypes()
+    if fmt not in known:
+        raise OutputError(f"cannot draw a figure as .{fmt}; give a name ending in "
+                          f"{', '.join('.' + k for k in sorted(known))}", where=str(path))
+    return fmt
+
+
 def _save(figure: Figure, tmp: Path, *, dpi: float, where: Path) -> None:
-    fmt = where.suffix.lstrip(".").lower() or "png"
+    fmt = figure_format(where)
     extra = {"pil_kwargs": {"compress_level": 1}} if fmt == "png" else {}
     try:
         figure.savefig(tmp, format=fmt, dpi=dpi, **extra)

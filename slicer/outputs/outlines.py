@@ -103,7 +103,13 @@ def _clean(mask: np.ndarray, min_cells: int) -> np.ndarray:
 
 
 def _polygons(labels: np.ndarray, transform) -> dict[int, object]:
-    """Label -> shapely (Multi)Polygon, from rasterio's polygoniser."""
+    """Label -> valid shapely (Multi)Polygon, from rasterio's polygoniser.
+
+    With eight neighbours a patch's boundary passes twice through a corner where two of its
+    cells touch diagonally: a ring that touches itself, which the OGC Simple Features rules
+    (and GIS validity checks) refuse. :func:`shapely.make_valid` splits it there into polygons
+    that share the corner (the cells and the area unchanged).
+    """
     import rasterio.features
     import shapely.geometry
     import shapely.ops
@@ -112,7 +118,19 @@ def _polygons(labels: np.ndarray, transform) -> dict[int, object]:
                                                      mask=labels > 0, connectivity=8,
                                                      transform=transform):
         parts.setdefault(int(value), []).append(shapely.geometry.shape(geometry))
-    return {k: shapely.ops.unary_union(v) for k, v in parts.items()}
+    return {k: _valid(shapely.ops.unary_union(v)) for k, v in parts.items()}
+
+
+def _valid(geometry):
+    """``geometry`` made valid, its polygons only (a repair may add stray points or lines)."""
+    import shapely
+    if shapely.is_valid(geometry):
+        return geometry
+    fixed = shapely.make_valid(geometry)
+    if fixed.geom_type == "GeometryCollection":
+        fixed = shapely.MultiPolygon([p for g in fixed.geoms for p in getattr(g, "geoms", [g])
+                                      if p.geom_type == "Polygon"])
+    return fixed
 
 
 def outline(cube: xr.DataArray, *, threshold: float = THRESHOLD, min_area: float | None = None,

@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from slicer.core.atomic import atomic_path
+from slicer.core.atomic import atomic_path, file_mode
 from slicer.core.errors import OutputError
 
 
@@ -29,8 +29,24 @@ class Layer:
     fields: dict[str, np.ndarray]
 
 
+def geopackage_path(path: str | os.PathLike) -> Path:
+    """``path`` as a Path, if it names a GeoPackage: GIS pick a file's reader by its suffix,
+    so a GeoPackage named ``.shp`` would be opened as a shapefile and fail.
+
+    Raises
+    ------
+    OutputError
+        If ``path`` does not end in ``.gpkg``.
+    """
+    path = Path(path)
+    if path.suffix.lower() != ".gpkg":
+        raise OutputError("a GeoPackage's name must end in .gpkg", where=str(path))
+    return path
+
+
 def write_geopackage(path: str | os.PathLike, layers: list[Layer], *, crs=None) -> Path:
-    """Write ``layers`` to the GeoPackage ``path`` in ``crs`` (anything pyproj reads, or None).
+    """Write ``layers`` to the GeoPackage ``path`` (ending in ``.gpkg``) in ``crs`` (anything
+    pyproj reads, or None).
 
     Polygons are written as MultiPolygons when the layer's type says so (GeoPackage readers
     expect one geometry type per layer).
@@ -38,7 +54,7 @@ def write_geopackage(path: str | os.PathLike, layers: list[Layer], *, crs=None) 
     import pyogrio.raw
     import pyproj
     import shapely
-    path = Path(path)
+    path = geopackage_path(path)
     wkt = pyproj.CRS.from_user_input(crs).to_wkt() if crs is not None else None
     try:
         with atomic_path(path) as tmp:
@@ -56,9 +72,11 @@ def write_geopackage(path: str | os.PathLike, layers: list[Layer], *, crs=None) 
                                       list(layer.fields), layer=layer.name, driver="GPKG",
                                       geometry_type=layer.geometry_type, crs=wkt,
                                       append=k > 0)
+            # GDAL (SQLite) made the file anew with its own mode, 0644: the user's instead
+            os.chmod(tmp, file_mode())
     except OSError as exc:
         raise OutputError(f"cannot write the GeoPackage ({exc})", where=str(path)) from None
     return path
 
 
-__all__ = ["Layer", "write_geopackage"]
+__all__ = ["Layer", "geopackage_path", "write_geopackage"]

@@ -109,7 +109,7 @@ def build(settings: BuildSettings, *, progress: bool = True, command: list[str] 
         # the versions need rasterio (0.13 s) and the packages' metadata
         from slicer.pipeline.record import environment
         aside = concurrent.futures.ThreadPoolExecutor(1, thread_name_prefix="slicer-versions")
-        versions = aside.submit(environment)
+        versions = aside.submit(environment, hdf5="nc" in formats)
         aside.shutdown(wait=False)
         r.record["inputs"] = None  # filled in below, in this place of the record
         if command is not None:

@@ -48,20 +48,23 @@ PACKAGES = ("numpy", "scipy", "xarray", "pyproj", "rasterio", "segyio", "matplot
             "h5netcdf", "h5py", "dask", "zarr", "numcodecs", "rioxarray")
 
 
-def environment() -> dict:
+def environment(*, hdf5: bool = False) -> dict:
     """Python, the platform, the versions of :data:`PACKAGES` and of the C libraries below.
 
     ``gdal`` and ``rasterio_proj`` are the GDAL and PROJ that rasterio runs on, ``proj`` the
     PROJ of pyproj (the wheels bring their own, and they can differ), ``hdf5`` the HDF5 of
-    h5py when the build used it (NetCDF lines or a NetCDF or Zarr cube), else None: every
-    build writes through rasterio and places with pyproj, but loads h5py only for those (0.09 s
-    to import). A build on workers calls this on a thread while they grid.
+    h5py when ``hdf5`` is true (a build writing ``cube.nc``, whose workers load h5py, not this
+    process) or h5py is loaded here (NetCDF lines), else None: every build writes through
+    rasterio and places with pyproj, but needs h5py only for NetCDF (0.09 s to import). A build
+    on workers calls this on a thread while they grid.
     """
     import importlib.metadata as md
 
     import pyproj
     import rasterio
 
+    if hdf5:
+        import h5py  # noqa: F401 - its version below
     h5py = sys.modules.get("h5py")
 
     versions = {}

@@ -261,7 +261,7 @@ def repeat_build(record: str | os.PathLike, *, progress: bool = True,
     from slicer import __version__
 
     then = {"slicer": rec.data.get("slicer"), **(rec.data.get("environment") or {})}
-    now = {"slicer": __version__, **environment()}
+    now = {"slicer": __version__, **environment(hdf5=then.get("hdf5") is not None)}
     moved = [f"{k} {now.get(k)} (the build had {v})" for k, v in then.items()
              if k != "platform" and now.get(k) != v]
     if moved:

@@ -94,6 +94,8 @@ def outline_build(out: str | os.PathLike, path: str | os.PathLike, *, threshold:
     (:func:`slicer.outputs.outlines.outline`); returns a one-line summary. An existing
     ``path`` is replaced only with ``overwrite``."""
     from slicer.outputs.outlines import outline, write_outlines
+    from slicer.outputs.vector import geopackage_path
+    geopackage_path(path)  # a name GIS read as a GeoPackage, before any work
     _free(path, overwrite)
     found = outline(open_build(out), threshold=threshold, min_area=min_area,
                     fraction=fraction, floor=floor)
@@ -120,7 +122,9 @@ def section_build(out: str | os.PathLike, points, path: str | os.PathLike, *,
     :class:`slicer.outputs.display.Display`, default its defaults); returns a one-line
     summary. An existing ``path`` is replaced only with ``overwrite``."""
     from slicer.outputs.display import Display
+    from slicer.outputs.figures import figure_format
     from slicer.outputs.section import plot_section, section
+    figure_format(path)  # a name matplotlib can write, before any work
     _free(path, overwrite)
     sec = section(open_build(out), points, spacing=spacing)
     plot_section(sec, path, **(display or Display()).options())

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+import shapely
 import shapely.geometry
 
 from slicer.core.errors import SettingsError
@@ -90,6 +91,49 @@ def test_the_geopackage_opens_in_gdal_with_crs_and_types(tmp_path):
         types = dict(zip(info["fields"], info["dtypes"], strict=True))
         assert all(types[f] == "int32" for f in ints)
         assert all(t == "float64" for f, t in types.items() if f not in ints)
+
+
+def test_cells_touching_at_a_corner_give_valid_polygons(tmp_path):
+    # OGC Simple Features (ISO 19125-1): a polygon's ring may not touch itself. With eight
+    # neighbours, a patch whose cells meet only at a corner is traced by rasterio as one ring
+    # through that corner twice; GEOS (shapely.is_valid) refuses it, and so do GIS checks.
+    import pyogrio.raw
+    data = np.random.default_rng(1).normal(1.0, 0.1, (4, 30, 30)).astype(np.float32)
+    data[1, 10:14, 10:14] = 9.0  # a 4 x 4 cell block
+    data[1, 14:17, 14:17] = 9.0  # and a 3 x 3 one meeting it at one corner
+    data[1, 5:8, 20:23] = 9.0  # and one alone
+    cube = new_cube(data, west=WEST, north=NORTH, cell=CELL, crs="EPSG:32633",
+                    top=TOPS[:4], bottom=TOPS[:4] + 0.1)
+    found = outline(cube, min_area=0.05)  # five cells: no speck of noise
+    path = write_outlines(found, tmp_path / "corner.gpkg")
+    for layer in ("outlines", "bodies"):
+        geometries = pyogrio.raw.read(path, layer=layer)[2]
+        shapes = [shapely.from_wkb(g) for g in geometries]
+        assert shapes and all(shapely.is_valid(g) for g in shapes), \
+            [shapely.is_valid_reason(g) for g in shapes]
+    areas = sorted(round(p["geometry"].area / CELL ** 2) for p in found.patches)
+    assert areas == [9, 25]  # the cells unchanged: 3 x 3, and 16 + 9 meeting at a corner
+
+
+def test_a_geopackage_needs_its_suffix_and_takes_the_users_file_mode(tmp_path):
+    # GIS choose a reader by the suffix: a GeoPackage named .shp is opened as a shapefile.
+    # File modes: POSIX open(2), mode & ~umask (GDAL recreates the file with 0644 itself).
+    import os
+    import stat
+
+    from slicer.core.errors import OutputError
+    found = outline(cube_with_anomalies())
+    for name in ("a.shp", "a.txt", "a"):
+        with pytest.raises(OutputError, match=r"must end in \.gpkg"):
+            write_outlines(found, tmp_path / name)
+        assert not (tmp_path / name).exists()
+    old = os.umask(0o002)
+    try:
+        path = write_outlines(found, tmp_path / "a.GPKG")
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE(path.stat().st_mode) == 0o664
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["a.GPKG"]  # no temporary left
 
 
 def test_bad_options():

@@ -184,3 +184,13 @@ def test_environment_leaves_h5py_unloaded_when_the_build_did_not_use_it():
     done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
                           timeout=120, check=True)
     assert done.stdout.split() == ["None", "False", rasterio.__gdal_version__]
+
+
+def test_environment_names_hdf5_for_a_build_writing_netcdf_on_workers():
+    # a build writing cube.nc on worker processes loads h5py in the workers only: asked for
+    # it (hdf5=True), a fresh process reports the HDF5 h5py runs on
+    code = ("from slicer.pipeline.record import environment\n"
+            "print(environment(hdf5=True)['hdf5'])")
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True,
+                          timeout=120, check=True)
+    assert done.stdout.split() == [h5py.version.hdf5_version]

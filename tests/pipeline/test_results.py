@@ -60,12 +60,17 @@ def test_outline_and_section_commands(built, tmp_path, capsys):
     (["section", "{out}", "--through", "1,2", "x", "--out", "{tmp}/s.png"], "--through"),
     (["section", "{out}", "--through", "0,0", "1,1", "--out", "{tmp}/s.png"], "misses"),
     (["outline", "{tmp}/nothing", "--out", "{tmp}/o.gpkg"], "no slicer build"),
+    # a name matplotlib cannot draw in, and a GeoPackage under a shapefile's name (GIS open a
+    # file by its suffix): refused before any work, naming the file
+    (["section", "{out}", "--through", "0,0", "1,1", "--out", "{tmp}/s.txt"], "s.txt: cannot"),
+    (["outline", "{out}", "--out", "{tmp}/o.shp"], "o.shp: a GeoPackage's name must end"),
 ])
 def test_bad_map_commands_say_one_line(built, tmp_path, capsys, argv, match):
     out, _ = built
     code = main([a.format(out=out, tmp=tmp_path) for a in argv])
     err = capsys.readouterr().err.strip().splitlines()
     assert code == 2 and len(err) == 1 and match in err[0]
+    assert list(tmp_path.iterdir()) == []  # nothing written
 
 
 def test_an_existing_file_is_replaced_only_with_overwrite(built, tmp_path, capsys):
