@@ -48,6 +48,7 @@ from slicer.pipeline.budget import LINE_BYTES_PER_SAMPLE, human
 from slicer.pipeline.line_tasks import default_windows
 from slicer.pipeline.position_checks import (
     check_far_positions,
+    check_in_crs_area,
     check_not_degrees,
     trace_positions,
 )
@@ -134,6 +135,7 @@ def check_bounds(settings, info: SurveyInfo, *, cell: float, memory_limit: int,
     y = np.concatenate([p[1] for p in positions])
     line = np.concatenate([np.full(p[0].size, k) for k, p in enumerate(positions)])
     check_not_degrees(x, y, settings)
+    check_in_crs_area(x, y, settings)
     line_traces = check_resampling(settings, info, positions, memory_limit=memory_limit)
     grid = check_grid(settings, x, y, line, cell=cell, memory_limit=memory_limit,
                       positions=positions)

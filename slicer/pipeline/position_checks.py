@@ -1,11 +1,13 @@
-"""Checks of trace positions before a build: wild positions, and degrees given as metres.
+"""Checks of trace positions before a build: wild positions, degrees given as metres, and
+positions that no place in the survey CRS has.
 
 Every trace's position is worked out as the line tasks will place it (:func:`trace_positions`),
 reading header coordinates, tracks, marks and channel tables but no sample. A damaged
 trace-header coordinate or GNSS fix (one flipped bit moves a position kilometres) is found by
 :func:`far_from_line` and refused naming the file and trace, or the track and row, before it
 can stretch the grid; longitude/latitude numbers read as metres are refused by
-:func:`check_not_degrees`. :mod:`slicer.pipeline.bounds` runs both before any line is read.
+:func:`check_not_degrees`, and x and y swapped or given in other units by
+:func:`check_in_crs_area`. :mod:`slicer.pipeline.bounds` runs them before any line is read.
 """
 
 from __future__ import annotations
@@ -42,6 +44,11 @@ MAD_SIGMA = 0.6745
 DEGREES_SPAN = 0.05
 #: Far positions named one by one in a message before "and N more".
 NAMED = 5
+#: Degrees of longitude or latitude beyond its CRS's area of use that a survey may lie. Whole
+#: countries keep to one zone's grid well outside it (mainland Norway spans 4.5-31 degrees E
+#: in UTM zone 33, whose area is 12-18 E, from memory), while x and y swapped in a UTM zone put
+#: a survey tens of degrees from the zone, and coordinates in centimetres nowhere at all.
+AREA_MARGIN = 20.0
 
 
 # --- positions far from their line -------------------------------------------------------------
@@ -225,5 +232,51 @@ def check_not_degrees(x: np.ndarray, y: np.ndarray, settings) -> None:
         "fixes as a GNSS track (--positions track) with --track-crs", where=where)
 
 
-__all__ = ["check_far_positions", "check_not_degrees", "far_from_line", "placed_stub",
-           "trace_positions"]
+def check_in_crs_area(x: np.ndarray, y: np.ndarray, settings) -> None:
+    """Refuse positions that lie nowhere in the survey CRS, or far outside its area of use.
+
+    The survey's median position is taken to longitude and latitude on the CRS's own datum
+    (pyproj): the median, so that one stray line (named by the grid's checks) does not move
+    it. No such place (the projection's inverse fails: coordinates 100 times too large), or
+    one more than :data:`AREA_MARGIN` degrees outside the area the CRS is defined for (x and y
+    swapped), is refused naming the first line; a CRS without an area of use is only checked
+    for the first.
+    """
+    if settings.crs is None or not len(x):
+        return
+    crs = pyproj.CRS.from_user_input(settings.crs)
+    geodetic = crs.geodetic_crs
+    if geodetic is None:
+        return
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        lon, lat = pyproj.Transformer.from_crs(crs, geodetic, always_xy=True).transform(
+            float(np.median(x)), float(np.median(y)), errcheck=False)
+    area, problem = crs.area_of_use, None
+    if not (math.isfinite(lon) and math.isfinite(lat)):
+        problem = "are no place in it"
+    elif area is not None:
+        west, south, east, north = area.bounds
+        # the area's width and the middle's place east of its west edge, round the globe
+        # (an area may cross 180 E: its west edge then lies east of its east edge)
+        width = east - west if east >= west else east - west + 360.0
+        east_of = (lon - west) % 360.0
+        off_lon = 0.0 if east_of <= width else min(east_of - width, 360.0 - east_of)
+        off_lat = max(south - lat, lat - north, 0.0)
+        if max(off_lon, off_lat) > AREA_MARGIN:
+            problem = (f"put the survey at {lon:.1f} E, {lat:.1f} N, far outside the "
+                       f"area it is made for ({west:g} to {east:g} E, {south:g} to "
+                       f"{north:g} N)")
+    if problem is None:
+        return
+    first = settings.lines[0]
+    source = source_of(first, settings)
+    where = str(first.file) if source == "headers" else first.where
+    raise SettingsError(
+        f"trace positions (x {np.min(x):.9g} to {np.max(x):.9g}, y {np.min(y):.9g} to "
+        f"{np.max(y):.9g}) in the survey CRS {settings.crs} {problem}: are x and y swapped, or "
+        "the coordinates not in metres?", where=where)
+
+
+__all__ = ["check_far_positions", "check_in_crs_area", "check_not_degrees", "far_from_line",
+           "placed_stub", "trace_positions"]

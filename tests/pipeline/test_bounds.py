@@ -206,6 +206,34 @@ def test_degrees_given_with_a_projected_crs(survey, capsys, no_work):
                                   "survey CRS EPSG:32633 is in metres")
 
 
+@pytest.mark.parametrize(("rows", "match"), [
+    # x and y swapped: UTM zone 33's inverse puts the survey at 50.0 E, 3.8 N (pyproj), far
+    # outside the zone's 12-18 E (EPSG's area of use)
+    (["L000.sgy,4650000.0,512000.0,4650000.0,512004.0",
+      "L001.sgy,4650000.5,512004.0,4650000.5,512000.0"], "put the survey at 50.0 E, 3.8 N"),
+    # centimetres as metres: no place of the projection has them (its inverse fails)
+    (["L000.sgy,51200000.0,465000000.0,51200400.0,465000000.0",
+      "L001.sgy,51200400.0,465000050.0,51200000.0,465000050.0"], "are no place in it"),
+])
+def test_positions_the_crs_has_no_place_for(survey, capsys, no_work, rows, match):
+    (survey / "odd.csv").write_text("file,start_x,start_y,end_x,end_y\n" + "\n".join(rows)
+                                    + "\n")
+    line = refused(capsys, survey / "out", "build", survey / "odd.csv", *GOOD, "--out",
+                   survey / "out", match=match)
+    assert line.startswith(f"slicer: error: {survey / 'odd.csv'}:2: trace positions (x ")
+    assert "x and y swapped" in line
+
+
+def test_a_survey_outside_its_zone_but_on_its_grid_is_built(small_survey, tmp_path):
+    # National grids reach beyond their zone (mainland Norway in UTM 33 from 4.5 E): the
+    # small survey moved to 5.0 E, 60.0 N (pyproj puts it at x -56351, y 6693618 in zone 33)
+    from slicer.pipeline.position_checks import check_in_crs_area
+    settings = slicer.load_settings(small_survey.line_table, crs="EPSG:32633",
+                                    sample_interval=0.1)
+    check_in_crs_area(np.array([-56351.3, -56347.3]), np.array([6693618.4, 6693621.0]),
+                      settings)  # no error
+
+
 # --- sizes refused before any line is read -------------------------------------------------------
 
 
