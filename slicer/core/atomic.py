@@ -21,6 +21,7 @@ import io
 import os
 import shutil
 import signal
+import stat
 import sys
 import tempfile
 import threading
@@ -55,6 +56,35 @@ def file_mode() -> int:
 def folder_mode() -> int:
     """Mode of a new folder: ``0o777`` less the umask."""
     return 0o777 & ~current_umask()
+
+
+def writable(folder: str | os.PathLike) -> bool:
+    """Whether the user may change ``folder``: :func:`os.access`, and for a folder of the
+    user's own its owner's write bit (which root, whom access never refuses, would ignore)."""
+    st = os.stat(folder)
+    return os.access(folder, os.W_OK) and (st.st_uid != os.geteuid()
+                                           or bool(st.st_mode & stat.S_IWUSR))
+
+
+def take_group(like: str | os.PathLike, folder: str | os.PathLike) -> None:
+    """Give ``folder`` the owner (where the user may) and group of ``like``, and its
+    set-group-ID bit: a folder that will replace ``like``, before anything is written into it,
+    so that its files take the group that writing into ``like`` gives them (a shared project
+    folder's, with the bit set) and ``like``'s users keep their access. Best effort: what the
+    system refuses is left as the user's defaults."""
+    try:
+        st = os.stat(like)
+    except OSError:
+        return
+    for owner in (st.st_uid, -1):  # only root may give a folder away; a member its group
+        try:
+            os.chown(folder, owner, st.st_gid)
+            break
+        except OSError:
+            continue
+    if st.st_mode & stat.S_ISGID:
+        with contextlib.suppress(OSError):
+            os.chmod(folder, stat.S_IMODE(os.stat(folder).st_mode) | stat.S_ISGID)
 
 
 def temp_file(folder: str | os.PathLike, *, prefix: str, suffix: str = "") -> Path:

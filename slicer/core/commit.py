@@ -68,7 +68,9 @@ from slicer.core.atomic import (
     held_interrupt,
     lock_folder,
     prepare_output_dir,
+    take_group,
     unlock,
+    writable,
 )
 from slicer.core.errors import OutputError, SlicerError, warn
 
@@ -216,7 +218,7 @@ def _clear(old: Path, target: Path, owned: set[str], kept: list[str]) -> None:
     if kept:
         shown = ", ".join(kept[:5]) + (" ..." if len(kept) > 5 else "")
         warn(f"{old}: kept, it holds entries that could not be put back into {target} "
-             f"because their names are taken there ({shown}); move them yourself")
+             f"(their names taken there, or the move refused) ({shown}); move them yourself")
 
 
 def _remove_legacy(target: Path) -> None:
@@ -327,6 +329,9 @@ class OutputFolder:
 
     def _check_place(self) -> None:
         target, where = self.target, str(self.given)
+        if not writable(target):  # the build would replace it all the same: say so instead
+            raise OutputError("is read-only; make it writable to build into it, or choose "
+                              "another --out", where=where)
         if os.path.ismount(target):
             raise OutputError("is a mount point; slicer builds beside the output folder and "
                               "switches it in whole, so give a folder inside it", where=where)
@@ -374,6 +379,7 @@ class OutputFolder:
             parent.mkdir(parents=True, exist_ok=True)
             self._created = missing
             os.mkdir(self.path)  # the user's normal folder mode
+            take_group(self.target, self.path)  # and the group of the folder it replaces
             self._state = "staged"
             self._fds.append(lock_folder(self.path))
         except OSError as exc:

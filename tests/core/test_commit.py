@@ -193,6 +193,42 @@ def test_a_replaced_folder_keeps_its_mode(tmp_path):
     assert out.stat().st_mode & 0o777 == 0o750
 
 
+def test_a_read_only_folder_is_refused_and_left_as_it_was(tmp_path):
+    # POSIX: a folder without write permission may not be changed; the build, which would
+    # replace it whole, refuses instead (it had moved the user's file aside, exit 0)
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / "mine.txt").write_text("mine")
+    out.chmod(0o555)
+    try:
+        with pytest.raises(OutputError, match="is read-only"):
+            make_build(out, "A", 1)
+        assert files_of(out) == {"mine.txt": b"mine"} and leftovers(out) == []
+        assert out.stat().st_mode & 0o777 == 0o555
+    finally:
+        out.chmod(0o755)
+
+
+def test_a_replaced_folder_keeps_its_group_and_files_take_it(tmp_path):
+    # POSIX chown(2) / Linux set-group-ID folders: files made in a folder with the bit take
+    # its group. A shared project folder (group "nogroup" here, mode 2770) must keep its group
+    # and bit, and the build's files take that group, as if written into it directly.
+    import grp
+    out = tmp_path / "out"
+    out.mkdir()
+    try:
+        gid = grp.getgrnam("nogroup").gr_gid
+        os.chown(out, -1, gid)
+    except (KeyError, PermissionError):
+        pytest.skip("no group 'nogroup' that this user may give a folder")
+    out.chmod(0o2770)
+    make_build(out, "A", 2, overwrite=False)
+    make_build(out, "B", 1)
+    assert out.stat().st_gid == gid and out.stat().st_mode & 0o7777 == 0o2770
+    for path in [out, *out.rglob("*")]:
+        assert path.stat().st_gid == gid, path
+
+
 def test_the_current_folder_and_mount_points_are_refused(tmp_path, monkeypatch):
     out = tmp_path / "out"
     make_build(out, "A", 1, overwrite=False)
