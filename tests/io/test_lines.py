@@ -147,11 +147,22 @@ def test_finite_samples_pass_without_a_warning(tmp_path):
         np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
 
 
-def test_finite_samples_whose_sum_overflows_pass_unchanged(tmp_path):
+def test_finite_samples_whose_sum_overflows_pass_unchanged_with_a_warning(tmp_path):
     # float32 holds values up to 3.4e38 (IEEE 754): four of 1e38 sum to infinity, yet every
-    # sample is finite, so nothing is zeroed and nothing is said
+    # sample is finite, so nothing is zeroed; but their squares (an envelope's) overflow
+    # float32 above sqrt(3.4e38) = 1.8e19, which is said once
     data = np.full((2, 2), 1e38, dtype=np.float32)
-    assert not np.isfinite(data.sum())
+    with np.errstate(over="ignore"):
+        assert not np.isfinite(data.sum()) and not np.isfinite(np.square(data)).any()
+    with pytest.warns(SlicerWarning, match=r"a\.nc: samples up to 1e\+38, beyond any "):
+        np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
+    # one damaged trace of +-3e38 among ordinary ones (a sum in order cancels it)
+    data = np.random.default_rng(2).normal(size=(5, 64)).astype(np.float32)
+    data[3] = np.float32(3e38) * (-1) ** np.arange(64)
+    with pytest.warns(SlicerWarning, match=r"samples up to 3e\+38"):
+        np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
+    data = np.full((2, 2), 1e19, dtype=np.float32)  # squares still finite: nothing said
+    assert np.isfinite(np.square(data)).all()
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
