@@ -248,10 +248,11 @@ def check_in_crs_area(x: np.ndarray, y: np.ndarray, settings) -> None:
     geodetic = crs.geodetic_crs
     if geodetic is None:
         return
+    every = max(1, len(x) // 4096)  # a few thousand positions are plenty for a median
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         lon, lat = pyproj.Transformer.from_crs(crs, geodetic, always_xy=True).transform(
-            float(np.median(x)), float(np.median(y)), errcheck=False)
+            float(np.median(x[::every])), float(np.median(y[::every])), errcheck=False)
     area, problem = crs.area_of_use, None
     if not (math.isfinite(lon) and math.isfinite(lat)):
         problem = "are no place in it"
