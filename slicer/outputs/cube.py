@@ -25,9 +25,13 @@ from slicer.core.conventions import C_M_PER_NS, DEPTH, ELEVATION, TWT, UNITS, X,
 from slicer.core.errors import InputFileError, OutputError, SettingsError
 from slicer.outputs import cf
 from slicer.outputs.cf import GRID_MAPPING
+from slicer.outputs.cube_grid import (  # noqa: F401 - public here too
+    aligned,
+    cube_crs,
+    cube_transform,
+)
 
 if TYPE_CHECKING:
-    import pyproj
     import xarray as xr
 
 #: The slice dims a cube may have.
@@ -290,46 +294,6 @@ def check_tile(block, shape: tuple[int, ...], row0: int, col0: int) -> np.ndarra
     return values
 
 
-def _grid_attr(cube: xr.DataArray, key: str) -> float:
-    try:
-        return float(cube.attrs[key])
-    except (KeyError, TypeError, ValueError):
-        raise SettingsError(f"cube has no numeric attrs[{key!r}] (needed for the grid)",
-                            where="cube") from None
-
-
-def cube_transform(cube: xr.DataArray) -> Affine:
-    """Return the north-up affine transform of ``cube`` (pixel corner -> CRS metres).
-
-    Built from ``attrs["west"]``, ``attrs["north"]`` and ``attrs["cell_size"]`` exactly, never
-    from coordinate differences (which lose digits at UTM magnitudes).
-    """
-    cell = _grid_attr(cube, "cell_size")
-    if not cell > 0:
-        raise SettingsError(f"cube cell_size must be positive, got {cell}", where="cube")
-    return Affine(cell, 0.0, _grid_attr(cube, "west"), 0.0, -cell, _grid_attr(cube, "north"))
-
-
-def _grid_mapping_name(cube: xr.DataArray) -> str:
-    return str(cube.attrs.get("grid_mapping") or cube.encoding.get("grid_mapping")
-               or GRID_MAPPING)
-
-
-def cube_crs(cube: xr.DataArray) -> pyproj.CRS | None:
-    """Return the CRS of ``cube`` from its grid-mapping coordinate, or None for a local grid."""
-    import pyproj
-    name = _grid_mapping_name(cube)
-    if name not in cube.coords:
-        return None
-    attrs = cube.coords[name].attrs
-    wkt = attrs.get("crs_wkt") or attrs.get("spatial_ref")
-    try:
-        return pyproj.CRS.from_wkt(wkt) if wkt else pyproj.CRS.from_cf(attrs)
-    except pyproj.exceptions.CRSError as exc:
-        raise SettingsError(f"cube grid mapping {name!r} is not a valid CRS ({exc})",
-                            where="cube") from None
-
-
 def prepared_for_writing(cube: xr.DataArray) -> xr.DataArray:
     """Return ``cube`` as float32 with ``grid_mapping`` in attrs and no stale encoding.
 
@@ -428,6 +392,7 @@ def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
         If the file cannot be written; an existing file of that name is then left as it was.
     """
     slice_axis(cube)
+    cube = aligned(cube)
     path = Path(path)
     try:
         with atomic_path(path) as tmp:

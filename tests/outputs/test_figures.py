@@ -36,14 +36,15 @@ from slicer.outputs.sheet_layout import nice_length
 WEST, NORTH, CELL = 500000.0, 4649776.0, 0.05
 
 
-def make_cube(n=5, ny=30, nx=45, *, axis="depth", crs="EPSG:32633", velocity=0.1):
+def make_cube(n=5, ny=30, nx=45, *, axis="depth", crs="EPSG:32633", velocity=0.1,
+              west=WEST, north=NORTH):
     rng = np.random.default_rng(3)
     # Slices on very different scales: per-slice limits would differ from shared ones.
     data = rng.random((n, ny, nx)).astype(np.float32) * (1 + np.arange(n))[:, None, None]
     data[:, :5, :6] = np.nan
     step = 0.1 if axis == "depth" else 2.5
     tops = 0.3 + np.arange(n) * step
-    return new_cube(data, west=WEST, north=NORTH, cell=CELL, crs=crs, top=tops,
+    return new_cube(data, west=west, north=north, cell=CELL, crs=crs, top=tops,
                     bottom=tops + step, axis=axis, velocity=velocity)
 
 
@@ -121,7 +122,7 @@ def test_compact_ticks_relative_to_the_corner():
     numbers = {float(t) for t in written if t.replace(".", "", 1).isdigit()}
     assert 0 in numbers and 2.0 in numbers and 1.5 in numbers
     assert max(numbers) <= 45 * CELL
-    small = plot_overview(make_cube(crs=None).assign_attrs(west=0.0, north=1.5))
+    small = plot_overview(make_cube(crs=None, west=0.0, north=1.5))
     assert "easting (m)" in texts(small) and "northing (m)" in texts(small)
     assert "local grid" in small.get_suptitle()
 

@@ -116,6 +116,30 @@ def test_pixels_nodata_and_tags_through_rasterio(tmp_path):
     assert paths[0].name == "slice_000_0.300-0.400m.tif"
 
 
+def test_a_part_of_a_cube_is_written_where_its_coordinates_are(tmp_path):
+    # A part taken with isel keeps its parent's corner attrs; the file must sit where the
+    # part's own coordinates are. Reference: rioxarray's transform, worked out from the
+    # coordinates (cube.rio.transform(recalc=True)); the pixels read back with rasterio.
+    cube = make_cube()
+    part = cube.isel(x=slice(5, 10), y=slice(3, 8))
+    [path, *_] = write_slice_geotiffs(part, tmp_path / "part")
+    with rasterio.open(path) as src:
+        assert src.transform.almost_equals(part.rio.transform(recalc=True), precision=1e-9)
+        np.testing.assert_array_equal(src.read(1), part.values[0])
+    assert cube_transform(part).almost_equals(part.rio.transform(recalc=True), precision=1e-9)
+    # NetCDF: the corner attrs and GDAL's GeoTransform follow too
+    import xarray as xr
+
+    from slicer.outputs.cube import write_cube_netcdf
+    with xr.open_dataset(write_cube_netcdf(part, tmp_path / "part.nc")) as ds:
+        gdal = [float(v) for v in ds["spatial_ref"].attrs["GeoTransform"].split()]
+        assert gdal == pytest.approx(part.rio.transform(recalc=True).to_gdal(), abs=1e-9)
+    # flipped or stepped: no north-up raster holds it
+    for bad in (cube.isel(y=slice(None, None, -1)), cube.isel(x=slice(0, None, 2))):
+        with pytest.raises(SettingsError, match="not consecutive cells"):
+            write_slice_geotiffs(bad, tmp_path / "bad")
+
+
 def test_time_slices_carry_twt_tags(tmp_path):
     cube = make_cube(axis="twt", velocity=None)
     paths = write_slice_geotiffs(cube, tmp_path, progress=False)
