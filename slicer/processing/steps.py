@@ -16,7 +16,7 @@ import scipy.fft
 import scipy.ndimage
 
 from slicer.core.conventions import C_M_PER_NS, TRACE, TWT
-from slicer.core.errors import SettingsError
+from slicer.core.errors import SettingsError, warn
 from slicer.core.physics import check_separation
 from slicer.processing.background import (
     Background,
@@ -116,15 +116,26 @@ def dominant_frequency_of(samples: np.ndarray, *, dt: float, where: str = "line"
 
 # ------------------------------------------------------------------------------------ time zero
 
+#: Within one period of the direct wave's first crossing, the first lobe reaching this share
+#: of the largest is its main peak: a wavelet of two nearly equal lobes (a Gaussian
+#: derivative's) then gives every line the same lobe, where noise had flipped lines between
+#: them, a half period apart.
+LOBE_SHARE = 0.9
+
+
 def _first_peak(trace: np.ndarray, threshold: float, period: int) -> float:
-    """Fractional index of the largest ``|trace|`` within one period of its first crossing
-    of ``threshold * max|trace|``."""
+    """Fractional index of the main peak of ``|trace|`` within one period of its first
+    crossing of ``threshold * max|trace|``: the first lobe there reaching :data:`LOBE_SHARE`
+    of the largest."""
     a = np.abs(trace)
     top = a.max()
     if not np.isfinite(top) or top == 0:
         return math.nan
     first = int(np.argmax(a >= threshold * top))
-    i = first + int(np.argmax(a[first:first + max(period, 1) + 1]))
+    window = a[first:first + max(period, 1) + 1]
+    i = first + int(np.argmax(window >= LOBE_SHARE * window.max()))
+    while i + 1 < a.size and a[i + 1] > a[i]:  # up to that lobe's peak
+        i += 1
     if 0 < i < a.size - 1:  # parabola through the peak and its neighbours: sub-sample time
         y0, y1, y2 = a[i - 1], a[i], a[i + 1]
         denom = y0 - 2 * y1 + y2
@@ -180,7 +191,31 @@ def pick_time_zero_of(samples: np.ndarray, twt: np.ndarray, *, mean: np.ndarray 
     if not math.isfinite(index):
         raise SettingsError("cannot pick time zero on a silent line; give --time-zero NS",
                             where=where)
+    _warn_earlier_arrival(mean, index, period, threshold, twt, where)
     return float(twt[0] + index * dt)
+
+
+#: An arrival more than a period before the picked one is named when it stands this many times
+#: above the median level before it and reaches :data:`EARLIER_SHARE` of the largest.
+EARLIER_NOISE, EARLIER_SHARE = 10.0, 0.05
+
+
+def _warn_earlier_arrival(mean: np.ndarray, index: float, period: int, threshold: float,
+                          twt: np.ndarray, where: str) -> None:
+    """Warn when the mean trace holds a clear arrival before the picked one: the direct wave
+    is the earliest arrival, and one weaker than ``threshold`` of a later reflector is passed
+    over (every depth then comes out too shallow, silently)."""
+    a = np.abs(mean)
+    before = a[:max(0, int(index) - 2 * max(period, 1))]  # the picked arrival's flank excluded
+    if before.size < 4:
+        return
+    k = int(np.argmax(before))
+    if before[k] > max(EARLIER_NOISE * float(np.median(before)), EARLIER_SHARE * a.max()):
+        dt = float(twt[1] - twt[0])
+        warn(f"{where}: time zero picked at {twt[0] + index * dt:.2f} ns, but an earlier "
+             f"arrival at {twt[k]:.2f} ns reaches {before[k] / a.max():.2f} of the strongest "
+             f"(below the threshold {threshold:g}): if it is the direct wave, lower "
+             "--time-zero-threshold or give --time-zero")
 
 
 def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",

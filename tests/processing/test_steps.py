@@ -89,6 +89,49 @@ def test_time_zero_pick_finds_the_direct_wave_peak(t0):
     assert pick_time_zero(direct_wave_line(t0, wow=0.5)) == pytest.approx(t0, abs=0.03)
 
 
+def gaussian_derivative(t, f):
+    """First derivative of a Gaussian, two lobes of equal size and opposite sign about t = 0,
+    normalised to a peak of 1; f (GHz) its peak frequency, sigma = 1 / (2 pi f) (common
+    practice for a radar source pulse)."""
+    sigma = 1.0 / (2.0 * np.pi * f)
+    return -(t / sigma) * np.exp(0.5 - 0.5 * (t / sigma) ** 2)
+
+
+@pytest.mark.parametrize("second", [0.97, 1.0, 1.03])
+def test_a_two_lobed_direct_wave_gives_every_line_the_same_lobe(second):
+    # Lines whose second lobe is a little smaller or larger than the first (noise, coupling)
+    # must pick the same lobe: the first (its peak at -sigma), not flip half a period.
+    f, t0 = 0.5, 8.0
+    sigma = 1.0 / (2.0 * np.pi * f)
+    t = DT * np.arange(400)
+    wave = gaussian_derivative(t - t0, f)
+    wave = np.where(t > t0, second * wave, wave)  # the later lobe scaled
+    rng = np.random.default_rng(4)
+    line = make_line(wave + 0.002 * rng.normal(size=(20, t.size)))
+    assert pick_time_zero(line) == pytest.approx(t0 - sigma, abs=0.05)
+
+
+def test_an_earlier_weaker_arrival_is_named_in_a_warning():
+    # The direct wave is the earliest arrival (common practice). At 0.3 of a later flat
+    # reflector it is below the default threshold (0.5), so the reflector is picked and every
+    # depth would come out too shallow: a warning names the earlier arrival; a lower
+    # threshold picks it, and then nothing is said.
+    import warnings
+
+    from slicer.core.errors import SlicerWarning
+    t = DT * np.arange(500)
+    rng = np.random.default_rng(6)
+    trace = 0.3 * ricker(t - 10.0, 0.5) + 0.9 * ricker(t - 16.0, 0.5)
+    line = make_line(trace + 0.002 * rng.normal(size=(20, t.size)))
+    with pytest.warns(SlicerWarning, match=r"picked at 16\.0\d ns, but an earlier arrival at "
+                                           r"(9\.9|10\.0|10\.1)\d ns reaches 0\.3"):
+        assert pick_time_zero(line) == pytest.approx(16.0, abs=0.05)
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        assert pick_time_zero(line, threshold=0.2) == pytest.approx(10.0, abs=0.05)
+        assert pick_time_zero(direct_wave_line(3.0)) == pytest.approx(3.0, abs=0.03)
+
+
 def test_correct_time_zero_shifts_axis_only():
     line = direct_wave_line(3.0)
     out = correct_time_zero(line, time_zero=3.0)
