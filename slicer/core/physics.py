@@ -116,6 +116,8 @@ def to_depth(line: xr.DataArray, *, velocity: float) -> xr.DataArray:
     velocity : float
         Radar velocity (m/ns).
     """
+    from slicer.core.line_checks import checked_line
+    checked_line(line, step="to_depth")
     v = check_velocity(velocity)
     depth = depth_from_time(line[TWT].values, velocity=v)
     out = line.rename({TWT: DEPTH}).assign_coords(

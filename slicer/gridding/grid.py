@@ -291,7 +291,7 @@ def trace_frame(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, cell: float,
                       float(radius), s_median, float(max_gap))
 
 
-def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
+def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray, *, cell: float
                  ) -> tuple[scipy.sparse.csr_array, np.ndarray]:
     """Row-normalised weights (cells x traces of ``frame``) and the empty-cell mask.
 
@@ -307,9 +307,11 @@ def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray
     xc, yc : numpy.ndarray
         Cell-centre eastings (ascending) and northings (descending) of a regular block of
         cells, spaced by one cell (m). Rows of the result run over ``(y, x)`` row-major.
+    cell : float
+        The cell edge (m): given, as a block of one cell cannot tell it (one had been taken
+        for 1 m, and a grid's last corner cell gridded with boxes of the wrong size).
     """
     ny, nx = yc.size, xc.size
-    cell = float(xc[1] - xc[0]) if nx > 1 else float(yc[0] - yc[1]) if ny > 1 else 1.0
     x, y, ux, uy = frame.x, frame.y, frame.ux, frame.uy
     col0 = np.rint((x - xc[0]) / cell).astype(np.int64)
     row0 = np.rint((yc[0] - y) / cell).astype(np.int64)
@@ -391,7 +393,7 @@ def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray
     """
     frame = trace_frame(x, y, line, cell=grid.cell, radius=radius, along=along,
                         max_gap=max_gap)
-    matrix, empty = grid_weights(frame, grid.x, grid.y)
+    matrix, empty = grid_weights(frame, grid.x, grid.y, cell=grid.cell)
     return Weights(matrix=matrix, empty=empty, radius=frame.radius, across=frame.line_spacing,
                    along=frame.along, max_gap=frame.max_gap)
 
@@ -406,6 +408,7 @@ class TileJob:
     y: np.ndarray
     frame: TraceFrame
     values: np.ndarray
+    cell: float
 
 
 def grid_tile(job: TileJob) -> tuple[int, int, np.ndarray]:
@@ -414,7 +417,7 @@ def grid_tile(job: TileJob) -> tuple[int, int, np.ndarray]:
     shape = (n_slices, job.y.size, job.x.size)
     if job.frame.x.size == 0:
         return job.row0, job.col0, np.full(shape, np.nan, dtype=np.float32)
-    matrix, empty = grid_weights(job.frame, job.x, job.y)
+    matrix, empty = grid_weights(job.frame, job.x, job.y, cell=job.cell)
     f = job.frame
     weights = Weights(matrix, empty, f.radius, f.line_spacing, f.along, f.max_gap)
     return job.row0, job.col0, weights.apply(job.values).reshape(shape)
@@ -440,7 +443,7 @@ def tile_jobs(grid: Grid, frame: TraceFrame, values: np.ndarray, *, tile: int = 
             near = order[lo:hi]
             near = near[(frame.y[near] >= ys[-1] - margin) & (frame.y[near] <= ys[0] + margin)]
             near.sort()
-            yield TileJob(row0, col0, xc, ys, frame.subset(near), values[near])
+            yield TileJob(row0, col0, xc, ys, frame.subset(near), values[near], grid.cell)
 
 
 def tile_count(grid: Grid, tile: int) -> int:

@@ -124,6 +124,9 @@ def make_windows(top: float, bottom: float, step: float, *, thickness: float | N
     lets ``0:2.4:0.1`` give 24 windows). Depth and time must not be negative: they are counted
     down from the surface (time zero).
     """
+    if axis not in (DEPTH, TWT):
+        raise SettingsError(f"windows are cut along {DEPTH!r} (m) or {TWT!r} (ns), not "
+                            f"{axis!r}", where="axis")
     option = option or ("--depths" if axis == DEPTH else "--times")
     unit = "m" if axis == DEPTH else "ns"
     if step <= 0:
@@ -211,7 +214,13 @@ def _limits_along(line: xr.DataArray, windows: Windows, velocity, separation: fl
                   ) -> tuple[str, np.ndarray, np.ndarray]:
     """The dimension windows are cut along, and the window limits on it."""
     if DEPTH in line.dims:  # already resampled to depth (a layered or lateral model)
+        if windows.axis != DEPTH:
+            raise SettingsError(f"{windows.axis} windows cannot be cut from a line in depth; "
+                                "cut them before the conversion to depth", where="windows")
         return DEPTH, windows.top, windows.bottom
+    if TWT not in line.dims:
+        raise SettingsError(f"windows are cut along a line's 'twt' or 'depth' dim; the line "
+                            f"has dims {tuple(map(str, line.dims))}", where="line")
     return (TWT, *window_limits(windows, velocity, separation=separation))
 
 

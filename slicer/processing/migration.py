@@ -35,6 +35,7 @@ import numpy as np
 
 from slicer.core.conventions import DISTANCE, TRACE, TWT
 from slicer.core.errors import SettingsError, warn
+from slicer.core.line_checks import checked_line
 from slicer.core.physics import check_velocity
 from slicer.processing.fk import phase_shift_core, stolt_core
 from slicer.processing.steps import _add_history
@@ -220,6 +221,7 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
         without ``distance`` or with no sample at or after time zero, or a bad taper or pad.
     """
     import xarray as xr
+    checked_line(line, step="migrate", traces=True)
     dx = trace_spacing(line)
     apply, how, v_const = migration_plan(
         np.asarray(line[TWT].values, dtype=float), dx=dx, velocity=velocity, method=method,

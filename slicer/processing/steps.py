@@ -17,6 +17,7 @@ import scipy.ndimage
 
 from slicer.core.conventions import C_M_PER_NS, TRACE, TWT
 from slicer.core.errors import SettingsError, warn
+from slicer.core.line_checks import checked_line
 from slicer.core.physics import check_separation
 from slicer.processing.background import (
     Background,
@@ -92,6 +93,7 @@ def dominant_frequency(line: xr.DataArray) -> float:
     running mean (sigma a twentieth of the record), and frequencies below four cycles per
     record are ignored, so that the drift cannot be taken for the signal.
     """
+    line = checked_line(line, step="dominant_frequency")
     return dominant_frequency_of(line.values, dt=sample_interval(line), where=_name(line))
 
 
@@ -163,6 +165,7 @@ def pick_time_zero(line: xr.DataArray, *, threshold: float = 0.5) -> float:
     threshold : float
         Fraction (0-1] of the largest absolute amplitude that the direct wave must reach.
     """
+    line = checked_line(line, step="pick_time_zero", traces=True)
     return pick_time_zero_of(line.data, line[TWT].values, mean=line.mean(TRACE).values,
                              threshold=threshold, where=_name(line))
 
@@ -242,6 +245,7 @@ def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",
     separation : float
         Transmitter-receiver separation (m), for a picked time zero.
     """
+    line = checked_line(line, step="correct_time_zero", traces=True)
     twt = line[TWT].values
     t0, how = time_zero_of(line.data, twt, time_zero=time_zero, threshold=threshold,
                            separation=separation,
@@ -310,6 +314,7 @@ def dewow(line: xr.DataArray, *, window_ns: float | None = None) -> xr.DataArray
         (:func:`dominant_frequency`): long enough to leave the wavelet, short enough to follow
         the drift (common practice: one to two periods).
     """
+    checked_line(line, step="dewow")
     dt = sample_interval(line)
     size = _wow_window(line, dt, window_ns)
     return _per_trace(_dewow_core, line, f"dewow {size * dt:.2f} ns", size=size)
@@ -335,6 +340,7 @@ def remove_background(line: xr.DataArray, *, method: str | Background = "scaled"
     import xarray as xr
     # Not NaN-aware: readers have set non-finite samples to 0, and NaN-aware medians loop in
     # Python over every sample (a third of a build's time when it was used)
+    checked_line(line, step="remove_background", traces=True)
     spec = _check_background(method)
     data = line.chunk({TRACE: -1, TWT: -1}) if line.chunks is not None else line
     sample_interval(line)  # at least two samples
@@ -377,6 +383,7 @@ def apply_gain(line: xr.DataArray, *, kind: str = "power", value: float = 1.0) -
     """
     if not math.isfinite(value) or value < 0:
         raise SettingsError(f"gain value must be finite and >= 0, got {value:g}", where="--gain")
+    checked_line(line, step="apply_gain")
     factor = gain_curve(line[TWT].values, kind=kind, value=value)
     return _per_trace(gain_core, line, f"gain {kind} {value:g}", factor=factor)
 
@@ -390,6 +397,7 @@ def envelope(line: xr.DataArray) -> xr.DataArray:
     Sheriff 1979, Geophysics 44:1041-1063), formed from :func:`scipy.fft.fft` of the
     zero-padded trace in single precision, as :func:`scipy.signal.hilbert` forms it.
     """
+    checked_line(line, step="envelope")
     out = _per_trace(_envelope_core, line, "envelope")
     out.name = "envelope"
     return out
@@ -494,6 +502,7 @@ def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,
         End with the envelope (named ``envelope``).
     """
     import xarray as xr
+    checked_line(line, step="process_chain", traces=True)
     core, steps = chain_plan(line.data, line[TWT].values, dewow_ns=dewow_ns,
                              background=background, gain=gain, take_envelope=take_envelope)
     if line.chunks is None and line.dims == (TRACE, TWT):  # the build's case: one array

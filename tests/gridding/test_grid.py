@@ -146,6 +146,34 @@ def test_tiles_give_the_same_grid_as_one_pass():
     np.testing.assert_allclose(tiled, whole, rtol=1e-6, atol=1e-7)
 
 
+def test_a_corner_tile_of_one_cell_grids_like_one_pass():
+    # A tile of one cell cannot tell the cell size from its coordinates; the grid's corner cell
+    # came out of a one-cell tile gridded as if cells were 1 m (cells over 1 m then missed
+    # traces; a 1e6 m cell asked for terabytes). Reference: the same grid in one pass
+    # (neighbour_weights), cells 1.25 m.
+    import dataclasses
+
+    from slicer.gridding.grid import Grid, grid_tile, tile_jobs, trace_frame
+    x, y, ids = parallel_lines(n_lines=9)
+    values = np.column_stack([np.sin(x - 512000), np.cos(y - 4650000)])
+    g = grid_for(x, y, cell=1.25)  # coarser than the 1 m taken
+    t = 2
+    g = dataclasses.replace(g, nx=(g.nx // t - 1) * t + 1, ny=(g.ny // t - 1) * t + 1)
+    assert isinstance(g, Grid) and g.nx % t == 1 and g.ny % t == 1
+    whole = neighbour_weights(g, x, y, ids).apply(values).reshape(2, g.ny, g.nx)
+    assert np.isfinite(whole[:, -1, -1]).all()  # the corner cell has traces near it
+    tiled = np.full_like(whole, -999.0)
+    for job in tile_jobs(g, trace_frame(x, y, ids, cell=g.cell), values, tile=t):
+        r, c, block = grid_tile(job)
+        tiled[:, r:r + block.shape[1], c:c + block.shape[2]] = block
+    np.testing.assert_allclose(tiled, whole, rtol=1e-6, atol=1e-7)
+    # one cell of 1000 km: every trace in it, equal values average to themselves (the 1 m
+    # taken had asked for a 10 TiB array)
+    huge = grid_for(x, y, cell=1e6)
+    out = neighbour_weights(huge, x, y, ids).apply(np.full((x.size, 1), 2.5))
+    assert (huge.nx, huge.ny) == (1, 1) and out.ravel().tolist() == [2.5]
+
+
 # --- the grid's size is counted before it is laid out ------------------------------------------
 
 
