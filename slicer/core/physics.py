@@ -14,13 +14,19 @@ if TYPE_CHECKING:  # xarray costs ~0.4 s to import; the quick commands need none
     import xarray as xr
 
 
+#: Slowest velocity taken (m/ns): relative permittivity 900, ten times water's 81 (the
+#: highest of natural materials, from memory), so only a unit slip is refused.
+MIN_VELOCITY = 0.01
+
+
 def check_velocity(velocity: float, *, where: str = "--velocity") -> float:
     """Return ``velocity`` (m/ns) as a float if it is physically possible in ground.
 
     Raises
     ------
     SettingsError
-        If it is not finite, not positive, or not below the speed of light (0.2998 m/ns).
+        If it is not finite, below :data:`MIN_VELOCITY` (0.01 m/ns), or not below the speed
+        of light (0.2998 m/ns).
     """
     try:
         v = float(velocity)
@@ -29,6 +35,10 @@ def check_velocity(velocity: float, *, where: str = "--velocity") -> float:
                             where=where) from None
     if not math.isfinite(v) or v <= 0:
         raise SettingsError(f"velocity must be positive, got {v:g} m/ns", where=where)
+    if v < MIN_VELOCITY:
+        raise SettingsError(
+            f"velocity {v:g} m/ns is slower than radar waves travel in any ground (water, "
+            f"relative permittivity 81, is {C_M_PER_NS / 9:.3f}); give m/ns", where=where)
     if v >= C_M_PER_NS:
         raise SettingsError(
             f"velocity {v:g} m/ns is not below the speed of light ({C_M_PER_NS:.4f} m/ns); "

@@ -40,6 +40,10 @@ def _vertices(points) -> np.ndarray:
     return p
 
 
+#: Samples a section may have along its path (a 1e-9 m spacing had asked for 21 GB).
+MAX_SAMPLES = 100_000
+
+
 def section(cube: xr.DataArray, points, *, spacing: float | None = None) -> xr.DataArray:
     """Cut a vertical section through ``cube`` along the polyline ``points``.
 
@@ -73,6 +77,11 @@ def section(cube: xr.DataArray, points, *, spacing: float | None = None) -> xr.D
     if not (math.isfinite(step) and step > 0):
         raise SettingsError(f"must be a positive number of metres, got {spacing!r}",
                             where="spacing")
+    total = float(np.sum(np.hypot(*np.diff(p, axis=0).T)))
+    if total / step > MAX_SAMPLES:  # each sample a column of the picture: the cells are plenty
+        raise SettingsError(f"{step:g} m along a {total:.4g} m path is {total / step:.3g} "
+                            f"samples, more than {MAX_SAMPLES:,}; choose at least "
+                            f"{total / MAX_SAMPLES:.3g} m", where="spacing")
     xs, ys, ds = [], [], []
     start = 0.0
     for (x0, y0), (x1, y1) in zip(p[:-1], p[1:], strict=True):

@@ -93,6 +93,9 @@ class GridLayout:
     @classmethod
     def of(cls, table: xr.DataArray, *, cell: float | None, radius: float | None,
            max_gap: float | None = None, tile: int = TILE) -> GridLayout:
+        if not (isinstance(tile, int | np.integer) and not isinstance(tile, bool) and tile >= 1):
+            raise SettingsError(f"the tile edge must be a whole number of cells, at least 1; got "
+                                f"{tile!r}", where="tile")
         x, y, line = table["x"].values, table["y"].values, table["line"].values
         cell = default_cell(x, y, line) if cell is None else cell
         grid = grid_for(x, y, cell=cell)

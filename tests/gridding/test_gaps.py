@@ -387,3 +387,6 @@ def test_grid_slices_passes_max_gap_on():
     assert np.isnan(float(mid))
     mid_b = bridged.isel(depth=0).sel(y=1.55, x=1.05, method="nearest")
     assert float(mid_b) == pytest.approx(0.45 * c[2] + 0.55 * c[3], abs=1e-5)
+    for tile in (0, -5, 2.5, True):  # a tile of no cells had given a cube of NaN, or 1 / 0
+        with pytest.raises(slicer.SettingsError, match="tile edge must be a whole number"):
+            slicer.grid_slices(table, cell=0.1, tile=tile, progress=False)

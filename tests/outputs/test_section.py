@@ -88,6 +88,8 @@ def test_gaps_stay_gaps():
     ([(WEST + 1, NORTH - 1), (WEST + 1, NORTH - 1)], None, "the same"),
     ([(WEST + 1, NORTH - 1), (math.nan, NORTH - 1)], None, "finite"),
     ([(WEST + 1, NORTH - 1), (WEST + 2, NORTH - 1)], 0.0, "positive"),
+    # 1 m at 1e-9 m is 1e9 samples (21 GB had been asked for): refused, naming the least
+    ([(WEST + 1, NORTH - 1), (WEST + 2, NORTH - 1)], 1e-9, "choose at least 1e-05 m"),
     ([(0.0, 0.0), (1.0, 1.0)], None, "misses"),
     ("abc", None, "points"),
 ])
