@@ -119,7 +119,8 @@ def process_before(line, settings, dewow_ns):
     from unittest import mock
 
     from slicer.pipeline.line_chain import process_line
-    with mock.patch("slicer.processing.steps._remove_baseline", _old_remove_baseline):
+    with (mock.patch("slicer.processing.trace_basics.remove_baseline", _old_remove_baseline),
+          mock.patch("slicer.processing.time_zero.remove_baseline", _old_remove_baseline)):
         return process_line(line, settings, dewow_ns=dewow_ns)
 
 

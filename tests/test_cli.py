@@ -195,7 +195,7 @@ def _netcdf_survey(survey, tmp_path, *, interval=None, samples=None):
         if k == 1 and interval is not None:
             line = line.assign_coords(twt=line["twt"] * interval / 0.1)
             line.attrs["sample_interval_ns"] = interval
-        write_line_netcdf(tmp_path / f"{name}.nc", line)
+        write_line_netcdf(tmp_path / f"{name}.nc", line, overwrite=True)
         rows.append(f"{name}.nc,512000,{4650000 + 0.5 * k},512004,{4650000 + 0.5 * k}")
     (tmp_path / "nc.csv").write_text("\n".join(rows) + "\n")
     return tmp_path / "nc.csv"

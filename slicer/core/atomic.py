@@ -103,7 +103,7 @@ def temp_folder(parent: str | os.PathLike, *, prefix: str, suffix: str = "") -> 
 
 
 @contextlib.contextmanager
-def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
+def atomic_path(path: str | os.PathLike, *, overwrite: bool = True) -> Iterator[Path]:
     """Yield a temporary path beside ``path``; rename it to ``path`` if the block succeeds.
 
     The temporary file keeps the final suffix (GDAL and matplotlib choose a format from it)
@@ -114,21 +114,58 @@ def atomic_path(path: str | os.PathLike) -> Iterator[Path]:
     ----------
     path : path-like
         The final file name.
+    overwrite : bool
+        Replace a file already at ``path``. When false an existing file is refused before the
+        block runs (:func:`refuse_existing`), and the result is put in place by a hard link,
+        which fails rather than replace a file that appeared meanwhile.
+
+    Raises
+    ------
+    OutputError
+        ``overwrite`` is false and ``path`` exists.
     """
-    path = Path(path)
+    path = refuse_existing(path, overwrite=overwrite)
     tmp_path = temp_file(path.parent, prefix=f".{path.stem}.", suffix=f".tmp{path.suffix}")
     try:
         yield tmp_path
-        os.replace(tmp_path, path)
+        if overwrite:
+            os.replace(tmp_path, path)
+        else:
+            _put_new(tmp_path, path)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
             tmp_path.unlink()
         raise
 
 
-def atomic_write_text(path: str | os.PathLike, text: str) -> Path:
-    """Write ``text`` (UTF-8) to ``path`` atomically and return the path."""
-    with atomic_path(path) as tmp:
+def refuse_existing(path: str | os.PathLike, *, overwrite: bool) -> Path:
+    """``path`` as a Path; an OutputError if something is there and ``overwrite`` is false
+    (nothing on disk is replaced without the caller asking)."""
+    path = Path(path)
+    if not overwrite and (path.exists() or path.is_symlink()):
+        raise OutputError("already exists (pass overwrite=True to replace it)",
+                          where=str(path))
+    return path
+
+
+def _put_new(tmp_path: Path, path: Path) -> None:
+    """Move ``tmp_path`` to ``path`` only if nothing is there (a link cannot clobber)."""
+    try:
+        os.link(tmp_path, path)
+    except FileExistsError:
+        raise OutputError("already exists (pass overwrite=True to replace it)",
+                          where=str(path)) from None
+    except OSError:  # a file system without hard links: the check before the work stands
+        refuse_existing(path, overwrite=False)
+        os.replace(tmp_path, path)
+        return
+    tmp_path.unlink()
+
+
+def atomic_write_text(path: str | os.PathLike, text: str, *, overwrite: bool = True) -> Path:
+    """Write ``text`` (UTF-8) to ``path`` atomically and return the path (``overwrite``: see
+    :func:`atomic_path`)."""
+    with atomic_path(path, overwrite=overwrite) as tmp:
         tmp.write_text(text, encoding="utf-8")
     return Path(path)
 

@@ -58,7 +58,6 @@ import re
 import secrets
 import shutil
 from collections.abc import Callable, Iterable
-from fnmatch import fnmatchcase
 from pathlib import Path, PurePosixPath
 
 from slicer.core.atomic import (
@@ -70,8 +69,8 @@ from slicer.core.atomic import (
     prepare_output_dir,
     take_group,
     unlock,
-    writable,
 )
+from slicer.core.commit_checks import check_inputs, check_place, check_taken, covered
 from slicer.core.errors import OutputError, SlicerError, warn
 
 #: The record of a build, kept in its output folder; lists the build's outputs.
@@ -136,12 +135,6 @@ def owned_entries(record: dict | None) -> set[str]:
     return owned
 
 
-def _covered(rel: str, entries: set[str]) -> bool:
-    """``rel`` is one of ``entries`` or lies inside one of them."""
-    p = PurePosixPath(rel)
-    return any(str(q) in entries for q in (p, *list(p.parents)[:-1]))
-
-
 def _record_id(folder: Path) -> str | None:
     with contextlib.suppress(OSError, ValueError, OutputError):
         record = read_record(folder)
@@ -192,7 +185,7 @@ def _remove_owned(old: Path, owned: set[str], kept: list[str]) -> None:
     keep = set(kept)
     for folder, _, _ in os.walk(old, topdown=False):
         r = "" if Path(folder) == old else Path(folder).relative_to(old).as_posix()
-        if r and (_covered(r, keep) or any(k.startswith(r + "/") for k in keep)):
+        if r and (covered(r, keep) or any(k.startswith(r + "/") for k in keep)):
             continue
         with contextlib.suppress(OSError):
             os.rmdir(folder)  # only when empty
@@ -316,61 +309,16 @@ class OutputFolder:
         target = self.target
         prepare_output_dir(self.given, overwrite=True, create=False)  # not a file, nor in one
         if target.is_dir():
-            self._check_place()
+            check_place(target, self.given)
         #: The stage: the folder beside ``out`` that the build writes into.
         self.path = sibling(target, "new", self.build_id)
         recover(target)
         prepare_output_dir(self.given, overwrite=overwrite, create=False)  # empty, or overwrite
         self._owned = owned_entries(read_record(target)) if target.is_dir() else set()
-        self._check_inputs(inputs)
+        check_inputs(target, inputs, owned=self._owned, names=self.names)
         fixed = [n for n in self.names if not any(c in n for c in "*?[")]
         folders = {str(PurePosixPath(n).parent) for n in self.names if n not in fixed}
-        self._check_taken(fixed, folders - {"."})
-
-    def _check_place(self) -> None:
-        target, where = self.target, str(self.given)
-        if not writable(target):  # the build would replace it all the same: say so instead
-            raise OutputError("is read-only; make it writable to build into it, or choose "
-                              "another --out", where=where)
-        if os.path.ismount(target):
-            raise OutputError("is a mount point; slicer builds beside the output folder and "
-                              "switches it in whole, so give a folder inside it", where=where)
-        try:
-            cwd = Path(os.path.realpath(os.getcwd()))
-        except OSError:  # the current folder was deleted: it is not in the output folder
-            return
-        if cwd == target or target in cwd.parents:
-            raise OutputError("holds the current folder, which the finished build replaces; "
-                              "run slicer from another folder", where=where)
-
-    def _check_inputs(self, inputs) -> None:
-        for given in inputs:
-            path = Path(os.path.realpath(given))
-            if self.target not in path.parents:
-                continue
-            rel = path.relative_to(self.target).as_posix()
-            parts = [str(p) for p in (PurePosixPath(rel), *list(PurePosixPath(rel).parents)[:-1])]
-            if _covered(rel, self._owned) or any(fnmatchcase(p, n) for p in parts
-                                                  for n in self.names):
-                raise OutputError("is an input of this build and lies where its outputs go; "
-                                  "move it out of the output folder or choose another --out",
-                                  where=str(given))
-
-    def _check_taken(self, rels: Iterable[str], folders: Iterable[str] = ()) -> None:
-        """Refuse if the output folder holds, at one of ``rels``, something the earlier build
-        did not write, or anything but a folder at one of ``folders`` or their parents."""
-        checks = [(PurePosixPath(r), True) for r in rels]
-        checks += [(PurePosixPath(f), False) for f in folders]
-        for p, whole in checks:
-            for part in [*reversed(list(p.parents)[:-1]), p]:
-                path = self.target / part
-                if not os.path.lexists(path) or _covered(part.as_posix(), self._owned):
-                    continue
-                if (whole and part == p) or path.is_symlink() or not path.is_dir():
-                    raise OutputError("was not written by slicer (the folder's record.json does "
-                                      "not list it), and an output of this build would replace "
-                                      "it; move it away or choose another --out",
-                                      where=str(path))
+        check_taken(target, fixed, folders - {"."}, owned=self._owned)
 
     def __enter__(self) -> OutputFolder:
         parent = self.target.parent
@@ -438,7 +386,7 @@ class OutputFolder:
             raise OutputError(f"the build folder is {self._state}, not staged",
                               where=str(self.path))
         outputs = [PurePosixPath(o).as_posix() for o in outputs]
-        self._check_taken([*outputs, RECORD])
+        check_taken(self.target, [*outputs, RECORD], owned=self._owned)
         self._sweep(outputs)
         record["outputs"] = outputs
         record["build_id"] = self.build_id

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from slicer.core.atomic import atomic_path
+from slicer.core.atomic import atomic_path, refuse_existing
 from slicer.core.conventions import TRACE, TWT, UNITS
 from slicer.core.errors import InputFileError
 from slicer.io.lines import (
@@ -51,7 +51,8 @@ _ATTR_RTOL = 1e-3
 _NETCDF_ERRORS = (OSError, ValueError, KeyError, RuntimeError, TypeError)
 
 
-def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray) -> Path:
+def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray, *,
+                      overwrite: bool = False) -> Path:
     """Write a line as a slicer NetCDF line file, atomically.
 
     Parameters
@@ -61,6 +62,9 @@ def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray) -> Path:
     line : xarray.DataArray
         A Line, dims ``(trace, twt)``; ``twt`` in ns. Per-trace ``x``/``y`` (or, for a line
         not yet placed, ``header_x``/``header_y``) are stored as ``x``/``y`` (m).
+    overwrite : bool
+        Replace an existing file of that name; without it the file is refused (OutputError)
+        and left as it was.
 
     Returns
     -------
@@ -70,9 +74,10 @@ def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray) -> Path:
     Raises
     ------
     OutputError
-        A line with wrong dims, no samples or no sample interval.
+        A line with wrong dims, no samples or no sample interval; an existing ``path``
+        without ``overwrite``.
     """
-    path = Path(path)
+    path = refuse_existing(path, overwrite=overwrite)
     where = str(path)
     _check_line(line, where)
     line = line.transpose(TRACE, TWT)
@@ -99,7 +104,7 @@ def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray) -> Path:
     # Merge, never replace, a variable's encoding (stack-notes trap 6).
     encoding = {"amplitude": {**ds["amplitude"].encoding, "zlib": True, "complevel": 4,
                               "dtype": "float32"}}
-    with atomic_path(path) as tmp:
+    with atomic_path(path, overwrite=overwrite) as tmp:
         ds.to_netcdf(tmp, engine=_ENGINE, encoding=encoding)
     return path
 

@@ -24,7 +24,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import segyio
 
-from slicer.core.atomic import atomic_path
+from slicer.core.atomic import atomic_path, refuse_existing
 from slicer.core.conventions import TRACE, TWT
 from slicer.core.errors import InputFileError, OutputError, SettingsError, warn
 from slicer.io.lines import (
@@ -282,7 +282,7 @@ def _header_coordinates(f: segyio.SegyFile,
 
 
 def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code: int = 5,
-                    coordinate_scalar: int = -100) -> Path:
+                    coordinate_scalar: int = -100, overwrite: bool = False) -> Path:
     """Write a line as SEG-Y rev 2.0, atomically.
 
     The sample interval goes into the rev 2 extended interval (bytes 3273-3280, microseconds);
@@ -306,6 +306,9 @@ def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code:
     coordinate_scalar : int
         SEG-Y coordinate scalar (bytes 71-72): negative divides, positive multiplies. -100
         (centimetres) keeps UTM northings within the 32-bit fields; -1000 would overflow them.
+    overwrite : bool
+        Replace an existing file of that name; without it the file is refused (OutputError)
+        and left as it was.
 
     Returns
     -------
@@ -320,7 +323,7 @@ def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code:
         A line that cannot be stored: wrong dims, empty, no interval, non-finite coordinates,
         coordinates overflowing 32 bits, or non-finite amplitudes in an integer format.
     """
-    path = Path(path)
+    path = refuse_existing(path, overwrite=overwrite)
     where = str(path)
     if format_code not in _WRITE_FORMATS:
         raise SettingsError(f"SEG-Y format code must be one of {sorted(_WRITE_FORMATS)}, got "
@@ -350,7 +353,7 @@ def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code:
     # Any spacing: segyio stores int(microseconds), which is 0 for every radar interval, and the
     # real interval is patched in afterwards.
     spec.samples = np.zeros(n_samples)
-    with atomic_path(path) as tmp:
+    with atomic_path(path, overwrite=overwrite) as tmp:
         with segyio.create(str(tmp), spec) as f:
             f.text[0] = _text_header(line, interval_ns, n_traces, n_samples)
             # One trace per ensemble (each trace its own CDP); no auxiliary traces.

@@ -20,7 +20,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 from affine import Affine
 
-from slicer.core.atomic import GuardedFile, atomic_path
+from slicer.core.atomic import GuardedFile, atomic_path, refuse_existing
 from slicer.core.conventions import C_M_PER_NS, DEPTH, ELEVATION, TWT, UNITS, X, Y
 from slicer.core.errors import InputFileError, OutputError, SettingsError
 from slicer.outputs import cf
@@ -361,7 +361,8 @@ def _write_netcdf(cube: xr.DataArray, target: Path, *, title: str | None,
 
 def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
                       title: str | None = None, source: str | None = None,
-                      history: str | None = None, complevel: int = 4) -> Path:
+                      history: str | None = None, complevel: int = 4,
+                      overwrite: bool = False) -> Path:
     """Write ``cube`` to a CF-1.8 NetCDF-4 file, atomically.
 
     Slice window bounds go into a ``<axis>_bnds`` variable (CF 1.8 section 7.1) besides the
@@ -380,6 +381,9 @@ def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
         Global attributes; sensible defaults are written when omitted.
     complevel : int
         zlib compression level, 1-9.
+    overwrite : bool
+        Replace an existing file of that name; without it the file is refused (OutputError)
+        and left as it was.
 
     Returns
     -------
@@ -389,13 +393,14 @@ def write_cube_netcdf(cube: xr.DataArray, path: str | os.PathLike, *,
     Raises
     ------
     OutputError
-        If the file cannot be written; an existing file of that name is then left as it was.
+        If the file cannot be written, or exists and ``overwrite`` is false; an existing file
+        of that name is then left as it was.
     """
     slice_axis(cube)
     cube = aligned(cube)
-    path = Path(path)
+    path = refuse_existing(path, overwrite=overwrite)
     try:
-        with atomic_path(path) as tmp:
+        with atomic_path(path, overwrite=overwrite) as tmp:
             _write_netcdf(cube, tmp, title=title, source=source, history=history,
                           complevel=complevel)
     except OSError as exc:

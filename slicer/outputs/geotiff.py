@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from slicer.core.atomic import temp_file
+from slicer.core.atomic import refuse_existing, temp_file
 from slicer.core.conventions import DEPTH, ELEVATION, TWT, UNITS
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
@@ -438,12 +438,13 @@ def tile_windows(shape: tuple[int, ...], tile: int):
 
 def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
                          tags: Mapping[str, object] | None = None,
-                         progress: bool = True) -> list[Path]:
+                         progress: bool = True, overwrite: bool = False) -> list[Path]:
     """Write every slice of ``cube`` to its own GeoTIFF in ``folder``.
 
     Files are named by :func:`slice_file_name`; they are written under temporary names and
     renamed only when all are complete (:class:`SliceTiffWriter`), so existing files of the
-    same name are replaced whole or not at all; nothing else in ``folder`` is touched.
+    same name (replaced only with ``overwrite``) are replaced whole or not at all; nothing
+    else in ``folder`` is touched.
 
     Each file carries GDAL metadata tags ``DEPTH_TOP``/``DEPTH_BOTTOM`` (m) and
     ``VELOCITY_M_PER_NS`` for depth slices, ``TWT_TOP``/``TWT_BOTTOM`` (ns) for time slices, or
@@ -464,6 +465,9 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
         ``"; "``).
     progress : bool
         Show a tqdm progress bar.
+    overwrite : bool
+        Replace slice files of the same names; without it they are refused (OutputError)
+        before anything is written.
 
     Returns
     -------
@@ -473,11 +477,14 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
     Raises
     ------
     OutputError
-        If ``folder`` is a file or cannot be created or written.
+        If ``folder`` is a file or cannot be created or written, or holds a file of a slice's
+        name and ``overwrite`` is false.
     """
     axis = slice_axis(cube)
     data = cube.data
     with SliceTiffWriter(cube, folder, tags=tags, tile=TILE, deferred=True) as writer:
+        for path in writer.paths:
+            refuse_existing(path, overwrite=overwrite)
         for i in progress_bar(range(cube.shape[0]), desc=f"GeoTIFF {axis} slices",
                               unit="slice", enabled=progress):
             writer.write_slice(i, np.asarray(data[i]))  # one slice in memory at a time

@@ -215,9 +215,11 @@ _PATCH_FIELDS = ("slice", "top", "bottom", "area_m2", "peak", "mean", "contrast"
 _BODY_FIELDS = ("body", "top", "bottom", "slices", "area_m2", "volume_m3", "peak")
 
 
-def write_outlines(outlines: Outlines, path: str | os.PathLike) -> Path:
+def write_outlines(outlines: Outlines, path: str | os.PathLike, *,
+                   overwrite: bool = False) -> Path:
     """Write the outlines as a GeoPackage with layers ``outlines`` and ``bodies``
-    (:func:`slicer.outputs.vector.write_geopackage`: atomic, the user's file modes)."""
+    (:func:`slicer.outputs.vector.write_geopackage`: atomic, the user's file modes; an
+    existing ``path`` is replaced only with ``overwrite``, OutputError otherwise)."""
     from slicer.outputs.vector import Layer, write_geopackage
     layers = []
     for name, rows, fields in (("outlines", outlines.patches, _PATCH_FIELDS),
@@ -226,7 +228,7 @@ def write_outlines(outlines: Outlines, path: str | os.PathLike) -> Path:
                             dtype=np.int32 if f in ("slice", "body", "slices") else np.float64)
                 for f in fields}
         layers.append(Layer(name, "MultiPolygon", [r["geometry"] for r in rows], data))
-    return write_geopackage(path, layers, crs=outlines.crs)
+    return write_geopackage(path, layers, crs=outlines.crs, overwrite=overwrite)
 
 
 __all__ = ["Outlines", "anomaly_mask", "outline", "write_outlines"]

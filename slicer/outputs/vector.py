@@ -15,7 +15,7 @@ from pathlib import Path
 
 import numpy as np
 
-from slicer.core.atomic import atomic_path, file_mode
+from slicer.core.atomic import atomic_path, file_mode, refuse_existing
 from slicer.core.errors import OutputError
 
 
@@ -44,20 +44,22 @@ def geopackage_path(path: str | os.PathLike) -> Path:
     return path
 
 
-def write_geopackage(path: str | os.PathLike, layers: list[Layer], *, crs=None) -> Path:
+def write_geopackage(path: str | os.PathLike, layers: list[Layer], *, crs=None,
+                     overwrite: bool = False) -> Path:
     """Write ``layers`` to the GeoPackage ``path`` (ending in ``.gpkg``) in ``crs`` (anything
     pyproj reads, or None).
 
     Polygons are written as MultiPolygons when the layer's type says so (GeoPackage readers
-    expect one geometry type per layer).
+    expect one geometry type per layer). An existing ``path`` is replaced only with
+    ``overwrite`` (OutputError otherwise).
     """
     import pyogrio.raw
     import pyproj
     import shapely
-    path = geopackage_path(path)
+    path = refuse_existing(geopackage_path(path), overwrite=overwrite)
     wkt = pyproj.CRS.from_user_input(crs).to_wkt() if crs is not None else None
     try:
-        with atomic_path(path) as tmp:
+        with atomic_path(path, overwrite=overwrite) as tmp:
             tmp = Path(tmp)
             tmp.unlink()  # GDAL creates the GeoPackage itself (an empty file is no GeoPackage)
             for k, layer in enumerate(layers):

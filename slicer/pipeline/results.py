@@ -99,7 +99,7 @@ def outline_build(out: str | os.PathLike, path: str | os.PathLike, *, threshold:
     _free(path, overwrite)
     found = outline(open_build(out), threshold=threshold, min_area=min_area,
                     fraction=fraction, floor=floor)
-    write_outlines(found, path)
+    write_outlines(found, path, overwrite=overwrite)
     return (f"{len(found.patches)} outlines in {len({p['slice'] for p in found.patches})} "
             f"slices, {len(found.bodies)} bodies; wrote {path}")
 

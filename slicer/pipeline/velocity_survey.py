@@ -229,12 +229,15 @@ def write_velocity_outputs(analysis: VelocityAnalysis, out: str | os.PathLike, *
     ``score``, ``kept`` 1 or 0, ``shape``, ``reason``), for a GIS beside the slices.
     """
     out = prepare_output_dir(out, overwrite=overwrite)
-    write_picks(analysis, out / "picks.gpkg")
-    return write_velocity_model(out / "velocity.toml", analysis.model())
+    # the folder was emptied or the user gave overwrite: the files it holds may be replaced
+    write_picks(analysis, out / "picks.gpkg", overwrite=True)
+    return write_velocity_model(out / "velocity.toml", analysis.model(), overwrite=True)
 
 
-def write_picks(analysis: VelocityAnalysis, path: str | os.PathLike) -> Path:
-    """The fits as a point layer ``picks`` of a GeoPackage (see :func:`write_velocity_outputs`)."""
+def write_picks(analysis: VelocityAnalysis, path: str | os.PathLike, *,
+                overwrite: bool = False) -> Path:
+    """The fits as a point layer ``picks`` of a GeoPackage (see :func:`write_velocity_outputs`);
+    an existing ``path`` is replaced only with ``overwrite``."""
     import shapely
 
     from slicer.outputs.vector import Layer, write_geopackage
@@ -250,4 +253,5 @@ def write_picks(analysis: VelocityAnalysis, path: str | os.PathLike) -> Path:
         "shape": np.array([str(r["shape"]) for r in rows], dtype=object),
         "reason": np.array([str(r["reason"] or "") for r in rows], dtype=object)}
     points = [shapely.Point(r["x"], r["y"]) for r in rows]
-    return write_geopackage(path, [Layer("picks", "Point", points, fields)], crs=analysis.crs)
+    return write_geopackage(path, [Layer("picks", "Point", points, fields)], crs=analysis.crs,
+                            overwrite=overwrite)

@@ -98,7 +98,7 @@ def band_columns(spectrum: np.ndarray, *, nt: int, ntp: int, dt: float,
     build gives the survey's, so that every line migrates the same band and shares one Stolt
     operator), else the peak of the mean amplitude spectrum of every fourth trace, ignoring
     frequencies below four cycles per record (as
-    :func:`slicer.processing.steps.dominant_frequency`). Rounded up to a multiple of 16.
+    :func:`slicer.processing.trace_basics.dominant_frequency`). Rounded up to a multiple of 16.
     All of them when ``band`` is None.
     """
     nw = spectrum.shape[-1]

@@ -38,7 +38,7 @@ from slicer.core.errors import SettingsError, warn
 from slicer.core.line_checks import checked_line
 from slicer.core.physics import check_velocity
 from slicer.processing.fk import phase_shift_core, stolt_core
-from slicer.processing.steps import _add_history
+from slicer.processing.trace_basics import add_history
 
 if TYPE_CHECKING:
     import xarray as xr
@@ -239,7 +239,7 @@ def migrate(line: xr.DataArray, *, velocity, method: str = "stolt", layer_tops=N
     if v_const is not None:
         attrs["migration_velocity"] = v_const
     out.attrs = attrs
-    return _add_history(out, how)
+    return add_history(out, how)
 
 
 def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt",

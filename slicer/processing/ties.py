@@ -13,7 +13,7 @@ Sign conventions, used everywhere below:
 
 * ``shift_ns`` of a tie is the time of an event on ``line_b`` minus its time on ``line_a``;
 * a line's ``time_zero_ns`` correction ``d`` is a further time zero to subtract, as
-  :func:`slicer.processing.steps.correct_time_zero` does (``twt -> twt - d``), so the network asks
+  :func:`slicer.correct_time_zero` does (``twt -> twt - d``), so the network asks
   ``d_b - d_a = shift_ns``;
 * ``log_ratio`` of a tie is ``ln(rms_b / rms_a)``; a line's ``log_gain`` ``g`` multiplies its
   amplitudes by ``exp(g)``, so the network asks ``g_a - g_b = log_ratio``.
@@ -153,7 +153,7 @@ def measure_ties(lines: Sequence[xr.DataArray], crossings: xr.Dataset, *,
         From :func:`find_crossings`.
     max_shift_ns : float, optional
         Largest shift searched (ns). Default one period of the dominant frequency of
-        ``line_a`` near the crossing (:func:`slicer.processing.steps.dominant_frequency`): further
+        ``line_a`` near the crossing (:func:`slicer.dominant_frequency`): further
         than that the correlation may skip a cycle.
     window : (float, float), optional
         Two-way time gate ``[start, end)`` (ns on ``line_a``'s axis) compared, e.g. below the
@@ -338,7 +338,7 @@ def apply_ties(lines: Sequence[xr.DataArray], solution: xr.Dataset) -> list[xr.D
 
     Time zero is a coordinate shift in this project (no resampling): ``twt`` becomes
     ``twt - time_zero_ns`` and ``attrs["time_zero_ns"]`` grows by it, as in
-    :func:`slicer.processing.steps.correct_time_zero`; amplitudes are multiplied by ``gain``. The
+    :func:`slicer.correct_time_zero`; amplitudes are multiplied by ``gain``. The
     step is recorded in ``attrs["history"]``. A line the solution does not know is returned
     unchanged (warning).
 
@@ -373,7 +373,7 @@ def apply_ties(lines: Sequence[xr.DataArray], solution: xr.Dataset) -> list[xr.D
 def correct_line(line: xr.DataArray, time_zero_ns: float, gain: float) -> xr.DataArray:
     """One line's tie correction: ``twt -> twt - time_zero_ns`` and amplitudes times ``gain``.
 
-    As :func:`slicer.processing.steps.correct_time_zero` does, the shift moves the ``twt``
+    As :func:`slicer.correct_time_zero` does, the shift moves the ``twt``
     coordinate (no resampling) and adds to ``attrs["time_zero_ns"]``; the step goes into
     ``attrs["history"]``.
     """

@@ -314,7 +314,7 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
         the direct wave.
     frequency_ghz : float, optional
         Dominant frequency of the record, GHz; default
-        :func:`~slicer.processing.steps.dominant_frequency` of the line.
+        :func:`~slicer.processing.trace_basics.dominant_frequency` of the line.
     radius : bool or "auto"
         ``False``: fit points; ``True``: fit the round-target form (radius as well; antennas
         together); ``"auto"``: fit the point form and the form with a free time offset (which

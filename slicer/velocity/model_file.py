@@ -165,8 +165,9 @@ def read_velocity_model(path) -> VelocityModel:
     return velocity_model_from_mapping(data, where=str(path))
 
 
-def write_velocity_model(path, model: VelocityModel) -> Path:
+def write_velocity_model(path, model: VelocityModel, *, overwrite: bool = False) -> Path:
     """Write ``model`` in the file form (atomically); :func:`read_velocity_model` reads it back.
+    An existing ``path`` is replaced only with ``overwrite`` (OutputError otherwise).
 
     Layers are written by top time with interval velocities (exact), the depth of each top in
     the header comment. The TOML is written by tomli-w, which escapes any text a note holds.
@@ -199,4 +200,5 @@ def write_velocity_model(path, model: VelocityModel) -> Path:
         raise SettingsError(f"cannot write a {type(model).__name__}", where=str(path))
     if model.note:
         doc = {"kind": doc.pop("kind"), "note": str(model.note), **doc}
-    return atomic_write_text(path, "\n".join(header) + "\n" + tomli_w.dumps(doc))
+    return atomic_write_text(path, "\n".join(header) + "\n" + tomli_w.dumps(doc),
+                             overwrite=overwrite)

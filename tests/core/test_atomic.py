@@ -122,3 +122,19 @@ def test_check_room_refuses_more_than_the_disk_holds(tmp_path):
     with pytest.raises(OutputError, match="the disk is full") as info:
         check_room(tmp_path, free * 4, where=tmp_path / "out")
     assert info.value.where == str(tmp_path / "out")
+
+
+def test_a_file_that_appears_during_the_work_is_not_replaced(tmp_path):
+    # without overwrite the result is put in place by a hard link, which cannot replace a
+    # file created meanwhile (POSIX link(2): EEXIST); the check before the work cannot see it
+    path = tmp_path / "out.txt"
+    with pytest.raises(OutputError, match="already exists") as info:
+        with atomic_path(path, overwrite=False) as tmp:
+            tmp.write_text("ours")
+            path.write_text("theirs")  # another program, between the check and the rename
+    assert info.value.where == str(path)
+    assert path.read_text() == "theirs"
+    assert [p.name for p in tmp_path.iterdir()] == ["out.txt"]
+    with pytest.raises(OutputError, match="already exists"):
+        atomic_write_text(path, "ours", overwrite=False)
+    assert atomic_write_text(path, "ours").read_text() == "ours"  # the default replaces

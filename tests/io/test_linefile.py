@@ -15,7 +15,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from hypothesis.extra.numpy import arrays
 
-from slicer.core.errors import InputFileError, SettingsError, SlicerWarning
+from slicer.core.errors import InputFileError, OutputError, SettingsError, SlicerWarning
 from slicer.io.linefile import netcdf_line_info, read_line_netcdf, write_line_netcdf
 
 X0, Y0 = 512345.67, 4649776.12
@@ -114,7 +114,12 @@ def test_line_read_from_file_can_be_written_again(tmp_path, good):
 
 
 def test_overwrite_is_atomic_and_leaves_no_temporary(tmp_path, good):
-    write_line_netcdf(good, _line(_data(seed=9)))
+    before = good.read_bytes()
+    # nothing on disk is replaced unasked (DEVELOPERS.md): refused, the file as it was
+    with pytest.raises(OutputError, match=r"good\.nc.*already exists.*overwrite=True"):
+        write_line_netcdf(good, _line(_data(seed=9)))
+    assert good.read_bytes() == before
+    write_line_netcdf(good, _line(_data(seed=9)), overwrite=True)
     np.testing.assert_array_equal(read_line_netcdf(good).values, _data(seed=9))
     assert sorted(p.name for p in tmp_path.iterdir()) == ["good.nc"]
 
@@ -230,7 +235,7 @@ def test_any_truncation_raises_input_file_error(good, cut):
        interval=st.floats(0.001, 20.0), twt0=st.floats(-50.0, 50.0))
 def test_random_round_trip(tmp_path, data, interval, twt0):
     line = _line(data, interval_ns=interval, twt0=twt0)
-    back = read_line_netcdf(write_line_netcdf(tmp_path / "r.nc", line))
+    back = read_line_netcdf(write_line_netcdf(tmp_path / "r.nc", line, overwrite=True))
     np.testing.assert_array_equal(back.values, data)
     np.testing.assert_array_equal(back["twt"].values, line["twt"].values)
     assert back.attrs["sample_interval_ns"] == interval

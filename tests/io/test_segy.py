@@ -377,7 +377,7 @@ def test_garbage_only_raises_input_file_error(tmp_path, garbage):
 def test_random_round_trip(tmp_path, data, interval, offset):
     line = _line(data, interval_ns=interval)
     line = line.assign_coords(x=line["x"] + offset, y=line["y"] - offset)
-    back = read_segy_line(write_segy_line(tmp_path / "r.sgy", line))
+    back = read_segy_line(write_segy_line(tmp_path / "r.sgy", line, overwrite=True))
     np.testing.assert_array_equal(back.values, data)
     assert back.attrs["sample_interval_ns"] == pytest.approx(interval, rel=1e-11)
     # Centimetre storage (scalar -100): each coordinate within half a centimetre, plus the

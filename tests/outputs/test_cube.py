@@ -267,7 +267,7 @@ def test_failed_write_leaves_existing_file_intact(tmp_path, monkeypatch):
 
     monkeypatch.setattr(xr.Dataset, "to_netcdf", broken)
     with pytest.raises(OutputError, match="disk full") as info:
-        write_cube_netcdf(make_cube(seed=2), path)
+        write_cube_netcdf(make_cube(seed=2), path, overwrite=True)
     assert info.value.where == str(path)
     assert path.read_bytes() == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["cube.nc"]
@@ -301,7 +301,7 @@ def test_a_full_disk_ends_in_one_error_and_leaves_the_file_as_it_was(tmp_path, m
 
     monkeypatch.setattr(slicer.core.atomic, "open", on_a_small_disk, raising=False)
     with pytest.raises(OutputError, match="No space left on device") as info:
-        write_cube_netcdf(big, path)
+        write_cube_netcdf(big, path, overwrite=True)
     assert info.value.where == str(path)
     assert path.read_bytes() == before
     assert sorted(p.name for p in tmp_path.iterdir()) == ["cube.nc"]
@@ -310,8 +310,22 @@ def test_a_full_disk_ends_in_one_error_and_leaves_the_file_as_it_was(tmp_path, m
     assert [i for i in h5py.h5f.get_obj_ids(types=h5py.h5f.OBJ_FILE)
             if str(tmp_path) in i.name.decode()] == []
     monkeypatch.undo()
-    back = read_cube_netcdf(write_cube_netcdf(big, path))  # with room, the same call works
+    back = read_cube_netcdf(write_cube_netcdf(big, path, overwrite=True))  # with room, it works
     np.testing.assert_array_equal(back.values, big.values)
+
+
+def test_an_existing_file_is_replaced_only_when_asked(tmp_path):
+    # nothing on disk is lost without an explicit flag (DEVELOPERS.md): a colleague's file of
+    # the same name stays byte for byte
+    path = tmp_path / "notes.nc"
+    path.write_text("a colleague's notes")
+    with pytest.raises(OutputError, match="already exists.*overwrite=True") as info:
+        write_cube_netcdf(make_cube(seed=1), path)
+    assert info.value.where == str(path)
+    assert path.read_text() == "a colleague's notes"
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["notes.nc"]
+    back = read_cube_netcdf(write_cube_netcdf(make_cube(seed=1), path, overwrite=True))
+    np.testing.assert_array_equal(back.values, make_cube(seed=1).values)
 
 
 def test_reading_a_non_netcdf_file_names_it(tmp_path):

@@ -205,7 +205,15 @@ def test_progress_bar_can_be_silenced(tmp_path, capsys, monkeypatch):
 def test_other_files_are_left_alone_and_own_files_replaced(tmp_path):
     (tmp_path / "notes.txt").write_text("keep me")
     first = write_slice_geotiffs(make_cube(), tmp_path, progress=False)
-    second = write_slice_geotiffs(make_cube(), tmp_path, progress=False)
+    before = {p.name: p.read_bytes() for p in first}
+    # slices of the same names are replaced only when asked (nothing lost unasked,
+    # DEVELOPERS.md); refused, every file stays as it was and no temporary is left
+    with pytest.raises(OutputError, match="already exists.*overwrite=True") as info:
+        write_slice_geotiffs(make_cube() * 2, tmp_path, progress=False)
+    assert info.value.where == str(first[0])
+    assert {p.name: p.read_bytes() for p in first} == before
+    assert len(list(tmp_path.iterdir())) == len(first) + 1
+    second = write_slice_geotiffs(make_cube(), tmp_path, progress=False, overwrite=True)
     assert first == second
     assert (tmp_path / "notes.txt").read_text() == "keep me"
     assert sorted(p.name for p in tmp_path.iterdir()) == sorted(
@@ -247,7 +255,7 @@ def test_failed_write_keeps_existing_file(tmp_path, monkeypatch):
 
     monkeypatch.setattr(rasterio, "open", FailingWriter)  # the one module every writer uses
     with pytest.raises(OutputError, match="No space left") as info:
-        write_slice_geotiffs(cube * 2, tmp_path, progress=False)
+        write_slice_geotiffs(cube * 2, tmp_path, progress=False, overwrite=True)
     assert info.value.where == str(path)
     assert path.read_bytes() == before
     assert [p.name for p in tmp_path.iterdir()] == [path.name]

@@ -85,7 +85,7 @@ def option_sets(draw) -> tuple[dict, dict]:
         options[name] = word if word else number(name, 0, 100_000, low_open=True)
     kind = draw(st.sampled_from(["velocity", "permittivity", None]))
     if kind == "velocity":
-        options["velocity"] = number("velocity", 0, 0.2997, low_open=True)
+        options["velocity"] = number("velocity", 0.01, 0.2997)  # MIN_VELOCITY and below c
     elif kind == "permittivity":
         options["permittivity"] = number("permittivity", 1, 100, low_open=True)
     if kind and draw(st.booleans()):

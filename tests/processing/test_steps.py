@@ -312,12 +312,12 @@ def test_fused_chain_refuses_what_the_steps_refuse():
 @pytest.mark.parametrize("shape", [(40, 512), (3, 100), (2, 5, 300), (7, 40), (300,)])
 def test_baseline_removal_is_scipys_gaussian_filter(shape):
     # reference: scipy.ndimage.gaussian_filter1d (mode "nearest", truncated at 4 sigma), which
-    # _remove_baseline computes as an FFT convolution of the edge-padded traces
+    # remove_baseline computes as an FFT convolution of the edge-padded traces
     import scipy.ndimage
 
-    from slicer.processing.steps import _remove_baseline
+    from slicer.processing.trace_basics import remove_baseline
     x = np.random.default_rng(3).normal(size=shape).cumsum(axis=-1)  # a drifting baseline
     sigma = max(1.0, shape[-1] / 20)
     expected = x - scipy.ndimage.gaussian_filter1d(x, sigma, axis=-1, mode="nearest")
-    np.testing.assert_allclose(_remove_baseline(x), expected, rtol=0,
+    np.testing.assert_allclose(remove_baseline(x), expected, rtol=0,
                                atol=1e-12 * np.abs(expected).max())
