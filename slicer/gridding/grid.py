@@ -287,8 +287,27 @@ def trace_frame(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, cell: float,
     left[~bridged_left] = radius
     right[~bridged_right] = radius
     ux, uy = line_directions(x, y, line)
+    _check_reach(float(along), max(float(np.max(left, initial=0.0)),
+                                   float(np.max(right, initial=0.0))), cell)
     return TraceFrame(x, y, ux, uy, left, right, bridged_left, bridged_right, float(along),
                       float(radius), s_median, float(max_gap))
+
+
+#: Most cells one trace's tents may reach (the box :func:`grid_weights` visits offset by
+#: offset): a 5 cm cell under tents 2 m across lines and 5 cm along reaches about 800.
+MAX_REACH_CELLS = 1_000_000
+
+
+def _check_reach(along: float, wide: float, cell: float) -> None:
+    """Refuse a cell so much finer than the traces' reach that gridding would visit more than
+    :data:`MAX_REACH_CELLS` cells per trace (a 1e-7 m cell had asked for 19 TiB)."""
+    reach = (2 * math.ceil(max(along, wide) / cell) + 1) * (2 * math.ceil(min(along, wide)
+                                                                           / cell) + 1)
+    if reach > MAX_REACH_CELLS:
+        least = max(along, wide) * min(along, wide) * 4 / MAX_REACH_CELLS
+        raise SettingsError(f"a {cell:g} m cell puts {reach:.3g} cells within each trace's "
+                            f"reach ({along:g} m along its line, {wide:g} m across); choose a "
+                            f"cell of at least {math.sqrt(least):.2g} m", where="--cell")
 
 
 def grid_weights(frame: TraceFrame, xc: np.ndarray, yc: np.ndarray, *, cell: float

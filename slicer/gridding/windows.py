@@ -16,6 +16,7 @@ import numpy as np
 
 from slicer.core.conventions import DEPTH, ELEVATION, SLICE, TWT
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import real
 from slicer.core.physics import check_velocity, time_from_depth
 
 if TYPE_CHECKING:  # xarray where it is used: a build's settings are read without it
@@ -129,6 +130,7 @@ def make_windows(top: float, bottom: float, step: float, *, thickness: float | N
                             f"{axis!r}", where="axis")
     option = option or ("--depths" if axis == DEPTH else "--times")
     unit = "m" if axis == DEPTH else "ns"
+    top, bottom, step = (real(v, where=option) for v in (top, bottom, step))
     if step <= 0:
         raise SettingsError(f"step must be positive, got {step:g} {unit}", where=option)
     if bottom <= top:
@@ -137,7 +139,7 @@ def make_windows(top: float, bottom: float, step: float, *, thickness: float | N
     if top < 0:
         raise SettingsError(f"top must be at or below the surface (>= 0), got {top:g} {unit}",
                             where=option)
-    thick = step if thickness is None else float(thickness)
+    thick = step if thickness is None else real(thickness, where=option)
     if not math.isfinite(thick) or thick <= 0:
         raise SettingsError(f"thickness must be positive, got {thick:g} {unit}",
                             where="--thickness")
@@ -270,6 +272,9 @@ def reduce_to_windows(line: xr.DataArray, windows: Windows, *,
     xarray.DataArray
         Dims ``(trace, slice)``, NaN for windows the record does not reach.
     """
+    if not isinstance(windows, Windows):
+        raise SettingsError(f"expected Windows (from make_windows), got {windows!r:.60}",
+                            where="windows")
     dim, lo, hi = _limits_along(line, windows, velocity, separation)
     return _reduce_along(line, dim, lo, hi, windows)
 

@@ -56,6 +56,10 @@ def _check_axis(axis: str) -> str:
 
 def slice_axis(cube: xr.DataArray) -> str:
     """Return the name of the slice dimension of ``cube`` (``"depth"`` or ``"twt"``)."""
+    import xarray as xr  # loaded already wherever a cube exists
+    if not isinstance(cube, xr.DataArray):
+        raise SettingsError(f"expected a cube (an xarray.DataArray), got {type(cube).__name__}",
+                            where="cube")
     axis = cube.dims[0] if cube.ndim == 3 else None
     if axis not in AXES or cube.dims[1:] != (Y, X):
         raise SettingsError(f"a cube has dims (depth|twt, y, x), not {cube.dims}", where="cube")

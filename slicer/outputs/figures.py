@@ -23,6 +23,7 @@ from mpl_toolkits.axes_grid1.anchored_artists import AnchoredSizeBar
 
 from slicer.core.atomic import atomic_path
 from slicer.core.errors import OutputError, SettingsError
+from slicer.core.numbers import real
 from slicer.outputs.cube import slice_axis
 from slicer.outputs.display import (
     DEFAULT_CLIP,
@@ -297,6 +298,10 @@ def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,
     """
     slice_axis(cube)  # refuses anything that is not a cube
     n_slices = cube.shape[0]
+    if isinstance(index, bool) or not isinstance(index, int | np.integer):
+        raise SettingsError(f"a slice index is a whole number, got {index!r:.60}", where="index")
+    vmin, vmax = (None if v is None else real(v, where=w) for v, w in ((vmin, "vmin"),
+                                                                         (vmax, "vmax")))
     if not -n_slices <= int(index) < n_slices:
         raise SettingsError(f"slice index {index} outside 0..{n_slices - 1}", where="index")
     index = int(index) % n_slices

@@ -38,6 +38,7 @@ import scipy.ndimage
 import xarray as xr
 
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import real
 
 #: Tangent of the half-angle of the cone under the antenna within which echoes are compared
 #: (0.7: 35 degrees). Ground-coupled antennas radiate most of their energy within a few tens of
@@ -50,6 +51,8 @@ THRESHOLD, FRACTION, FLOOR = 3.0, 0.4, 0.02
 
 def check_rule(threshold: float, fraction: float, floor: float) -> None:
     """Refuse settings of the rule that mean nothing (:class:`SettingsError`)."""
+    threshold = real(threshold, where="--threshold")
+    fraction, floor = real(fraction, where="--fraction"), real(floor, where="--floor")
     if not (math.isfinite(threshold) and threshold > 0):
         raise SettingsError(f"must be a positive number of robust deviations, got {threshold!r}",
                             where="--threshold")

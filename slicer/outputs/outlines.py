@@ -63,6 +63,7 @@ import scipy.ndimage
 import xarray as xr
 
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import real
 from slicer.outputs.cube import cube_crs, cube_transform, slice_axis
 from slicer.outputs.outline_rule import (
     FLOOR,
@@ -160,10 +161,11 @@ def outline(cube: xr.DataArray, *, threshold: float = THRESHOLD, min_area: float
     transform = cube_transform(cube)
     cell = abs(transform.a)
     area = cell * cell
-    min_cells = 4 if min_area is None else max(1, math.ceil(float(min_area) / area - 1e-9))
+    min_area = None if min_area is None else real(min_area, where="--min-area")
     if min_area is not None and not (math.isfinite(min_area) and min_area >= 0):
         raise SettingsError(f"must be an area in m² (0 or more), got {min_area!r}",
                             where="--min-area")
+    min_cells = 4 if min_area is None else max(1, math.ceil(min_area / area - 1e-9))
     values = np.asarray(cube.values, dtype=np.float64)
     raw = anomaly_mask(cube, threshold=threshold, fraction=fraction, floor=floor)
     medians, sigmas = slice_background(values)

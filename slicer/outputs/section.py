@@ -17,6 +17,7 @@ import xarray as xr
 
 from slicer.core.conventions import X, Y
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import real
 from slicer.outputs.cube import slice_axis
 from slicer.outputs.display import DEFAULT_CLIP, display_from, relative_scale
 
@@ -73,7 +74,7 @@ def section(cube: xr.DataArray, points, *, spacing: float | None = None) -> xr.D
     axis = slice_axis(cube)
     p = _vertices(points)
     cell = float(abs(cube[X].values[1] - cube[X].values[0])) if cube.sizes[X] > 1 else 1.0
-    step = cell if spacing is None else float(spacing)
+    step = cell if spacing is None else real(spacing, where="spacing")
     if not (math.isfinite(step) and step > 0):
         raise SettingsError(f"must be a positive number of metres, got {spacing!r}",
                             where="spacing")

@@ -16,7 +16,9 @@ from dataclasses import dataclass
 import numpy as np
 import xarray as xr
 
+from slicer.core.conventions import TRACE
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import real
 from slicer.geometry.positioning import prepare_survey
 from slicer.geometry.survey import SurveyInfo, survey_info
 from slicer.gridding.grid import (
@@ -82,6 +84,20 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
     return cube, layout.details(empty=int(np.isnan(values[0]).sum()))
 
 
+def _trace_columns(table) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """``x``, ``y`` and ``line`` of every trace of a trace x slice table; one SettingsError
+    for anything else (a lone line's table has no ``line``: give it one)."""
+    import xarray as xr
+    if not isinstance(table, xr.DataArray) or table.ndim != 2 or table.dims[0] != TRACE:
+        raise SettingsError(f"expected a trace x slice table (a DataArray with dims (trace, "
+                            f"slice)), got {type(table).__name__}", where="table")
+    missing = [c for c in ("x", "y", "line") if c not in table.coords]
+    if missing:
+        raise SettingsError(f"the table has no per-trace {', '.join(missing)} (a lone line's "
+                            f"table needs line=('trace', numbers) too)", where="table")
+    return table["x"].values, table["y"].values, table["line"].values
+
+
 @dataclass(frozen=True)
 class GridLayout:
     """The output grid of a trace table, its trace frames and its tiles."""
@@ -96,7 +112,9 @@ class GridLayout:
         if not (isinstance(tile, int | np.integer) and not isinstance(tile, bool) and tile >= 1):
             raise SettingsError(f"the tile edge must be a whole number of cells, at least 1; got "
                                 f"{tile!r}", where="tile")
-        x, y, line = table["x"].values, table["y"].values, table["line"].values
+        x, y, line = _trace_columns(table)
+        cell, radius, max_gap = (None if v is None else real(v, where=w) for v, w in (
+            (cell, "--cell"), (radius, "--radius"), (max_gap, "--max-gap")))
         cell = default_cell(x, y, line) if cell is None else cell
         grid = grid_for(x, y, cell=cell)
         frame = trace_frame(x, y, line, cell=grid.cell, radius=radius, max_gap=max_gap)

@@ -36,6 +36,7 @@ import numpy as np
 from slicer.core.conventions import DISTANCE, TRACE, TWT
 from slicer.core.errors import SettingsError, warn
 from slicer.core.line_checks import checked_line
+from slicer.core.numbers import real
 from slicer.core.physics import check_velocity
 from slicer.processing.fk import phase_shift_core, stolt_core
 from slicer.processing.trace_basics import add_history
@@ -253,7 +254,7 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
     if method not in METHODS:
         raise SettingsError(f"migration method must be one of {', '.join(METHODS)}, got "
                             f"{method!r}", where="--migration")
-    if not 0 <= taper < 1:
+    if not 0 <= real(taper, where="taper") < 1:
         raise SettingsError(f"wavenumber taper must be in [0, 1), got {taper!r}",
                             where="--migration")
     if not (isinstance(pad, int | float | np.integer | np.floating) and 1.25 <= pad <= 4):

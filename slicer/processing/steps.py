@@ -19,6 +19,7 @@ import scipy.ndimage
 from slicer.core.conventions import TRACE, TWT
 from slicer.core.errors import SettingsError
 from slicer.core.line_checks import checked_line
+from slicer.core.numbers import real
 from slicer.processing.background import (
     Background,
     background_core,
@@ -65,15 +66,23 @@ def _per_trace(core, line: xr.DataArray, step: str, **kwargs) -> xr.DataArray:
 
 # ---------------------------------------------------------------------------------------- dewow
 
+#: Longest dewow window, in samples: a million, a thousand times the longest radar record.
+MAX_WOW_SAMPLES = 1_000_000
+
+
 def _wow_window(line, dt: float, window_ns: float | None = None) -> int:
     """Samples (odd) of the dewow window: ``window_ns``, else 1.5 periods of the dominant
     frequency of ``line`` (a DataArray or plain samples)."""
     if window_ns is None:  # a DataArray, or plain samples (NumPy, dask): no xarray for those
         window_ns = 1.5 / (dominant_frequency(line) if hasattr(line, "coords")
                            else dominant_frequency_of(line, dt=dt))
+    window_ns = real(window_ns, where="--dewow")
     if not math.isfinite(window_ns) or window_ns <= 0:
         raise SettingsError(f"dewow window must be positive, got {window_ns:g} ns",
                             where="--dewow")
+    if window_ns / dt > MAX_WOW_SAMPLES:  # far beyond any record; int() of it overflowed
+        raise SettingsError(f"dewow window of {window_ns:g} ns is longer than any record "
+                            f"({MAX_WOW_SAMPLES} samples of {dt:g} ns)", where="--dewow")
     return max(3, int(round(window_ns / dt)) | 1)  # odd, so the mean is centred
 
 
@@ -161,6 +170,7 @@ def apply_gain(line: xr.DataArray, *, kind: str = "power", value: float = 1.0) -
     value : float
         Exponent (power) or rate in dB/ns (exp); must be finite and >= 0.
     """
+    value = real(value, where="--gain")
     if not math.isfinite(value) or value < 0:
         raise SettingsError(f"gain value must be finite and >= 0, got {value:g}", where="--gain")
     checked_line(line, step="apply_gain")

@@ -12,6 +12,7 @@ import numpy as np
 from slicer.core.conventions import C_M_PER_NS, TRACE, TWT
 from slicer.core.errors import SettingsError, warn
 from slicer.core.line_checks import checked_line
+from slicer.core.numbers import real
 from slicer.core.physics import check_separation
 from slicer.processing.trace_basics import (
     add_history,
@@ -84,8 +85,10 @@ def pick_time_zero_of(samples: np.ndarray, twt: np.ndarray, *, mean: np.ndarray 
     """:func:`pick_time_zero` of plain ``(trace, twt)`` samples on the axis ``twt`` (ns);
     ``mean`` is their mean trace and ``frequency`` their :func:`dominant_frequency_of`, if
     already known."""
+    threshold = real(threshold, where="--time-zero-threshold")
     if not 0 < threshold <= 1:
-        raise SettingsError(f"time-zero threshold must be in (0, 1], got {threshold:g}")
+        raise SettingsError(f"time-zero threshold must be in (0, 1], got {threshold:g}",
+                            where="--time-zero-threshold")
     if twt.size < 2:
         raise SettingsError("a line needs at least two samples per trace")
     dt = float(twt[1] - twt[0])
@@ -180,7 +183,7 @@ def time_zero_of(samples: np.ndarray, twt: np.ndarray, *, time_zero: float | str
         how = (f"time zero {t0:.3f} ns (picked" +
                (f", direct wave minus {s:g} m / c)" if s else ")"))
     else:
-        t0 = float(time_zero)
+        t0 = real(time_zero, where="--time-zero")
         if not math.isfinite(t0):
             raise SettingsError("time zero must be finite", where="--time-zero")
         how = f"time zero {t0:.3f} ns"

@@ -89,7 +89,8 @@ from slicer.core.errors import SettingsError
 from slicer.core.physics import check_separation
 from slicer.processing.migration import trace_spacing
 from slicer.velocity.aperture import aperture_spread
-from slicer.velocity.diffraction import _analytic, _pick
+from slicer.velocity.diffraction import _analytic
+from slicer.velocity.diffraction_picks import pick_envelope
 from slicer.velocity.lag_picks import MIN_SIMILARITY, lag_picks
 from slicer.velocity.offset_fit import fit_apex, fit_offset_hyperbola
 
@@ -225,8 +226,8 @@ def _model_peaks(data, t_axis, period, x, t_apex, apex, fit, height, half, lags=
                                        half_window=0.4 * period)
     else:  # the same band-pass and envelope as the picks
         env = np.abs(_analytic(traces.astype(np.float32), dt, 1.0 / period))
-        found, times, _ = _pick(env, x, t_axis, x0=x0, reach=np.inf,
-                                half_window=0.4 * period, predict=predict)
+        found, times, _ = pick_envelope(env, x, t_axis, x0=x0, reach=np.inf,
+                                        half_window=0.4 * period, predict=predict)
     peaks = np.full(x.size, np.nan)
     peaks[np.isin(x, found)] = times  # positions are distinct traces
     delay = peaks - straight
@@ -342,8 +343,9 @@ def correct_for_coupling(line: xr.DataArray, found, *, antenna_height: float | N
             envelopes[period] = np.abs(_analytic(data, t_axis[1] - t_axis[0], 1.0 / period))
         env = envelopes[period]
         reach = max(2 * dx, d.fit.depth * math.tan(math.radians(max_angle)))
-        x, t, amp = _pick(env, distance, t_axis, x0=d.fit.x0, predict=d.fit.travel_time,
-                          reach=reach, half_window=0.3 * period)
+        x, t, amp = pick_envelope(env, distance, t_axis, x0=d.fit.x0,
+                                  predict=d.fit.travel_time, reach=reach,
+                                  half_window=0.3 * period)
         i = int(np.argmin(np.abs(distance - d.fit.x0)))
         apex = (distance[i], data[i])
         picks = {False: (x, t, amp)}

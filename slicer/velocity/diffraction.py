@@ -49,13 +49,14 @@ import xarray as xr
 
 from slicer.core.conventions import DISTANCE, TRACE, TWT, UNITS, X, Y
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import real
 from slicer.core.physics import check_separation, check_velocity
 from slicer.processing.migration import trace_spacing
 from slicer.processing.steps import dominant_frequency, sample_interval
 from slicer.velocity.aperture import aperture_spread
 from slicer.velocity.combine import SurveyVelocity, survey_velocity
-from slicer.velocity.hyperbola import HyperbolaFit, fit_hyperbola, hyperbola_time
-from slicer.velocity.offset_fit import fit_apex, fit_offset_hyperbola
+from slicer.velocity.diffraction_picks import refine
+from slicer.velocity.hyperbola import HyperbolaFit
 
 __all__ = ["Diffraction", "SurveyVelocity", "diffraction_table", "find_diffractions",
            "survey_velocity"]
@@ -199,85 +200,6 @@ def _semblance_at(a: np.ndarray, i: int, t0: np.ndarray, velocity: float, **geom
     return float((np.abs(num) ** 2).sum() / total) if total > 0 else 0.0
 
 
-def _pick(env: np.ndarray, distance: np.ndarray, t_axis: np.ndarray, *, x0: float, predict,
-          reach: float, half_window: float):
-    """Envelope-peak picks near the curve ``predict(x)`` within ``reach`` m of ``x0``."""
-    dt = t_axis[1] - t_axis[0]
-    near = np.nonzero(np.abs(distance - x0) <= reach)[0]
-    pred = predict(distance[near])
-    half = max(1, int(round(half_window / dt)))
-    centre = np.rint((pred - t_axis[0]) / dt).astype(np.int64)
-    ok = (centre - half >= 1) & (centre + half < t_axis.size - 1)
-    near, centre = near[ok], centre[ok]
-    if near.size == 0:
-        return np.empty(0), np.empty(0), np.empty(0)
-    cols = centre[:, None] + np.arange(-half, half + 1)
-    win = env[near[:, None], cols]
-    k = np.argmax(win, axis=1)
-    interior = (k > 0) & (k < 2 * half)  # a peak on the window's edge belongs to another event
-    i = centre + k - half
-    y0, y1, y2 = env[near, i - 1], env[near, i], env[near, i + 1]
-    denom = y0 - 2 * y1 + y2
-    with np.errstate(invalid="ignore", divide="ignore"):
-        shift = np.where(denom < 0, 0.5 * (y0 - y2) / denom, 0.0)
-    t = t_axis[0] + (i + np.clip(shift, -0.5, 0.5)) * dt
-    return distance[near][interior], t[interior], y1[interior]
-
-
-def _fit(x, t, w, radius, period, separation):
-    if radius == "auto":  # picks are good to about a fiftieth of a period (common practice)
-        return fit_apex(x, t, weights=w, precision=period / 50, separation=separation)
-    if radius is False and separation > 0:
-        return fit_offset_hyperbola(x, t, weights=w, separation=separation, delay=False)
-    return fit_hyperbola(x, t, radius=bool(radius), weights=w)
-
-
-#: Widest angle from vertical of the picks offered to the time-offset fit, degrees: the offset
-#: is told from the velocity only by picks well down the flanks (beyond about 1.5 depths,
-#: :mod:`slicer.velocity.offset_fit`); tan(70 degrees) = 2.7 depths.
-OFFSET_ANGLE = 70.0
-
-
-def _refine(env, distance, t_axis, *, x0, t0, velocity, reach, period, radius, min_picks,
-            separation, aperture):
-    """Pick, fit, drop outlying picks and fit again: ``(fit, (x, t, weights))`` of the picks
-    fitted, ``(None, None)`` when the picks fit badly.
-
-    With ``radius="auto"`` a point fit is tried once more on picks over a wider reach (to
-    :data:`OFFSET_ANGLE`), and the result kept only if the time-offset form wins there."""
-    fit = picks = None
-    passes = [(0.5 * period, reach), (0.3 * period, reach)]
-    for half_window, wide in passes:
-        if fit is None:
-            def predict(x, x0=x0):
-                return hyperbola_time(x, x0=x0, t0=t0, velocity=velocity)
-        else:  # the fitted curve, with its radius when fitted
-            x0, predict = fit.x0, fit.travel_time
-        xs, ts, amp = _pick(env, distance, t_axis, x0=x0, predict=predict, reach=wide,
-                            half_window=half_window)
-        strong = amp >= 0.2 * amp.max() if amp.size else amp.astype(bool)
-        xs, ts, amp = xs[strong], ts[strong], amp[strong]
-        if xs.size < min_picks:
-            return (fit, picks) if wide > reach else (None, None)
-        try:
-            tried = _fit(xs, ts, amp ** 2, radius, period, separation)
-            residual = np.abs(tried.travel_time(xs) - ts)
-            good = residual <= max(3.0 * 1.4826 * np.median(residual), 0.05 * period)
-            if good.sum() >= min_picks and not good.all():
-                xs, ts, amp = xs[good], ts[good], amp[good]
-                tried = _fit(xs, ts, amp ** 2, radius, period, separation)
-        except SettingsError:
-            return (fit, picks) if wide > reach else (None, None)
-        if wide > reach and tried.shape != "offset":
-            return fit, picks
-        fit, picks = tried, (xs, ts, amp ** 2)
-        if len(passes) == 2 and radius == "auto" and fit.shape == "point":
-            wider = min(aperture, fit.depth * math.tan(math.radians(OFFSET_ANGLE)))
-            if wider > reach:
-                passes.append((0.3 * period, wider))
-    return fit, picks
-
-
 def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 1.5,
                       max_angle: float = 50.0, threshold: float = 0.5,
                       min_time: float | None = None, frequency_ghz: float | None = None,
@@ -339,11 +261,18 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
         Bad options, or a line without ``distance`` or samples after time zero.
     """
     name = str(line.attrs.get("line", line.attrs.get("source", "line")))
-    v = np.asarray(DEFAULT_VELOCITIES if velocities is None else velocities, dtype=float)
+    try:
+        v = np.asarray(DEFAULT_VELOCITIES if velocities is None else velocities, dtype=float)
+    except (TypeError, ValueError):
+        v = np.empty(0)
     if v.ndim != 1 or v.size < 3 or np.any(np.diff(v) <= 0):
         raise SettingsError("give three or more ascending trial velocities", where="velocities")
     for value in v:
         check_velocity(value, where="velocities")
+    aperture, max_angle, threshold, max_relative_std = (
+        real(value, where=option) for option, value in (
+            ("aperture", aperture), ("max_angle", max_angle), ("threshold", threshold),
+            ("max_relative_std", max_relative_std)))
     for option, value, ok in (("aperture", aperture, aperture > 0),
                               ("max_angle", max_angle, 0 < max_angle < 90),
                               ("threshold", threshold, 0 < threshold < 1),
@@ -368,7 +297,7 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
     data = data - np.median(data, axis=0)
     if frequency_ghz is None:
         f_dom = dominant_frequency(line)
-    elif math.isfinite(frequency_ghz) and frequency_ghz > 0:
+    elif math.isfinite(real(frequency_ghz, where="frequency_ghz")) and frequency_ghz > 0:
         f_dom = float(frequency_ghz)
     else:
         raise SettingsError(f"must be a positive frequency in GHz, got {frequency_ghz!r}",
@@ -377,6 +306,8 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
     analytic = _analytic(data, dt, f_dom)
     env = np.abs(analytic)
     distance = np.asarray(line[DISTANCE].values, dtype=float)
+    # no hyperbola reaches further than the line is long (a huge aperture looped for ever)
+    aperture = min(aperture, max(float(np.ptp(distance)), dx))
 
     lam = math.sqrt(v[0] * v[-1]) / f_dom
     step = max(1, int(lam / 2 / dx))  # aperture traces about half a wavelength apart
@@ -384,7 +315,7 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
     scan = analytic[:, ::kt]
     dxs, dts = step * dx, kt * dt
     t0s = t_axis[0] + dts * np.arange(scan.shape[1])
-    earliest = 2.0 * period if min_time is None else float(min_time)
+    earliest = 2.0 * period if min_time is None else real(min_time, where="min_time")
     searched = np.nonzero((t0s >= earliest) & (t0s <= t_axis[-1] - period))[0]
     if searched.size == 0:
         return []
@@ -428,7 +359,7 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
                                   * np.log(v[k + 1] / v[k])))
         x0, t0 = distance[i], t0s[j]
         reach = min(aperture, max(2 * dxs, vk * t0 / 2 * math.tan(math.radians(max_angle))))
-        fit, picks = _refine(env, distance, t_axis, x0=x0, t0=t0, velocity=vk, reach=reach,
+        fit, picks = refine(env, distance, t_axis, x0=x0, t0=t0, velocity=vk, reach=reach,
                              period=period, radius=radius, min_picks=min_picks,
                              separation=separation, aperture=aperture)
         if (fit is None or fit.velocity_std > max_relative_std * fit.velocity

@@ -24,6 +24,7 @@ import scipy.stats
 
 from slicer.core.conventions import C_M_PER_NS
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import real
 
 __all__ = ["HyperbolaFit", "fit_hyperbola", "fit_target", "hyperbola_time"]
 
@@ -348,13 +349,15 @@ def fit_hyperbola(x_m, t_ns, *, radius: bool = False, weights=None,
     upper = np.array([10 * C_M_PER_NS, x.max() + 100 * span, np.inf])
     p0 = np.array([min(v0, 5 * C_M_PER_NS), x00, t00])
     if radius:
-        bound = v0 * t00 / 2 if max_radius is None else float(max_radius)
+        bound = v0 * t00 / 2 if max_radius is None else real(max_radius, where="max_radius")
         if not (math.isfinite(bound) and bound > 0):
             raise SettingsError(f"must be a positive radius in m, got {max_radius!r}",
                                 where="max_radius")
         lower, upper = np.append(lower, 0.0), np.append(upper, bound)
         # a few starting radii: the radius trades off against velocity, so one start can stall
-        starts = [np.append(p0, f * bound) for f in (0.0, 0.25, 0.5, 1.0)]
+        # (from radii up to the apex depth: a bound far above it starts nowhere useful)
+        starts = [np.append(p0, f * min(bound, max(v0 * t00 / 2, 1e-6)))
+                  for f in (0.0, 0.25, 0.5, 1.0)]
     else:
         starts = [p0]
     result = min((_solve(s, x, t, w, lower, upper) for s in starts), key=lambda r: r.cost)
@@ -427,7 +430,7 @@ def fit_target(x_m, t_ns, *, weights=None, alpha: float = 0.01,
     x, t, w = _check_picks(x_m, t_ns, weights, 4, False)
     if x.size < 6:  # the F-test needs residual degrees of freedom
         return point
-    bound = point.depth if max_radius is None else float(max_radius)
+    bound = point.depth if max_radius is None else real(max_radius, where="max_radius")
     try:
         round_ = fit_hyperbola(x, t, radius=True, weights=w, max_radius=bound)
     except SettingsError:

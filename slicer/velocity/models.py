@@ -36,6 +36,7 @@ import numpy as np
 
 from slicer.core.conventions import C_M_PER_NS, DEPTH, TRACE, TWT, X, Y
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import reals
 from slicer.core.physics import check_velocity, velocity_from_permittivity
 
 if TYPE_CHECKING:  # xarray where it is used: a build's settings are read without it
@@ -313,15 +314,14 @@ def _time_of_depth(top_time, v, d):
     return out
 
 
-def _positions(model: VelocityModel, values, x, y):
-    values = np.asarray(values, dtype=float)
+def _positions(model: VelocityModel, values, x, y, where: str = "depth"):
+    values = reals(values, where=where)
     if not model.lateral:
         return (values, *model.profile())
     if x is None or y is None:
         raise SettingsError("a laterally varying velocity model needs positions x and y",
                             where="x")
-    values, x, y = np.broadcast_arrays(values, np.asarray(x, dtype=float),
-                                       np.asarray(y, dtype=float))
+    values, x, y = np.broadcast_arrays(values, reals(x, where="x"), reals(y, where="y"))
     return (values, *model.profile(x, y))
 
 
@@ -331,7 +331,7 @@ def depth_of_time(model: VelocityModel, twt_ns, *, x=None, y=None) -> np.ndarray
     Exact for layers: ``sum_i v_i dt_i / 2``. ``x``, ``y`` (m) are needed for a lateral model
     and broadcast with ``twt_ns``.
     """
-    t, tops, v, _ = _positions(model, twt_ns, x, y)
+    t, tops, v, _ = _positions(model, twt_ns, x, y, where="twt_ns")
     return _depth_of_time(tops, v, t)
 
 
@@ -435,7 +435,7 @@ def to_depth_axis(line: xr.DataArray, model: VelocityModel, *, depths) -> xr.Dat
         Dims ``(trace, depth)``, float32, with the line's per-trace coordinates and attrs.
     """
     name = str(line.attrs.get("source", line.attrs.get("line", line.name or "line")))
-    depths = np.asarray(depths, dtype=float)
+    depths = reals(depths, where="depths")
     if (depths.ndim != 1 or depths.size == 0 or not np.all(np.isfinite(depths))
             or depths[0] < 0 or np.any(np.diff(depths) <= 0)):
         raise SettingsError("depths must be a non-empty, increasing list of finite depths "

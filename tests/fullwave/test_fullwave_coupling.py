@@ -21,7 +21,8 @@ from slicer.geometry.positioning import prepare_survey
 from slicer.geometry.survey import load_line, survey_info
 from slicer.processing.steps import correct_time_zero
 from slicer.velocity.coupling import _model_peaks, _section, _straight
-from slicer.velocity.diffraction import _analytic, _pick
+from slicer.velocity.diffraction import _analytic
+from slicer.velocity.diffraction_picks import pick_envelope
 from slicer.velocity.hyperbola import HyperbolaFit
 from slicer.velocity.lag_picks import MIN_SIMILARITY, lag_picks
 
@@ -51,9 +52,10 @@ def test_model_follows_the_full_wave_picks_beyond_the_critical_angle():
     x0, centre = pipe["x"], pipe["depth_centre"]
     i = int(np.argmin(np.abs(distance - x0)))
     early = 2 * pipe["radius"] / v - 0.4  # the echo is from the top; its peak a little later
-    x, t, _ = _pick(env, distance, t_axis, x0=x0,
-                    predict=lambda x: _straight(x, x0, centre, v, S / 2) - early,
-                    reach=centre * math.tan(math.radians(45)), half_window=0.5 * period)
+    x, t, _ = pick_envelope(env, distance, t_axis, x0=x0,
+                            predict=lambda x: _straight(x, x0, centre, v, S / 2) - early,
+                            reach=centre * math.tan(math.radians(45)),
+                            half_window=0.5 * period)
     drift = t - _straight(x, x0, centre, v, S / 2)
     k = int(np.argmin(np.abs(x - distance[i])))
     apex_t, drift = t[k], drift - drift[k]
@@ -85,8 +87,9 @@ def test_lags_corrected_by_the_model_follow_the_round_target():
             return _straight(x, x0, centre, v, S / 2) - 2 * r / v
 
         reach = centre * math.tan(math.radians(45))
-        xe, te, _ = _pick(env, distance, t_axis, x0=x0, predict=lambda x: round_curve(x) + 0.3,
-                          reach=reach, half_window=0.5 * period)
+        xe, te, _ = pick_envelope(env, distance, t_axis, x0=x0,
+                                  predict=lambda x: round_curve(x) + 0.3, reach=reach,
+                                  half_window=0.5 * period)
         t_apex = float(te[int(np.argmin(np.abs(xe - distance[i])))])
         lead = t_apex - round_curve(np.array([distance[i]]))[0]
         x, t, _, similar = lag_picks(data, distance, t_axis, reference=data[i], t_ref=t_apex,
