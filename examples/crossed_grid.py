@@ -7,9 +7,10 @@ differs. The build takes every position from the SEG-Y trace headers (the line t
 the files), measures the ties where lines cross, corrects each line, and puts every stone
 within one cell of where it lies. Run:
 
-    python examples/crossed_grid.py
+    python examples/crossed_grid.py [FOLDER]   # FOLDER: where to work (default a new temp one)
 """
 
+import sys
 import tempfile
 from pathlib import Path
 
@@ -21,8 +22,11 @@ from slicer.synthetic import Ground, Layer, PointTarget, Radar, grid_lines, simu
 W, S = 512000.0, 4650000.0
 
 
-def main() -> None:
-    work = Path(tempfile.mkdtemp(prefix="slicer-crossed-"))
+def main(work: Path | None = None) -> None:
+    """Run the example in ``work`` (an empty or new folder; default a new temporary one, which
+    is kept for you to open)."""
+    work = Path(tempfile.mkdtemp(prefix="slicer-crossed-")) if work is None else Path(work)
+    work.mkdir(parents=True, exist_ok=True)
     # each stone at the centre of a 0.1 m cell, 5 cm from a line of each set
     stones = (PointTarget(W + 1.05, S + 1.05, 0.45), PointTarget(W + 3.05, S + 2.05, 0.75),
               PointTarget(W + 2.05, S + 2.95, 0.95))
@@ -65,4 +69,4 @@ def main() -> None:
 
 
 if __name__ == "__main__":
-    main()
+    main(Path(sys.argv[1]) if len(sys.argv) > 1 else None)  # optional: the folder to work in

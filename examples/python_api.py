@@ -3,9 +3,10 @@
 The survey is made by slicer's own synthetic generator (an invented scene: two buried stones
 under a 4 m x 2.5 m patch of field), written to a temporary folder. Run:
 
-    python examples/python_api.py
+    python examples/python_api.py [FOLDER]   # FOLDER: where to work (default a new temp one)
 """
 
+import sys
 import tempfile
 from pathlib import Path
 
@@ -15,8 +16,11 @@ import slicer
 from slicer.synthetic import Ground, PointTarget, Radar, grid_lines, write_survey
 
 
-def main() -> None:
-    work = Path(tempfile.mkdtemp(prefix="slicer-example-"))
+def main(work: Path | None = None) -> None:
+    """Run the example in ``work`` (an empty or new folder; default a new temporary one, which
+    is kept for you to open)."""
+    work = Path(tempfile.mkdtemp(prefix="slicer-example-")) if work is None else Path(work)
+    work.mkdir(parents=True, exist_ok=True)
     stones = (PointTarget(512001.05, 4650001.05, 0.55), PointTarget(512002.95, 4650001.55, 1.25))
     survey = write_survey(
         work / "survey", Ground(velocity=0.1, targets=stones), Radar(seed=1),
@@ -47,4 +51,4 @@ def main() -> None:
 
 
 if __name__ == "__main__":
-    main()
+    main(Path(sys.argv[1]) if len(sys.argv) > 1 else None)  # optional: the folder to work in

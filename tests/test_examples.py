@@ -12,8 +12,8 @@ from slicer.pipeline.settings import load_settings
 EXAMPLES = Path(__file__).resolve().parent.parent / "examples"
 
 
-def test_python_api_example_finds_both_stones():
-    proc = subprocess.run([sys.executable, str(EXAMPLES / "python_api.py")],
+def test_python_api_example_finds_both_stones(tmp_path):
+    proc = subprocess.run([sys.executable, str(EXAMPLES / "python_api.py"), str(tmp_path)],
                           capture_output=True, text=True, timeout=300)
     assert proc.returncode == 0, proc.stderr
     found = re.findall(r"buried at ([\d.]+) m: brightest slice centred at ([\d.]+) m",
@@ -32,8 +32,8 @@ def test_example_survey_file_is_valid(small_survey, tmp_path):
     assert settings.out == tmp_path / "slices-out"
 
 
-def test_crossed_grid_example_ties_and_places_the_stones():
-    proc = subprocess.run([sys.executable, str(EXAMPLES / "crossed_grid.py")],
+def test_crossed_grid_example_ties_and_places_the_stones(tmp_path):
+    proc = subprocess.run([sys.executable, str(EXAMPLES / "crossed_grid.py"), str(tmp_path)],
                           capture_output=True, text=True, timeout=300)
     assert proc.returncode == 0, proc.stderr
     before, after = (float(v) for v in re.search(
