@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from slicer.core.errors import InputFileError, SettingsError, warn
-from slicer.io.linetable import LineEntry
+from slicer.io.linetable import LineEntry, decimal_point, table_delimiter
 
 KINDS = ("similarity", "affine")
 COLUMNS = ("name", "local_x", "local_y", "x", "y")
@@ -159,9 +159,11 @@ def _read_table(path: str | os.PathLike, what: str, columns: tuple[str, ...]
         raise InputFileError(f"{what} not found", where=str(path)) from None
     except (OSError, ValueError) as exc:  # ValueError: undecodable, or a NUL in the path
         raise InputFileError(f"cannot read {what} ({exc})", where=str(path)) from None
-    reader = csv.DictReader(text.splitlines())
+    lines = text.splitlines()
+    delimiter = table_delimiter(lines)
+    reader = csv.DictReader(lines, delimiter=delimiter)
     try:
-        header = [h.strip() for h in (reader.fieldnames or [])]
+        header = [h.strip() for h in (reader.fieldnames or []) if h.strip()]
     except csv.Error as exc:
         raise InputFileError(f"not a readable CSV {what} ({exc})",
                              where=f"{path}:{reader.reader.line_num}") from None
@@ -181,6 +183,8 @@ def _read_table(path: str | os.PathLike, what: str, columns: tuple[str, ...]
     for number, row in enumerate(records, start=2):
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue
+        if delimiter == ";":  # decimal commas with it
+            row = {k: decimal_point(v) for k, v in row.items()}
         rows.append((number, {k: (v or "").strip() if isinstance(v, str) else ""
                               for k, v in row.items() if k is not None}))
     return path, header, rows

@@ -47,6 +47,13 @@ class SurveyInfo:
         """Time from the first to the last sample of a trace (ns)."""
         return (self.n_samples - 1) * self.sample_interval_ns
 
+    @property
+    def record_span_ns(self) -> tuple[float, float]:
+        """The times (ns, on the files' own clocks) every line's record covers: from the
+        latest first sample to the earliest last one."""
+        starts = [line.first_sample_ns for line in self.lines] or [0.0]
+        return max(starts), min(starts) + self.record_ns
+
 
 def survey_info(entries: Sequence[LineEntry], *,
                 sample_interval_ns: float | None = None) -> SurveyInfo:

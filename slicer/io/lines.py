@@ -51,6 +51,9 @@ class LineInfo:
     format : str
         ``"segy-ieee"``, ``"segy-ibm"``, ``"segy-int2"``, ``"segy-int4"`` (other SEG-Y sample
         codes are named alike) or ``"netcdf"``.
+    first_sample_ns : float
+        Two-way time of the first sample, ns, as the file states it (a NetCDF line's stored
+        ``twt`` may start late; SEG-Y records start at 0).
     """
 
     path: Path
@@ -58,6 +61,7 @@ class LineInfo:
     n_samples: int
     sample_interval_ns: float | None
     format: str
+    first_sample_ns: float = 0.0
 
 
 def _check_file(path: Path) -> int:
@@ -109,8 +113,9 @@ FLOAT32_ROOT = 1.8e19
 
 
 def _zero_nonfinite(data: np.ndarray, path: Path) -> np.ndarray:
-    """Set NaN / inf samples to 0 in place, warning with their count; warn of finite samples
-    too large to process (above :data:`FLOAT32_ROOT`), which are kept."""
+    """Set NaN / inf samples, and finite ones too large to process (above
+    :data:`FLOAT32_ROOT`: one such sample had made its whole line's envelopes infinite), to 0
+    in place, warning with their counts."""
     # one sum of squares first (BLAS): any NaN or infinity, or a sample whose square float32
     # cannot hold, makes it non-finite, so a clean line (nearly every line) is cleared at a
     # fraction of the cost of the mask; a sum that overflowed from many large finite values
@@ -125,11 +130,14 @@ def _zero_nonfinite(data: np.ndarray, path: Path) -> np.ndarray:
     if count:
         data[bad] = 0.0
         warn(f"{path}: {count} NaN or infinite sample(s) set to 0")
-    peak = float(np.abs(data).max(initial=0.0))
-    if peak > FLOAT32_ROOT:
-        warn(f"{path}: samples up to {peak:.3g}, beyond any recorder's range: their squares "
-             "overflow single precision, so this line's envelopes will be wrong (a damaged "
-             "file, or samples stored in another format?)")
+    huge = np.abs(data) > FLOAT32_ROOT
+    count = int(huge.sum())
+    if count:
+        peak = float(np.abs(data[huge]).max())
+        data[huge] = 0.0
+        warn(f"{path}: {count} sample(s) up to {peak:.3g}, beyond any recorder's range (a "
+             f"damaged file, or samples stored in another format?), set to 0"
+             + (f": {100 * count / data.size:.2g} % of the line" if count > 1 else ""))
     return data
 
 

@@ -33,6 +33,7 @@ import csv
 import difflib
 import math
 import os
+import re
 from collections import Counter
 from dataclasses import dataclass
 from pathlib import Path
@@ -208,15 +209,19 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
         raise LineTableError("line table not found", where=str(path)) from None
     except (OSError, ValueError) as exc:  # ValueError: undecodable, or a NUL in the path
         raise LineTableError(f"cannot read line table ({exc})", where=str(path)) from None
-    reader = csv.DictReader(text.splitlines())
+    lines = text.splitlines()
+    delimiter = table_delimiter(lines)
+    reader = csv.DictReader(lines, delimiter=delimiter)
     header = [h.strip() for h in (_csv(lambda: reader.fieldnames, reader, path) or [])]
-    if not header:
+    if not any(header):
         raise LineTableError("line table is empty (no header row)", where=str(path))
-    twice = sorted(n for n, k in Counter(header).items() if k > 1)
+    # a spreadsheet's export may end every row with empty columns: unnamed, they are ignored
+    twice = sorted(n for n, k in Counter(h for h in header if h).items() if k > 1)
     if twice:
         raise LineTableError(f"column(s) {', '.join(twice)} named twice in the header",
                              where=str(path))
-    ignored = unknown_names(header, what="column", where=str(path), strict=False)
+    ignored = unknown_names([h for h in header if h], what="column", where=str(path),
+                            strict=False)
     if ignored:
         warn(f"{path}: column(s) {', '.join(ignored)} ignored")
     sources = set()
@@ -232,12 +237,35 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
     for row_number, row in enumerate(_csv(lambda: list(reader), reader, path), start=2):
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue  # blank line
+        if delimiter == ";":  # a semicolon table's numbers may have decimal commas
+            row = {k: decimal_point(v) for k, v in row.items()}
         entries.append(make_entry(row, base=path.parent, where=f"{path}:{row_number}",
                                   ends=ends))
     if not entries:
         raise LineTableError("line table has no lines", where=str(path))
     check_unique(entries)
     return entries
+
+
+def table_delimiter(lines: list[str]) -> str:
+    """The table's delimiter: a comma, or a semicolon or tab when the header holds one and no
+    comma (spreadsheets in many locales export semicolons)."""
+    first = next((line for line in lines if line.strip()), "")
+    if "," not in first:
+        for candidate in (";", "\t"):
+            if candidate in first:
+                return candidate
+    return ","
+
+
+_DECIMAL_COMMA = re.compile(r"\s*[-+]?\d+,\d+\s*")
+
+
+def decimal_point(value):
+    """``"512000,25"`` -> ``"512000.25"``; anything else as it is."""
+    if isinstance(value, str) and _DECIMAL_COMMA.fullmatch(value):
+        return value.replace(",", ".")
+    return value
 
 
 def _csv(read, reader: csv.DictReader, path: Path):

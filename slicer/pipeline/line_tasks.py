@@ -285,13 +285,14 @@ def plan_windows(settings: BuildSettings, info: SurveyInfo) -> Windows | None:
     if isinstance(settings.time_zero, str) or settings.slices_axis == ELEVATION:
         return windows  # elevation windows are fitted with the ground (reduce_survey)
     t0 = float(settings.time_zero)
-    if not 0 <= t0 < info.record_ns:
+    start, end = info.record_span_ns  # a NetCDF line's stored times may start late
+    if not start <= t0 < end:
         raise SettingsError(f"time zero {settings.time_zero} ns lies outside the record "
-                            f"(0 to {info.record_ns:g} ns)", where="--time-zero")
+                            f"({start:g} to {end:g} ns)", where="--time-zero")
     if windows is None:
         return None
     where = "--times" if settings.times is not None else "--depths"
-    return fit_windows(windows, info.record_ns - t0,
+    return fit_windows(windows, end - t0,
                        settings.resolved_velocity or settings.resolved_model, where)
 
 
@@ -344,7 +345,7 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
     where = "--times" if settings.times is not None else "--depths"
     windows = plan_windows(settings, info)
 
-    record_ns = (info.record_ns - float(settings.time_zero)
+    record_ns = (info.record_span_ns[1] - float(settings.time_zero)
                  if not isinstance(settings.time_zero, str) else None)
     dewow_ns, first, frequency = None, None, None
     # one migrated band for the survey (the first line's dominant frequency): every line is

@@ -16,6 +16,7 @@ This module imports nothing heavy: the command line builds its ``--help`` from i
 from __future__ import annotations
 
 import math
+import numbers
 import os
 from dataclasses import dataclass
 from pathlib import Path
@@ -74,7 +75,7 @@ class Option:
 
 
 def _number(o, value, where):
-    if isinstance(value, bool) or not isinstance(value, int | float):
+    if isinstance(value, bool) or not isinstance(value, numbers.Real):  # NumPy's too
         if isinstance(value, str):
             raise SettingsError(f"expected a number of {o.unit or 'units'}, got the text "
                                 f"{value!r} (write it without quotes)", where=where)

@@ -240,3 +240,16 @@ def test_random_round_trip(tmp_path, data, interval, twt0):
     np.testing.assert_array_equal(back["twt"].values, line["twt"].values)
     assert back.attrs["sample_interval_ns"] == interval
     np.testing.assert_array_equal(back["header_x"].values, line["x"].values)
+
+
+def test_times_stored_in_float32_are_taken_as_the_even_axis_they_round(tmp_path):
+    # 0.1 ns steps to 51 ns rounded to float32 (IEEE 754 single: 24-bit significand) vary by
+    # up to 4e-6 ns: still one even axis, not "uneven", and read back exactly even
+    twt = (0.1 * np.arange(512)).astype(np.float32)
+    assert np.ptp(np.diff(twt.astype(np.float64))) > 1e-6 * 0.1  # the rounding is there
+    path = _raw(tmp_path / "f32.nc", (("trace", "twt"), _data(3, 512)),
+                twt=("twt", twt, {"units": "ns"}))
+    line = read_line_netcdf(path)
+    np.testing.assert_allclose(line["twt"].values, 0.1 * np.arange(512), rtol=0, atol=2e-6)
+    assert np.ptp(np.diff(line["twt"].values)) < 1e-12
+    assert line.attrs["sample_interval_ns"] == pytest.approx(0.1, rel=1e-6)

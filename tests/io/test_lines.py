@@ -140,6 +140,21 @@ def test_non_finite_samples_are_zeroed_in_place_and_counted(tmp_path):
     np.testing.assert_array_equal(out, expected)
 
 
+def test_samples_whose_squares_overflow_float32_are_zeroed_and_counted(tmp_path):
+    # the largest float32 is 3.4e38 (IEEE 754 single), so a sample above its root, 1.8e19,
+    # squares to infinity and one such sample made its line's every envelope infinite
+    rng = np.random.default_rng(6)
+    data = rng.normal(size=(4, 64)).astype(np.float32)
+    data[1, 10], data[2, 20] = 3e38, -2e19
+    before = data.copy()
+    with pytest.warns(SlicerWarning, match=r"a\.sgy: 2 sample\(s\) up to 3e\+38.*set to 0"):
+        out = _zero_nonfinite(data, tmp_path / "a.sgy")
+    expected = np.where(np.abs(before) > 1.8e19, 0.0, before)
+    np.testing.assert_array_equal(out, expected)
+    with np.errstate(over="raise"):  # the envelope squares them: no overflow is left
+        assert np.isfinite(np.square(out, dtype=np.float32)).all()
+
+
 def test_finite_samples_pass_without_a_warning(tmp_path):
     data = np.arange(12, dtype=np.float32).reshape(3, 4)
     with warnings.catch_warnings():
@@ -147,20 +162,21 @@ def test_finite_samples_pass_without_a_warning(tmp_path):
         np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
 
 
-def test_finite_samples_whose_sum_overflows_pass_unchanged_with_a_warning(tmp_path):
-    # float32 holds values up to 3.4e38 (IEEE 754): four of 1e38 sum to infinity, yet every
-    # sample is finite, so nothing is zeroed; but their squares (an envelope's) overflow
-    # float32 above sqrt(3.4e38) = 1.8e19, which is said once
+def test_finite_samples_whose_squares_overflow_are_zeroed_and_the_rest_kept(tmp_path):
+    # float32 holds values up to 3.4e38 (IEEE 754): an envelope squares its samples, which
+    # overflows above sqrt(3.4e38) = 1.8e19; such samples are set to 0 and counted
     data = np.full((2, 2), 1e38, dtype=np.float32)
     with np.errstate(over="ignore"):
         assert not np.isfinite(data.sum()) and not np.isfinite(np.square(data)).any()
-    with pytest.warns(SlicerWarning, match=r"a\.nc: samples up to 1e\+38, beyond any "):
-        np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
+    with pytest.warns(SlicerWarning, match=r"a\.nc: 4 sample\(s\) up to 1e\+38, beyond any "):
+        np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), 0 * data)
     # one damaged trace of +-3e38 among ordinary ones (a sum in order cancels it)
     data = np.random.default_rng(2).normal(size=(5, 64)).astype(np.float32)
     data[3] = np.float32(3e38) * (-1) ** np.arange(64)
-    with pytest.warns(SlicerWarning, match=r"samples up to 3e\+38"):
-        np.testing.assert_array_equal(_zero_nonfinite(data.copy(), tmp_path / "a.nc"), data)
+    with pytest.warns(SlicerWarning, match=r"64 sample\(s\) up to 3e\+38.*20 % of the line"):
+        out = _zero_nonfinite(data.copy(), tmp_path / "a.nc")
+    np.testing.assert_array_equal(out[3], 0)
+    np.testing.assert_array_equal(np.delete(out, 3, axis=0), np.delete(data, 3, axis=0))
     data = np.full((2, 2), 1e19, dtype=np.float32)  # squares still finite: nothing said
     assert np.isfinite(np.square(data)).all()
     with warnings.catch_warnings():
@@ -172,8 +188,12 @@ def test_finite_samples_whose_sum_overflows_pass_unchanged_with_a_warning(tmp_pa
 @given(values=hnp.arrays(np.float32, hnp.array_shapes(min_dims=2, max_dims=2, max_side=40),
                          elements=st.floats(width=32, allow_nan=True, allow_infinity=True)))
 def test_zeroing_is_numpys_finite_mask_for_any_samples(values):
-    # numpy.isfinite as the reference: every NaN and infinity becomes 0, nothing else changes
-    expected = np.where(np.isfinite(values), values, np.float32(0))
+    # numpy.isfinite as the reference: every NaN and infinity becomes 0, and every sample
+    # beyond 1.8e19 (sqrt(3.4e38) rounded down: its float32 square may overflow); nothing
+    # else changes
+    with np.errstate(invalid="ignore"):
+        keep = np.isfinite(values) & (np.abs(values) <= 1.8e19)
+    expected = np.where(keep, values, np.float32(0))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
         out = _zero_nonfinite(values.copy(), Path("a.nc"))

@@ -33,6 +33,19 @@ def test_blank_lines_and_bom_are_tolerated(tmp_path):
     assert len(read_line_table(p)) == 1
 
 
+@pytest.mark.parametrize("text", [
+    # a spreadsheet in a locale with decimal commas exports semicolons (common practice)
+    "file;start_x;start_y;end_x;end_y\r\nL0.sgy;512000,25;4650000,5;512010,25;4650000,5\r\n",
+    "file\tstart_x\tstart_y\tend_x\tend_y\nL0.sgy\t512000.25\t4650000.5\t512010.25\t4650000.5\n",
+    # and may end every row with empty, unnamed columns
+    f"{HEADER},,\r\nL0.sgy,512000.25,4650000.5,512010.25,4650000.5,,\r\n",
+])
+def test_spreadsheet_exports_read_as_the_same_line(tmp_path, text):
+    (entry,) = read_line_table(write(tmp_path, text))
+    assert entry.file == tmp_path / "L0.sgy"
+    assert entry.start == (512000.25, 4650000.5) and entry.end == (512010.25, 4650000.5)
+
+
 @pytest.mark.parametrize("body, match", [
     ("", "empty"),
     (f"{HEADER}\n", "no lines"),

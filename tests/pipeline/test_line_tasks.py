@@ -306,3 +306,26 @@ def test_a_line_task_leaves_the_array_libraries_unloaded(small_survey, tmp_path)
     assert done.returncode == 0, done.stderr
     assert done.stdout.split()[0] == "LineImage"
     assert done.stdout.split()[-2:] == ["True", "[]"]
+
+
+def test_a_record_that_starts_late_is_measured_from_its_first_sample():
+    # NetCDF lines may store a delayed window: times 10-35.5 ns. Time zero at 13 ns leaves
+    # 22.5 ns of record, 1.125 m at 0.1 m/ns (d = v t / 2): eleven 0.1 m slices, not six
+    from types import SimpleNamespace
+
+    from slicer.geometry.survey import SurveyInfo
+    from slicer.io.lines import LineInfo
+    from slicer.pipeline.line_tasks import plan_windows
+    lines = tuple(LineInfo(path=f"L{k}.nc", n_traces=10, n_samples=256, sample_interval_ns=0.1,
+                           format="netcdf", first_sample_ns=start)
+                  for k, start in enumerate((10.0, 9.5)))
+    info = SurveyInfo(lines=lines, n_samples=256, sample_interval_ns=0.1, n_traces=20)
+    assert info.record_span_ns == (10.0, pytest.approx(35.0))  # what every line covers
+    settings = SimpleNamespace(requested_windows=make_windows(0.0, 1.1, 0.1), time_zero=13.0,
+                               slices_axis="depth", times=None, resolved_velocity=0.1,
+                               resolved_model=None)
+    assert len(plan_windows(settings, info)) == 11
+    for outside in (3.0, 35.0):
+        settings.time_zero = outside
+        with pytest.raises(slicer.SettingsError, match=r"outside the record \(10 to 35 ns\)"):
+            plan_windows(settings, info)
