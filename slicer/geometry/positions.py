@@ -39,6 +39,7 @@ from slicer.geometry.channels import (
     _with_positions,
 )
 from slicer.geometry.localgrid import _float_field, _read_table
+from slicer.geometry.repeats import REPEAT_SHARE, spread_repeats
 
 #: Track key columns and what they match on the line.
 TRACK_KEYS = ("trace", "time")
@@ -50,8 +51,6 @@ _MODIFIED_Z = 3.5
 _MAD_SIGMA = 0.6745
 #: A step is a jump only if also this many times the median step rate (guards a tiny MAD).
 _JUMP_FLOOR = 3.0
-#: Fraction of repeated consecutive header positions above which the reader is warned.
-_REPEAT_WARN = 0.1
 #: Jumps named individually in a warning before "and N more".
 _NAMED = 8
 
@@ -96,7 +95,9 @@ def positions_from_headers(line: xr.DataArray) -> xr.DataArray:
 
     The readers attach these as ``header_x`` / ``header_y`` (m), already scaled by the SEG-Y
     coordinate scalar (SEG-Y rev 1: positive multiplies, negative divides; rev 2: 0 means 1).
-    Jumps between consecutive traces are reported (warning), not removed.
+    Jumps between consecutive traces are reported (warning), not removed. Runs of traces
+    at one position (a receiver slower than the radar) are spread between the fixes
+    (:func:`slicer.geometry.repeats.spread_repeats`, warning).
 
     Parameters
     ----------
@@ -130,12 +131,12 @@ def positions_from_headers(line: xr.DataArray) -> xr.DataArray:
         raise InputFileError(f"every trace header holds the same position ({x[0]:.3f}, "
                              f"{y[0]:.3f}); the line cannot be placed from its headers",
                              where=where)
-    steps = np.hypot(np.diff(x), np.diff(y))
-    repeats = int(np.count_nonzero(steps == 0))
-    if repeats > _REPEAT_WARN * steps.size:
+    x, y, repeats = spread_repeats(x, y)
+    if repeats > REPEAT_SHARE * (x.size - 1):
         warn(f"{where}: {repeats} of {x.size} traces repeat the previous trace's header "
-             "position (coordinates updated less often than traces?); a GNSS track "
-             "interpolated to every trace would place them better")
+             "position (coordinates updated less often than traces?); they are spread "
+             "evenly between the fixes, by trace (a GNSS track with times places them better)")
+    steps = np.hypot(np.diff(x), np.diff(y))
     index = line[TRACE].values
     _report_jumps(steps, np.ones_like(steps), [f"traces {a}-{b}" for a, b in
                                                zip(index[:-1], index[1:], strict=True)],
