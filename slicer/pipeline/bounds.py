@@ -51,6 +51,7 @@ from slicer.pipeline.position_checks import (
     check_in_crs_area,
     check_not_degrees,
     trace_positions,
+    warn_odd_spacing,
 )
 
 #: A resampled line may hold at most this many times the traces recorded on it. Resampling
@@ -136,6 +137,7 @@ def check_bounds(settings, info: SurveyInfo, *, cell: float, memory_limit: int,
     line = np.concatenate([np.full(p[0].size, k) for k, p in enumerate(positions)])
     check_not_degrees(x, y, settings)
     check_in_crs_area(x, y, settings)
+    warn_odd_spacing(settings, positions)
     line_traces = check_resampling(settings, info, positions, memory_limit=memory_limit)
     grid = check_grid(settings, x, y, line, cell=cell, memory_limit=memory_limit,
                       positions=positions)

@@ -21,7 +21,7 @@ import pyproj
 import xarray as xr
 
 from slicer.core.conventions import TRACE, TWT, X, Y
-from slicer.core.errors import InputFileError, SettingsError, SlicerWarning
+from slicer.core.errors import InputFileError, SettingsError, SlicerWarning, warn
 from slicer.geometry.placement import even_positions
 from slicer.geometry.positioning import positioned, source_of, track_crs
 from slicer.io.linetable import LineEntry
@@ -281,3 +281,29 @@ def check_in_crs_area(x: np.ndarray, y: np.ndarray, settings) -> None:
 
 __all__ = ["check_far_positions", "check_in_crs_area", "check_not_degrees", "far_from_line",
            "placed_stub", "trace_positions"]
+
+
+# --- a line whose traces lie much farther apart, or closer, than the others' ---------------------
+
+#: A line's mean trace step this many times the survey's median, or less than its inverse, is
+#: named: a start or end mistyped by a digit stretches (or squeezes) one line's traces, and
+#: the grid, without anything else looking wrong.
+ODD_SPACING = 3.0
+
+
+def warn_odd_spacing(settings, positions) -> None:
+    """Warn (one message) of lines whose traces are :data:`ODD_SPACING` times farther apart,
+    or closer, than the survey's median line (three lines or more)."""
+    steps = np.array([float(np.hypot(np.diff(x), np.diff(y)).sum()) / max(x.size - 1, 1)
+                      for x, y in positions])
+    if steps.size < 3:
+        return
+    typical = float(np.median(steps))
+    odd = [k for k, s in enumerate(steps)
+           if not typical / ODD_SPACING <= s <= ODD_SPACING * typical]
+    if not typical > 0 or not odd:
+        return
+    named = ", ".join(f"{settings.lines[k].where} ({steps[k]:.3g} m)" for k in odd[:5])
+    more = f" and {len(odd) - 5} more" if len(odd) > 5 else ""
+    warn(f"traces lie {typical:.3g} m apart on most lines but not on {named}{more}: a start or "
+         "end point mistyped, or a line recorded at another trace interval?")

@@ -12,6 +12,7 @@ import collections
 import math
 import re
 import shutil
+import warnings
 
 import numpy as np
 import pytest
@@ -185,6 +186,26 @@ def test_line_table_typo_is_blamed_on_the_line_not_the_cell(survey, capsys, no_w
     line = refused(capsys, survey / "out", "build", survey / "typo.csv", *GOOD, "--out",
                    survey / "out", match="typo.csv:5: line L003.sgy lies")
     assert "--cell" not in line
+
+
+@pytest.mark.parametrize("factor", [0.2, 5.0])
+def test_a_line_stretched_by_a_typo_is_named_in_a_warning(factor):
+    # a row whose end is wrong by a digit but still near the survey spreads (or squeezes) its
+    # traces: 0.05 m apart on the other lines, 0.05 x factor on this one (geometry)
+    from types import SimpleNamespace
+
+    from slicer.pipeline.position_checks import warn_odd_spacing
+    lines = [SimpleNamespace(where=f"lines.csv:{k + 2}") for k in range(4)]
+    positions = [(512000.0 + 0.05 * np.arange(81), np.full(81, 4650000.0 + 0.5 * k))
+                 for k in range(4)]
+    positions[2] = (512000.0 + 0.05 * factor * np.arange(81), positions[2][1])
+    with pytest.warns(slicer.SlicerWarning, match=rf"0\.05 m apart on most lines but not on "
+                      rf"lines\.csv:4 \({0.05 * factor:.3g} m\)"):
+        warn_odd_spacing(SimpleNamespace(lines=lines), positions)
+    positions[2] = (512000.0 + 0.1 * np.arange(81), positions[2][1])  # twice: walking pace
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        warn_odd_spacing(SimpleNamespace(lines=lines), positions)
 
 
 def test_absurd_coordinate_gives_a_short_message(survey, capsys, no_work):
