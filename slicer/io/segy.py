@@ -1,9 +1,10 @@
 """SEG-Y radar lines: reading (one line at a time) and writing, through segyio.
 
 Byte positions below are 1-based, as the standards print them: SEG-Y rev 1 (Norris & Faichney
-eds., 2002) and rev 2.0 (Hagelund & Levin eds., 2017).  Only big-endian binary headers are read
-(segyio's default); files are always opened with ``ignore_geometry=True`` because a radar line
-has no inline/crossline geometry.
+eds., 2002) and rev 2.0 (Hagelund & Levin eds., 2017).  Files are big-endian as the standard
+says, or little-endian as some recorders write them (rev 2's byte-order constant at bytes
+3297-3300, or a sample format code that only reads as one little-endian); files are always
+opened with ``ignore_geometry=True`` because a radar line has no inline/crossline geometry.
 
 Sample interval convention (DEVELOPERS.md, "SEG-Y sample interval"): the integer microsecond
 field (bytes 3217-3218) cannot hold a radar interval (tenths of a nanosecond), so it is never
@@ -73,11 +74,20 @@ class _Layout:
     n_traces: int
     revision: int
     interval_ns: float | None
+    little: bool = False  #: little-endian headers and samples
 
 
-def _field(head: bytes, byte: int, code: str) -> int | float:
-    """A big-endian binary header field at 1-based ``byte``."""
-    return struct.unpack_from(">" + code, head, byte - 1)[0]
+def _field(head: bytes, byte: int, code: str, little: bool = False) -> int | float:
+    """A binary header field at 1-based ``byte`` (big-endian unless ``little``)."""
+    return struct.unpack_from(("<" if little else ">") + code, head, byte - 1)[0]
+
+
+def _little_endian(head: bytes) -> bool:
+    """Whether the headers are little-endian: rev 2's byte-order constant says so, or the
+    sample format code (bytes 3225-3226) is a known one only when read little-endian."""
+    if head[3500] >= 2 and head[3296:3300] == _LITTLE_ENDIAN_MARK:
+        return True
+    return _field(head, 3225, "h") not in _FORMATS and _field(head, 3225, "h", True) in _FORMATS
 
 
 def _inspect(path: Path) -> _Layout:
@@ -92,24 +102,24 @@ def _inspect(path: Path) -> _Layout:
     except OSError as exc:
         raise InputFileError(f"cannot read the file ({exc.strerror})", where=str(path)) from None
     revision = head[3500]
-    if revision >= 2 and head[3296:3300] == _LITTLE_ENDIAN_MARK:
-        raise InputFileError("little-endian SEG-Y binary header (bytes 3297-3300) is not "
-                             "supported", where=str(path))
-    code = _field(head, 3225, "h")
+    little = _little_endian(head)
+    code = _field(head, 3225, "h", little)
     if code not in _FORMATS:
+        order = (" read little-endian, as the byte-order constant (bytes 3297-3300) says,"
+                 if little else "")
         raise InputFileError(f"not a readable SEG-Y file: sample format code {code} (binary "
-                             f"header bytes 3225-3226) is not one of {sorted(_FORMATS)}",
-                             where=str(path))
+                             f"header bytes 3225-3226{order}) is not one of "
+                             f"{sorted(_FORMATS)}", where=str(path))
     fmt_name, bytes_per_sample = _FORMATS[code]
-    n_samples = _field(head, 3221, "H")
+    n_samples = _field(head, 3221, "H", little)
     if n_samples == 0:
         raise InputFileError("binary header states 0 samples per trace (bytes 3221-3222)",
                              where=str(path))
-    n_ext = _field(head, 3505, "h")
+    n_ext = _field(head, 3505, "h", little)
     if n_ext < 0:
         raise InputFileError("a variable number of extended textual headers is not supported",
                              where=str(path))
-    if revision >= 2 and _field(head, 3507, "i") != 0:
+    if revision >= 2 and _field(head, 3507, "i", little) != 0:
         raise InputFileError("additional trace headers (bytes 3507-3510) are not supported",
                              where=str(path))
     trace0 = _HEADERS_BYTES + _TEXT_BYTES * n_ext
@@ -125,7 +135,7 @@ def _inspect(path: Path) -> _Layout:
                              f"a whole number of {trace_bytes}-byte traces ({n_samples} samples, "
                              f"{fmt_name})", where=str(path))
     n_traces = data_bytes // trace_bytes
-    promised = _field(head, 3513, "Q") if revision >= 2 else 0
+    promised = _field(head, 3513, "Q", little) if revision >= 2 else 0
     if promised and promised != n_traces:
         raise InputFileError(f"truncated or inconsistent: binary header states {promised} "
                              f"traces (bytes 3513-3520), the file holds {n_traces}",
@@ -133,16 +143,17 @@ def _inspect(path: Path) -> _Layout:
     interval_ns = None
     if revision >= 2:
         # 12 significant digits drop the noise of the us -> ns conversion (0.1 ns stays 0.1).
-        interval_ns = float(f"{_field(head, 3273, 'd') * 1000.0:.12g}")
+        interval_ns = float(f"{_field(head, 3273, 'd', little) * 1000.0:.12g}")
     return _Layout(code, n_samples, n_traces, revision,
-                   interval_ns if _plausible_interval(interval_ns) else None)
+                   interval_ns if _plausible_interval(interval_ns) else None, little)
 
 
 @contextlib.contextmanager
 def _segyio_file(path: Path, layout: _Layout) -> Iterator[segyio.SegyFile]:
     """Open with segyio, turning its exceptions into InputFileError."""
     try:
-        with segyio.open(str(path), "r", ignore_geometry=True) as f:
+        with segyio.open(str(path), "r", ignore_geometry=True,
+                         endian="little" if layout.little else "big") as f:
             # memory-mapped reads: the samples and header fields are copied straight out of
             # the page cache instead of one read() call per trace (segyio falls back to plain
             # reads where mapping fails, and says so with False)
