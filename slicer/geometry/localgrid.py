@@ -30,7 +30,7 @@ from pathlib import Path
 import numpy as np
 
 from slicer.core.errors import InputFileError, SettingsError, warn
-from slicer.io.linetable import LineEntry, decimal_point, table_delimiter
+from slicer.io.linetable import LineEntry, decimal_point, table_delimiter, table_text
 
 KINDS = ("similarity", "affine")
 COLUMNS = ("name", "local_x", "local_y", "x", "y")
@@ -154,7 +154,7 @@ def _read_table(path: str | os.PathLike, what: str, columns: tuple[str, ...]
     """
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8-sig")
+        text = table_text(path)
     except FileNotFoundError:
         raise InputFileError(f"{what} not found", where=str(path)) from None
     except (OSError, ValueError) as exc:  # ValueError: undecodable, or a NUL in the path

@@ -18,6 +18,7 @@ from __future__ import annotations
 import contextlib
 import math
 import os
+import struct
 from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
@@ -48,7 +49,8 @@ _NS_UNITS = ("ns", "nanosecond", "nanoseconds")
 _SPACING_RTOL = 1e-6
 _ATTR_RTOL = 1e-3
 #: h5py / h5netcdf / xarray failures on a file that is not (valid) NetCDF-4.
-_NETCDF_ERRORS = (OSError, ValueError, KeyError, RuntimeError, TypeError)
+_NETCDF_ERRORS = (OSError, ValueError, KeyError, RuntimeError, TypeError, IndexError,
+                  OverflowError, struct.error)  # the last three: damaged classic files (SciPy)
 
 
 def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray, *,
@@ -123,15 +125,29 @@ class _Contents:
 def _open(path: Path) -> Iterator[xr.Dataset]:
     """Open a line file, turning the NetCDF stack's exceptions into InputFileError."""
     _check_file(path)
-    _check_hdf5(path)
+    classic = _netcdf3(path)
+    if not classic:
+        _check_hdf5(path)
     try:
         # No CF time decoding: "ns" units on twt must stay plain float64 nanoseconds.
-        with xr.open_dataset(path, engine=_ENGINE, decode_times=False,
+        with xr.open_dataset(path, engine="scipy" if classic else _ENGINE, decode_times=False,
                              decode_timedelta=False) as ds:
             yield ds
     except _NETCDF_ERRORS as exc:
-        raise InputFileError(f"not a readable NetCDF-4 line file ({exc})",
+        kind = "NetCDF-3" if classic else "NetCDF-4"
+        raise InputFileError(f"not a readable {kind} line file ({exc})",
                              where=str(path)) from None
+
+
+def _netcdf3(path: Path) -> bool:
+    """Whether the file is classic NetCDF (format 1 or 2, 64-bit offsets: magic ``CDF\\x01``
+    or ``CDF\\x02``), which SciPy's reader opens; xarray writes it where netCDF4 is
+    missing."""
+    try:
+        with open(path, "rb") as fh:
+            return fh.read(4) in (b"CDF\x01", b"CDF\x02")
+    except OSError:
+        return False
 
 
 def _check_hdf5(path: Path) -> None:

@@ -67,7 +67,8 @@ class LineInfo:
 def _check_file(path: Path) -> int:
     """Refuse a missing, non-regular or empty file; return its size in bytes."""
     if not path.exists():
-        raise InputFileError("file not found", where=str(path))
+        hint = (" (a Windows path? separate folders with /)" if "\\" in str(path) else "")
+        raise InputFileError(f"file not found{hint}", where=str(path))
     if not path.is_file():
         raise InputFileError("not a regular file", where=str(path))
     size = path.stat().st_size

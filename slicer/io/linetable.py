@@ -156,11 +156,11 @@ def make_entry(fields: dict, *, base: Path, where: str, ends: bool = True) -> Li
     need_ends = ends if source is None else source == "table"
     if not need_ends and all(str(fields.get(c) or "").strip() == "" for c in COLUMNS[1:]):
         nan = (math.nan, math.nan)
-        return LineEntry(file=(base / str(name).strip()), start=nan, end=nan, where=where,
+        return LineEntry(file=_file_path(base, name), start=nan, end=nan, where=where,
                          **extra)
     sx, sy, ex, ey = (_number(None if fields.get(c) is None else str(fields.get(c)), c, where)
                       for c in COLUMNS[1:])
-    entry = LineEntry(file=(base / str(name).strip()), start=(sx, sy), end=(ex, ey), where=where,
+    entry = LineEntry(file=_file_path(base, name), start=(sx, sy), end=(ex, ey), where=where,
                       **extra)
     if entry.length == 0:
         raise LineTableError("line has zero length (start and end points coincide)",
@@ -204,7 +204,7 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
     """
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8-sig")
+        text = table_text(path)
     except FileNotFoundError:
         raise LineTableError("line table not found", where=str(path)) from None
     except (OSError, ValueError) as exc:  # ValueError: undecodable, or a NUL in the path
@@ -245,6 +245,42 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
         raise LineTableError("line table has no lines", where=str(path))
     check_unique(entries)
     return entries
+
+
+def table_text(path: Path) -> str:
+    """The text of a table file: UTF-8 (with or without a byte-order mark), UTF-16 with its
+    mark, or else Windows-1252, the encoding spreadsheets on Windows save "CSV" in.
+
+    Raises
+    ------
+    OSError
+        The file cannot be read (FileNotFoundError when missing).
+    ValueError
+        A byte no encoding above maps (naming its line).
+    """
+    data = path.read_bytes()
+    if data.startswith((b"\xff\xfe", b"\xfe\xff")):
+        return data.decode("utf-16")
+    try:
+        return data.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        try:
+            return data.decode("cp1252")
+        except UnicodeDecodeError as exc:
+            line = data[:exc.start].count(b"\n") + 1
+            raise ValueError(f"line {line} holds byte 0x{data[exc.start]:02x}, which is text in "
+                             "neither UTF-8 nor Windows-1252; save the table as UTF-8") from None
+
+
+def _file_path(base: Path, name) -> Path:
+    """``name`` beside the table; a Windows path (``raw\\L000.sgy``) on a system that
+    separates folders with ``/`` is taken with ``/`` when only that file exists."""
+    path = base / str(name).strip()
+    if "\\" in str(name) and os.sep == "/" and not path.exists():
+        posix = base / str(name).strip().replace("\\", "/")
+        if posix.exists():
+            return posix
+    return path
 
 
 def table_delimiter(lines: list[str]) -> str:

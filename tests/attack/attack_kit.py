@@ -111,6 +111,16 @@ class Seeds:
     survey: dict[str, bytes]  # a whole valid survey folder: file name -> bytes
 
 
+def _classic(path, line):
+    """A line as classic NetCDF (format 1), as xarray writes it where netCDF4 is missing."""
+    import xarray as xr
+
+    from slicer.io.linefile import write_line_netcdf
+    write_line_netcdf(path.with_suffix(".nc4"), line)
+    with xr.open_dataset(path.with_suffix(".nc4"), engine="h5netcdf") as ds:
+        ds.load().to_netcdf(path, format="NETCDF3_CLASSIC", engine="scipy")
+
+
 @functools.cache
 def seeds() -> Seeds:
     """Radar lines (SEG-Y IEEE, IBM and int16; NetCDF) and a small survey around them."""
@@ -139,6 +149,7 @@ def seeds() -> Seeds:
         unplaced = lines[1].drop_vars([c for c in ("x", "y", "distance")
                                        if c in lines[1].coords])
         netcdf["no-xy"] = written(write_line_netcdf, "b.nc", unplaced)
+        netcdf["classic"] = written(_classic, "c.nc", lines[2])  # NetCDF-3, read by SciPy
         survey = {f"L00{k}.sgy": written(write_segy_line, f"L00{k}.sgy", line)
                   for k, line in enumerate(lines)}
     texts = {"lines.csv": LINE_TABLE, "local.csv": LOCAL_LINE_TABLE, "track.csv": TRACK_XY,

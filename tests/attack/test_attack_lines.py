@@ -114,7 +114,7 @@ def test_netcdf_mutants_that_hang_libhdf5(case, tmp_path):
 def test_the_seeds_themselves_read(tmp_path):
     """The mutation starts from valid files: each seed reads back whole."""
     for name, data in {**seeds().segy, **seeds().netcdf}.items():
-        suffix = ".nc" if data.startswith(b"\x89HDF") else ".sgy"
+        suffix = ".nc" if data.startswith((b"\x89HDF", b"CDF")) else ".sgy"
         path = Mutant("seed", data).materialise(tmp_path / f"{name}{suffix}")
         line = read_all(path, name, segy=suffix == ".sgy")
         assert not failed(line), f"seed {name}: {line}"

@@ -254,3 +254,16 @@ def test_times_stored_in_float32_are_taken_as_the_even_axis_they_round(tmp_path)
     np.testing.assert_allclose(line["twt"].values, 0.1 * np.arange(512), rtol=0, atol=2e-6)
     assert np.ptp(np.diff(line["twt"].values)) < 1e-12
     assert line.attrs["sample_interval_ns"] == pytest.approx(0.1, rel=1e-6)
+
+
+@pytest.mark.parametrize("fmt", ["NETCDF3_CLASSIC", "NETCDF3_64BIT"])
+def test_classic_netcdf_lines_read_as_their_netcdf4_twins(tmp_path, good, fmt):
+    # xarray writes classic NetCDF where netCDF4 is missing; SciPy reads formats 1 and 2
+    # (magic CDF\x01, CDF\x02: the NetCDF classic format specification, Unidata)
+    with xr.open_dataset(good, engine="h5netcdf") as ds:
+        ds.load().to_netcdf(tmp_path / "classic.nc", format=fmt, engine="scipy")
+    assert (tmp_path / "classic.nc").read_bytes()[:4] in (b"CDF\x01", b"CDF\x02")
+    back, twin = read_line_netcdf(tmp_path / "classic.nc"), read_line_netcdf(good)
+    np.testing.assert_array_equal(back.values, twin.values)
+    np.testing.assert_array_equal(back["twt"].values, twin["twt"].values)
+    assert back.attrs["sample_interval_ns"] == twin.attrs["sample_interval_ns"]

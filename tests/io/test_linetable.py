@@ -80,3 +80,29 @@ def test_any_bad_field_raises_only_line_table_errors(field):
         except LineTableError:
             return
         assert len(entries) >= 1  # a field that parses as a number (or splits cleanly) is fine
+
+
+def test_a_windows_spreadsheet_table_reads(tmp_path):
+    # saved by a spreadsheet on Windows: Windows-1252 text (a name with an e-acute, byte 0xe9)
+    # and a backslash between folders; the file lies in raw/ here
+    (tmp_path / "raw").mkdir()
+    (tmp_path / "raw" / "Léa_01.sgy").write_bytes(b"")
+    text = f"{HEADER}\r\nraw\\Léa_01.sgy,0,0,10,0\r\n".encode("cp1252")
+    assert b"\xe9" in text
+    (entry,) = read_line_table(write_bytes(tmp_path, text))
+    assert entry.file == tmp_path / "raw" / "Léa_01.sgy"
+    utf16 = f"{HEADER}\nLéa_01.sgy,0,0,10,0\n".encode("utf-16")  # with its byte-order mark
+    (entry,) = read_line_table(write_bytes(tmp_path, utf16, "u16.csv"))
+    assert entry.file.name == "Léa_01.sgy"
+
+
+def test_bytes_no_encoding_maps_name_their_line(tmp_path):
+    text = f"{HEADER}\nL0.sgy,0,0,10,0\nL\x81.sgy,0,1,10,1\n".encode("latin-1")  # 0x81: none
+    with pytest.raises(LineTableError, match=r"line 3 holds byte 0x81.*save the table as UTF-8"):
+        read_line_table(write_bytes(tmp_path, text))
+
+
+def write_bytes(tmp_path, data, name="lines.csv"):
+    p = tmp_path / name
+    p.write_bytes(data)
+    return p
