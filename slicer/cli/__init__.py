@@ -90,6 +90,10 @@ def make_parser() -> argparse.ArgumentParser:
                          "by about sqrt(c / (c - R)) for the centre at depth c; with @ and a "
                          "route (x,y pairs in the survey CRS) only for the fits within 0.5 m "
                          "of it; repeat for several targets (one without a route at most)")
+    ve.add_argument("--earliest", type=floats, metavar="NS",
+                    help="earliest apex time searched, ns after time zero (default two periods "
+                         "of the dominant frequency, below the direct wave's remains): lower it "
+                         "for targets just under the surface, such as rebar at a few cm cover")
     ve.add_argument("--out", metavar="DIR", help="write velocity.toml and figures/ here")
     ve.add_argument("--overwrite", action="store_true", help="allow a non-empty --out")
     ve.add_argument("--json", action="store_true", help="print one JSON object on stdout")
@@ -269,7 +273,7 @@ def _run_velocity(args) -> int:
         figures = Path(args.out) / "figures"
     analysis = analyse_velocity(settings, progress=not args.quiet, figures=figures,
                                 antenna_height=settings.antenna_height,
-                                target_radius=targets or None)
+                                target_radius=targets or None, earliest=args.earliest)
     if args.out:
         write_velocity_outputs(analysis, args.out, overwrite=True)
     if settings.antenna_height is None:  # on stderr: --json keeps stdout for the JSON

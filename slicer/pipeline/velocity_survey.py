@@ -24,10 +24,10 @@ from slicer.core.progress import bar_for
 from slicer.geometry.survey import load_line, survey_info
 from slicer.pipeline.settings import BuildSettings
 from slicer.pipeline.velocity_figures import line_picture, plot_line_fits
-from slicer.processing.steps import correct_time_zero
+from slicer.processing.steps import correct_time_zero, dominant_frequency
 from slicer.velocity.combine import survey_velocity
 from slicer.velocity.coupling import HEIGHT_STD, correct_for_coupling
-from slicer.velocity.diffraction import find_diffractions
+from slicer.velocity.diffraction import DEFAULT_VELOCITIES, find_diffractions
 from slicer.velocity.model_file import write_velocity_model
 from slicer.velocity.models import ConstantVelocity
 from slicer.velocity.targets import TargetRadius, radius_for, target_radius
@@ -116,7 +116,7 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
                      figures: str | os.PathLike | None = None,
                      separation: float | None = None, antenna_height: float | None = None,
                      height_std: float = HEIGHT_STD,
-                     target_radius=None) -> VelocityAnalysis:
+                     target_radius=None, earliest: float | None = None) -> VelocityAnalysis:
     """Find and fit the diffraction hyperbolas of every line; combine them.
 
     Parameters
@@ -149,6 +149,10 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
         coupling correction), whose velocity is otherwise read fast as a point's and cannot
         be fitted with a free radius (:mod:`slicer.velocity.targets`). The radius's
         uncertainty is carried into the systematic uncertainty.
+    earliest : float, optional
+        Earliest apex time searched, ns (default two dominant periods, below what remains of
+        the direct wave): lower it for targets right under the surface (rebar at 2-5 cm
+        cover in concrete).
     """
     from slicer.geometry.positioning import prepare_survey
     if separation is None:
@@ -165,14 +169,28 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
             line = correct_time_zero(line, time_zero=settings.time_zero,
                                      threshold=settings.time_zero_threshold,
                                      separation=separation)
-            found = find_diffractions(line, separation=separation)
+            found = find_diffractions(line, separation=separation, min_time=earliest)
             if antenna_height is not None or targets:
                 found = _refit(line, found, antenna_height, separation, height_std, targets)
             fits.extend(found)
             if figures is not None:  # drawn once the survey's velocity and choice are known
                 pictures.append((line_picture(line, settings), found))
             bar.update(line.sizes["trace"])
-    estimate = survey_velocity(fits)
+    try:
+        estimate = survey_velocity(fits)
+    except SettingsError as exc:  # say where the search looked: shallow targets lie above it
+        if len(fits) >= 3:
+            raise
+        try:
+            start = (f"{earliest:g} ns" if earliest is not None else
+                     f"{2.0 / dominant_frequency(line):.3g} ns (two periods of the dominant "
+                     "frequency)")
+        except SettingsError:  # a silent last line: no frequency to say it by
+            start = "two periods of the dominant frequency"
+        raise SettingsError(f"{exc.message}: apexes were searched from {start} down, at "
+                            f"velocities {DEFAULT_VELOCITIES[0]:g}-{DEFAULT_VELOCITIES[-1]:g} "
+                            "m/ns; for targets just under the surface give --earliest NS",
+                            where=exc.where) from None
     for image, found in pictures:
         plot_line_fits(image, found, Path(figures) / f"{image.attrs['line']}.png",
                        kept=estimate.kept, velocity=float(estimate.velocity))

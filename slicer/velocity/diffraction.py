@@ -316,6 +316,9 @@ def find_diffractions(line: xr.DataArray, *, velocities=None, aperture: float = 
     dxs, dts = step * dx, kt * dt
     t0s = t_axis[0] + dts * np.arange(scan.shape[1])
     earliest = 2.0 * period if min_time is None else real(min_time, where="min_time")
+    if not (math.isfinite(earliest) and earliest >= 0):
+        raise SettingsError(f"must be a time after time zero (0 ns or more), got {earliest!r}",
+                            where="min_time")
     searched = np.nonzero((t0s >= earliest) & (t0s <= t_axis[-1] - period))[0]
     if searched.size == 0:
         return []

@@ -182,3 +182,10 @@ def test_a_bad_target_radius_is_refused(analysed, given):
     _, _, settings = analysed
     with pytest.raises(SettingsError):
         analyse_velocity(settings, progress=False, target_radius=given)
+
+
+def test_a_search_that_finds_nothing_says_where_it_looked(small_survey):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1, time_zero=3.0)
+    with pytest.raises(SettingsError, match=r"0 usable hyperbola fits.*searched from 45 ns "
+                       r"down, at velocities 0\.05-0\.2 m/ns.*--earliest"):
+        analyse_velocity(settings, progress=False, earliest=45.0)  # below both targets

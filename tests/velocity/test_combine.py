@@ -127,6 +127,26 @@ def test_obliquely_crossed_linear_targets_do_not_pull_the_estimate(seed):
             assert math.sin(math.radians(a.angle)) == pytest.approx(truth, rel=0.01)
 
 
+@pytest.mark.parametrize("seed", [0, 1])
+def test_a_grid_of_close_bars_is_not_chained_across_bars(seed):
+    # concrete: bars 0.2 m apart, crossed at right angles by lines 0.05 m apart, 0.15 m deep.
+    # Apexes of neighbouring bars on neighbouring lines lie on slanted straight lines too
+    # (a lattice); chained with the 0.15 m default tolerance they read as targets crossed at
+    # about 55 degrees and their fits were "corrected" by sin(55) (-16 %). A right-angle
+    # crossing needs no correction (apparent velocity v / sin(90) = v: geometry)
+    rng = np.random.default_rng(seed)
+    fits = [record(f"L{k:02d}", 0.12 * (1 + 0.01 * rng.standard_normal()),
+                   x=0.2 * m + 0.003 * rng.standard_normal(), y=0.05 * k, time=2.5,
+                   heading=0.0 if k % 2 == 0 else 180.0)
+            for k in range(21) for m in range(6)]
+    for f in fits:
+        f.period = 0.5  # a 2 GHz wavelet
+    estimate = survey_velocity(fits)
+    assert estimate.velocity == pytest.approx(0.12, rel=0.01)
+    angles = [a.angle for a in estimate.assessed if not math.isnan(a.angle)]
+    assert angles and min(angles) > 85.0
+
+
 def test_a_linear_target_seen_on_two_lines_is_outvoted():
     # too few lines to measure its angle: its fits stay fast and form a small group
     rng = np.random.default_rng(7)
@@ -178,3 +198,11 @@ def test_records_without_geometry_and_bad_options():
     assert info.value.where == "survey_velocity"
     with pytest.raises(SettingsError, match="positive integer"):
         survey_velocity(fits, resamples=0)
+
+
+def test_a_velocity_from_a_handful_of_fits_is_flagged():
+    fits = [record(f"L{k % 2}", V * (1 + 0.002 * k), x=0.5 * k, y=0.5 * (k % 2))
+            for k in range(4)]
+    with pytest.warns(SlicerWarning, match=r"rests on 4 fit\(s\) on 2 line\(s\) only"):
+        estimate = survey_velocity(fits)
+    assert estimate.velocity == pytest.approx(V, rel=0.01)

@@ -170,3 +170,23 @@ def test_find_diffractions_refuses_bad_options(survey, kwargs, where):
     with pytest.raises(SettingsError) as info:
         find_diffractions(survey.lines[0], **kwargs)
     assert info.value.where == where
+
+
+def test_bars_just_under_the_surface_are_found_from_an_earlier_start():
+    # concrete: a bar under 5 cm of cover at 0.12 m/ns has its apex at 2 d / v = 0.83 ns,
+    # above the default search start (two dominant periods, about 1 ns at 2 GHz); searched
+    # from 0.5 ns it is found and fitted (geometry of the synthetic scene)
+    from slicer.synthetic import grid_lines
+    ground = Ground(velocity=0.12, attenuation_db_per_m=20.0,
+                    targets=(LineTarget(-1.0, 0.5, 1.0, 0.5, 0.05, amplitude=0.03),))
+    radar = Radar(frequency_mhz=2000.0, sample_interval_ns=0.025, samples=400,
+                  time_zero_ns=1.5, seed=1)
+    plan = grid_lines(west=0.0, south=0.0, length=1.0, width=0.0001, line_spacing=0.05,
+                      trace_spacing=0.01, direction="y")[0]
+    line = correct_time_zero(simulate_line(ground, radar, plan), time_zero="auto")
+    assert find_diffractions(line) == []
+    (found,) = find_diffractions(line, min_time=0.5)
+    assert found.velocity == pytest.approx(0.12, rel=0.02)
+    assert found.depth == pytest.approx(0.05, abs=0.01)
+    with pytest.raises(SettingsError, match="min_time"):
+        find_diffractions(line, min_time=-1.0)
