@@ -78,3 +78,23 @@ def test_slices_refuse_a_file_of_a_slice_name_before_writing_any(tmp_path):
     assert info.value.where == str(first[0])  # the first name met is named
     assert first[0].read_bytes() == kept and first[1].read_bytes() == USER_TEXT
     assert sorted(tmp_path.iterdir()) == sorted(first)
+
+
+def test_a_slice_file_that_appears_during_the_write_is_not_replaced(tmp_path, monkeypatch):
+    # the names are checked before writing; one created meanwhile (another program) is met by
+    # the hard link that puts each slice in place, which cannot replace it (POSIX link(2))
+    from slicer.outputs import geotiff
+    original = geotiff.SliceTiffWriter.write_slice
+
+    def write_then_intrude(self, index, values):
+        original(self, index, values)
+        if index == 0:
+            self.paths[1].write_bytes(USER_TEXT)
+
+    monkeypatch.setattr(geotiff.SliceTiffWriter, "write_slice", write_then_intrude)
+    with pytest.raises(OutputError, match="already exists") as info:
+        write_slice_geotiffs(_cube(), tmp_path, progress=False)
+    assert info.value.where.endswith(".tif") and "001" in info.value.where
+    intruder = next(p for p in tmp_path.iterdir() if p.read_bytes() == USER_TEXT)
+    assert intruder.read_bytes() == USER_TEXT
+    assert not [p for p in tmp_path.iterdir() if ".tmp" in p.name]  # no temporary left

@@ -131,7 +131,7 @@ def atomic_path(path: str | os.PathLike, *, overwrite: bool = True) -> Iterator[
         if overwrite:
             os.replace(tmp_path, path)
         else:
-            _put_new(tmp_path, path)
+            put_new(tmp_path, path)
     except BaseException:
         with contextlib.suppress(FileNotFoundError):
             tmp_path.unlink()
@@ -148,7 +148,7 @@ def refuse_existing(path: str | os.PathLike, *, overwrite: bool) -> Path:
     return path
 
 
-def _put_new(tmp_path: Path, path: Path) -> None:
+def put_new(tmp_path: Path, path: Path) -> None:
     """Move ``tmp_path`` to ``path`` only if nothing is there (a link cannot clobber)."""
     try:
         os.link(tmp_path, path)

@@ -4,6 +4,7 @@ not a TypeError from deep inside NumPy."""
 
 from __future__ import annotations
 
+import decimal
 import numbers
 
 import numpy as np
@@ -12,7 +13,8 @@ from slicer.core.errors import SettingsError
 
 
 def real(value, *, where: str) -> float:
-    """``value`` as a float if it is a real number (Python or NumPy; not a bool).
+    """``value`` as a float if it is one real number: a Python or NumPy number, a Decimal or
+    Fraction, or a 0-d array of numbers (``cube.depth.max()``); not a bool, text or None.
 
     Range checks stay with the caller, who knows the units; this only refuses what is not a
     number at all.
@@ -20,11 +22,18 @@ def real(value, *, where: str) -> float:
     Raises
     ------
     SettingsError
-        ``value`` is not a real number.
+        ``value`` is not one real number.
     """
-    if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise SettingsError(f"expected a number, got {value!r:.60}", where=where)
-    return float(value)
+    if not isinstance(value, bool | np.bool_ | str | bytes) and value is not None:
+        if isinstance(value, numbers.Real | decimal.Decimal):
+            return float(value)
+        try:
+            array = np.asarray(value)
+        except (TypeError, ValueError):
+            array = None
+        if array is not None and array.ndim == 0 and array.dtype.kind in "iuf":
+            return float(array)
+    raise SettingsError(f"expected a number, got {value!r:.60}", where=where)
 
 
 def reals(values, *, where: str) -> np.ndarray:

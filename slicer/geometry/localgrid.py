@@ -156,24 +156,26 @@ def _read_table(path: str | os.PathLike, what: str, columns: tuple[str, ...]
     try:
         text = table_text(path)
     except FileNotFoundError:
-        raise InputFileError(f"{what} not found", where=str(path)) from None
+        hint = " (a Windows path? separate folders with /)" if "\\" in str(path) else ""
+        raise InputFileError(f"{what} not found{hint}", where=str(path)) from None
     except (OSError, ValueError) as exc:  # ValueError: undecodable, or a NUL in the path
         raise InputFileError(f"cannot read {what} ({exc})", where=str(path)) from None
     lines = text.splitlines()
     delimiter = table_delimiter(lines)
     reader = csv.DictReader(lines, delimiter=delimiter)
     try:
-        header = [h.strip() for h in (reader.fieldnames or []) if h.strip()]
+        named = [h.strip() for h in (reader.fieldnames or [])]
     except csv.Error as exc:
         raise InputFileError(f"not a readable CSV {what} ({exc})",
                              where=f"{path}:{reader.reader.line_num}") from None
+    header = [h for h in named if h]  # an unnamed column (a spreadsheet's index) is skipped
     if not header:
         raise InputFileError(f"{what} is empty (no header row)", where=str(path))
     missing = [c for c in columns if c not in header]
     if missing:
         raise InputFileError(f"missing column(s) {', '.join(missing)} in {what}; header is "
                              f"{','.join(header)}", where=str(path))
-    reader.fieldnames = header
+    reader.fieldnames = named  # every column, unnamed ones too: nothing shifts
     rows = []
     try:
         records = list(reader)
@@ -183,10 +185,10 @@ def _read_table(path: str | os.PathLike, what: str, columns: tuple[str, ...]
     for number, row in enumerate(records, start=2):
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue
-        if delimiter == ";":  # decimal commas with it
+        if delimiter != ",":  # decimal commas with it
             row = {k: decimal_point(v) for k, v in row.items()}
         rows.append((number, {k: (v or "").strip() if isinstance(v, str) else ""
-                              for k, v in row.items() if k is not None}))
+                              for k, v in row.items() if k}))
     return path, header, rows
 
 

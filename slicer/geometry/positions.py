@@ -39,7 +39,7 @@ from slicer.geometry.channels import (
     _with_positions,
 )
 from slicer.geometry.localgrid import _float_field, _read_table
-from slicer.geometry.repeats import REPEAT_SHARE, spread_repeats
+from slicer.geometry.repeats import spread_repeats
 
 #: Track key columns and what they match on the line.
 TRACK_KEYS = ("trace", "time")
@@ -131,11 +131,7 @@ def positions_from_headers(line: xr.DataArray) -> xr.DataArray:
         raise InputFileError(f"every trace header holds the same position ({x[0]:.3f}, "
                              f"{y[0]:.3f}); the line cannot be placed from its headers",
                              where=where)
-    x, y, repeats = spread_repeats(x, y)
-    if repeats > REPEAT_SHARE * (x.size - 1):
-        warn(f"{where}: {repeats} of {x.size} traces repeat the previous trace's header "
-             "position (coordinates updated less often than traces?); they are spread "
-             "evenly between the fixes, by trace (a GNSS track with times places them better)")
+    x, y = spread_repeats(x, y, where=where)
     steps = np.hypot(np.diff(x), np.diff(y))
     index = line[TRACE].values
     _report_jumps(steps, np.ones_like(steps), [f"traces {a}-{b}" for a, b in

@@ -187,7 +187,7 @@ def _optional(fields: dict, *, base: Path, where: str) -> dict:
             raise LineTableError(f"column {column}: {text!r} holds a NUL character",
                                  where=where)
         else:
-            out[column] = base / text
+            out[column] = _file_path(base, text)
     return out
 
 
@@ -237,7 +237,7 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
     for row_number, row in enumerate(_csv(lambda: list(reader), reader, path), start=2):
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue  # blank line
-        if delimiter == ";":  # a semicolon table's numbers may have decimal commas
+        if delimiter != ",":  # then its numbers may have decimal commas
             row = {k: decimal_point(v) for k, v in row.items()}
         entries.append(make_entry(row, base=path.parent, where=f"{path}:{row_number}",
                                   ends=ends))

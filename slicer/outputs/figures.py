@@ -298,8 +298,10 @@ def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,
     """
     slice_axis(cube)  # refuses anything that is not a cube
     n_slices = cube.shape[0]
-    if isinstance(index, bool) or not isinstance(index, int | np.integer):
+    number = real(index, where="index")
+    if not number.is_integer():
         raise SettingsError(f"a slice index is a whole number, got {index!r:.60}", where="index")
+    index = int(number)
     vmin, vmax = (None if v is None else real(v, where=w) for v, w in ((vmin, "vmin"),
                                                                          (vmax, "vmax")))
     if not -n_slices <= int(index) < n_slices:

@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from slicer.core.atomic import refuse_existing, temp_file
+from slicer.core.atomic import put_new, refuse_existing, temp_file
 from slicer.core.conventions import DEPTH, ELEVATION, TWT, UNITS
 from slicer.core.errors import OutputError, SettingsError
 from slicer.core.progress import progress_bar
@@ -346,14 +346,16 @@ class SliceTiffWriter:
             raise
         self._state = "closed"
 
-    def commit(self) -> list[Path]:
-        """Close the files and rename each to its final name; return the final paths."""
+    def commit(self, *, overwrite: bool = True) -> list[Path]:
+        """Close the files and rename each to its final name; return the final paths.
+        Without ``overwrite`` a file that took a final name meanwhile is not replaced
+        (:func:`slicer.core.atomic.put_new`: OutputError)."""
         self.close()
         done = 0
         try:
             for tmp, path in zip(self._temps, self.paths, strict=True):
                 with self._naming(path):
-                    os.replace(tmp, path)
+                    (os.replace if overwrite else put_new)(tmp, path)
                 done += 1
         except BaseException:
             self._remove(self._temps[done:])
@@ -488,4 +490,4 @@ def write_slice_geotiffs(cube: xr.DataArray, folder: str | os.PathLike, *,
         for i in progress_bar(range(cube.shape[0]), desc=f"GeoTIFF {axis} slices",
                               unit="slice", enabled=progress):
             writer.write_slice(i, np.asarray(data[i]))  # one slice in memory at a time
-        return writer.commit()
+        return writer.commit(overwrite=overwrite)

@@ -144,7 +144,8 @@ def _linear_targets(pos, time, logv, line, period, *, tolerance, plan_tolerance,
     alike = ((np.abs(time[:, None] - time[None, :]) <= np.minimum(slack[:, None], slack[None, :]))
              & (np.abs(logv[:, None] - logv[None, :]) <= tolerance))
     _, line_id = np.unique(line, return_inverse=True)
-    plan_tolerance = min(plan_tolerance, _lattice_tolerance(pos, alike, line_id, free))
+    plan_tolerance = min(plan_tolerance, _lattice_tolerance(pos, alike, line_id, free,
+                                                            plan_tolerance))
     chains = []
     while True:
         best, best_count = None, min_lines - 1
@@ -184,18 +185,21 @@ def _linear_targets(pos, time, logv, line, period, *, tolerance, plan_tolerance,
 LATTICE_SHARE = 0.25
 
 
-def _lattice_tolerance(pos, alike, line_id, free) -> float:
+def _lattice_tolerance(pos, alike, line_id, free, plan_tolerance: float) -> float:
     """:data:`LATTICE_SHARE` of the median distance from an apex to the nearest alike apex
-    on its own line (inf when no line holds two): targets packed closer than the default
-    tolerance must not be confused with one another."""
+    on its own line, when most apexes have one closer than ``plan_tolerance /
+    LATTICE_SHARE`` (a lattice of targets, which must not be confused with one another);
+    else inf (two stones close together on one line do not narrow a wall's band)."""
     same = alike & (line_id[:, None] == line_id[None, :]) & free[:, None] & free[None, :]
     np.fill_diagonal(same, False)
     if not same.any():
         return math.inf
     dist = np.hypot(pos[:, None, 0] - pos[None, :, 0], pos[:, None, 1] - pos[None, :, 1])
-    nearest = np.where(same, dist, np.inf).min(axis=1)
-    nearest = nearest[np.isfinite(nearest) & (nearest > 0)]
-    return LATTICE_SHARE * float(np.median(nearest)) if nearest.size else math.inf
+    nearest = np.where(same, dist, np.inf).min(axis=1)[free]
+    packed = (nearest > 0) & (nearest < plan_tolerance / LATTICE_SHARE)
+    if packed.sum() <= 0.5 * nearest.size:
+        return math.inf
+    return LATTICE_SHARE * float(np.median(nearest[packed]))
 
 
 def _strike(points: np.ndarray) -> tuple[float, float]:

@@ -206,3 +206,18 @@ def test_a_velocity_from_a_handful_of_fits_is_flagged():
     with pytest.warns(SlicerWarning, match=r"rests on 4 fit\(s\) on 2 line\(s\) only"):
         estimate = survey_velocity(fits)
     assert estimate.velocity == pytest.approx(V, rel=0.01)
+
+
+def test_two_stones_close_together_do_not_narrow_a_walls_band():
+    # one pair of stones 0.1 m apart on one line is no lattice: the wall's apexes, scattered
+    # by 5 cm about its axis, still chain on every line and the walls read v / sin(a)
+    rng = np.random.default_rng(4)
+    fits = oblique_survey(rng, angles=(45.0,), points=3)
+    for f in fits[:13]:
+        f.x += 0.05 * rng.standard_normal()
+    fits += [record("L4", V * 1.002, x=9.0, y=2.0, time=14.0),
+             record("L4", V * 0.998, x=9.1, y=2.0, time=14.0)]
+    estimate = survey_velocity(fits)
+    assert estimate.velocity == pytest.approx(V, rel=0.01)
+    chained = [a for a in estimate.assessed if not math.isnan(a.angle)]
+    assert len(chained) >= 12 and all(abs(a.angle - 45.0) < 5.0 for a in chained)
