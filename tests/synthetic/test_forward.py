@@ -171,3 +171,20 @@ def test_noise_is_seeded():
     assert np.any(_raw(noise=0.01, seed=4) != _raw(noise=0.01, seed=5))
     residual = _raw(noise=0.01, seed=4) - _raw(noise=0.0, seed=4)
     assert np.std(residual) == pytest.approx(0.01, rel=0.1)
+
+
+@pytest.mark.parametrize("frequency_mhz", [250.0, 400.0, 2000.0])
+def test_ringing_lasts_the_same_number_of_periods_at_any_frequency(frequency_mhz):
+    # decay over two antenna periods: 1/e^5 (0.7 %) of its envelope is left ten periods on,
+    # whatever the antenna (a fixed 5 ns had outlasted a 2 GHz pulse tenfold)
+    from slicer.synthetic import Ground, PlannedLine, Radar, simulate_line
+    period = 1000.0 / frequency_mhz
+    dt = period / 25
+    radar = Radar(frequency_mhz=frequency_mhz, sample_interval_ns=dt, samples=400,
+                  time_zero_ns=2 * period, direct_amplitude=0.0, ringing_amplitude=1.0,
+                  wow_amplitude=0.0, noise=0.0, seed=0)
+    trace = simulate_line(Ground(velocity=0.1), radar, PlannedLine("L", 0, 0, 1, 0, 3))[0]
+    t = trace["twt"].values
+    late = np.abs(trace.values[t > 12 * period]).max()
+    assert late < 0.01 * np.abs(trace.values).max()
+    assert np.abs(trace.values[(t > 3 * period) & (t < 4 * period)]).max() > 0.05
