@@ -49,6 +49,7 @@ _PUBLIC: dict[str, tuple[str, ...]] = {
     "slicer.io.linetable": ("LineEntry", "read_line_table"),
     "slicer.io.reading": ("line_info", "read_line"),
     "slicer.io.segy": ("write_segy_line",),
+    "slicer.outputs.zarr_store": ("open_cube_zarr",),
     "slicer.outputs.cube": ("cube_crs", "cube_transform", "new_cube", "read_cube_netcdf",
         "write_cube_netcdf"),
     "slicer.outputs.figures": ("plot_overview", "plot_slice"),

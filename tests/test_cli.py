@@ -134,7 +134,7 @@ def test_bad_files_and_tables(survey, capsys, case, match):
     (("--depths", "1:1:0.1"), "--depths"),
     (("--depths", "2:1:0.1"), "--depths"),
     (("--depths", "0:1:0"), "--depths"),
-    (("--depths", "5:8:0.1"), "--depths: every slice lies below the record"),
+    (("--depths", "5:8:0.1"), "--depths: every slice reaches below the end of the record"),
     (("--depths", "zero:1:0.1"), "--depths"),
     (("--crs", "EPSG:999999"), "--crs: unknown CRS"),
     (("--crs", "EPSG:4326"), "--crs"),
@@ -421,3 +421,17 @@ def test_new_processing_options_reach_the_record(survey, capsys):
     assert record["zigzag"] == {"estimated": False, "shift_m": 0.02}
     assert "zigzag shift 0.020 m (as given)" in stdout
     assert "background removal (median trace, 0-8 ns)" in record["processing"]
+
+
+def test_a_first_build_stopped_says_nothing_was_written(survey, capsys, monkeypatch):
+    import slicer.outputs.sink
+
+    def killed(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(slicer.outputs.sink, "_write_netcdf", killed)
+    out = survey / "first"
+    code, _, err = run(capsys, "build", survey / "lines.csv", *GOOD, "--out", out, "-q",
+                       "--formats", "tif,nc")
+    assert code == 130 and err.strip() == "slicer: interrupted; nothing was written"
+    assert not out.exists()

@@ -7,6 +7,7 @@ Options are parsed into one :class:`~slicer.BuildSettings`; the library's one ex
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import time
 import warnings
@@ -378,8 +379,12 @@ def main(argv: list[str] | None = None) -> int:
         print(f"slicer: error: {name}{exc.strerror or exc}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except KeyboardInterrupt:
-        print("slicer: interrupted; the output folder holds a whole build (the earlier one, or "
-              "this one if it was already switched in)", file=sys.stderr)
+        out = getattr(args, "out", None)
+        if out is not None and not os.path.lexists(out):  # a first build: nothing to keep
+            print("slicer: interrupted; nothing was written", file=sys.stderr)
+        else:
+            print("slicer: interrupted; the output folder holds a whole build (the earlier "
+                  "one, or this one if it was already switched in)", file=sys.stderr)
         return 130
     finally:
         warnings.showwarning = _default_showwarning

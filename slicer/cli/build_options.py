@@ -16,8 +16,13 @@ def number_or_auto(text: str):
     return text if text in ("auto", "off") else float(text)
 
 
-def floats(text: str) -> float:
+def number(text: str) -> float:
+    """An option's number (argparse names this function in its message: "invalid number
+    value")."""
     return float(text)
+
+
+floats = number
 
 
 def add_build_options(p: argparse.ArgumentParser) -> None:
@@ -175,8 +180,9 @@ def _state_limits(parser: argparse.ArgumentParser) -> None:
 def add_display_options(g) -> None:
     """``--colormap``, ``--stretch`` and ``--clip`` (see :mod:`slicer.outputs.display`)."""
     g.add_argument("--colormap", metavar="NAME",
-                   help="colour map of the overview: any matplotlib name (default viridis; "
-                        "signed slices PuOr_r centred on zero; gray for greyscale)")
+                   help="colour map of the overview or section: any matplotlib name "
+                        "(default viridis; signed slices PuOr_r centred on zero; gray for "
+                        "greyscale)")
     g.add_argument("--stretch", choices=("shared", "per-slice"),
                    help="one colour range for all slices, so they compare (shared, default), "
                         "or each slice its own, so faint slices show detail (per-slice)")

@@ -32,7 +32,8 @@ def _vertices(points) -> np.ndarray:
         raise SettingsError("points must be (x, y) pairs in the survey CRS, m",
                             where="points") from None
     if p.ndim != 2 or p.shape[1] != 2 or p.shape[0] < 2:
-        raise SettingsError(f"need two or more (x, y) points, got shape {p.shape}",
+        got = f"{p.shape[0]} point" if p.ndim == 2 and p.shape[1] == 2 else f"shape {p.shape}"
+        raise SettingsError(f"a path needs two or more (x, y) points, got {got}",
                             where="points")
     if not np.isfinite(p).all():
         raise SettingsError("points must be finite", where="points")

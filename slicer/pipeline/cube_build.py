@@ -308,6 +308,13 @@ def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
     limit = (parse_bytes(settings.memory_limit) if settings.memory_limit is not None
              else DEFAULT_LIMIT)
     ends = np.array([[*e.start, *e.end] for e in settings.lines])
+    if settings.cell is None and not np.isfinite(ends).all():
+        # lines placed by tracks or headers: their ends from the positions (whose errors, a
+        # track CRS in degrees for metres, say, are then the ones met first)
+        from slicer.pipeline.position_checks import trace_positions
+        placed = [trace_positions(e, settings, i.n_traces)
+                  for e, i in zip(settings.lines, info.lines, strict=True)]
+        ends = np.array([[px[0], py[0], px[-1], py[-1]] for px, py in placed])
     x, y = ends[:, [0, 2]].ravel(), ends[:, [1, 3]].ravel()
     line = np.repeat(np.arange(len(settings.lines)), 2)
     cell = settings.cell or default_cell(x, y, line)

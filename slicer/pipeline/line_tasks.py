@@ -91,8 +91,8 @@ def fit_windows(windows: Windows, record_ns: float, velocity: float | None,
     if not keep.any():
         reach = record_ns if windows.axis == TWT else reach_depth(velocity, record_ns)
         raise SettingsError(
-            f"every slice lies below the record, which reaches {reach:.3g} {unit} below "
-            "time zero", where=where)
+            f"every slice reaches below the end of the record, which reaches {reach:.3g} "
+            f"{unit} below time zero (a slice must end within it)", where=where)
     if not keep.all():
         dropped = windows.select(~keep)
         warnings.warn(f"{len(dropped)} slice(s) from {dropped.top[0]:g} {unit} down lie below "

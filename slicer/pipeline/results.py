@@ -121,12 +121,18 @@ def section_build(out: str | os.PathLike, points, path: str | os.PathLike, *,
     (:func:`slicer.outputs.section.section`) with ``display`` (a
     :class:`slicer.outputs.display.Display`, default its defaults); returns a one-line
     summary. An existing ``path`` is replaced only with ``overwrite``."""
+    from slicer.core.errors import SettingsError
     from slicer.outputs.display import Display
     from slicer.outputs.figures import figure_format
     from slicer.outputs.section import plot_section, section
     figure_format(path)  # a name matplotlib can write, before any work
     _free(path, overwrite)
-    sec = section(open_build(out), points, spacing=spacing)
+    cube = open_build(out)
+    try:
+        sec = section(cube, points, spacing=spacing)
+    except SettingsError as exc:  # name the command line's options, not the function's
+        flag = {"points": "--through", "spacing": "--spacing"}.get(exc.where, exc.where)
+        raise SettingsError(exc.message, where=flag) from None
     plot_section(sec, path, **(display or Display()).options())
     return (f"section of {float(sec['distance'].values[-1]):.2f} m, "
             f"{sec.sizes['distance']} samples; wrote {path}")

@@ -19,6 +19,7 @@ import numpy as np
 
 from slicer.core.atomic import prepare_output_dir
 from slicer.core.errors import SettingsError
+from slicer.core.numbers import real
 from slicer.core.physics import check_separation, depth_from_time
 from slicer.core.progress import bar_for
 from slicer.geometry.survey import load_line, survey_info
@@ -161,6 +162,10 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     targets = _targets(target_radius)
     settings = prepare_survey(settings)
     info = survey_info(settings.lines, sample_interval_ns=settings.sample_interval)
+    earliest = None if earliest is None else real(earliest, where="--earliest")
+    if earliest is not None and not 0 <= earliest < info.record_ns:
+        raise SettingsError(f"{earliest:g} ns lies outside the record after time zero (0 to "
+                            f"{info.record_ns:g} ns at most)", where="--earliest")
     fits, pictures = [], []
     with bar_for(enabled=progress, total=info.n_traces, desc="diffraction search",
                  unit="trace") as bar:

@@ -27,6 +27,10 @@ LOSS_TANGENT_LIMIT = 0.1
 #: about 10 MHz to a few GHz).
 FREQUENCY_RANGE_MHZ = (10.0, 5000.0)
 
+#: Frequencies outside this range (MHz) are refused: a unit slip (Hz or GHz for MHz), not
+#: an antenna.
+UNIT_SLIP_MHZ = (1.0, 100_000.0)
+
 _NEPER_TO_DB = 20.0 / math.log(10.0)
 
 #: field -> (quantity, unit, source), in table order.
@@ -167,6 +171,9 @@ def plan_survey(*, frequency_mhz: float, permittivity: float | None = None,
         ``--conductivity``, ``--target-depth``, ``--target-size``) of an impossible input.
     """
     f_mhz = _number(frequency_mhz, "--frequency")
+    if not UNIT_SLIP_MHZ[0] <= f_mhz <= UNIT_SLIP_MHZ[1]:  # Hz or GHz given for MHz
+        raise SettingsError(f"{f_mhz:g} MHz is no radar's frequency; give it in MHz (400 for "
+                            "a 400 MHz antenna, not 4e8 Hz or 0.4 GHz)", where="--frequency")
     if (permittivity is None) == (velocity is None):
         raise SettingsError("give the ground's relative permittivity or its velocity (one)",
                             where="--permittivity" if permittivity is None else "--velocity")

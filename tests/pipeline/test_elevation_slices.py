@@ -239,3 +239,14 @@ def test_a_survey_file_names_its_dem_beside_it(survey):
     # a flag replaces the file's choice of slices (and what only elevation slices use)
     depth = load_settings(toml, depths="0:1:0.1")
     assert depth.slices_axis == "depth" and depth.terrain is None and depth.datum is None
+
+
+def test_tracks_in_metres_without_their_crs_are_one_line_even_with_the_default_cell(
+        survey, tmp_path, capsys):
+    # the table names x,y tracks and no --track-crs is given (the default is lon/lat): with no
+    # --cell either, the default cell was worked out from the unplaced lines (NaN) and a
+    # traceback ended the build
+    out = tmp_path / "out"
+    _refused(capsys, out, "build", survey / "gnss.csv", "--crs", "EPSG:32633",
+             "--sample-interval", "0.1", "--time-zero", "3.0", "--velocity", "0.1",
+             "--out", out, match="track CRS")

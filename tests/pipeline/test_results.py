@@ -58,7 +58,12 @@ def test_outline_and_section_commands(built, tmp_path, capsys):
 
 @pytest.mark.parametrize("argv, match", [
     (["section", "{out}", "--through", "1,2", "x", "--out", "{tmp}/s.png"], "--through"),
-    (["section", "{out}", "--through", "0,0", "1,1", "--out", "{tmp}/s.png"], "misses"),
+    (["section", "{out}", "--through", "0,0", "1,1", "--out", "{tmp}/s.png"],
+     "--through: the path misses"),
+    (["section", "{out}", "--through", "0,0", "--out", "{tmp}/s.png"],
+     "--through: a path needs two or more (x, y) points, got 1 point"),
+    (["section", "{out}", "--through", "0,0", "1,1", "--spacing", "0", "--out", "{tmp}/s.png"],
+     "--spacing:"),
     (["outline", "{tmp}/nothing", "--out", "{tmp}/o.gpkg"], "no slicer build"),
     # a name matplotlib cannot draw in, and a GeoPackage under a shapefile's name (GIS open a
     # file by its suffix): refused before any work, naming the file

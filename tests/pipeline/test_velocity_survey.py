@@ -189,3 +189,11 @@ def test_a_search_that_finds_nothing_says_where_it_looked(small_survey):
     with pytest.raises(SettingsError, match=r"0 usable hyperbola fits.*searched from 45 ns "
                        r"down, at velocities 0\.05-0\.2 m/ns.*--earliest"):
         analyse_velocity(settings, progress=False, earliest=45.0)  # below both targets
+
+
+@pytest.mark.parametrize("earliest", [500.0, -1.0, "abc"])
+def test_an_earliest_time_outside_the_record_is_refused_by_name(small_survey, earliest):
+    settings = slicer.load_settings(small_survey.line_table, sample_interval=0.1, time_zero=3.0)
+    with pytest.raises(SettingsError) as info:
+        analyse_velocity(settings, progress=False, earliest=earliest)
+    assert info.value.where == "--earliest"

@@ -141,3 +141,10 @@ def test_unusual_frequency_warns():
     # common practice: GPR works from about 10 MHz to a few GHz
     plan = plan_survey(frequency_mhz=2, permittivity=4.0, target_depth_m=2.0)
     assert any("MHz" in w for w in plan.warnings)
+
+
+@pytest.mark.parametrize("frequency", [4e8, 0.4, 2e5])
+def test_a_frequency_in_hz_or_ghz_is_refused_by_name(frequency):
+    with pytest.raises(SettingsError, match="give it in MHz") as info:
+        plan_survey(frequency_mhz=frequency, permittivity=4.0, target_depth_m=2.0)
+    assert info.value.where == "--frequency"
