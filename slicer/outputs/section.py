@@ -106,9 +106,10 @@ def section(cube: xr.DataArray, points, *, spacing: float | None = None) -> xr.D
     out = out.assign_coords({DISTANCE: (DISTANCE, d, {"units": "m",
                                                       "long_name": "distance along the section"}),
                              X: (DISTANCE, x, cube[X].attrs), Y: (DISTANCE, y, cube[Y].attrs)})
-    out = out.transpose(DISTANCE, axis)
+    out = out.transpose(DISTANCE, axis).astype(cube.dtype)  # interp works in float64
     out.name = cube.name
-    out.attrs = {**cube.attrs, "section_vertices": p.ravel().tolist(),
+    # the vertices as one flat array (x1, y1, x2, y2, ...): NetCDF holds it, a list it does not
+    out.attrs = {**cube.attrs, "section_vertices": p.ravel().astype(np.float64),
                  "section_samples_on_grid": int(n_samples)}
     return out
 

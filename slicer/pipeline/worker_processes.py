@@ -15,6 +15,7 @@ import multiprocessing.context
 import os
 import select
 import signal
+import sys
 import threading
 import time
 from collections.abc import Sequence
@@ -40,6 +41,23 @@ WARM_MODULES = ("slicer.pipeline.line_tasks", "slicer.outputs.radargram",
 SERVER_START = "slicer.pipeline.server_start"
 
 
+#: The warning filter the resource tracker starts with (it takes this process's -W options).
+QUIET_TRACKER = "ignore::UserWarning:multiprocessing.resource_tracker"
+
+
+def _quiet_resource_tracker() -> None:
+    """Keep multiprocessing's resource tracker from adding its own lines to an error.
+
+    When a build fails while workers hold a pool queue (a full disk, say), the tracker may
+    find the queue's semaphore still registered once every process is gone; it removes it and
+    says so in a two-line warning after slicer's one-line error. Nothing is left behind either
+    way, so the tracker, which starts with this process's warning options, is told to stay
+    quiet (before it starts: the first pool starts it).
+    """
+    if QUIET_TRACKER not in sys.warnoptions:
+        sys.warnoptions.append(QUIET_TRACKER)
+
+
 def worker_context() -> multiprocessing.context.BaseContext:
     """How ``processes`` workers start: forked by a fork server where there is one.
 
@@ -50,6 +68,7 @@ def worker_context() -> multiprocessing.context.BaseContext:
     as the calling process, for every later build. Spawn where there is no fork server
     (Windows) or no process descriptor to watch the calling process by (before Linux 5.3).
     """
+    _quiet_resource_tracker()
     if not forked_workers():
         return multiprocessing.get_context("spawn")  # see exit_with_parent
     context = multiprocessing.get_context("forkserver")

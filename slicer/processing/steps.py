@@ -59,7 +59,7 @@ def _per_trace(core, line: xr.DataArray, step: str, **kwargs) -> xr.DataArray:
         core, data, kwargs=kwargs,
         input_core_dims=[[TWT]], output_core_dims=[[TWT]],
         dask="parallelized", output_dtypes=[np.float32], keep_attrs=True)
-    return add_history(out, step)
+    return add_history(out.transpose(*line.dims), step)  # the input's order of dims
 
 
 
@@ -138,6 +138,8 @@ def remove_background(line: xr.DataArray, *, method: str | Background = "scaled"
         input_core_dims=[[TRACE, TWT]], output_core_dims=[[TRACE, TWT]],
         dask="parallelized", output_dtypes=[np.float32], keep_attrs=True)
     out = out.transpose(*line.dims)
+    if line.chunks is not None:  # the background needs every trace; the result, the input's
+        out = out.chunk(dict(zip(line.dims, line.chunks, strict=True)))
     out.attrs = dict(line.attrs)
     return add_history(out, spec.describe())
 

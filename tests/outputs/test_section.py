@@ -136,3 +136,20 @@ def test_plot_section_refuses_bad_display_options():
         assert info.value.where == where
     with pytest.raises(SettingsError, match="magma"):
         plot_section(sec, colormap="magmaa")
+
+
+def test_a_section_keeps_the_cubes_float32_and_its_vertices_as_one_array(tmp_path):
+    # amplitudes stay float32 (the project's data model) though interpolation runs in
+    # float64; the path is one flat array (x1, y1, x2, y2): NetCDF attributes hold arrays,
+    # not Python lists
+    cube = new_cube(np.random.default_rng(2).random((3, 20, 30), dtype=np.float32), west=0.0,
+                    north=1.0, cell=0.05, crs="EPSG:32633", top=np.array([0.1, 0.2, 0.3]),
+                    bottom=np.array([0.2, 0.3, 0.4]))
+    sec = section(cube, [(0.2, 0.5), (1.3, 0.6)])
+    assert sec.dtype == np.float32
+    vertices = sec.attrs["section_vertices"]
+    assert isinstance(vertices, np.ndarray) and vertices.dtype == np.float64
+    np.testing.assert_array_equal(vertices, [0.2, 0.5, 1.3, 0.6])
+    sec.to_dataset(name="s").to_netcdf(tmp_path / "s.nc", engine="h5netcdf")
+    plot_section(sec, tmp_path / "s.png")
+    assert (tmp_path / "s.png").stat().st_size > 0

@@ -321,3 +321,21 @@ def test_baseline_removal_is_scipys_gaussian_filter(shape):
     expected = x - scipy.ndimage.gaussian_filter1d(x, sigma, axis=-1, mode="nearest")
     np.testing.assert_allclose(remove_baseline(x), expected, rtol=0,
                                atol=1e-12 * np.abs(expected).max())
+
+
+def test_steps_keep_the_input_order_of_dims_and_its_chunks():
+    # xarray's apply_ufunc moves the core dim last; a (twt, trace) line must come back as it
+    # went in, and a line chunked by traces keep its chunks after the background (which
+    # needs every trace at once)
+    import slicer
+    rng = np.random.default_rng(8)
+    line = xr.DataArray(rng.normal(size=(120, 64)).astype(np.float32), dims=("trace", "twt"),
+                        coords={"twt": ("twt", 0.1 * np.arange(64), {"units": "ns"})})
+    flipped = line.transpose("twt", "trace")
+    for step in (slicer.dewow, slicer.apply_gain, slicer.envelope, slicer.remove_background):
+        out = step(flipped)
+        assert out.dims == ("twt", "trace")
+        np.testing.assert_array_equal(out.transpose("trace", "twt").values, step(line).values)
+    chunked = slicer.remove_background(line.chunk({"trace": 40}))
+    assert chunked.chunks == ((40, 40, 40), (64,))
+    np.testing.assert_array_equal(chunked.values, slicer.remove_background(line).values)
