@@ -92,6 +92,20 @@ def depth_from_time(twt_ns, *, velocity: float, separation: float = 0.0):
     ``d = sqrt((v t / 2)^2 - (s / 2)^2)`` (straight rays in a uniform ground; the usual
     common-offset geometry). Times before the direct ground wave (``t < s / v``) are at
     depth 0.
+
+    Parameters
+    ----------
+    twt_ns : float or array_like
+        Two-way travel time below time zero, ns.
+    velocity : float
+        Radar velocity of the ground, m/ns.
+    separation : float
+        Transmitter-receiver separation, m.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Depth, m (an array for an array of times).
     """
     v = check_velocity(velocity)
     half_path = np.asarray(twt_ns, dtype=float) * v / 2.0
@@ -103,7 +117,22 @@ def depth_from_time(twt_ns, *, velocity: float, separation: float = 0.0):
 
 def time_from_depth(depth_m, *, velocity: float, separation: float = 0.0):
     """Two-way time (ns) below time zero of a reflector at ``depth_m`` (m):
-    ``t = 2 sqrt(d^2 + (s / 2)^2) / v`` (``2 d / v`` with the antennas together)."""
+    ``t = 2 sqrt(d^2 + (s / 2)^2) / v`` (``2 d / v`` with the antennas together).
+
+    Parameters
+    ----------
+    depth_m : float or array_like
+        Depth below the surface, m.
+    velocity : float
+        Radar velocity of the ground, m/ns.
+    separation : float
+        Transmitter-receiver separation, m.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Two-way time, ns.
+    """
     v = check_velocity(velocity)
     d = np.asarray(depth_m, dtype=float)
     s = check_separation(separation)
@@ -125,6 +154,12 @@ def to_depth(line: xr.DataArray, *, velocity: float) -> xr.DataArray:
         Dims ``(..., twt)``, twt in ns with 0 at time zero.
     velocity : float
         Radar velocity (m/ns).
+
+    Returns
+    -------
+    xarray.DataArray
+        The same samples (shared, not copied) along ``depth`` (m), ``twt`` (ns) kept as a
+        coordinate, ``attrs["velocity"]`` set.
     """
     from slicer.core.line_checks import checked_line
     checked_line(line, step="to_depth")

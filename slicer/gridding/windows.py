@@ -124,6 +124,29 @@ def make_windows(top: float, bottom: float, step: float, *, thickness: float | N
     The last window ends at or before ``bottom`` (a rounding tolerance of 1e-9 of the range
     lets ``0:2.4:0.1`` give 24 windows). Depth and time must not be negative: they are counted
     down from the surface (time zero).
+
+    Parameters
+    ----------
+    top, bottom, step : float
+        First window's top, the depth or time no window passes, and the distance between
+        window tops: m along ``depth``, ns along ``twt``.
+    thickness : float, optional
+        Each window's thickness, same unit (default ``step``: windows that tile the range).
+    axis : {"depth", "twt"}
+        What the windows are cut along.
+    option : str, optional
+        The option to name in an error (default ``--depths`` or ``--times``).
+
+    Returns
+    -------
+    Windows
+        Tops and bottoms (float64) with their axis and unit.
+
+    Raises
+    ------
+    SettingsError
+        A value that is not a number, a reversed or empty range, a negative top, a step or
+        thickness that is not positive, or more windows than a build can hold.
     """
     if axis not in (DEPTH, TWT):
         raise SettingsError(f"windows are cut along {DEPTH!r} (m) or {TWT!r} (ns), not "

@@ -101,7 +101,13 @@ def dewow(line: xr.DataArray, *, window_ns: float | None = None) -> xr.DataArray
     window_ns : float, optional
         Length of the running mean (ns). Default 1.5 periods of the line's dominant frequency
         (:func:`dominant_frequency`): long enough to leave the wavelet, short enough to follow
-        the drift (common practice: one to two periods).
+        the drift (common practice: one to two periods). On a dask-backed line the default
+        reads the whole line once, for its frequency: give it to stay lazy.
+    Returns
+    -------
+    xarray.DataArray
+        The dewowed line: float32, the input's dims, chunks and coordinates,
+        ``attrs["history"]`` extended.
     """
     checked_line(line, step="dewow")
     dt = sample_interval(line)
@@ -125,6 +131,11 @@ def remove_background(line: xr.DataArray, *, method: str | Background = "scaled"
         ``"scaled"`` (the median trace fitted to each trace in a sliding window: no ghosts
         under strong reflectors), ``"median"`` or ``"mean"`` (subtracted as they are), each
         optionally limited to a time window, ``"median:0-12"`` (ns).
+    Returns
+    -------
+    xarray.DataArray
+        The line less its background: float32, the input's dims, chunks and coordinates,
+        ``attrs["history"]`` extended.
     """
     import xarray as xr
     # Not NaN-aware: readers have set non-finite samples to 0, and NaN-aware medians loop in
@@ -171,6 +182,11 @@ def apply_gain(line: xr.DataArray, *, kind: str = "power", value: float = 1.0) -
         Shape of the curve.
     value : float
         Exponent (power) or rate in dB/ns (exp); must be finite and >= 0.
+    Returns
+    -------
+    xarray.DataArray
+        The gained line: float32, the input's dims, chunks and coordinates,
+        ``attrs["history"]`` extended.
     """
     value = real(value, where="--gain")
     if not math.isfinite(value) or value < 0:
@@ -188,6 +204,16 @@ def envelope(line: xr.DataArray) -> xr.DataArray:
     The analytic signal is ``x + i H[x]`` with ``H`` the Hilbert transform (Taner, Koehler and
     Sheriff 1979, Geophysics 44:1041-1063), formed from :func:`scipy.fft.fft` of the
     zero-padded trace in single precision, as :func:`scipy.signal.hilbert` forms it.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        Dims ``(trace, twt)``; ``twt`` in ns.
+    Returns
+    -------
+    xarray.DataArray
+        The envelope, named ``envelope``: float32, the input's dims, chunks and coordinates,
+        ``attrs["history"]`` extended.
     """
     checked_line(line, step="envelope")
     out = _per_trace(_envelope_core, line, "envelope")

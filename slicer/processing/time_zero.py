@@ -73,6 +73,11 @@ def pick_time_zero(line: xr.DataArray, *, threshold: float = 0.5) -> float:
         Dims ``(trace, twt)``.
     threshold : float
         Fraction (0-1] of the largest absolute amplitude that the direct wave must reach.
+
+    Returns
+    -------
+    float
+        Time zero, ns on the line's ``twt`` axis.
     """
     line = checked_line(line, step="pick_time_zero", traces=True)
     return pick_time_zero_of(line.data, line[TWT].values, mean=line.mean(TRACE).values,
@@ -155,6 +160,12 @@ def correct_time_zero(line: xr.DataArray, *, time_zero: float | str = "auto",
         Passed to :func:`pick_time_zero` when ``time_zero="auto"``.
     separation : float
         Transmitter-receiver separation (m), for a picked time zero.
+
+    Returns
+    -------
+    xarray.DataArray
+        The same samples (shared, not copied) on the shifted ``twt`` (ns);
+        ``attrs["time_zero_ns"]`` and ``attrs["history"]`` extended.
     """
     line = checked_line(line, step="correct_time_zero", traces=True)
     twt = line[TWT].values
