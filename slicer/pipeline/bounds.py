@@ -104,7 +104,7 @@ class SurveyPlan:
 
 
 def check_bounds(settings, info: SurveyInfo, *, cell: float, memory_limit: int,
-                 writes: bool) -> SurveyPlan:
+                 writes: bool, positions=None) -> SurveyPlan:
     """Work out the build's sizes from headers and options; refuse any a survey never has.
 
     Parameters
@@ -120,6 +120,8 @@ def check_bounds(settings, info: SurveyInfo, *, cell: float, memory_limit: int,
     writes : bool
         Whether outputs are written to ``settings.out`` (their size is then checked against
         the free space of its disk).
+    positions : list of (x, y) arrays, optional
+        Every line's trace positions, when the caller has them already (else worked out).
 
     Raises
     ------
@@ -130,8 +132,9 @@ def check_bounds(settings, info: SurveyInfo, *, cell: float, memory_limit: int,
         option at fault).
     """
     check_far_positions(settings)
-    positions = [trace_positions(e, settings, i.n_traces)
-                 for e, i in zip(settings.lines, info.lines, strict=True)]
+    if positions is None:
+        positions = [trace_positions(e, settings, i.n_traces)
+                     for e, i in zip(settings.lines, info.lines, strict=True)]
     x = np.concatenate([p[0] for p in positions])
     y = np.concatenate([p[1] for p in positions])
     line = np.concatenate([np.full(p[0].size, k) for k, p in enumerate(positions)])

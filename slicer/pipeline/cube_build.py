@@ -308,6 +308,7 @@ def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
     limit = (parse_bytes(settings.memory_limit) if settings.memory_limit is not None
              else DEFAULT_LIMIT)
     ends = np.array([[*e.start, *e.end] for e in settings.lines])
+    placed = None
     if settings.cell is None and not np.isfinite(ends).all():
         # lines placed by tracks or headers: their ends from the positions (whose errors, a
         # track CRS in degrees for metres, say, are then the ones met first)
@@ -320,7 +321,7 @@ def check_budget(settings: BuildSettings, info: SurveyInfo, *, workers: int,
     cell = settings.cell or default_cell(x, y, line)
     # every other size of the build, from the same headers (refused before any line is read)
     plan = check_bounds(settings, info, cell=cell, memory_limit=limit,
-                        writes=not cube_in_memory)
+                        writes=not cube_in_memory, positions=placed)
     grid, n_slices = plan.grid, plan.n_slices
     step = float(np.median([e.length / max(i.n_traces - 1, 1)
                             for e, i in zip(settings.lines, info.lines, strict=True)]))
