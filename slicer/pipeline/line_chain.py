@@ -165,6 +165,7 @@ def process_samples(samples: np.ndarray, twt: np.ndarray, settings: BuildSetting
         _chain_core,
         _envelope_core,
         chain_plan,
+        chain_step,
         dominant_frequency_of,
         time_zero_of,
     )
@@ -187,32 +188,32 @@ def process_samples(samples: np.ndarray, twt: np.ndarray, settings: BuildSetting
         reach = 1.0 / own + separation / C_M_PER_NS
         polarity = direct_wave_polarity_of(samples, twt, period_ns=reach, where=where)
     method, _ = migration_method(settings)
-    last = method == "off" and not keep_trace  # one fused part does it all
-    core, done = chain_plan(samples, twt, dewow_ns=window,
-                            background=settings.background,
-                            gain=settings.gain_curve if last else None, take_envelope=last)
-    out = _chain_core(samples, **core)
-    steps += done
-    if method != "off":
+    if method == "off":  # one fused part: the envelope too, unless the trace is kept
+        core, done = chain_plan(samples, twt, dewow_ns=window, background=settings.background,
+                                gain=settings.gain_curve, take_envelope=not keep_trace)
+        out = _chain_core(samples, **core)
+        steps += done
+    else:
         from slicer.processing.migration import migration_plan, spacing_of
         if distance is None:
             raise SettingsError("the line has no 'distance' coordinate to take a trace "
                                 "spacing from", where=where)
+        core, done = chain_plan(samples, twt, dewow_ns=window, background=settings.background,
+                                gain=None, take_envelope=False)
+        x, prepare = chain_step(samples, **core)
+        # after migration: gain and envelope (unless the trace is kept); both parts run on
+        # each block of traces as migration takes it and hands it back
+        core, after = chain_plan(x, twt, dewow_ns="off", background=None,
+                                 gain=settings.gain_curve, take_envelope=not keep_trace)
         migrated, how, _ = migration_plan(twt, dx=spacing_of(distance, where=where),
                                           **migration_arguments(settings, method=method),
                                           frequency=frequency, where=where)
-        out = migrated(out)
-        steps.append(how)
+        out = migrated(x, prepare=prepare, finish=chain_step(x, **core)[1])
+        steps += [*done, how, *after]
     trace = None
-    if not last:  # after migration: gain and envelope, block by block unless the trace is kept
-        core, done = chain_plan(out, twt, dewow_ns="off", background=None,
-                                gain=settings.gain_curve, take_envelope=not keep_trace)
-        if keep_trace:
-            trace = _chain_core(out, **core)
-            out, done = _envelope_core(trace), [*done, "envelope"]
-        else:
-            out = _chain_core(out, **core)
-        steps += done
+    if keep_trace:
+        trace, out = out, _envelope_core(out)
+        steps.append("envelope")
     return ProcessedSamples(out, twt, trace if keep_trace else None, polarity,
                             time_zero_ns + t0, "; ".join(steps))
 

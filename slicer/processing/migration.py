@@ -38,11 +38,14 @@ from slicer.core.errors import SettingsError, warn
 from slicer.core.line_checks import checked_line
 from slicer.core.numbers import real
 from slicer.core.physics import check_velocity
-from slicer.processing.fk import phase_shift_core, stolt_core
+from slicer.processing.fk import in_blocks, phase_shift_core, stolt_blocks
 from slicer.processing.trace_basics import add_history
 
 if TYPE_CHECKING:
     import xarray as xr
+
+#: A step on a block of traces: ``(traces, twt)`` samples in, the same shape out.
+Block = Callable[[np.ndarray], np.ndarray]
 
 __all__ = ["interval_velocity", "migrate", "migration_plan", "spacing_of", "trace_spacing"]
 
@@ -250,7 +253,12 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
                    ) -> tuple[Callable[[np.ndarray], np.ndarray], str, float | None]:
     """The migration of :func:`migrate` for ``(..., trace, twt)`` samples on the axis ``twt``
     (ns), traces ``dx`` m apart: a function from samples to migrated float32 samples, the
-    words for the history, and the velocity (m/ns) when it is one constant (else None)."""
+    words for the history, and the velocity (m/ns) when it is one constant (else None).
+
+    The function takes the steps before and after migration as keywords, ``prepare`` and
+    ``finish`` (each from a block of ``(trace, twt)`` samples to the processed block), and runs
+    them on each block of traces as Stolt transforms it along time (a build's line task:
+    :func:`slicer.processing.fk.stolt_blocks`)."""
     if method not in METHODS:
         raise SettingsError(f"migration method must be one of {', '.join(METHODS)}, got "
                             f"{method!r}", where="--migration")
@@ -277,6 +285,8 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
         raise SettingsError("no samples after time zero to migrate; correct time zero first",
                             where=where)
     t_first = float(twt[start])
+    if abs(t_first) <= 1e-6 * dt:  # time zero on a sample, up to the shift's rounding
+        t_first = 0.0
     constant = not callable(velocity) and layer_tops is None and np.ndim(velocity) == 0
     speed = interval_velocity(velocity, layer_tops=layer_tops, tops=tops,
                               where="--migration-velocity")
@@ -285,20 +295,44 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
             raise SettingsError("Stolt migration needs one constant velocity; use "
                                 "method='phase-shift' for layers", where="--migration-velocity")
         v = float(speed(np.zeros(1))[0])
-        core, kwargs, how = stolt_core, {"velocity": v}, f"Stolt migration {v:g} m/ns"
+        core, kwargs, how = stolt_blocks, {"velocity": v}, f"Stolt migration {v:g} m/ns"
     else:
         # interval velocity of each downward step, sampled at its middle
         steps = speed(t_first + (np.arange(twt.size - start) + 0.5) * dt)
-        core, kwargs = phase_shift_core, {"velocities": np.asarray(steps, dtype=float)}
+        core, kwargs = (in_blocks(phase_shift_core),
+                        {"velocities": np.asarray(steps, dtype=float)})
         how = ("phase-shift migration " + (f"{steps[0]:g} m/ns" if constant else
                f"{steps.min():g}-{steps.max():g} m/ns (layered)"))
 
-    def apply(samples: np.ndarray) -> np.ndarray:
-        out = np.empty(np.shape(samples), dtype=np.float32)
-        out[..., :start] = samples[..., :start]  # above the surface: passed through
-        out[..., start:] = core(samples[..., start:], dx=dx, dt=dt, t_first=t_first,
-                                taper=taper, pad=float(pad), band=band, frequency=frequency,
-                                **kwargs)
+    def apply(samples: np.ndarray, *, prepare: Block | None = None,
+              finish: Block | None = None) -> np.ndarray:
+        """The migrated ``(trace, twt)`` samples, float32. ``prepare`` and ``finish``, each a
+        function from a block of traces to the block processed (same shape), run on every
+        block of traces before and after it is migrated, while the block is in cache."""
+        samples = np.asarray(samples)
+        if samples.ndim > 2:  # (..., trace, twt): each line in turn
+            flat = samples.reshape(-1, *samples.shape[-2:])
+            return np.stack([apply(one, prepare=prepare, finish=finish)
+                             for one in flat]).reshape(samples.shape)
+        out = np.empty(samples.shape, dtype=np.float32)
+
+        def read(i: int, j: int) -> np.ndarray:
+            block = samples[i:j] if prepare is None else prepare(samples[i:j])
+            out[i:j, :start] = block[:, :start]  # above the surface: passed through
+            return block[:, start:].astype(np.float32, copy=False)
+
+        def write(i: int, j: int, migrated: np.ndarray) -> None:
+            if finish is None:
+                out[i:j, start:] = migrated
+                return
+            block = np.empty((j - i, samples.shape[1]), dtype=np.float32)
+            block[:, :start] = out[i:j, :start]
+            block[:, start:] = migrated
+            out[i:j] = finish(block)
+
+        core((samples.shape[0], samples.shape[1] - start), read, write, dx=dx, dt=dt,
+             t_first=t_first, taper=taper, pad=float(pad), band=band, frequency=frequency,
+             **kwargs)
         return out
 
     v_const = float(speed(np.zeros(1))[0]) if constant else None

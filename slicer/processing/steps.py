@@ -46,6 +46,8 @@ from slicer.processing.trace_basics import (  # noqa: F401 (as above)
 )
 
 if TYPE_CHECKING:
+    from collections.abc import Callable
+
     import xarray as xr
 
 
@@ -261,9 +263,26 @@ def _chain_core(samples: np.ndarray, *, size: int | None, background: dict | Non
     The single steps' cores in their order on float32 samples (the input is never modified).
     The background is estimated first, from the dewowed traces it is taken over; then each
     block of traces (:func:`slicer.processing.hilbert.block_traces`) goes through every step
-    while it is in cache: dewow and the fitted background of a 3165-trace line took 14.9 ms
-    whole, 11.8 ms by blocks, same values (benchmarks/envelope_blocks.py).
+    while it is in cache (:func:`chain_step`): dewow and the fitted background of a
+    3165-trace line took 14.9 ms whole, 11.8 ms by blocks, same values
+    (benchmarks/envelope_blocks.py).
     """
+    x, step = chain_step(samples, size=size, background=background, factor=factor,
+                         take_envelope=take_envelope)
+    out = np.empty(x.shape, dtype=np.float32)
+    n = block_traces(x.shape[-1])
+    for i in range(0, max(x.shape[-2], 1), n):
+        out[..., i:i + n, :] = step(x[..., i:i + n, :])
+    return out
+
+
+def chain_step(samples: np.ndarray, *, size: int | None, background: dict | None,
+               factor: np.ndarray | None, take_envelope: bool
+               ) -> tuple[np.ndarray, Callable[[np.ndarray], np.ndarray]]:
+    """The chain of :func:`_chain_core` (keywords from :func:`chain_plan`) as a step on a
+    block of traces: ``(x, step)``, where ``step(x[..., i:j, :])`` gives traces ``i`` to
+    ``j - 1`` processed (float32). ``x`` is ``samples`` as float32, dewowed whole already when
+    the background is taken over every trace; the background is estimated here, once."""
     x = samples.astype(np.float32, copy=False)
     removal = None
     if background is not None:
@@ -279,10 +298,8 @@ def _chain_core(samples: np.ndarray, *, size: int | None, background: dict | Non
                 if rows.step == 1:  # every trace: dewowed once, not again by blocks
                     x, size = taken, None
         removal = removal_of(taken, **background)
-    out = np.empty(x.shape, dtype=np.float32)
-    step = block_traces(x.shape[-1])
-    for i in range(0, max(x.shape[-2], 1), step):
-        block = x[..., i:i + step, :]
+
+    def step(block: np.ndarray) -> np.ndarray:
         if size is not None:
             block = _dewow_core(block, size=size)
         if removal is not None:
@@ -291,8 +308,9 @@ def _chain_core(samples: np.ndarray, *, size: int | None, background: dict | Non
             block = gain_core(block, factor=factor)
         if take_envelope:
             block = _envelope_core(block)
-        out[..., i:i + step, :] = block
-    return out
+        return block
+
+    return x, step
 
 
 def process_chain(line: xr.DataArray, *, dewow_ns: float | None | str = None,

@@ -267,6 +267,30 @@ def test_samples_before_time_zero_pass_through(point_line):
         np.testing.assert_array_equal(out["twt"].values, twt)
 
 
+@pytest.mark.parametrize("method", ["stolt", "phase-shift"])
+def test_steps_run_by_blocks_around_migration_equal_the_steps_in_turn(point_line, method):
+    # A build's line task hands its steps before and after migration to the migration, which
+    # runs them on each block of traces: the result must be that of the three in turn, the
+    # samples above the surface taking the step before and the step after too
+    from slicer.processing.migration import migration_plan
+    data = np.concatenate([np.full((TRACES, 15), 0.25, dtype=np.float32), point_line.values],
+                          axis=1)
+    twt = DT * np.arange(data.shape[1]) - 15 * DT
+    ramp = np.linspace(0.5, 2.0, data.shape[1], dtype=np.float32)
+
+    def before(block):  # per sample and trace, as dewow and background removal are
+        return block * ramp - np.float32(0.1)
+
+    def after(block):  # as the gain and the envelope
+        return np.abs(block * ramp[::-1])
+
+    apply, _, _ = migration_plan(twt, dx=DX, velocity=V, method=method)
+    expected = after(apply(before(data)))
+    got = apply(data, prepare=before, finish=after)
+    np.testing.assert_allclose(got, expected, rtol=0, atol=1e-6 * np.abs(expected).max())
+    np.testing.assert_array_equal(got[:, :15], after(before(data))[:, :15])
+
+
 def test_dask_backed_line_gives_the_same_image(point_line):
     lazy = migrate(point_line.chunk({"trace": 64}), velocity=V)
     assert lazy.chunks is not None
