@@ -267,7 +267,8 @@ def placement(cube: dict, targets: list[tuple[float, float, float]]) -> tuple[fl
 
 def measure_size(root: Path, n: int, use_verde: bool, rounds: int = 1) -> list[list[str]]:
     """Rows of the table for one size: the tuned floor, slicer and the griddata script run
-    ``rounds`` times in turn (floor, slicer, griddata, floor, ...; each in a fresh process),
+    ``rounds`` times in turn (floor, slicer, slicer unmigrated, griddata, floor, ...; the two
+    builds swapped every other round; each in a fresh process),
     their medians and ranges; the earlier floor and verde once. The ratios are of medians:
     this machine's speed drifts by a fifth within minutes (benchmarks/README.md), and one run
     of each, minutes apart, moved the 400 k ratio from 2.1 to 2.7."""
@@ -283,7 +284,10 @@ def measure_size(root: Path, n: int, use_verde: bool, rounds: int = 1) -> list[l
              ("griddata script", run_griddata)]
     runs: dict[str, list[dict]] = {name: [] for name, _ in timed}
     for k in range(rounds):
-        for name, run in timed:
+        # the migrated and unmigrated builds swap places every other round, so that neither
+        # always runs first after the floor (their ratio is this run's one paired measure)
+        order = timed if k % 2 == 0 else [timed[0], timed[2], timed[1], timed[3]]
+        for name, run in order:
             if run is None:
                 runs[name].append(in_fresh_process(run_floor, str(table)))
                 continue

@@ -42,7 +42,7 @@ def main(work: Path | None = None) -> None:
     for plan, dt in zip(plans, late, strict=True):
         radar = Radar(samples=400, seed=4, time_zero_ns=3.0 + dt)
         raw = simulate_line(ground, radar, plan) * np.float32(rng.uniform(0.7, 1.4))
-        slicer.write_segy_line(folder / f"{plan.name}.sgy", raw)  # x, y into the headers
+        slicer.write_segy_line(raw, folder / f"{plan.name}.sgy")  # x, y into the headers
     (folder / "files.csv").write_text("file\n" + "".join(f"{p.name}.sgy\n" for p in plans))
 
     settings = slicer.load_settings(folder / "files.csv", positions="headers", ties="apply",

@@ -195,7 +195,7 @@ def _netcdf_survey(survey, tmp_path, *, interval=None, samples=None):
         if k == 1 and interval is not None:
             line = line.assign_coords(twt=line["twt"] * interval / 0.1)
             line.attrs["sample_interval_ns"] = interval
-        write_line_netcdf(tmp_path / f"{name}.nc", line, overwrite=True)
+        write_line_netcdf(line, tmp_path / f"{name}.nc", overwrite=True)
         rows.append(f"{name}.nc,512000,{4650000 + 0.5 * k},512004,{4650000 + 0.5 * k}")
     (tmp_path / "nc.csv").write_text("\n".join(rows) + "\n")
     return tmp_path / "nc.csv"
@@ -227,11 +227,11 @@ def test_nan_samples_are_tolerated_and_reported(survey, tmp_path, capsys):
     line = read_line(survey / "L000.sgy", sample_interval_ns=0.1)
     line.values[3, 100:110] = np.nan
     line.values[5, 7] = np.inf
-    write_line_netcdf(tmp_path / "L000.nc", line)
+    write_line_netcdf(line, tmp_path / "L000.nc")
     (tmp_path / "one.csv").write_text(HEADER + "L000.nc,512000,4650000,512004,4650000\n"
                                       + "L001.nc,512004,4650000.5,512000,4650000.5\n")
-    write_line_netcdf(tmp_path / "L001.nc", read_line(survey / "L001.sgy",
-                                                      sample_interval_ns=0.1))
+    write_line_netcdf(read_line(survey / "L001.sgy",
+                                                      sample_interval_ns=0.1), tmp_path / "L001.nc")
     code, _, err = run(capsys, "build", tmp_path / "one.csv", *GOOD, "--out", tmp_path / "o",
                        "-q")
     assert code == 0

@@ -28,7 +28,7 @@ import threading
 from collections.abc import Iterable, Iterator
 from pathlib import Path
 
-from slicer.core.errors import OutputError
+from slicer.core.errors import OutputError, SettingsError
 
 try:
     import fcntl
@@ -119,6 +119,12 @@ def atomic_path(path: str | os.PathLike, *, overwrite: bool = True) -> Iterator[
         block runs (:func:`refuse_existing`), and the result is put in place by a hard link,
         which fails rather than replace a file that appeared meanwhile.
 
+    Returns
+    -------
+    contextlib.AbstractContextManager of pathlib.Path
+        Use in a ``with`` statement; its target is the temporary file's path, an empty file
+        in the same folder as ``path``, to be written inside the block.
+
     Raises
     ------
     OutputError
@@ -136,6 +142,15 @@ def atomic_path(path: str | os.PathLike, *, overwrite: bool = True) -> Iterator[
         with contextlib.suppress(FileNotFoundError):
             tmp_path.unlink()
         raise
+
+
+def data_first(data, path, function: str, what: str) -> None:
+    """Refuse a writer's call with the path first and the data second (the order two writers
+    took before 2026-12-04): SettingsError naming ``function``, rather than a TypeError from
+    deep inside the writer."""
+    if isinstance(data, str | os.PathLike) and not isinstance(path, str | os.PathLike):
+        raise SettingsError(f"the {what} comes first and then the path; got the path "
+                            f"{os.fspath(data)!r} first", where=function)
 
 
 def refuse_existing(path: str | os.PathLike, *, overwrite: bool) -> Path:
@@ -349,6 +364,11 @@ def prepare_output_dir(path: str | os.PathLike, *, overwrite: bool = False,
     create : bool
         Create the folder (and parents). With ``False`` only the checks run, so a build can
         refuse bad settings before anything is written.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path`` as a Path (created only with ``create``).
 
     Raises
     ------

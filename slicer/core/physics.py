@@ -14,13 +14,25 @@ if TYPE_CHECKING:  # xarray costs ~0.4 s to import; the quick commands need none
     import xarray as xr
 
 
-#: Slowest velocity taken (m/ns): relative permittivity 900, ten times water's 81 (the
+#: Slowest velocity taken (m/ns): relative permittivity 900, about eleven times water's 81 (the
 #: highest of natural materials, from memory), so only a unit slip is refused.
 MIN_VELOCITY = 0.01
 
 
 def check_velocity(velocity: float, *, where: str = "--velocity") -> float:
     """Return ``velocity`` (m/ns) as a float if it is physically possible in ground.
+
+    Parameters
+    ----------
+    velocity : float
+        Radar velocity, m/ns (anything :func:`float` accepts).
+    where : str
+        The option or file named in the error message if the velocity is refused.
+
+    Returns
+    -------
+    float
+        ``velocity`` as a float, m/ns.
 
     Raises
     ------
@@ -54,6 +66,13 @@ def velocity_from_permittivity(permittivity: float, *, where: str = "--permittiv
     ----------
     permittivity : float
         Relative permittivity ``er`` (dimensionless), which must exceed 1 (air).
+    where : str
+        The option or file named in the error message if the permittivity is refused.
+
+    Returns
+    -------
+    float
+        Velocity, m/ns.
     """
     try:
         er = float(permittivity)
@@ -67,7 +86,18 @@ def velocity_from_permittivity(permittivity: float, *, where: str = "--permittiv
 
 
 def permittivity_from_velocity(velocity: float) -> float:
-    """Relative permittivity ``er = (c / v)**2`` for a velocity in m/ns."""
+    """Relative permittivity ``er = (c / v)**2`` for a velocity in m/ns.
+
+    Parameters
+    ----------
+    velocity : float
+        Radar velocity, m/ns; checked by :func:`check_velocity`.
+
+    Returns
+    -------
+    float
+        Relative permittivity (dimensionless), greater than 1.
+    """
     v = check_velocity(velocity)
     return (C_M_PER_NS / v) ** 2
 

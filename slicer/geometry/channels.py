@@ -162,6 +162,16 @@ class ChannelTable:
 def read_channel_table(path: str | os.PathLike) -> ChannelTable:
     """Read a channel table CSV with header ``channel,across,along`` (offsets in m).
 
+    Parameters
+    ----------
+    path : path-like
+        The channel table (see the module docstring for the columns).
+
+    Returns
+    -------
+    ChannelTable
+        The channels in file order, names as text, offsets in m; ``where`` is ``path``.
+
     Raises
     ------
     InputFileError

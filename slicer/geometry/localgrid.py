@@ -430,6 +430,16 @@ def fit_control_points(points: Iterable, *, kind: str = "similarity",
 def read_control_points(path: str | os.PathLike) -> list[ControlPoint]:
     """Read control points from a CSV with header ``name,local_x,local_y,x,y`` (m).
 
+    Parameters
+    ----------
+    path : path-like
+        The control point table.
+
+    Returns
+    -------
+    list of ControlPoint
+        One per row, in file order, each with its ``file:row`` as ``where``.
+
     Raises
     ------
     InputFileError

@@ -21,6 +21,24 @@ def place_line(line: xr.DataArray, entry: LineEntry) -> xr.DataArray:
     """Give every trace its ground position, spaced evenly from the entry's start to its end.
 
     Adds per-trace coordinates ``x``, ``y`` (m, survey CRS) and ``distance`` (m from start).
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        A line with a ``trace`` dim of at least two traces.
+    entry : LineEntry
+        Its line-table row: ``start`` and ``end`` points (m) and ``length``.
+
+    Returns
+    -------
+    xarray.DataArray
+        A copy of ``line`` with the three coordinates; the first trace at the start, the last
+        at the end.
+
+    Raises
+    ------
+    InputFileError
+        Fewer than two traces.
     """
     x, y, distance = even_positions(entry, line.sizes[TRACE])
     return line.assign_coords({

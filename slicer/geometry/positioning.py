@@ -68,6 +68,17 @@ def source_of(entry: LineEntry, settings) -> str:
 def prepare_survey(settings):
     """The settings with every line's start and end known in the survey CRS, swaths expanded.
 
+    Parameters
+    ----------
+    settings : BuildSettings
+        The build's settings; lines placed from ``headers`` or a ``track`` take their ends
+        from their files, and a line with a channel table becomes one line per channel.
+
+    Returns
+    -------
+    BuildSettings
+        A copy (``settings.replace``) whose ``lines`` are the new entries, in table order.
+
     Raises
     ------
     InputFileError
@@ -246,6 +257,16 @@ def offset_channel(line: xr.DataArray, across: float, along: float) -> xr.DataAr
 
 def read_marks(path) -> list[tuple[int, float]]:
     """Distance marks from a CSV ``trace,distance`` (trace index from 0, distance in m).
+
+    Parameters
+    ----------
+    path : path-like
+        The marks file; other columns are ignored, blank rows skipped.
+
+    Returns
+    -------
+    list of (int, float)
+        ``(trace, distance)`` of every row, in file order; distance in m.
 
     Raises
     ------

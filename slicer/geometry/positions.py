@@ -5,16 +5,14 @@ Ways to give every trace of a Line its per-trace ``x``, ``y`` (survey CRS) and `
 :func:`slicer.geometry.placement.place_line` does for a straight, evenly walked line:
 
 - :func:`positions_from_headers`: the coordinates stored in the radar file's trace headers;
-- :func:`positions_from_track`: a separate CSV of GNSS (or total-station) fixes, keyed by trace
-  number or time, projected into the survey CRS and interpolated to every trace, with the
-  antenna's offset from the receiver applied along and across the direction of travel;
+- :func:`positions_from_track`: a CSV of GNSS (or total-station) fixes keyed by trace or time,
+  projected and interpolated to every trace, the antenna's offset applied along and across;
 - :func:`stretch_by_marks`: marker traces dropped at known distances along a straight line;
-- :func:`resample_even`: afterwards, resample traces recorded at uneven spacing to an even one.
+  :func:`resample_even` afterwards resamples traces at uneven spacing to an even one.
 
-Offsets are measured in the frame of travel: *along* is positive forward, *across* is positive
-to the **right** of the direction of travel (seen from above, facing forward).  The direction
-of travel at a trace is the chord of the track over ``smoothing`` metres of path centred on the
-trace (see :mod:`slicer.geometry.channels`, which holds this shared geometry).
+Offsets are in the frame of travel: *along* positive forward, *across* positive to the
+**right** (seen from above, facing forward); the direction of travel at a trace is the chord
+of the track over ``smoothing`` m of path centred on it (:mod:`slicer.geometry.channels`).
 """
 
 from __future__ import annotations
@@ -47,12 +45,10 @@ TRACK_KEYS = ("trace", "time")
 TIME = "time"
 
 #: Iglewicz & Hoaglin (1993) modified z-score threshold, and the MAD-to-sigma factor 0.6745.
-_MODIFIED_Z = 3.5
-_MAD_SIGMA = 0.6745
-#: A step is a jump only if also this many times the median step rate (guards a tiny MAD).
-_JUMP_FLOOR = 3.0
-#: Jumps named individually in a warning before "and N more".
-_NAMED = 8
+_MODIFIED_Z, _MAD_SIGMA = 3.5, 0.6745
+#: A step is a jump only if also this many times the median step rate (guards a tiny MAD);
+#: jumps named individually in a warning before "and N more".
+_JUMP_FLOOR, _NAMED = 3.0, 8
 
 
 def _report_jumps(steps: np.ndarray, spans: np.ndarray, labels: list[str], *, where: str,
@@ -165,10 +161,20 @@ class Track:
 def read_track(path: str | os.PathLike, *, key: str = "trace") -> Track:
     """Read a track CSV of position fixes.
 
-    Columns (header required, extra columns ignored): the key ``trace`` (the line's ``trace``
-    coordinate: 0 is the first trace in the file; fractions allowed) or ``time`` (s, on the
-    clock of the line's per-trace ``time`` coordinate); either ``lon``, ``lat`` (degrees) or
-    ``x``, ``y`` (easting, northing in the track CRS); optionally ``height`` (m).
+    Parameters
+    ----------
+    path : path-like
+        The track file. Columns (header required, extra columns ignored): the key, either
+        ``lon``, ``lat`` (degrees) or ``x``, ``y`` (easting, northing in the track CRS), and
+        optionally ``height`` (m).
+    key : {"trace", "time"}
+        The key column: ``trace`` (the line's ``trace`` coordinate: 0 is the first trace in
+        the file; fractions allowed) or ``time`` (s, on the clock of the line's ``time``).
+
+    Returns
+    -------
+    Track
+        The fixes in file order, with their CSV row numbers.
 
     Raises
     ------

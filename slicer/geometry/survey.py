@@ -11,6 +11,7 @@ import numpy as np
 
 from slicer.core.conventions import DISTANCE, TWT
 from slicer.core.errors import InputFileError, SettingsError
+from slicer.core.numbers import real
 from slicer.geometry.placement import even_positions, place_line
 from slicer.geometry.positioning import channel_traces, positioned, source_of
 from slicer.io.lines import SEGY_SUFFIXES, line_attrs
@@ -59,14 +60,35 @@ def survey_info(entries: Sequence[LineEntry], *,
                 sample_interval_ns: float | None = None) -> SurveyInfo:
     """Read every line's headers and check that the lines agree with each other.
 
+    Parameters
+    ----------
+    entries : sequence of LineEntry
+        The survey's lines (at least one); a swath's channel counts only its own traces.
+    sample_interval_ns : float, optional
+        Sample interval, ns, taken instead of the headers' (which are then not compared).
+
+    Returns
+    -------
+    SurveyInfo
+        Each line's header summary, the common sample count and interval (ns), and the total
+        trace count.
+
     Raises
     ------
     InputFileError
         A file is missing or unreadable, or its sample count or interval differs from the
         first line's.
     SettingsError
-        No sample interval in the headers and none given.
+        No lines; no sample interval in the headers and none given, or one given that is not
+        a positive number.
     """
+    if not entries:
+        raise SettingsError("a survey needs at least one line", where="lines")
+    if sample_interval_ns is not None:
+        sample_interval_ns = real(sample_interval_ns, where="--sample-interval")
+        if not (math.isfinite(sample_interval_ns) and sample_interval_ns > 0):
+            raise SettingsError(f"sample interval must be a positive number of ns, got "
+                                f"{sample_interval_ns:g}", where="--sample-interval")
     infos = tuple(_entry_info(e) for e in entries)
     first = infos[0]
     for info in infos[1:]:
@@ -106,7 +128,21 @@ def _entry_info(entry: LineEntry) -> LineInfo:
 
 def iter_lines(entries: Sequence[LineEntry], *, sample_interval_ns: float | None = None
                ) -> Iterator[xr.DataArray]:
-    """Read and place each line in turn (one line in memory at a time)."""
+    """Read and place each line in turn (one line in memory at a time).
+
+    Parameters
+    ----------
+    entries : sequence of LineEntry
+        The lines, each placed evenly from its start to its end point (:func:`place_line`),
+        whatever its ``positions`` column says.
+    sample_interval_ns : float, optional
+        Sample interval, ns, instead of the files' own (see :func:`slicer.read_line`).
+
+    Yields
+    ------
+    xarray.DataArray
+        Each line in table order, with per-trace ``x``, ``y`` and ``distance`` (m).
+    """
     for entry in entries:  # placed from the table: no trace-header coordinates are read
         line = read_line(entry.file, sample_interval_ns=sample_interval_ns, coordinates=False)
         yield place_line(line, entry)
@@ -129,6 +165,22 @@ def load_line(entry: LineEntry, settings, *, sample_interval_ns: float | None = 
     :mod:`slicer.geometry.positioning`). The file's trace-header coordinates are read only
     for a line placed from them (``headers``): table and track positions need none, and on
     SEG-Y that pass over every trace header was half of a line's reading time.
+
+    Parameters
+    ----------
+    entry : LineEntry
+        The line's row of the line table (for a swath, one channel's entry).
+    settings : BuildSettings
+        The survey's settings: positions source, CRS and track CRS, antenna offsets, trace
+        spacing.
+    sample_interval_ns : float, optional
+        Sample interval, ns, instead of the file's own (see :func:`slicer.read_line`).
+
+    Returns
+    -------
+    xarray.DataArray
+        The line (only the entry's channel of a swath) with per-trace ``x``, ``y`` (m, survey
+        CRS) and ``distance`` (m along the line).
     """
     line = read_line(entry.file, sample_interval_ns=sample_interval_ns,
                      coordinates=source_of(entry, settings) == "headers")

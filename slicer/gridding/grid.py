@@ -84,6 +84,22 @@ def grid_for(x: np.ndarray, y: np.ndarray, *, cell: float, max_cells: int = MAX_
              where: str = "--cell") -> Grid:
     """The smallest grid of whole cells (corner on a multiple of ``cell``) covering the points.
 
+    Parameters
+    ----------
+    x, y : numpy.ndarray
+        Point (trace) eastings and northings, m.
+    cell : float
+        Cell edge, m.
+    max_cells : int
+        Most cells allowed.
+    where : str
+        The option named in the message when there are too many cells or bad points.
+
+    Returns
+    -------
+    Grid
+        At least one cell each way.
+
     Raises
     ------
     SettingsError
@@ -409,6 +425,18 @@ def neighbour_weights(grid: Grid, x: np.ndarray, y: np.ndarray, line: np.ndarray
     """Sparse weights from traces at ``(x, y)`` on lines ``line`` to every cell of ``grid``.
 
     See :func:`trace_frame` for the parameters; :func:`grid_tile` does the same for one tile.
+
+    Parameters
+    ----------
+    grid : Grid
+        The output grid; its ``cell`` is the one :func:`trace_frame` takes.
+    x, y, line, radius, along, max_gap
+        As :func:`trace_frame` (lengths in m).
+
+    Returns
+    -------
+    Weights
+        The sparse cells x traces matrix, the empty cells and the lengths used (m).
     """
     frame = trace_frame(x, y, line, cell=grid.cell, radius=radius, along=along,
                         max_gap=max_gap)

@@ -103,7 +103,26 @@ def _round_up(value: float) -> float:
 
 
 def parse_range(text: str, *, option: str) -> tuple[float, float, float]:
-    """Parse ``"TOP:BOTTOM:STEP"`` into three finite floats, naming ``option`` on error."""
+    """Parse ``"TOP:BOTTOM:STEP"`` into three finite floats, naming ``option`` on error.
+
+    Parameters
+    ----------
+    text : str
+        Three numbers separated by colons (m for depths or elevations, ns for times).
+    option : str
+        The option named in the error message, e.g. ``--depths``.
+
+    Returns
+    -------
+    tuple of float
+        ``(top, bottom, step)`` in the unit given; their order and signs are not checked
+        here (for depths and times :func:`make_windows` checks them).
+
+    Raises
+    ------
+    SettingsError
+        Not three parts, or a part that is not a finite number.
+    """
     parts = str(text).split(":")
     if len(parts) != 3:
         raise SettingsError(f"expected TOP:BOTTOM:STEP, got {text!r}", where=option)

@@ -26,7 +26,7 @@ from pathlib import Path
 import numpy as np
 import xarray as xr
 
-from slicer.core.atomic import atomic_path, refuse_existing
+from slicer.core.atomic import atomic_path, data_first, refuse_existing
 from slicer.core.conventions import TRACE, TWT, UNITS
 from slicer.core.errors import InputFileError
 from slicer.io.lines import (
@@ -53,17 +53,17 @@ _NETCDF_ERRORS = (OSError, ValueError, KeyError, RuntimeError, TypeError, IndexE
                   OverflowError, struct.error)  # the last three: damaged classic files (SciPy)
 
 
-def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray, *,
+def write_line_netcdf(line: xr.DataArray, path: str | os.PathLike, *,
                       overwrite: bool = False) -> Path:
     """Write a line as a slicer NetCDF line file, atomically.
 
     Parameters
     ----------
-    path : path-like
-        The output file (``.nc``).
     line : xarray.DataArray
         A Line, dims ``(trace, twt)``; ``twt`` in ns. Per-trace ``x``/``y`` (or, for a line
         not yet placed, ``header_x``/``header_y``) are stored as ``x``/``y`` (m).
+    path : path-like
+        The output file (``.nc``).
     overwrite : bool
         Replace an existing file of that name; without it the file is refused (OutputError)
         and left as it was.
@@ -78,7 +78,11 @@ def write_line_netcdf(path: str | os.PathLike, line: xr.DataArray, *,
     OutputError
         A line with wrong dims, no samples or no sample interval; an existing ``path``
         without ``overwrite``.
+    SettingsError
+        A path given first (the order before 2026-12-04: the line comes first, as in every
+        writer).
     """
+    data_first(line, path, "write_line_netcdf", "line")
     path = refuse_existing(path, overwrite=overwrite)
     where = str(path)
     _check_line(line, where)

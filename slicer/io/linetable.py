@@ -196,6 +196,20 @@ def read_line_table(path: str | os.PathLike, *, ends: bool = True) -> list[LineE
 
     With ``ends=False`` only the ``file`` column is required (positions come from the files).
 
+    Parameters
+    ----------
+    path : path-like
+        The table: header ``file,start_x,start_y,end_x,end_y`` (m) and optional columns.
+    ends : bool
+        Require the start and end columns (unless the table has a ``positions`` or
+        ``track`` column).
+
+    Returns
+    -------
+    list of LineEntry
+        One per non-blank row, in file order; relative file names are taken from the
+        table's folder.
+
     Raises
     ------
     LineTableError

@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 import segyio
 
-from slicer.core.atomic import atomic_path, refuse_existing
+from slicer.core.atomic import atomic_path, data_first, refuse_existing
 from slicer.core.conventions import TRACE, TWT
 from slicer.core.errors import InputFileError, OutputError, SettingsError, warn
 from slicer.io.lines import (
@@ -292,7 +292,7 @@ def _header_coordinates(f: segyio.SegyFile,
     return x, y
 
 
-def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code: int = 5,
+def write_segy_line(line: xr.DataArray, path: str | os.PathLike, *, format_code: int = 5,
                     coordinate_scalar: int = -100, overwrite: bool = False) -> Path:
     """Write a line as SEG-Y rev 2.0, atomically.
 
@@ -305,11 +305,11 @@ def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code:
 
     Parameters
     ----------
-    path : path-like
-        The output file (``.sgy``).
     line : xarray.DataArray
         A Line, dims ``(trace, twt)``; the interval is ``attrs["sample_interval_ns"]`` (ns) or
         else the ``twt`` spacing.
+    path : path-like
+        The output file (``.sgy``).
     format_code : {1, 2, 3, 5}
         Sample format: 1 IBM float, 2 int32, 3 int16, 5 IEEE float. The integer formats scale
         the largest absolute amplitude to the top of the integer range and keep no record of
@@ -329,11 +329,13 @@ def write_segy_line(path: str | os.PathLike, line: xr.DataArray, *, format_code:
     Raises
     ------
     SettingsError
-        Unsupported ``format_code`` or ``coordinate_scalar``.
+        Unsupported ``format_code`` or ``coordinate_scalar``; a path given first (the order
+        before 2026-12-04: the line comes first, as in every writer).
     OutputError
         A line that cannot be stored: wrong dims, empty, no interval, non-finite coordinates,
         coordinates overflowing 32 bits, or non-finite amplitudes in an integer format.
     """
+    data_first(line, path, "write_segy_line", "line")
     path = refuse_existing(path, overwrite=overwrite)
     where = str(path)
     if format_code not in _WRITE_FORMATS:

@@ -55,14 +55,16 @@ def _check_axis(axis: str) -> str:
 
 
 def slice_axis(cube: xr.DataArray) -> str:
-    """Return the name of the slice dimension of ``cube`` (``"depth"`` or ``"twt"``)."""
+    """Return the name of the slice dimension of ``cube``: ``"depth"``, ``"twt"`` or
+    ``"elevation"``."""
     import xarray as xr  # loaded already wherever a cube exists
     if not isinstance(cube, xr.DataArray):
         raise SettingsError(f"expected a cube (an xarray.DataArray), got {type(cube).__name__}",
                             where="cube")
     axis = cube.dims[0] if cube.ndim == 3 else None
     if axis not in AXES or cube.dims[1:] != (Y, X):
-        raise SettingsError(f"a cube has dims (depth|twt, y, x), not {cube.dims}", where="cube")
+        raise SettingsError(f"a cube has dims (depth|twt|elevation, y, x), not {cube.dims}",
+                            where="cube")
     return str(axis)
 
 
@@ -420,7 +422,13 @@ def read_cube_netcdf(path: str | os.PathLike, *, name: str | None = None) -> xr.
     path : path-like
         The NetCDF file.
     name : str, optional
-        Variable to read; by default the one 3-D variable with dims (depth|twt, y, x).
+        Variable to read; by default the one 3-D variable with dims (depth|twt|elevation, y, x).
+
+    Returns
+    -------
+    xarray.DataArray
+        The cube, loaded, dims ``(axis, y, x)`` (axis depth, twt or elevation), ready for
+        use as :func:`new_cube` makes it (window index, NaN nodata, ``.rio``).
 
     Raises
     ------
@@ -456,8 +464,8 @@ def cube_from_dataset(ds: xr.Dataset, *, name: str | None = None,
         found = [v for v, da in ds.data_vars.items()
                  if da.ndim == 3 and da.dims[0] in AXES and da.dims[1:] == (Y, X)]
         if len(found) != 1:
-            raise InputFileError(f"expected one (depth|twt, y, x) variable, found {found}",
-                                 where=where)
+            raise InputFileError(f"expected one (depth|twt|elevation, y, x) variable, found "
+                                 f"{found}", where=where)
         name = str(found[0])
     if name not in ds.data_vars:
         raise InputFileError(f"no variable {name!r}", where=where)

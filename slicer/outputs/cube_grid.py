@@ -37,6 +37,19 @@ def cube_transform(cube: xr.DataArray) -> Affine:
     where the ``x`` and ``y`` coordinates start: a part of a cube (``cube.isel(...)``) keeps
     its parent's attrs.
 
+    Parameters
+    ----------
+    cube : xarray.DataArray
+        A cube (:func:`slicer.new_cube`), or a part of one, with numeric ``attrs["west"]``,
+        ``attrs["north"]`` and ``attrs["cell_size"]`` (m).
+
+    Returns
+    -------
+    affine.Affine
+        ``Affine(cell, 0, west, 0, -cell, north)`` with ``west`` and ``north`` those of the
+        first column and row: ``transform * (col, row)`` is the upper-left corner of that
+        cell in the CRS, m.
+
     Raises
     ------
     SettingsError
@@ -88,7 +101,25 @@ def _grid_mapping_name(cube: xr.DataArray) -> str:
 
 
 def cube_crs(cube: xr.DataArray) -> pyproj.CRS | None:
-    """Return the CRS of ``cube`` from its grid-mapping coordinate, or None for a local grid."""
+    """Return the CRS of ``cube`` from its grid-mapping coordinate, or None for a local grid.
+
+    Parameters
+    ----------
+    cube : xarray.DataArray
+        A cube; its grid-mapping coordinate is the one ``attrs["grid_mapping"]`` (or the
+        encoding's) names, else ``spatial_ref``.
+
+    Returns
+    -------
+    pyproj.CRS or None
+        From the coordinate's ``crs_wkt`` (or ``spatial_ref``) WKT attr, else from its CF
+        grid-mapping attrs; None when the cube has no such coordinate.
+
+    Raises
+    ------
+    SettingsError
+        If the coordinate's attrs give no valid CRS.
+    """
     import pyproj
     name = _grid_mapping_name(cube)
     if name not in cube.coords:

@@ -57,11 +57,16 @@ def slice_file_name(index: int, top: float, bottom: float, axis: str = DEPTH, *,
     index : int
         Position of the slice in the cube (0-based, >= 0).
     top, bottom : float
-        Window bounds, m for depth or ns for two-way time.
-    axis : {"depth", "twt"}
+        Window bounds: m for depth and elevation, ns for two-way time.
+    axis : {"depth", "twt", "elevation"}
         Slice dimension; selects the unit written into the name.
     digits : int
         Minimum width of the zero-padded index.
+
+    Returns
+    -------
+    str
+        A bare file name; bounds with 3 decimals in m or 2 in ns, then the unit.
     """
     if axis not in _DECIMALS:
         raise SettingsError(f"slice axis must be one of {', '.join(_DECIMALS)}, not {axis!r}",

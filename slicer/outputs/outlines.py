@@ -221,7 +221,22 @@ def write_outlines(outlines: Outlines, path: str | os.PathLike, *,
                    overwrite: bool = False) -> Path:
     """Write the outlines as a GeoPackage with layers ``outlines`` and ``bodies``
     (:func:`slicer.outputs.vector.write_geopackage`: atomic, the user's file modes; an
-    existing ``path`` is replaced only with ``overwrite``, OutputError otherwise)."""
+    existing ``path`` is replaced only with ``overwrite``, OutputError otherwise).
+
+    Parameters
+    ----------
+    outlines : Outlines
+        What :func:`outline` found; written in its ``crs`` (None: no CRS, a local grid).
+    path : path-like
+        The GeoPackage to write; must end in ``.gpkg``.
+    overwrite : bool
+        Replace an existing file at ``path``.
+
+    Returns
+    -------
+    pathlib.Path
+        The file written.
+    """
     from slicer.outputs.vector import Layer, write_geopackage
     layers = []
     for name, rows, fields in (("outlines", outlines.patches, _PATCH_FIELDS),

@@ -72,9 +72,21 @@ def grid_slices(table: xr.DataArray, *, cell: float | None = None, radius: float
     processing : str
         Summary of the processing, stored in the cube's attrs.
     engine : Engine, optional
-        Where the tile tasks run; default dask's threads.
+        Where the tile tasks run; default a pool of threads on this machine.
     tile : int
         Tile edge in cells: each tile is gridded from the traces near it only.
+    progress : bool
+        Show a progress bar of the tiles (on a terminal).
+
+    Returns
+    -------
+    cube : xarray.DataArray
+        Dims ``(axis, y, x)`` as :func:`slicer.new_cube` makes them, float32, NaN where no
+        trace lies within reach.
+    details : dict
+        How it was gridded: ``west``, ``north``, ``cell`` (m), ``nx``, ``ny``, ``tile``,
+        ``search_radius_m``, ``line_spacing_m``, ``along_line_half_width_m``, ``max_gap_m``,
+        and ``empty_cells``, the number of NaN cells of the first slice.
     """
     from slicer.outputs.cube import new_cube
     layout = GridLayout.of(table, cell=cell, radius=radius, max_gap=max_gap, tile=tile)
@@ -260,6 +272,22 @@ def build_cube(settings: BuildSettings, *, progress: bool = True,
     """Run the whole pipeline in memory, writing nothing: the cube and its record.
 
     ``engine`` (default: the one ``settings.scheduler`` names) runs the line and tile tasks.
+
+    Parameters
+    ----------
+    settings : BuildSettings
+        What to build (:func:`slicer.load_settings`).
+    progress : bool
+        Show progress bars of the line and tile tasks (on a terminal).
+    engine : Engine, optional
+        Where the tasks run; default an engine opened (and closed) for this call.
+
+    Returns
+    -------
+    BuildResult
+        ``cube``, dims ``(axis, y, x)`` (depth slices with a per-slice ``depth_error``
+        coordinate, m, one sigma, from the velocity's uncertainty), and ``record``, the
+        build's record as a dict; ``files`` is empty.
     """
     if engine is None:
         with open_engine(settings) as own:

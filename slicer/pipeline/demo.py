@@ -47,6 +47,18 @@ def run_demo(out: str | os.PathLike, *, format: str = "segy", overwrite: bool = 
     ``slicer build out/survey/survey.toml --out ...``. The demo writes every output format
     (:data:`DEMO_FORMATS`), and its survey file says so.
 
+    Parameters
+    ----------
+    out : path-like
+        Folder for ``survey`` and ``build``; it must be empty (or absent) unless
+        ``overwrite``.
+    format : {"segy", "netcdf"}
+        Format of the demo's line files.
+    overwrite : bool
+        Allow non-empty folders and replace files already there.
+    progress : bool
+        Show progress bars (on a terminal).
+
     Returns
     -------
     BuildResult

@@ -1,4 +1,4 @@
-"""Where a build runs: dask's local threads or processes, or a dask.distributed cluster.
+"""Where a build runs: a pool of threads or processes on this machine, or a dask cluster.
 
 Work is cut into independent tasks (one per line to reduce, one per output tile to grid), each a
 plain module-level function of picklable arguments, so the same graph runs on every engine.
@@ -135,7 +135,25 @@ WORKER_LOST = ("a worker process ended in the middle of a task: out of memory, k
 
 def parse_scheduler(text: str | None, *, workers: int | None = None,
                     traces: int | None = None) -> EngineSpec:
-    """Parse a ``--scheduler`` value (see the module docstring); ``auto`` needs ``traces``."""
+    """Parse a ``--scheduler`` value (see the module docstring); ``auto`` needs ``traces``.
+
+    Parameters
+    ----------
+    text : str or None
+        ``auto``, ``threads``, ``processes``, ``local:N`` or ``tcp://HOST:PORT`` (surrounding
+        spaces ignored); None means ``threads``.
+    workers : int, optional
+        Concurrent tasks of ``threads`` and ``processes`` (and the count ``auto`` weighs);
+        default the machine's core count. ``local:N`` takes N instead.
+    traces : int, optional
+        The survey's trace count, from which ``auto`` chooses; without it ``auto`` gives
+        ``threads``.
+
+    Returns
+    -------
+    EngineSpec
+        Kind, worker count and (remote) address; nothing is started or connected to.
+    """
     n = workers or os.cpu_count() or 1
     text = (text or "threads").strip()
     if text == "auto":
@@ -461,6 +479,22 @@ def _run_batch(func: Callable, batch: list) -> list:
 @contextlib.contextmanager
 def engine(scheduler: str | None = None, *, workers: int | None = None,
            memory_limit: int | None = None) -> Iterator[Engine]:
-    """Open the engine a ``--scheduler`` value names (see :class:`Engine`)."""
+    """Open the engine a ``--scheduler`` value names (see :class:`Engine`).
+
+    Parameters
+    ----------
+    scheduler : str, optional
+        A ``--scheduler`` value (:func:`parse_scheduler`); default ``threads``. No trace
+        count is given, so ``auto`` gives ``threads``.
+    workers : int, optional
+        Concurrent tasks of ``threads`` and ``processes``; default the core count.
+    memory_limit : int, optional
+        Bytes per worker of a ``local:N`` cluster.
+
+    Returns
+    -------
+    contextlib.AbstractContextManager of Engine
+        The open engine as the ``with`` target, closed (workers stopped) when the block ends.
+    """
     with Engine(parse_scheduler(scheduler, workers=workers), memory_limit=memory_limit) as e:
         yield e

@@ -58,19 +58,35 @@ def process_line(line: xr.DataArray, settings: BuildSettings, *,
                  frequency: float | None = None):
     """Run the processing chain of ``settings`` on one placed line; returns its envelope.
 
-    ``dewow_ns`` fixes the dewow window when ``settings.dewow`` is ``"auto"`` (the build
-    resolves it once, from the first line), ``frequency`` (GHz) the dominant frequency that
-    the migrated band counts in (a build's is its first line's, for every line; None: each
-    line's own). The steps after time zero run fused on one array
+    The steps after time zero run fused on one array
     (:func:`slicer.processing.steps.process_chain`, equal to the single steps); migration
     (:func:`migration_method`) sits between background removal and gain, so the chain runs in
-    two fused parts around it.
+    two fused parts around it. A build's line task runs the same chain on plain arrays
+    (:func:`process_samples`).
 
-    A build's line task runs the same chain on plain arrays (:func:`process_samples`).
+    Parameters
+    ----------
+    line : xarray.DataArray
+        A placed line, dims ``(trace, twt)``, ``twt`` in ns, per-trace ``distance`` (m) for
+        migration.
+    settings : BuildSettings
+        The build's settings: time zero, dewow, background, migration, gain.
+    dewow_ns : float, optional
+        The dewow window (ns) when ``settings.dewow`` is ``"auto"`` (a build resolves it
+        once, from the first line); None takes it from this line's dominant frequency.
+    keep_trace : bool
+        Also return the processed trace and the direct wave's polarity (signed slices).
+    frequency : float, optional
+        The dominant frequency (GHz) the migrated band counts in (a build's is its first
+        line's, for every line); None: this line's own.
 
-    With ``keep_trace`` it returns ``(envelope, trace, polarity)``: also the processed trace
-    before the envelope and the direct wave's polarity (+1 or -1, read before background
-    removal; :func:`slicer.processing.polarity.direct_wave_polarity`), for signed slices.
+    Returns
+    -------
+    xarray.DataArray or tuple
+        The envelope (float32, ``twt`` from time zero, the steps in ``attrs["history"]``); with
+        ``keep_trace``, ``(envelope, trace, polarity)``: also the processed trace before the
+        envelope and the direct wave's polarity (+1 or -1, read before background removal;
+        :func:`slicer.processing.polarity.direct_wave_polarity`).
     """
     separation = settings.antenna_separation or 0.0
     line = correct_time_zero(line, time_zero=settings.time_zero,

@@ -326,7 +326,7 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
     settings : BuildSettings
         The build.
     engine : Engine, optional
-        Where the line tasks run; default dask's threads on this machine.
+        Where the line tasks run; default a pool of threads on this machine.
     info : SurveyInfo, optional
         The survey's headers, if already read.
     progress : bool
@@ -335,6 +335,15 @@ def reduce_survey(settings: BuildSettings, *, engine: Engine | None = None,
         Called with each line's ``image`` (see :func:`reduce_line`), as the DataArray of
         :func:`slicer.outputs.radargram.display_image`, as its task returns, in line order;
         without it the images are dropped.
+
+    Returns
+    -------
+    Reduced
+        ``table``, dims ``(trace, slice)``, with per-trace ``x``, ``y`` (m) and ``line`` (the
+        line's index in ``settings.lines``) and per-slice ``top``, ``bottom``; the survey's
+        headers, the windows, the dewow window (ns, None when not automatic), each line's
+        file, trace count, time zero (ns) and processing history, the tie report and the
+        input files' sizes and checksums.
     """
     if engine is None:
         with Engine(parse_scheduler("threads")) as own:

@@ -361,6 +361,12 @@ def load_settings(path: str | os.PathLike, **overrides) -> BuildSettings:
         A line table or a TOML survey file.
     **overrides
         Options of :data:`OPTION_KEYS`; ``None`` means "not given" and keeps the file's value.
+
+    Returns
+    -------
+    BuildSettings
+        The checked settings: every line (lines in local-grid coordinates mapped into the CRS
+        by their control points) and every option, the flags' values over the file's.
     """
     unknown = sorted(set(overrides) - set(OPTION_KEYS))
     if unknown:

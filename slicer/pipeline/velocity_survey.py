@@ -154,6 +154,13 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
         Earliest apex time searched, ns (default two dominant periods, below what remains of
         the direct wave): lower it for targets right under the surface (rebar at 2-5 cm
         cover in concrete).
+
+    Returns
+    -------
+    VelocityAnalysis
+        The survey-wide velocity and its standard uncertainty (m/ns, with its parts), every
+        fitted hyperbola and those kept in the estimate, the separation (m), the survey CRS,
+        the antenna height and the target radii used (see :meth:`VelocityAnalysis.to_json`).
     """
     from slicer.geometry.positioning import prepare_survey
     if separation is None:
@@ -254,7 +261,7 @@ def write_velocity_outputs(analysis: VelocityAnalysis, out: str | os.PathLike, *
     out = prepare_output_dir(out, overwrite=overwrite)
     # the folder was emptied or the user gave overwrite: the files it holds may be replaced
     write_picks(analysis, out / "picks.gpkg", overwrite=True)
-    return write_velocity_model(out / "velocity.toml", analysis.model(), overwrite=True)
+    return write_velocity_model(analysis.model(), out / "velocity.toml", overwrite=True)
 
 
 def write_picks(analysis: VelocityAnalysis, path: str | os.PathLike, *,

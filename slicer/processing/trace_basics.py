@@ -66,6 +66,17 @@ def dominant_frequency(line: xr.DataArray) -> float:
     Wow (a slow drift of the trace baseline) is first reduced by subtracting a Gaussian
     running mean (sigma a twentieth of the record), and frequencies below four cycles per
     record are ignored, so that the drift cannot be taken for the signal.
+
+    Parameters
+    ----------
+    line : xarray.DataArray
+        A line: a ``twt`` dim with evenly spaced two-way times (ns); the spectrum is averaged
+        over every other dim (usually ``trace``).
+
+    Returns
+    -------
+    float
+        The dominant frequency, GHz.
     """
     line = checked_line(line, step="dominant_frequency")
     return dominant_frequency_of(line.values, dt=sample_interval(line), where=line_name(line))

@@ -404,7 +404,7 @@ def write_survey(folder: str | os.PathLike, ground: Ground, radar: Radar, lines,
                            unit="line", enabled=progress):
         data = simulate_line(ground, radar, line)
         data.attrs["source"] = str(path)
-        writer(path, data, overwrite=True)  # the folder itself was checked above
+        writer(data, path, overwrite=True)  # the folder itself was checked above
     surface = (SurfaceFiles() if ground.surface is None else
                write_surface_files(folder, ground, lines, crs=crs, options=options))
 

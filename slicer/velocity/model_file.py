@@ -36,9 +36,10 @@ Errors name the file and the table at fault (``model.toml:layer[2]``, counted fr
 
 from __future__ import annotations
 
+import os
 from pathlib import Path
 
-from slicer.core.atomic import atomic_write_text
+from slicer.core.atomic import atomic_write_text, data_first
 from slicer.core.errors import InputFileError, LineTableError, SettingsError
 from slicer.io.tomlfile import read_toml
 from slicer.velocity.models import (
@@ -149,6 +150,17 @@ def velocity_model_from_mapping(data: dict, *, where: str = "velocity model") ->
 def read_velocity_model(path) -> VelocityModel:
     """Read a velocity model file (TOML; the form is in the module docstring).
 
+    Parameters
+    ----------
+    path : path-like
+        The model file.
+
+    Returns
+    -------
+    VelocityModel
+        A :class:`ConstantVelocity`, :class:`LayeredVelocity` or :class:`LateralVelocity`
+        (velocities and their one-sigma std in m/ns), with the file's ``note``.
+
     Raises
     ------
     InputFileError
@@ -165,15 +177,33 @@ def read_velocity_model(path) -> VelocityModel:
     return velocity_model_from_mapping(data, where=str(path))
 
 
-def write_velocity_model(path, model: VelocityModel, *, overwrite: bool = False) -> Path:
-    """Write ``model`` in the file form (atomically); :func:`read_velocity_model` reads it back.
-    An existing ``path`` is replaced only with ``overwrite`` (OutputError otherwise).
+def write_velocity_model(model: VelocityModel, path: str | os.PathLike, *,
+                         overwrite: bool = False) -> Path:
+    """Write ``model`` to ``path`` in the file form (atomically); :func:`read_velocity_model`
+    reads it back. An existing ``path`` is replaced only with ``overwrite`` (OutputError
+    otherwise); a path given first (the order before 2026-12-04) is refused (SettingsError):
+    the model comes first, as the data in every writer.
 
     Layers are written by top time with interval velocities (exact), the depth of each top in
     the header comment. The TOML is written by tomli-w, which escapes any text a note holds.
+
+    Parameters
+    ----------
+    model : ConstantVelocity, LayeredVelocity or LateralVelocity
+        The model; a constant one given by permittivity is written as permittivity.
+    path : path-like
+        The file to write.
+    overwrite : bool
+        Replace an existing file at ``path``.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path`` as a Path.
     """
     import tomli_w
 
+    data_first(model, path, "write_velocity_model", "model")
     header = ["# radar velocity model (m/ns, one-sigma std)"]
     doc: dict = {}
     if isinstance(model, ConstantVelocity):

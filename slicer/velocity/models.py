@@ -350,8 +350,19 @@ def depth_error(model: VelocityModel, depth, *, x=None, y=None) -> np.ndarray:
 
     Parameters
     ----------
+    model : VelocityModel
+        The velocity model, with its one-sigma velocity errors (m/ns).
     depth : array_like
         Depths (m, >= 0) below the surface.
+    x, y : array_like, optional
+        Positions (m) where a lateral model is taken, broadcast with ``depth``; needed for a
+        lateral model, ignored by others.
+
+    Returns
+    -------
+    numpy.ndarray
+        One-sigma depth error, m, in the shape of ``depth`` (broadcast with ``x``, ``y`` for
+        a lateral model).
     """
     d, tops, v, s = _positions(model, depth, x, y)
     if np.any(d < 0) or not np.all(np.isfinite(d)):
@@ -380,6 +391,12 @@ def velocity_from_known_depth(depth_m: float, twt_ns: float, *, depth_std: float
         Its two-way time (ns) below time zero.
     depth_std, twt_std : float
         One-sigma errors of the depth (m) and time (ns).
+
+    Returns
+    -------
+    ConstantVelocity
+        Velocity ``2 d / t`` (m/ns) with its one-sigma std (m/ns) and a note naming the
+        reflector's depth and time.
     """
     d, t, sd, st = (_finite(value, name, name) for value, name in (
         (depth_m, "depth_m"), (twt_ns, "twt_ns"), (depth_std, "depth_std"), (twt_std, "twt_std")))

@@ -66,7 +66,25 @@ def _number(text, where: str) -> float:
 
 def target_radius(radius, *, std=None, route=(), where: str = "--target-radius") -> TargetRadius:
     """A checked :class:`TargetRadius`: ``0 < radius < 10`` m, ``std`` (default
-    :data:`RADIUS_STD_SHARE` of the radius) ``>= 0``, a route of two or more distinct points."""
+    :data:`RADIUS_STD_SHARE` of the radius) ``>= 0``, a route of two or more distinct points.
+
+    Parameters
+    ----------
+    radius : float
+        The target's radius, m (anything that reads as a finite number).
+    std : float, optional
+        Its standard uncertainty, m, from 0 to under ``radius``.
+    route : sequence of (float, float)
+        The target's polyline in plan, ``(x, y)`` in m (survey CRS); empty for the default
+        radius of every fit off other routes.
+    where : str
+        The option or file named in an error message.
+
+    Returns
+    -------
+    TargetRadius
+        Radius and std (m) as floats, the route as a tuple of ``(x, y)`` tuples.
+    """
     r = _number(radius, where)
     if not 0 < r < 10:
         raise SettingsError(f"a radius must be between 0 and 10 m, got {radius!r}", where=where)

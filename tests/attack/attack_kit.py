@@ -111,12 +111,12 @@ class Seeds:
     survey: dict[str, bytes]  # a whole valid survey folder: file name -> bytes
 
 
-def _classic(path, line):
+def _classic(line, path):
     """A line as classic NetCDF (format 1), as xarray writes it where netCDF4 is missing."""
     import xarray as xr
 
     from slicer.io.linefile import write_line_netcdf
-    write_line_netcdf(path.with_suffix(".nc4"), line)
+    write_line_netcdf(line, path.with_suffix(".nc4"))
     with xr.open_dataset(path.with_suffix(".nc4"), engine="h5netcdf") as ds:
         ds.load().to_netcdf(path, format="NETCDF3_CLASSIC", engine="scipy")
 
@@ -139,7 +139,7 @@ def seeds() -> Seeds:
         folder = Path(folder)
 
         def written(writer, name, line, **kw):
-            writer(folder / name, line, **kw)
+            writer(line, folder / name, **kw)
             return (folder / name).read_bytes()
 
         segy = {"ieee": written(write_segy_line, "a.sgy", lines[0]),

@@ -50,7 +50,7 @@ def _east_lines(ys, *, length=4.0, west=W, n=81, prefix="E"):
 def _write(folder, ground, plans, *, radar=RADAR):
     folder.mkdir(parents=True, exist_ok=True)
     for plan in plans:
-        write_segy_line(folder / f"{plan.name}.sgy", simulate_line(ground, radar, plan))
+        write_segy_line(simulate_line(ground, radar, plan), folder / f"{plan.name}.sgy")
     return folder
 
 
@@ -281,8 +281,8 @@ def swaths(tmp_path_factory):
     refs = _east_lines([S + 0.75 + 1.5 * k for k in range(3)])
     folder = tmp_path_factory.mktemp("swath")
     for ref in refs:
-        write_segy_line(folder / f"{ref.name}.sgy", _swath(ground, ref))
-    write_segy_line(folder / "plain.sgy", _swath(ground, refs[0], numbered=False))
+        write_segy_line(_swath(ground, ref), folder / f"{ref.name}.sgy")
+    write_segy_line(_swath(ground, refs[0], numbered=False), folder / "plain.sgy")
     (folder / "array.csv").write_text("channel,across,along\n" + "".join(
         f"{k},{v},0\n" for k, v in ACROSS.items()))
     rows = ["file,start_x,start_y,end_x,end_y,channels"] + [

@@ -48,7 +48,7 @@ def _write(folder: Path, name: str, *, traces=21, samples=64, interval=0.1, seed
                 "x": ("trace", E0 + 0.05 * np.arange(traces)),
                 "y": ("trace", np.full(traces, N0 + seed))},
         attrs={"line": name, "sample_interval_ns": interval})
-    return write_line_netcdf(folder / f"{name}.nc", line)
+    return write_line_netcdf(line, folder / f"{name}.nc")
 
 
 def _entry(path: Path, k=0, length=4.0) -> LineEntry:
@@ -86,6 +86,23 @@ def test_lines_with_other_sample_intervals_are_refused(tmp_path):
                        match=r"sample interval 0.2 ns, but L0.nc has 0.1 ns") as info:
         survey_info([_entry(first), _entry(other, 1), _entry(_write(tmp_path, "L2"), 2)])
     assert info.value.where == str(other)
+
+
+@pytest.mark.parametrize("interval", [0.0, -0.1, math.inf, math.nan, "fast", None])
+def test_no_lines_or_an_impossible_given_interval_are_refused_by_name(tmp_path, interval):
+    # an empty survey had ended in a bare IndexError, and a given interval was taken
+    # unchecked (0 ns builds a record of no length)
+    from slicer.core.errors import SettingsError
+    with pytest.raises(SettingsError, match="at least one line") as info:
+        survey_info([])
+    assert info.value.where == "lines"
+    entries = [_entry(_write(tmp_path, "L0"))]
+    if interval is None:  # from the headers, as before
+        assert survey_info(entries).sample_interval_ns == pytest.approx(0.1)
+        return
+    with pytest.raises(SettingsError) as info:
+        survey_info(entries, sample_interval_ns=interval)
+    assert info.value.where == "--sample-interval"
 
 
 def test_intervals_within_a_thousandth_agree(tmp_path):

@@ -50,7 +50,7 @@ def _raw(path, amplitude, *, twt=None, attrs=None, **coords):
 
 @pytest.fixture
 def good(tmp_path):
-    return write_line_netcdf(tmp_path / "good.nc", _line(_data()))
+    return write_line_netcdf(_line(_data()), tmp_path / "good.nc")
 
 
 def test_round_trip_exact(good):
@@ -91,15 +91,15 @@ def test_layout_read_by_netcdf4(good):
 def test_processed_line_keeps_time_axis_and_history(tmp_path):
     line = _line(_data(), interval_ns=0.2, twt0=-1.4).assign_attrs(
         time_zero_ns=1.4, history="time zero; dewow")
-    back = read_line_netcdf(write_line_netcdf(tmp_path / "p.nc", line))
+    back = read_line_netcdf(write_line_netcdf(line, tmp_path / "p.nc"))
     np.testing.assert_array_equal(back["twt"].values, line["twt"].values)
     assert back.attrs["time_zero_ns"] == 1.4 and back.attrs["history"] == "time zero; dewow"
 
 
 def test_header_coords_written_for_unplaced_line(tmp_path):
-    back = read_line_netcdf(write_line_netcdf(tmp_path / "h.nc", _line(_data(), xy="header_x")))
+    back = read_line_netcdf(write_line_netcdf(_line(_data(), xy="header_x"), tmp_path / "h.nc"))
     np.testing.assert_array_equal(back["header_x"].values, X0 + 0.05 * np.arange(5))
-    none = read_line_netcdf(write_line_netcdf(tmp_path / "n.nc", _line(_data(), xy=None)))
+    none = read_line_netcdf(write_line_netcdf(_line(_data(), xy=None), tmp_path / "n.nc"))
     assert "header_x" not in none.coords
 
 
@@ -109,7 +109,7 @@ def test_line_read_from_file_can_be_written_again(tmp_path, good):
     first = read_line_netcdf(good)
     first.encoding.update({"chunksizes": (5, 8), "source": str(good)})
     part = first.isel(trace=slice(1, 3), twt=slice(0, 4))
-    back = read_line_netcdf(write_line_netcdf(tmp_path / "part.nc", part))
+    back = read_line_netcdf(write_line_netcdf(part, tmp_path / "part.nc"))
     np.testing.assert_array_equal(back.values, _data()[1:3, :4])
 
 
@@ -117,9 +117,9 @@ def test_overwrite_is_atomic_and_leaves_no_temporary(tmp_path, good):
     before = good.read_bytes()
     # nothing on disk is replaced unasked (DEVELOPERS.md): refused, the file as it was
     with pytest.raises(OutputError, match=r"good\.nc.*already exists.*overwrite=True"):
-        write_line_netcdf(good, _line(_data(seed=9)))
+        write_line_netcdf(_line(_data(seed=9)), good)
     assert good.read_bytes() == before
-    write_line_netcdf(good, _line(_data(seed=9)), overwrite=True)
+    write_line_netcdf(_line(_data(seed=9)), good, overwrite=True)
     np.testing.assert_array_equal(read_line_netcdf(good).values, _data(seed=9))
     assert sorted(p.name for p in tmp_path.iterdir()) == ["good.nc"]
 
@@ -163,7 +163,7 @@ def test_no_interval_needs_user_value(tmp_path):
 def test_nan_and_inf_samples_zeroed(tmp_path):
     data = _data()
     data[0, 0], data[4, 7] = np.nan, -np.inf
-    path = write_line_netcdf(tmp_path / "nan.nc", _line(data))
+    path = write_line_netcdf(_line(data), tmp_path / "nan.nc")
     with pytest.warns(SlicerWarning, match=r"nan\.nc: 2 NaN"):
         line = read_line_netcdf(path)
     finite = np.isfinite(data)
@@ -236,7 +236,7 @@ def test_any_truncation_raises_input_file_error(good, cut):
        interval=st.floats(0.001, 20.0), twt0=st.floats(-50.0, 50.0))
 def test_random_round_trip(tmp_path, data, interval, twt0):
     line = _line(data, interval_ns=interval, twt0=twt0)
-    back = read_line_netcdf(write_line_netcdf(tmp_path / "r.nc", line, overwrite=True))
+    back = read_line_netcdf(write_line_netcdf(line, tmp_path / "r.nc", overwrite=True))
     np.testing.assert_array_equal(back.values, data)
     np.testing.assert_array_equal(back["twt"].values, line["twt"].values)
     assert back.attrs["sample_interval_ns"] == interval

@@ -55,7 +55,7 @@ def _line(n_traces=4, n_samples=6, interval_ns=0.2, **coords):
 
 def test_line_info_is_frozen(tmp_path):
     # moved from tests/io/test_reading.py
-    path = write_segy_line(tmp_path / "a.sgy", _line())
+    path = write_segy_line(_line(), tmp_path / "a.sgy")
     info = line_info(path)
     assert isinstance(info, LineInfo) and info.path == path
     with pytest.raises(dataclasses.FrozenInstanceError):

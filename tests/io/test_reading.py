@@ -28,8 +28,8 @@ def _line(n_traces=4, n_samples=6, interval_ns=0.2):
 @pytest.fixture
 def files(tmp_path):
     line = _line()
-    return {"segy": write_segy_line(tmp_path / "a.sgy", line),
-            "netcdf": write_line_netcdf(tmp_path / "a.nc", line)}
+    return {"segy": write_segy_line(line, tmp_path / "a.sgy"),
+            "netcdf": write_line_netcdf(line, tmp_path / "a.nc")}
 
 
 @pytest.mark.parametrize("suffix", [".sgy", ".segy", ".SGY", ".SeGy"])

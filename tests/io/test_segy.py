@@ -75,7 +75,7 @@ def _plain_segyio(path, data, *, headers=None, binary=None, fmt=5):
 
 @pytest.fixture
 def good(tmp_path):
-    return write_segy_line(tmp_path / "good.sgy", _line(_data()))
+    return write_segy_line(_line(_data()), tmp_path / "good.sgy")
 
 
 # --- round trips and the written layout ------------------------------------------------------
@@ -84,7 +84,7 @@ def good(tmp_path):
 @pytest.mark.parametrize("code", [1, 2, 3, 5])
 def test_round_trip_each_format(tmp_path, code):
     data = _data()
-    path = write_segy_line(tmp_path / f"f{code}.sgy", _line(data), format_code=code)
+    path = write_segy_line(_line(data), tmp_path / f"f{code}.sgy", format_code=code)
     back = read_segy_line(path)
     peak = np.abs(data).max()
     if code == 5:
@@ -112,7 +112,7 @@ def test_round_trip_each_format(tmp_path, code):
 
 def test_layout_read_by_segyio_and_struct(tmp_path):
     data = _data(4, 11)
-    path = write_segy_line(tmp_path / "l.sgy", _line(data, interval_ns=0.25))
+    path = write_segy_line(_line(data, interval_ns=0.25), tmp_path / "l.sgy")
     with segyio.open(str(path), ignore_geometry=True) as f:
         assert f.tracecount == 4
         assert f.bin[BF.Samples] == 11                      # rev 1 bytes 3221-3222
@@ -194,7 +194,7 @@ def test_source_xy_used_when_cdp_is_zero(tmp_path):
 
 
 def test_no_coordinates_no_header_coords(tmp_path):
-    line = read_segy_line(write_segy_line(tmp_path / "n.sgy", _line(_data(), xy=False)))
+    line = read_segy_line(write_segy_line(_line(_data(), xy=False), tmp_path / "n.sgy"))
     assert "header_x" not in line.coords and "header_y" not in line.coords
 
 
@@ -217,7 +217,7 @@ def test_feet_and_angular_coordinates(tmp_path):
 
 
 def test_header_interval_used(tmp_path):
-    path = write_segy_line(tmp_path / "h.sgy", _line(_data(), interval_ns=0.0625))
+    path = write_segy_line(_line(_data(), interval_ns=0.0625), tmp_path / "h.sgy")
     assert segy_line_info(path).sample_interval_ns == 0.0625
     with warnings.catch_warnings():
         warnings.simplefilter("error", SlicerWarning)
@@ -277,7 +277,7 @@ def test_bad_user_interval(good, bad):
 def test_nan_and_inf_samples_zeroed(tmp_path):
     data = _data()
     data[1, 2], data[3, 0], data[5, 8] = np.nan, np.inf, -np.inf
-    path = write_segy_line(tmp_path / "nan.sgy", _line(data))
+    path = write_segy_line(_line(data), tmp_path / "nan.sgy")
     with pytest.warns(SlicerWarning, match=r"nan\.sgy: 3 NaN"):
         line = read_segy_line(path)
     finite = np.isfinite(data)
@@ -378,7 +378,7 @@ def test_garbage_only_raises_input_file_error(tmp_path, garbage):
 def test_random_round_trip(tmp_path, data, interval, offset):
     line = _line(data, interval_ns=interval)
     line = line.assign_coords(x=line["x"] + offset, y=line["y"] - offset)
-    back = read_segy_line(write_segy_line(tmp_path / "r.sgy", line, overwrite=True))
+    back = read_segy_line(write_segy_line(line, tmp_path / "r.sgy", overwrite=True))
     np.testing.assert_array_equal(back.values, data)
     assert back.attrs["sample_interval_ns"] == pytest.approx(interval, rel=1e-11)
     # Centimetre storage (scalar -100): each coordinate within half a centimetre, plus the
@@ -396,36 +396,36 @@ def test_writer_refuses_bad_options_and_lines(tmp_path):
     line = _line(_data())
     out = tmp_path / "w.sgy"
     with pytest.raises(SettingsError) as exc:
-        write_segy_line(out, line, format_code=4)
+        write_segy_line(line, out, format_code=4)
     assert exc.value.where == "format_code"
     for scalar in (0, 1.5, True, 40000):
         with pytest.raises(SettingsError):
-            write_segy_line(out, line, coordinate_scalar=scalar)
+            write_segy_line(line, out, coordinate_scalar=scalar)
     # Stack-notes trap 8: scalar -1000 puts a 4.6e6 m northing at 4.6e9 > 2**31 - 1.
     with pytest.raises(OutputError, match="overflow"):
-        write_segy_line(out, line, coordinate_scalar=-1000)
+        write_segy_line(line, out, coordinate_scalar=-1000)
     nan_line = line.copy(data=np.where(np.eye(6, 9, dtype=bool), np.nan, line.values))
     with pytest.raises(OutputError, match="integers"):
-        write_segy_line(out, nan_line, format_code=3)
+        write_segy_line(nan_line, out, format_code=3)
     with pytest.raises(OutputError):
-        write_segy_line(out, line.isel(twt=0))
+        write_segy_line(line.isel(twt=0), out)
     with pytest.raises(OutputError):
-        write_segy_line(out, line.assign_coords(x=line["x"].where(line["trace"] != 2)))
+        write_segy_line(line.assign_coords(x=line["x"].where(line["trace"] != 2)), out)
     assert list(tmp_path.iterdir()) == []  # nothing, not even a temporary file, is left
 
 
 def test_transposed_line_and_header_coords_are_written(tmp_path):
     data = _data(3, 4)
-    first = read_segy_line(write_segy_line(tmp_path / "a.sgy", _line(data)))
+    first = read_segy_line(write_segy_line(_line(data), tmp_path / "a.sgy"))
     # An unplaced line keeps its header coordinates when copied; dims order does not matter.
-    copy = read_segy_line(write_segy_line(tmp_path / "b.sgy", first.transpose("twt", "trace")))
+    copy = read_segy_line(write_segy_line(first.transpose("twt", "trace"), tmp_path / "b.sgy"))
     np.testing.assert_array_equal(copy.values, data)
     np.testing.assert_array_equal(copy["header_x"].values, first["header_x"].values)
 
 
 def test_writer_warns_about_implausible_interval(tmp_path):
     with pytest.warns(SlicerWarning, match="outside the radar range"):
-        path = write_segy_line(tmp_path / "slow.sgy", _line(_data(), interval_ns=50.0))
+        path = write_segy_line(_line(_data(), interval_ns=50.0), tmp_path / "slow.sgy")
     (interval_us,) = struct.unpack(">d", _bytes_at(path, 3273, 8))
     assert interval_us == 0.05  # stored all the same (rev 2.0 bytes 3273-3280)
     assert segy_line_info(path).sample_interval_ns is None

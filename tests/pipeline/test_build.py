@@ -366,7 +366,7 @@ def test_a_line_task_warning_reaches_the_record_from_worker_processes(small_surv
         line = read_line(small_survey.line_table.parent / name, sample_interval_ns=0.1)
         if k == 2:
             line.values[4, 200:207] = np.nan
-        write_line_netcdf(tmp_path / f"L{k}.nc", line)
+        write_line_netcdf(line, tmp_path / f"L{k}.nc")
         rows.append(text.replace(name, f"L{k}.nc", 1))
     (tmp_path / "lines.csv").write_text("\n".join(rows) + "\n")
     settings = slicer.load_settings(tmp_path / "lines.csv", sample_interval=0.1, time_zero=3.0,

@@ -67,8 +67,8 @@ def test_overwrite_keeps_the_users_files_and_replaces_the_earlier_builds(small_s
 def _line_named_like_an_output(small_survey, out: Path) -> Path:
     """A line table whose second line is a NetCDF line file ``out/cube.nc``."""
     out.mkdir(exist_ok=True)
-    write_line_netcdf(out / "cube.nc", read_line(small_survey.folder / "L001.sgy",
-                                                 sample_interval_ns=0.1))
+    write_line_netcdf(read_line(small_survey.folder / "L001.sgy",
+                                                 sample_interval_ns=0.1), out / "cube.nc")
     table = out.parent / "lines.csv"
     table.write_text("file,start_x,start_y,end_x,end_y\n"
                      f"{small_survey.folder / 'L000.sgy'},512000,4650000,512004,4650000\n"

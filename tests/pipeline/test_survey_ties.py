@@ -39,7 +39,7 @@ def _survey(folder, offsets, gains):
     rows = ["file,start_x,start_y,end_x,end_y"]
     for plan, offset, gain in zip(plans, offsets, gains, strict=True):
         raw = simulate_line(ground, dataclasses.replace(radar, time_zero_ns=3.0 + offset), plan)
-        write_segy_line(folder / f"{plan.name}.sgy", raw * np.float32(gain))
+        write_segy_line(raw * np.float32(gain), folder / f"{plan.name}.sgy")
         rows.append(f"{plan.name}.sgy,{plan.start_x},{plan.start_y},{plan.end_x},{plan.end_y}")
     (folder / "lines.csv").write_text("\n".join(rows) + "\n")
     return folder / "lines.csv", len(plans)

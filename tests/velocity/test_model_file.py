@@ -38,7 +38,7 @@ MODELS = [
 
 @pytest.mark.parametrize("model", MODELS, ids=lambda m: m.describe()[:20])
 def test_file_round_trip(tmp_path, model):
-    path = write_velocity_model(tmp_path / "v.toml", model)
+    path = write_velocity_model(model, tmp_path / "v.toml")
     assert read_velocity_model(path) == model
     assert [p.name for p in tmp_path.iterdir()] == ["v.toml"]  # no temporary file left
 
@@ -117,7 +117,7 @@ def test_file_round_trip_of_any_layered_model(layers):
     v, thick, s = (list(c) for c in zip(*layers, strict=True))
     model = LayeredVelocity.by_depth(np.concatenate([[0], np.cumsum(thick[:-1])]), v, s)
     with tempfile.TemporaryDirectory() as folder:
-        path = write_velocity_model(Path(folder) / "m.toml", model)
+        path = write_velocity_model(model, Path(folder) / "m.toml")
         assert read_velocity_model(path) == model
 
 
@@ -128,7 +128,7 @@ def test_any_note_round_trips(tmp_path_factory, note):
     back when the TOML was written by hand; tomli-w escapes it (TOML 1.0, section Strings)."""
     path = tmp_path_factory.mktemp("note") / "v.toml"
     model = LayeredVelocity.by_time([0.0, 10.0], [0.1, 0.08], [0.004, 0.003], note=note)
-    write_velocity_model(path, model)
+    write_velocity_model(model, path)
     back = read_velocity_model(path)
     assert back.note == note
     np.testing.assert_array_equal(back.velocity, model.velocity)
