@@ -12,7 +12,8 @@ this script measures, in one run on the same files:
   Stolt operator cache is cleared before every build, so each pays its set-up as a fresh
   ``slicer build`` process does;
 * migration's share of a migrated build: the thread CPU time spent in the migration cores
-  (``stolt_core``, ``phase_shift_core``), against the build's CPU time;
+  (``stolt_blocks`` without the steps run in its reads and writes, ``phase_shift_core``),
+  against the build's CPU time;
 * per line, serially, the processing chain with and without migration;
 * the Stolt mapping of one line's spectrum by the cached sparse operator against the library
   alternative the issue suggested, :func:`numpy.interp` per wavenumber (linear), each with its
@@ -115,12 +116,13 @@ def time_builds(table: Path, migrate: str, rounds: int, out: Path | None) -> dic
 
 
 def migration_share(table: Path, migrate: str, rounds: int) -> list[float]:
-    """Thread CPU time in the migration cores (:func:`slicer.processing.fk.stolt_core` and
+    """Thread CPU time in the migration cores (:func:`slicer.processing.fk.stolt_blocks` and
     ``phase_shift_core``, operators included, as both the line task and
     :func:`slicer.pipeline.line_chain.migrate_line` call them) over the build's CPU time, per
-    migrated build."""
+    migrated build. Since 2026-12-04 the line task's steps before and after migration run
+    inside Stolt's reads and writes of each block of traces: their time is taken out."""
     from slicer.processing import migration
-    originals = {name: getattr(migration, name) for name in ("stolt_core", "phase_shift_core")}
+    originals = {name: getattr(migration, name) for name in ("stolt_blocks", "phase_shift_core")}
     spent = []
 
     def timed(core):
@@ -132,9 +134,29 @@ def migration_share(table: Path, migrate: str, rounds: int) -> list[float]:
                 spent.append(time.thread_time() - started)
         return run
 
+    def timed_blocks(core):
+        def run(shape, read, write, **kwargs):
+            around = [0.0]  # the caller's steps, run inside the reads and writes
+
+            def apart(step):
+                def call(*args):
+                    started = time.thread_time()
+                    try:
+                        return step(*args)
+                    finally:
+                        around[0] += time.thread_time() - started
+                return call
+
+            started = time.thread_time()
+            try:
+                return core(shape, apart(read), apart(write), **kwargs)
+            finally:
+                spent.append(time.thread_time() - started - around[0])
+        return run
+
     shares = []
     for name, core in originals.items():
-        setattr(migration, name, timed(core))
+        setattr(migration, name, timed_blocks(core) if name == "stolt_blocks" else timed(core))
     try:
         for _ in range(rounds):
             spent.clear()
