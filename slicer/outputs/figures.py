@@ -262,7 +262,7 @@ def save_figure(figure: Figure, path: str | os.PathLike, *, dpi: float) -> Path:
     return path
 
 
-def plot_slice(cube: xr.DataArray, index: int, ax: Axes | None = None, *,
+def plot_slice(cube: xr.DataArray, index: int, *, ax: Axes | None = None,
                colormap=None, clip: tuple[float, float] = DEFAULT_CLIP,
                vmin: float | None = None, vmax: float | None = None, colorbar: bool = True,
                cmap=None, percentile=None) -> Axes:

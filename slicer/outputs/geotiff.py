@@ -45,7 +45,7 @@ if TYPE_CHECKING:
 _DECIMALS = {DEPTH: 3, TWT: 2, ELEVATION: 3}
 
 
-def slice_file_name(index: int, top: float, bottom: float, axis: str = DEPTH, *,
+def slice_file_name(index: int, top: float, bottom: float, *, axis: str = DEPTH,
                     digits: int = 3) -> str:
     """Return the GeoTIFF file name of one slice, e.g. ``slice_003_0.300-0.400m.tif``.
 
@@ -230,7 +230,8 @@ class SliceTiffWriter:
         self._descriptions: list[str] = []
         for i in range(n_slices):
             top, bottom = float(tops[i]), float(bottoms[i])
-            self.paths.append(self.folder / slice_file_name(i, top, bottom, axis, digits=digits))
+            self.paths.append(self.folder / slice_file_name(i, top, bottom, axis=axis,
+                                                            digits=digits))
             per_slice = {f"{axis.upper()}_TOP": _number(top),
                          f"{axis.upper()}_BOTTOM": _number(bottom)}
             if "depth_error" in cube.coords:  # one-sigma depth error from the velocity's std

@@ -353,6 +353,9 @@ def fit_hyperbola(x_m, t_ns, *, radius: bool = False, weights=None,
         if not (math.isfinite(bound) and bound > 0):
             raise SettingsError(f"must be a positive radius in m, got {max_radius!r}",
                                 where="max_radius")
+        # a bound past any radar target (10 km) is the same fit; near 1e306 the solver's
+        # scaling overflowed to NaN
+        bound = min(bound, 1e4)
         lower, upper = np.append(lower, 0.0), np.append(upper, bound)
         # a few starting radii: the radius trades off against velocity, so one start can stall
         # (from radii up to the apex depth: a bound far above it starts nowhere useful)

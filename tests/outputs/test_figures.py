@@ -306,7 +306,7 @@ def test_plot_slice_on_new_and_given_axes():
     assert len(ax.figure.axes) == 2  # the panel and its colorbar
     host = Figure()
     given_ax = host.add_subplot()
-    assert plot_slice(cube, -1, given_ax, colorbar=False, vmin=0, vmax=1) is given_ax
+    assert plot_slice(cube, -1, ax=given_ax, colorbar=False, vmin=0, vmax=1) is given_ax
     norm = given_ax.get_images()[0].norm
     assert (norm.vmin, norm.vmax) == (0, 1)
     with pytest.raises(SettingsError, match="index"):

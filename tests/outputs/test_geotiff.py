@@ -262,10 +262,10 @@ def test_failed_write_keeps_existing_file(tmp_path, monkeypatch):
 
 
 def test_file_name_example():
-    assert slice_file_name(3, 0.3, 0.4, "depth") == "slice_003_0.300-0.400m.tif"
-    assert slice_file_name(12, 10, 12.5, "twt") == "slice_012_10.00-12.50ns.tif"
+    assert slice_file_name(3, 0.3, 0.4, axis="depth") == "slice_003_0.300-0.400m.tif"
+    assert slice_file_name(12, 10, 12.5, axis="twt") == "slice_012_10.00-12.50ns.tif"
     with pytest.raises(SettingsError):
-        slice_file_name(0, 0, 1, "time")
+        slice_file_name(0, 0, 1, axis="time")
 
 
 @settings(max_examples=60, deadline=None)
@@ -275,13 +275,13 @@ def test_file_names_sort_by_depth(tops, thickness, axis):
     # Names listed in slice order (sorted tops) must also be in lexical order, which is how
     # file browsers and `ls` present them.
     ordered = sorted(tops)
-    names = [slice_file_name(i, t, t + thickness, axis) for i, t in enumerate(ordered)]
+    names = [slice_file_name(i, t, t + thickness, axis=axis) for i, t in enumerate(ordered)]
     assert sorted(names) == names
     assert len(set(names)) == len(names)
 
 
 def test_file_names_sort_beyond_a_thousand_slices():
-    names = [slice_file_name(i, i * 0.01, i * 0.01 + 0.01, "depth", digits=4)
+    names = [slice_file_name(i, i * 0.01, i * 0.01 + 0.01, axis="depth", digits=4)
              for i in range(1200)]
     assert sorted(names) == names
 

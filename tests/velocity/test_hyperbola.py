@@ -73,6 +73,18 @@ def test_round_target_fit_recovers_radius():
     assert fit_hyperbola(x, t).velocity > 0.103
 
 
+@pytest.mark.parametrize("max_radius", [50.0, 5.76e306, 1.7e308])
+def test_any_finite_radius_bound_past_the_target_fits_alike(max_radius):
+    # the same analytic round-target hyperbola (hyperbola_time, the textbook form) fitted
+    # with a loose and an absurd bound on the radius: the same fit (a bound near 1e306 had
+    # made the solver's scaling overflow into a NumPy ValueError; found by hypothesis)
+    x = np.arange(-1.5, 1.51, 0.05)
+    t = hyperbola_time(x, x0=0.2, t0=24.0, velocity=0.1, radius=0.2)
+    fit = fit_hyperbola(x, t, radius=True, max_radius=max_radius)
+    assert fit.velocity == pytest.approx(0.1, rel=0.01)
+    assert fit.radius == pytest.approx(0.2, abs=0.005)
+
+
 def test_weights_let_a_bad_pick_count_less():
     x = np.arange(-1.0, 1.01, 0.1)
     t = hyperbola_time(x, x0=0.0, t0=20.0, velocity=0.1)
