@@ -20,6 +20,7 @@ import numpy as np
 import scipy.fft
 import scipy.sparse
 
+from slicer.core.errors import SettingsError
 from slicer.processing.hilbert import block_traces
 
 __all__ = ["MAX_LAYERS", "TAPS", "in_blocks", "phase_shift_core", "release_operators",
@@ -238,9 +239,8 @@ def stolt_blocks(shape: tuple[int, int], read: Callable[[int, int], np.ndarray],
     caller can run its steps before and after migration on each block while it is in cache
     (:func:`slicer.processing.migration.migration_plan`): a 3165-trace line of the 1 M
     benchmark survey then took 27.9 ms in dewow, background removal, migration, gain and
-    envelope against 28.5 ms with whole-line passes before and after (medians of 40), and
-    a migrated 1 M build's time went from 1.21-1.23 to 1.19-1.20 times the unmigrated
-    (benchmarks/README.md).
+    envelope against 28.5 ms with whole-line passes before and after (medians of 40;
+    benchmarks/README.md).
 
     Each block's traces are transformed along time as they are read; the band
     (:func:`band_columns`) is then transformed along the line (zero-padded to
@@ -248,7 +248,7 @@ def stolt_blocks(shape: tuple[int, int], read: Callable[[int, int], np.ndarray],
     block back along time as it is written. Frequencies above the band pass through.
     """
     nx, nt = shape
-    step = step or block_traces(nt)
+    step = _step(step, nt)
     nk = x_length(nx, dx, t_first + nt * dt, velocity)
     ntp = scipy.fft.next_fast_len(max(math.ceil(pad * nt), 2 * TAPS), real=True)
     spectrum = np.empty((nx, ntp // 2 + 1), dtype=np.complex64)
@@ -276,6 +276,17 @@ def stolt_blocks(shape: tuple[int, int], read: Callable[[int, int], np.ndarray],
         write(i, j, scipy.fft.irfft(spectrum[i:j], n=ntp, axis=1, overwrite_x=True)[:, :nt])
 
 
+def _step(step: int | None, nt: int) -> int:
+    """Traces per block: ``step``, or :func:`slicer.processing.hilbert.block_traces` for
+    ``nt`` samples when None; a step below one trace is refused (it would read nothing)."""
+    if step is None:
+        return block_traces(nt)
+    if isinstance(step, bool) or not isinstance(step, int | np.integer) or step < 1:
+        raise SettingsError(f"a block must hold at least one trace, got {step!r}",
+                            where="step")
+    return int(step)
+
+
 def in_blocks(core: Callable[..., np.ndarray]) -> Callable[..., None]:
     """A migration core of one array (:func:`phase_shift_core`) with the ``read`` and
     ``write`` of :func:`stolt_blocks`: every block read into one array, migrated whole, and
@@ -284,7 +295,7 @@ def in_blocks(core: Callable[..., np.ndarray]) -> Callable[..., None]:
     def blocks(shape: tuple[int, int], read, write, *, step: int | None = None,
                **kwargs) -> None:
         nx, nt = shape
-        step = step or block_traces(nt)
+        step = _step(step, nt)
         data = np.empty(shape, dtype=np.float32)
         for i in range(0, nx, step):
             data[i:i + step] = read(i, min(i + step, nx))

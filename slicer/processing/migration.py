@@ -250,7 +250,7 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
                    layer_tops=None, tops: str = "twt", taper: float = 0.2, pad: float = PAD,
                    band: float | None = 4.0, frequency: float | None = None,
                    where: str = "line"
-                   ) -> tuple[Callable[[np.ndarray], np.ndarray], str, float | None]:
+                   ) -> tuple[Callable[..., np.ndarray], str, float | None]:
     """The migration of :func:`migrate` for ``(..., trace, twt)`` samples on the axis ``twt``
     (ns), traces ``dx`` m apart: a function from samples to migrated float32 samples, the
     words for the history, and the velocity (m/ns) when it is one constant (else None).
@@ -258,7 +258,9 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
     The function takes the steps before and after migration as keywords, ``prepare`` and
     ``finish`` (each from a block of ``(trace, twt)`` samples to the processed block), and runs
     them on each block of traces as Stolt transforms it along time (a build's line task:
-    :func:`slicer.processing.fk.stolt_blocks`)."""
+    :func:`slicer.processing.fk.stolt_blocks`); phase shift gathers the prepared blocks into
+    one array, migrates it whole and finishes it block by block
+    (:func:`slicer.processing.fk.in_blocks`)."""
     if method not in METHODS:
         raise SettingsError(f"migration method must be one of {', '.join(METHODS)}, got "
                             f"{method!r}", where="--migration")
@@ -311,6 +313,8 @@ def migration_plan(twt: np.ndarray, *, dx: float, velocity, method: str = "stolt
         block of traces before and after it is migrated, while the block is in cache."""
         samples = np.asarray(samples)
         if samples.ndim > 2:  # (..., trace, twt): each line in turn
+            if samples.size == 0:
+                return np.empty(samples.shape, dtype=np.float32)
             flat = samples.reshape(-1, *samples.shape[-2:])
             return np.stack([apply(one, prepare=prepare, finish=finish)
                              for one in flat]).reshape(samples.shape)

@@ -9,6 +9,9 @@ Sources named beside the checks:
 - The zero-offset constant-velocity migration of one impulse at time t is a semicircle of
   radius v t / 2 (Stolt 1978, Geophysics 43:23-48, the impulse response of the mapping): no
   energy may land farther along the line, so none may wrap around the padded FFT either.
+- The 2-D discrete Fourier transform is separable (any signal-processing text): the transform
+  along time acts on each trace alone, so how the traces are grouped into blocks cannot change
+  the image beyond rounding, which the block tests check against ``scipy.fft`` per trace.
 """
 
 import math
@@ -233,6 +236,12 @@ def test_any_blocks_of_traces_migrate_to_the_image_of_the_whole_line(nx, step, s
 
     stolt_blocks(data.shape, read, write, step=step, **kwargs)
     spans = [(i, min(i + step, nx)) for i in range(0, nx, step)]
+    # the one step that sees every block at once is along time, trace by trace: scipy.fft's
+    # transform of each trace alone equals its row of the whole line's
+    ntp = scipy.fft.next_fast_len(math.ceil(1.5 * data.shape[1]), real=True)
+    rows = np.stack([scipy.fft.rfft(trace, n=ntp) for trace in data])
+    np.testing.assert_allclose(rows, scipy.fft.rfft(data, n=ntp, axis=1), rtol=0,
+                               atol=1e-6 * float(np.abs(rows).max()))
     assert events == [("read", *s) for s in spans] + [("write", *s) for s in spans]
     scale = float(np.abs(whole).max())
     np.testing.assert_allclose(got, whole, rtol=0, atol=1e-6 * scale)
@@ -252,3 +261,17 @@ def test_a_whole_line_core_in_blocks_is_the_core():
                                 lambda i, j, m: got.__setitem__(slice(i, j), m), step=10,
                                 **kwargs)
     np.testing.assert_array_equal(got, phase_shift_core(data, **kwargs))
+
+
+@pytest.mark.parametrize("step", [0, -3, 2.5, True])
+def test_a_block_of_no_traces_is_refused(step):
+    # a block must hold a trace: 0 or a negative step had read nothing and written nothing,
+    # silently (found by review)
+    from slicer.core.errors import SettingsError
+    from slicer.processing.fk import stolt_blocks
+    data = np.ones((4, 32), dtype=np.float32)
+    with pytest.raises(SettingsError, match="at least one trace") as info:
+        stolt_blocks(data.shape, lambda i, j: data[i:j], lambda i, j, m: None, step=step,
+                     dx=0.05, dt=0.1, t_first=0.0, velocity=0.1, taper=0.2, pad=1.5,
+                     band=None)
+    assert info.value.where == "step"

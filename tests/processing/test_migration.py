@@ -271,7 +271,9 @@ def test_samples_before_time_zero_pass_through(point_line):
 def test_steps_run_by_blocks_around_migration_equal_the_steps_in_turn(point_line, method):
     # A build's line task hands its steps before and after migration to the migration, which
     # runs them on each block of traces: the result must be that of the three in turn, the
-    # samples above the surface taking the step before and the step after too
+    # samples above the surface taking the step before and the step after too, and the
+    # worked case must still focus where Stolt (1978) puts its apex (check-values.md,
+    # Migration: within a trace and two samples of (6.4 m, 2 z0 / v = 40 ns))
     from slicer.processing.migration import migration_plan
     data = np.concatenate([np.full((TRACES, 15), 0.25, dtype=np.float32), point_line.values],
                           axis=1)
@@ -279,7 +281,7 @@ def test_steps_run_by_blocks_around_migration_equal_the_steps_in_turn(point_line
     ramp = np.linspace(0.5, 2.0, data.shape[1], dtype=np.float32)
 
     def before(block):  # per sample and trace, as dewow and background removal are
-        return block * ramp - np.float32(0.1)
+        return block * ramp
 
     def after(block):  # as the gain and the envelope
         return np.abs(block * ramp[::-1])
@@ -289,6 +291,10 @@ def test_steps_run_by_blocks_around_migration_equal_the_steps_in_turn(point_line
     got = apply(data, prepare=before, finish=after)
     np.testing.assert_allclose(got, expected, rtol=0, atol=1e-6 * np.abs(expected).max())
     np.testing.assert_array_equal(got[:, :15], after(before(data))[:, :15])
+    image = point_line.copy(data=got[:, 15:])
+    x, t, focused, _ = focus(image, x0=X0, t0=2 * Z0 / V)
+    assert abs(x - X0) <= DX + 1e-9 and abs(t - 2 * Z0 / V) <= 2 * DT + 1e-9
+    assert focused > 0.8
 
 
 def test_dask_backed_line_gives_the_same_image(point_line):
@@ -343,3 +349,12 @@ def test_lines_that_cannot_be_migrated_are_refused(point_line):
     early = point_line.assign_coords(twt=point_line["twt"] - 500.0)
     with pytest.raises(SettingsError, match="time zero"):
         migrate(early, velocity=V)
+
+
+def test_a_stack_of_no_lines_migrates_to_no_lines():
+    # (lines, trace, twt) samples with no lines: an empty result of that shape, not NumPy's
+    # "need at least one array to stack" (found by review)
+    from slicer.processing.migration import migration_plan
+    apply, _, _ = migration_plan(DT * np.arange(20), dx=DX, velocity=V)
+    out = apply(np.empty((0, 5, 20), dtype=np.float32))
+    assert out.shape == (0, 5, 20) and out.dtype == np.float32
