@@ -48,6 +48,8 @@ class VelocityAnalysis:
     separation: float = 0.0
     velocity_std_lines: float = math.nan
     velocity_std_aperture: float = 0.0
+    #: Half the widest disagreement with another well-supported group of fits, m/ns (0: none).
+    velocity_group_spread: float = 0.0
     #: The survey CRS of the fits' x and y (None: a local grid).
     crs: str | None = None
     #: Antenna height the picks were corrected with, m (None: not corrected).
@@ -57,12 +59,14 @@ class VelocityAnalysis:
 
     def to_json(self) -> dict:
         """``velocity``, ``velocity_std`` (m/ns; the standard uncertainty: in quadrature
-        ``velocity_std_lines``, the bootstrap over lines, and ``velocity_std_aperture``, the
+        ``velocity_std_lines``, the bootstrap over lines, ``velocity_std_aperture``, the
         systematic part from refits over narrower apertures and, with the picks corrected for
         the antennas' coupling, the antenna height's uncertainty and that of given target
-        radii), ``velocity_std_fits`` (from the fits' own errors), ``antenna_height`` (m, or
-        None), ``target_radius`` (the radii given, m, each with ``radius_std`` and its
-        ``route``, a list of ``[x, y]``, m), ``groups`` and
+        radii), ``velocity_group_spread`` (half the widest disagreement with another
+        well-supported group of fits, 0 for none), ``velocity_std_fits`` (from the fits' own
+        errors),
+        ``antenna_height`` (m, or None), ``target_radius`` (the radii given, m, each with
+        ``radius_std`` and its ``route``, a list of ``[x, y]``, m), ``groups`` and
         ``fits`` with position, time, depth (at the survey velocity, bistatic with the antenna
         separation), shape (``"point"``, ``"offset"`` or ``"round"``; ``delay``, ns, the
         fitted time offset and ``radius``, m, the fitted, given (``radius_given``) or
@@ -95,6 +99,7 @@ class VelocityAnalysis:
                 "velocity_std_fits": number(self.fit_std),
                 "velocity_std_lines": number(self.velocity_std_lines),
                 "velocity_std_aperture": number(self.velocity_std_aperture),
+                "velocity_group_spread": number(self.velocity_group_spread),
                 "antenna_separation": self.separation,
                 "antenna_height": self.antenna_height,
                 "target_radius": [t.to_json() for t in self.target_radius],
@@ -209,7 +214,8 @@ def analyse_velocity(settings: BuildSettings, *, progress: bool = True,
     return VelocityAnalysis(float(estimate.velocity), float(estimate.std), fits,
                             list(estimate.kept), float(estimate.fit_std), estimate.groups,
                             estimate.assessed, separation, float(estimate.std_lines),
-                            float(estimate.std_aperture), settings.crs,
+                            float(estimate.std_aperture), float(estimate.group_spread),
+                            settings.crs,
                             None if antenna_height is None else float(antenna_height),
                             targets)
 

@@ -75,6 +75,7 @@ def test_json_gives_each_fit_its_depth_at_the_survey_velocity(analysed):
     doc = json.loads(json.dumps(analysis.to_json()))  # plain JSON values only
     assert doc["velocity"] == analysis.velocity and doc["velocity_std"] == analysis.velocity_std
     assert doc["units"]["velocity"] == "m/ns" and doc["units"]["depth"] == "m"
+    assert doc["velocity_group_spread"] == analysis.velocity_group_spread >= 0.0
     assert len(doc["fits"]) == len(analysis.fits)
     assert sum(f["kept"] for f in doc["fits"]) == len(analysis.kept)
     for fit, row in zip(analysis.fits, doc["fits"], strict=True):

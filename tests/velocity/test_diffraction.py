@@ -138,9 +138,13 @@ def test_survey_velocity_takes_the_slowest_supported_group():
     fits = ([record(v) for v in 0.1 * (1 + 0.01 * rng.standard_normal(5))]
             + [record(v) for v in 0.2 * (1 + 0.01 * rng.standard_normal(12))]  # walls
             + [record(0.06), record(0.14)])  # isolated outliers
-    with pytest.warns(SlicerWarning, match="disagree"):  # the walls' group is not small
+    with pytest.warns(SlicerWarning, match="disagree.*half the widest difference: 0.0[45].*"
+                                           "--target-radius"):  # the walls' group is not small
         estimate = survey_velocity(fits)
     assert estimate.velocity == pytest.approx(0.1, rel=0.02)
+    # half the distance to the walls' group (0.2 m/ns, by construction), said beside the std
+    assert estimate.group_spread == pytest.approx(0.05, rel=0.05)
+    assert survey_velocity(fits[:5]).group_spread == 0.0  # one group: nothing to say
     assert len(estimate.kept) == 5 and all(abs(f.velocity - 0.1) < 0.01 for f in estimate.kept)
     assert np.median([f.velocity for f in fits]) > 0.15  # a plain median would take the walls
     # standard error of the median of five fits scattered by 1 %
