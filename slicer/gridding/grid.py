@@ -1,7 +1,7 @@
 """The output grid, and the neighbour weights that put traces onto it.
 
-Trace positions do not change from slice to slice, so the weights are computed once as a sparse
-matrix ``W`` (cells x traces, rows summing to 1) and every slice is ``W @ values``.
+Trace positions do not change from slice to slice: the weights are one sparse matrix ``W``
+(cells x traces, rows summing to 1), and every slice is ``W @ values``.
 
 Sampling is dense along lines and sparse across them. Each trace's weight for a cell is the
 product of two tents measured in that trace's own line frame: ``1 - |along| / h`` along its line
@@ -9,16 +9,15 @@ product of two tents measured in that trace's own line frame: ``1 - |along| / h`
 side of the line: the distance to the next parallel line on that side
 (:func:`slicer.gridding.neighbours.side_distances`). Between two parallel lines this is linear
 interpolation across the lines of values averaged over about a cell along them, so neither line
-is copied into the gap (no stripes), and no line weighs in beyond its neighbour on either side;
+is copied into the gap (no stripes), no line weighs in beyond its neighbour on either side, and
 lines of another direction (an orthogonal set) weigh in through their own frame.
 
 Gaps. Two lines at most ``max_gap`` apart (default :data:`MAX_GAP_SPACINGS` x the survey's line
 spacing) are *bridged*: every cell between them is interpolated. On a side with no parallel line
-within ``max_gap`` (a wider gap, or the survey's edge) the tent reaches the search radius
-``radius`` only, and a cell stays NaN unless a trace lies within ``radius`` of it. A cell that
-no tent reaches stays NaN too. So a wide gap is never filled by smearing the lines beside it,
-and the box of cells each trace visits spans at most ``along + max(max_gap, radius)`` either
-way, whatever the survey's layout (two blocks far apart included).
+within ``max_gap`` (a wider gap, the survey's edge) the tent reaches the search radius ``radius``
+only, and cells no tent reaches stay NaN. So a wide gap is never filled by smearing the lines
+beside it, and the box of cells each trace visits spans at most ``along + max(max_gap, radius)``
+either way, whatever the layout.
 """
 
 from __future__ import annotations
@@ -309,16 +308,19 @@ def trace_frame(x: np.ndarray, y: np.ndarray, line: np.ndarray, *, cell: float,
                       float(radius), s_median, float(max_gap))
 
 
-#: Most cells one trace's tents may reach (the box :func:`grid_weights` visits offset by
-#: offset): a 5 cm cell under tents 2 m across lines and 5 cm along reaches about 800.
+#: Most cells one trace's tents may reach (the box :func:`grid_weights` visits): 800 for a 5 cm
+#: cell under tents 2 m across lines and 5 cm along.
 MAX_REACH_CELLS = 1_000_000
 
 
 def _check_reach(along: float, wide: float, cell: float) -> None:
-    """Refuse a cell so much finer than the traces' reach that gridding would visit more than
-    :data:`MAX_REACH_CELLS` cells per trace (a 1e-7 m cell had asked for 19 TiB)."""
-    reach = (2 * math.ceil(max(along, wide) / cell) + 1) * (2 * math.ceil(min(along, wide)
-                                                                           / cell) + 1)
+    """Refuse a reach of more than :data:`MAX_REACH_CELLS` cells per trace (a 1e-7 m cell had
+    asked for 19 TiB) or past any float (a cell or radius near 1e308 m)."""
+    big, small = max(along, wide) / cell, min(along, wide) / cell
+    if not math.isfinite(big):
+        raise SettingsError(f"each trace's reach ({along:g} m along, {wide:g} m across) is "
+                            "far too large for any survey", where="--cell, --radius")
+    reach = (2 * math.ceil(big) + 1) * (2 * math.ceil(small) + 1)
     if reach > MAX_REACH_CELLS:
         least = max(along, wide) * min(along, wide) * 4 / MAX_REACH_CELLS
         raise SettingsError(f"a {cell:g} m cell puts {reach:.3g} cells within each trace's "

@@ -165,7 +165,9 @@ def outline(cube: xr.DataArray, *, threshold: float = THRESHOLD, min_area: float
     if min_area is not None and not (math.isfinite(min_area) and min_area >= 0):
         raise SettingsError(f"must be an area in m² (0 or more), got {min_area!r}",
                             where="--min-area")
-    min_cells = 4 if min_area is None else max(1, math.ceil(min_area / area - 1e-9))
+    # an area larger than the whole cube keeps nothing (an area near 1e306 overflowed ceil)
+    min_cells = 4 if min_area is None else max(1, math.ceil(
+        min(min_area / area, float(cube.size) + 1.0) - 1e-9))
     values = np.asarray(cube.values, dtype=np.float64)
     raw = anomaly_mask(cube, threshold=threshold, fraction=fraction, floor=floor)
     medians, sigmas = slice_background(values)

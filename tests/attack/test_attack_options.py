@@ -117,3 +117,17 @@ def test_text_is_refused_naming_the_option(name):
     with pytest.raises(SettingsError) as info:
         CALLS[name]("abc")
     assert info.value.where  # the option (or the object) at fault is named
+
+
+@pytest.mark.parametrize("name", ["grid_slices cell", "grid_slices radius", "outline min_area",
+                                  "fit_hyperbola max_radius"])
+@pytest.mark.parametrize("value", [4.494232837155791e305, 1.7e308])
+def test_the_largest_floats_are_one_settings_error_or_a_result(name, value):
+    # values the random search above found (or, for the cell and radius, a sweep of extremes
+    # on 2026-12-04): each had overflowed into an OverflowError or a NumPy ValueError
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        try:
+            CALLS[name](value)
+        except SlicerError as exc:
+            assert str(exc)  # one line naming the option

@@ -66,6 +66,10 @@ def test_holes_are_filled_and_specks_dropped():
     assert not any(p["geometry"].contains(speck) for p in out.patches)
     kept = outline(cube_with_anomalies(), min_area=0.0)
     assert any(p["geometry"].contains(speck) for p in kept.patches)
+    # an area beyond the whole grid keeps nothing, up to the largest float (4.5e305 m² had
+    # overflowed into an OverflowError; found by the hypothesis attack on options)
+    for huge in (1e9, 4.494232837155791e305, 1.7e308):
+        assert outline(cube_with_anomalies(), min_area=huge).patches == []
 
 
 def test_noise_alone_makes_few_outlines():
